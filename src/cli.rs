@@ -1,0 +1,159 @@
+//! The command line: clap's raw flags, validated only, then resolved into the library's plain
+//! settings (the library never sees clap types). Only the binary uses this module.
+
+use std::path::PathBuf;
+
+use clap::{Args, Parser, Subcommand};
+
+use platekin::settings::SettingLayer;
+
+/// Initial rates, linearity checks and Michaelis-Menten fits for continuous enzyme assays read in
+/// microplates. Results support, and do not replace, your lab's validated procedures.
+#[derive(Debug, Parser)]
+#[command(name = "platekin", version, about, long_about = None)]
+pub struct Cli {
+    /// What to do.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// The subcommands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Analyse a plate: rates per well, flags, per-condition table and Michaelis-Menten fits.
+    Run(Box<RunArgs>),
+    /// Show what was understood of a raw export: shape, plate, wells, reads, times, unreadable cells.
+    Inspect(InspectArgs),
+    /// Run the embedded demo plate (an invented esterase assay) and write its results.
+    Demo(DemoArgs),
+}
+
+/// How the raw export is read (shared by `run` and `inspect`).
+#[derive(Debug, Args)]
+pub struct ReadArgs {
+    /// Sheet of a spreadsheet export (default: the first sheet holding data).
+    #[arg(long, value_name = "NAME")]
+    pub sheet: Option<String>,
+    /// Force the export's shape instead of detecting it.
+    #[arg(long, value_name = "wide|grid|long")]
+    pub shape: Option<String>,
+    /// Force the plate format instead of inferring it from the well IDs.
+    #[arg(long, value_name = "96|384|1536")]
+    pub plate: Option<String>,
+    /// Unit of plain-number times when the header gives none.
+    #[arg(long, value_name = "s|min|h")]
+    pub time_unit: Option<String>,
+    /// A data row cut short: `refuse` it, or read its missing cells as `unreadable` (default).
+    #[arg(long, value_name = "refuse|unreadable")]
+    pub short_rows: Option<String>,
+}
+
+/// `platekin run`.
+#[derive(Debug, Args)]
+pub struct RunArgs {
+    /// The plate reader's raw kinetic export (CSV, TSV, TXT, XLSX, XLS or ODS).
+    pub data: PathBuf,
+    /// The plate layout (tidy table or plate-shaped grid; CSV or spreadsheet).
+    #[arg(long, value_name = "LAYOUT")]
+    pub layout: Option<PathBuf>,
+    /// Output folder.
+    #[arg(long, value_name = "DIR")]
+    pub out: PathBuf,
+    /// Write into a non-empty folder that platekin did not make.
+    #[arg(long)]
+    pub force: bool,
+    /// Assay settings file (TOML, same keys as these flags; flags win).
+    #[arg(long, value_name = "assay.toml")]
+    pub assay: Option<PathBuf>,
+    /// Sheet of a spreadsheet layout.
+    #[arg(long, value_name = "NAME")]
+    pub layout_sheet: Option<String>,
+    #[command(flatten)]
+    pub read: ReadArgs,
+    /// The species read is formed (`product`, signal rises) or consumed (`substrate`, signal falls).
+    #[arg(long, value_name = "product|substrate")]
+    pub readout: Option<String>,
+    /// Extinction coefficient of the species read at the read wavelength, M^-1 cm^-1.
+    #[arg(long, value_name = "M^-1 cm^-1")]
+    pub extinction: Option<f64>,
+    /// Optical pathlength, cm (the liquid height in a plate, not 1 cm).
+    #[arg(long, value_name = "cm")]
+    pub pathlength: Option<f64>,
+    /// Dead time: reads before this many seconds are ignored.
+    #[arg(long, value_name = "SECONDS")]
+    pub skip: Option<f64>,
+    /// Largest fraction of substrate converted in an initial-rate window (default 0.10).
+    #[arg(long, value_name = "FRACTION")]
+    pub max_conversion: Option<f64>,
+    /// Fewest reads in a window (default 5).
+    #[arg(long, value_name = "N")]
+    pub min_points: Option<usize>,
+    /// A fixed window `start:end` in seconds instead of the automatic choice.
+    #[arg(long, value_name = "START:END")]
+    pub window: Option<String>,
+    /// Absorbance above which reads are not used (default 3.0).
+    #[arg(long, value_name = "AU")]
+    pub max_absorbance: Option<f64>,
+    /// Level of the straightness tests (default 0.01).
+    #[arg(long, value_name = "LEVEL")]
+    pub alpha: Option<f64>,
+    /// Keep flagged wells in condition means and fits.
+    #[arg(long)]
+    pub keep_flagged: bool,
+    /// Layout wells absent from the data only warn.
+    #[arg(long)]
+    pub allow_missing: bool,
+}
+
+/// `platekin inspect`.
+#[derive(Debug, Args)]
+pub struct InspectArgs {
+    /// The raw export to describe.
+    pub data: PathBuf,
+    #[command(flatten)]
+    pub read: ReadArgs,
+}
+
+/// `platekin demo`.
+#[derive(Debug, Args)]
+pub struct DemoArgs {
+    /// Output folder.
+    #[arg(long, value_name = "DIR", default_value = "platekin-demo")]
+    pub out: PathBuf,
+}
+
+impl ReadArgs {
+    /// The reading flags as a settings layer.
+    pub fn layer(&self) -> SettingLayer {
+        SettingLayer {
+            sheet: self.sheet.clone(),
+            shape: self.shape.clone(),
+            plate: self.plate.clone(),
+            time_unit: self.time_unit.clone(),
+            short_rows: self.short_rows.clone(),
+            ..SettingLayer::default()
+        }
+    }
+}
+
+impl RunArgs {
+    /// The flags as a settings layer (a switch left off is "not set", so an assay file may set it).
+    pub fn layer(&self) -> SettingLayer {
+        SettingLayer {
+            layout: self.layout.clone(),
+            layout_sheet: self.layout_sheet.clone(),
+            readout: self.readout.clone(),
+            extinction: self.extinction,
+            pathlength: self.pathlength,
+            skip: self.skip,
+            max_conversion: self.max_conversion,
+            min_points: self.min_points,
+            window: self.window.clone(),
+            max_absorbance: self.max_absorbance,
+            alpha: self.alpha,
+            keep_flagged: self.keep_flagged.then_some(true),
+            allow_missing: self.allow_missing.then_some(true),
+            ..self.read.layer()
+        }
+    }
+}

@@ -1,0 +1,21 @@
+//! Curve fitting for platekin: a general nonlinear least-squares core (Levenberg-Marquardt through
+//! argmin, asymptotic standard errors, t and F quantiles) and the Michaelis-Menten fit built on it.
+//!
+//! Residuals are always `model - observed`. Every result type is `serde::Serialize`.
+
+pub mod least_squares;
+pub mod michaelis_menten;
+
+pub use least_squares::{
+    asymptotic_covariance, check_jacobian, check_jacobian_scaled, confidence_interval_95, f_quantile,
+    finite_difference_jacobian, finite_difference_jacobian_scaled, fit_least_squares, t_quantile,
+    t_quantile_975, ConvergenceTest, CovarianceSummary, FitError, JacobianDiscrepancy, LeastSquaresFit,
+    LeastSquaresOptions, LevenbergMarquardt, LevenbergMarquardtState, ResidualModel, ResidualProblem,
+    StopReason,
+};
+pub use michaelis_menten::{
+    fit_michaelis_menten, linearised_estimates, michaelis_menten_rate, turnover_estimates,
+    vmax_over_km_delta_method, LinearisedEstimate, LinearisedEstimates, MichaelisMentenFit,
+    MichaelisMentenModel, MichaelisMentenOptions, ParameterEstimate, SpecificityModel, StartMethod,
+    TurnoverEstimates, MAXIMUM_RELATIVE_STANDARD_ERROR, SUBSTRATE_ABOVE_KM_FACTOR, SUBSTRATE_BELOW_KM_FACTOR,
+};

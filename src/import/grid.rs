@@ -1,0 +1,355 @@
+//! The grid shape: one plate-shaped block per read. Each block is a time line (`Time 0:01:30`,
+//! `t = 90 s`, `Cycle 3, Time 0:01:30`), optionally a temperature line, a row of column numbers
+//! (first cell empty or a label) and one row per plate-row letter (`A`, `B`, ...).
+
+use crate::cells::{Cell, CellGrid};
+use crate::plate::{parse_row_letters, row_label, WellId};
+
+use super::time::{parse_block_line, BlockTime, HeaderTimeUnit};
+use super::{
+    short_row, time_text_error, DataShape, ImportError, ImportOptions, ReadRecord, ShapeTable, TimeUnitRule,
+    WellColumn, WellMap,
+};
+
+/// The most plate rows and columns a block can have (a 1536-well plate).
+const MAX_PLATE_ROWS: usize = 32;
+/// See [`MAX_PLATE_ROWS`].
+const MAX_PLATE_COLUMNS: usize = 48;
+
+/// The plate row a cell names (`A`..`Z`, `AA`..`AF`), if it names one.
+fn row_letter(cell: &Cell) -> Option<u16> {
+    match cell {
+        Cell::Text(text) => parse_row_letters(text.trim()),
+        _ => None,
+    }
+}
+
+/// The plate column numbers of a row of column numbers (cells after the first: strictly
+/// increasing whole numbers 1..=48), each with its zero-based cell index.
+fn column_numbers(cells: &[Cell]) -> Option<Vec<(u16, usize)>> {
+    let width = cells.iter().rposition(|cell| !cell.is_empty())? + 1;
+    if width < 2 || matches!(cells.first(), Some(Cell::Number(_) | Cell::Duration(_))) {
+        return None;
+    }
+    let mut numbers = Vec::with_capacity(width - 1);
+    let mut previous = 0.0;
+    for (index, cell) in cells[..width].iter().enumerate().skip(1) {
+        match cell {
+            Cell::Number(value)
+                if value.fract() == 0.0 && *value > previous && *value <= MAX_PLATE_COLUMNS as f64 =>
+            {
+                previous = *value;
+                // Whole, positive and at most 48: the conversion is exact.
+                numbers.push((*value as u16 - 1, index));
+            }
+            _ => return None,
+        }
+    }
+    Some(numbers)
+}
+
+/// Whether zero-based `row` is a block's row of column numbers: its cells after the first are
+/// 1, 2, 3, ... and the next row starts with a plate-row letter.
+pub(super) fn is_column_number_row(grid: &CellGrid, row: usize) -> bool {
+    let Some(cells) = grid.rows.get(row) else {
+        return false;
+    };
+    plate_row_of(grid, row + 1).is_some() && column_numbers(cells).is_some()
+}
+
+/// One block as found.
+struct Block {
+    /// The read's time line (as written) and its zero-based row.
+    time: (BlockTime, usize),
+    /// The read's temperature, if the block has a temperature line.
+    temperature_c: Option<f64>,
+    /// Zero-based row of the column numbers.
+    column_row: usize,
+    /// Plate column (zero-based) to cell index.
+    cell_of_column: [Option<usize>; MAX_PLATE_COLUMNS],
+    /// Plate row (zero-based) to zero-based grid row.
+    row_of_plate_row: [Option<usize>; MAX_PLATE_ROWS],
+}
+
+/// Reads every block of a grid export.
+///
+/// Temperature lines: one inside a block (between its time line and its column numbers) belongs
+/// to that block; one after a block's plate rows belongs to that block if it has none yet, else
+/// to the next block.
+pub(super) fn parse(grid: &CellGrid, options: &ImportOptions) -> Result<ShapeTable, ImportError> {
+    let mut blocks: Vec<Block> = Vec::new();
+    let mut pending_time: Option<(BlockTime, usize)> = None;
+    let mut pending_temperature: Option<f64> = None;
+    let mut warnings: Vec<String> = Vec::new();
+    let mut row = 0;
+    while row < grid.rows.len() {
+        if grid.row_is_blank(row) {
+            row += 1;
+            continue;
+        }
+        if is_column_number_row(grid, row) {
+            let block = read_block(grid, row, &mut pending_time, &mut pending_temperature)?;
+            row = block
+                .row_of_plate_row
+                .iter()
+                .flatten()
+                .max()
+                .map_or(row, |last| *last)
+                + 1;
+            blocks.push(block);
+            continue;
+        }
+        let line = parse_block_line(&grid.rows[row])
+            .map_err(|error| time_text_error(error.error, grid.position(row, Some(error.column))))?;
+        if let Some(line) = line {
+            if let Some(time) = line.time {
+                if let Some((_, earlier)) = pending_time.replace((time, row)) {
+                    warnings.push(format!(
+                        "{}: a time line with no plate block below it; ignored",
+                        grid.position(earlier, None)
+                    ));
+                }
+            }
+            if let Some(temperature) = line.temperature_c {
+                match blocks.last_mut() {
+                    Some(last) if pending_time.is_none() && last.temperature_c.is_none() => {
+                        last.temperature_c = Some(temperature);
+                    }
+                    _ => pending_temperature = Some(temperature),
+                }
+            }
+        }
+        row += 1;
+    }
+    if let Some((_, earlier)) = pending_time {
+        warnings.push(format!(
+            "{}: a time line with no plate block below it; ignored",
+            grid.position(earlier, None)
+        ));
+    }
+    assemble(grid, blocks, options, warnings)
+}
+
+/// Reads the block whose column numbers are on zero-based `column_row`.
+fn read_block(
+    grid: &CellGrid,
+    column_row: usize,
+    pending_time: &mut Option<(BlockTime, usize)>,
+    pending_temperature: &mut Option<f64>,
+) -> Result<Block, ImportError> {
+    // The time may also be the label of the column-number row itself (`Time 0:01:30 | 1 | 2 ...`).
+    if pending_time.is_none() {
+        let label = &grid.rows[column_row][..1];
+        if let Ok(Some(line)) = parse_block_line(label) {
+            if let Some(time) = line.time {
+                *pending_time = Some((time, column_row));
+            }
+            if let Some(temperature) = line.temperature_c {
+                *pending_temperature = Some(temperature);
+            }
+        }
+    }
+    let Some(time) = pending_time.take() else {
+        return Err(ImportError::MissingBlockTime {
+            position: grid.position(column_row, None),
+        });
+    };
+    let mut cell_of_column = [None; MAX_PLATE_COLUMNS];
+    for (column, index) in column_numbers(&grid.rows[column_row]).unwrap_or_default() {
+        cell_of_column[usize::from(column)] = Some(index);
+    }
+    let mut row_of_plate_row: [Option<usize>; MAX_PLATE_ROWS] = [None; MAX_PLATE_ROWS];
+    let mut previous_plate_row: Option<u16> = None;
+    let mut row = column_row + 1;
+    while let Some(plate_row) = plate_row_of(grid, row) {
+        if let Some(first) = row_of_plate_row[usize::from(plate_row)] {
+            // The first plate column of the block names the well and both cells.
+            let (plate_column, cell_index) = cell_of_column
+                .iter()
+                .enumerate()
+                .find_map(|(column, cell)| cell.map(|cell| (column as u16, cell)))
+                .unwrap_or((0, 1));
+            return Err(ImportError::DuplicateWell {
+                well: WellId::new(plate_row, plate_column),
+                positions: Box::new([
+                    grid.position(first, Some(cell_index)),
+                    grid.position(row, Some(cell_index)),
+                ]),
+            });
+        }
+        // Plate rows run downwards (A, B, ...); a letter out of order (`T = 30 °C` split into
+        // cells) ends the block.
+        if previous_plate_row.is_some_and(|previous| plate_row < previous) {
+            break;
+        }
+        row_of_plate_row[usize::from(plate_row)] = Some(row);
+        previous_plate_row = Some(plate_row);
+        row += 1;
+    }
+    Ok(Block {
+        time,
+        temperature_c: pending_temperature.take(),
+        column_row,
+        cell_of_column,
+        row_of_plate_row,
+    })
+}
+
+/// The plate row that zero-based `row` holds, if it is a plate row: a row letter first, and not
+/// a split line such as `T | = | 30.1 | °C`.
+fn plate_row_of(grid: &CellGrid, row: usize) -> Option<u16> {
+    let plate_row = row_letter(grid.cell(row, 0))?;
+    match grid.cell(row, 1) {
+        Cell::Text(text) if matches!(text.as_str(), "=" | ":") => None,
+        _ => Some(plate_row),
+    }
+}
+
+/// Turns the blocks into reads and wells.
+fn assemble(
+    grid: &CellGrid,
+    blocks: Vec<Block>,
+    options: &ImportOptions,
+    mut warnings: Vec<String>,
+) -> Result<ShapeTable, ImportError> {
+    // A well exists if some block shows a non-empty cell for it: a plate position blank in every
+    // read is an unused well, not a well with no readings.
+    let mut present: WellMap<(usize, usize)> = WellMap::new();
+    for block in &blocks {
+        for (plate_row, grid_row) in block.row_of_plate_row.iter().enumerate() {
+            let Some(grid_row) = *grid_row else { continue };
+            for (plate_column, cell_index) in block.cell_of_column.iter().enumerate() {
+                let Some(cell_index) = *cell_index else { continue };
+                if !grid.cell(grid_row, cell_index).is_empty() {
+                    let well = WellId::new(plate_row as u16, plate_column as u16);
+                    let _ = present.insert_new(well, (grid_row, cell_index));
+                }
+            }
+        }
+    }
+    let mut wells: Vec<WellColumn> = (0..MAX_PLATE_ROWS as u16)
+        .flat_map(|row| (0..MAX_PLATE_COLUMNS as u16).map(move |column| WellId::new(row, column)))
+        .filter_map(|well| {
+            present
+                .get(well)
+                .map(|named_at| WellColumn::new(well, named_at, blocks.len()))
+        })
+        .collect();
+    let Some(first_block) = blocks.first() else {
+        return Err(ImportError::NoShape {
+            origin: grid.source.clone(),
+            searched: format!("rows 1-{}", grid.rows.len()),
+            looked_for: DataShape::Grid.looked_for().to_string(),
+        });
+    };
+    if wells.is_empty() {
+        return Err(ImportError::NoWells {
+            position: grid.position(first_block.column_row, None),
+            detail: "every cell of every plate block is empty".to_string(),
+        });
+    }
+    let mut reads: Vec<ReadRecord> = Vec::with_capacity(blocks.len());
+    let mut temperatures: Vec<Option<f64>> = Vec::with_capacity(blocks.len());
+    for block in &blocks {
+        let (time, time_row) = &block.time;
+        let stated = match time.unit {
+            Some(unit) => HeaderTimeUnit::Unit(unit),
+            None => HeaderTimeUnit::Absent,
+        };
+        let position = || grid.position(*time_row, Some(time.column));
+        let units = TimeUnitRule::settle(&stated, options.time_unit, position)?;
+        let time_s = units.seconds(time.raw, position)?;
+        check_block_complete(grid, block, &wells, options, &mut warnings)?;
+        for trace in &mut wells {
+            let plate_row = block.row_of_plate_row[usize::from(trace.well.row)];
+            let cell_index = block.cell_of_column[usize::from(trace.well.column)];
+            match (plate_row, cell_index) {
+                (Some(grid_row), Some(cell_index)) => {
+                    trace.push_cell(grid.rows[grid_row].get(cell_index), grid_row, cell_index);
+                }
+                // No cell exists for this well in this block: a gap, named in the warning above.
+                _ => trace.values.push(None),
+            }
+        }
+        temperatures.push(block.temperature_c);
+        reads.push(ReadRecord {
+            time_s,
+            row: *time_row,
+            column: time.column,
+        });
+    }
+    let has_temperature = temperatures.iter().any(Option::is_some);
+    Ok(ShapeTable {
+        shape: DataShape::Grid,
+        reads,
+        temperatures_c: has_temperature.then_some(temperatures),
+        wells,
+        warnings,
+    })
+}
+
+/// Applies the short-row policy to a block's rows cut short and to plate rows or columns the
+/// block lacks while other blocks have them.
+fn check_block_complete(
+    grid: &CellGrid,
+    block: &Block,
+    wells: &[WellColumn],
+    options: &ImportOptions,
+    warnings: &mut Vec<String>,
+) -> Result<(), ImportError> {
+    let mut needed_rows = [false; MAX_PLATE_ROWS];
+    let mut needed_width_of_row = [0usize; MAX_PLATE_ROWS];
+    let mut needed_columns = [false; MAX_PLATE_COLUMNS];
+    for trace in wells {
+        let (row, column) = (usize::from(trace.well.row), usize::from(trace.well.column));
+        needed_rows[row] = true;
+        needed_columns[column] = true;
+        if let Some(cell_index) = block.cell_of_column[column] {
+            needed_width_of_row[row] = needed_width_of_row[row].max(cell_index + 1);
+        }
+    }
+    let missing_rows: Vec<String> = (0..MAX_PLATE_ROWS)
+        .filter(|&row| needed_rows[row] && block.row_of_plate_row[row].is_none())
+        .map(|row| row_label(row as u16))
+        .collect();
+    let missing_columns: Vec<String> = (0..MAX_PLATE_COLUMNS)
+        .filter(|&column| needed_columns[column] && block.cell_of_column[column].is_none())
+        .map(|column| (column + 1).to_string())
+        .collect();
+    if !missing_rows.is_empty() || !missing_columns.is_empty() {
+        let mut parts = Vec::new();
+        if !missing_rows.is_empty() {
+            parts.push(format!("no plate row {}", missing_rows.join(", ")));
+        }
+        if !missing_columns.is_empty() {
+            parts.push(format!("no plate column {}", missing_columns.join(", ")));
+        }
+        short_row(
+            grid,
+            options,
+            block.column_row,
+            format!(
+                "the plate block has {} that other blocks have",
+                parts.join(" and ")
+            ),
+            "those wells have no reading in this read",
+            warnings,
+        )?;
+    }
+    for (plate_row, grid_row) in block.row_of_plate_row.iter().enumerate() {
+        let Some(grid_row) = *grid_row else { continue };
+        let length = grid.rows[grid_row].len();
+        let needed = needed_width_of_row[plate_row];
+        if length < needed {
+            short_row(
+                grid,
+                options,
+                grid_row,
+                format!("{length} cells where the block's column numbers need {needed}"),
+                "its missing well cells are unreadable",
+                warnings,
+            )?;
+        }
+    }
+    Ok(())
+}

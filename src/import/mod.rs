@@ -1,0 +1,759 @@
+//! Import of a raw plate-reader kinetic export into per-well traces: detects the table's shape
+//! (wide, grid or long), reads the times into seconds without ever guessing a unit, keeps
+//! unreadable cells (over-range markers, blanks) as gaps with their positions instead of zeros,
+//! and infers the plate format from the well IDs.
+//!
+//! Every error names the file, sheet, row and column (or well) it is about; every warning names
+//! the file, sheet and row.
+
+mod grid;
+mod long;
+mod report;
+#[cfg(test)]
+mod tests;
+mod time;
+mod wide;
+
+use std::fmt;
+use std::io::Cursor;
+use std::path::Path;
+use std::str::FromStr;
+
+use calamine::Reader;
+
+use crate::cells::{Cell, CellGrid, Position, Source};
+use crate::plate::{PlateFormat, WellId};
+use crate::sheet_reader::{read_cells, read_spreadsheet_cells, SheetReadError};
+use crate::units::TimeUnit;
+
+pub use report::inspect_report;
+
+use time::{classify_header, HeaderKind, HeaderTimeUnit, RawTime, TimeTextError};
+
+/// The layout of a kinetic export.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum DataShape {
+    /// One header row: a time column and one column per well; one row per read.
+    Wide,
+    /// One plate-shaped block per read (rows A, B, ... by columns 1, 2, ...) under a time line.
+    Grid,
+    /// One row per well per read, with well, time and value columns.
+    Long,
+}
+
+impl DataShape {
+    /// Every shape, in the order detection tries them on one row.
+    pub const ALL: [DataShape; 3] = [Self::Wide, Self::Grid, Self::Long];
+
+    /// The lowercase name used on the command line and in reports.
+    pub fn name(self) -> &'static str {
+        match self {
+            Self::Wide => "wide",
+            Self::Grid => "grid",
+            Self::Long => "long",
+        }
+    }
+
+    /// What detection looks for, for the "no shape recognised" error.
+    fn looked_for(self) -> &'static str {
+        match self {
+            Self::Wide => {
+                "a wide header row (a time column such as `Time [s]` beside well columns `A1` or `A01`)"
+            }
+            Self::Grid => {
+                "a grid block (a row of column numbers 1, 2, 3, ... followed by rows starting A, B, ...)"
+            }
+            Self::Long => {
+                "a long table (a header row with a `well` column, a time column and a value column)"
+            }
+        }
+    }
+}
+
+impl fmt::Display for DataShape {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+impl FromStr for DataShape {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "wide" => Ok(Self::Wide),
+            "grid" => Ok(Self::Grid),
+            "long" => Ok(Self::Long),
+            other => Err(format!(
+                "unknown data shape '{other}' (expected wide, grid or long)"
+            )),
+        }
+    }
+}
+
+/// What to do with a data row cut short (an aborted read).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Default, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum ShortRowPolicy {
+    /// Stop with an error naming the line.
+    Refuse,
+    /// Keep the read; its missing cells become unreadable and a warning names the line.
+    #[default]
+    #[serde(rename = "unreadable")]
+    TreatAsUnreadable,
+}
+
+impl fmt::Display for ShortRowPolicy {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            Self::Refuse => "refuse",
+            Self::TreatAsUnreadable => "unreadable",
+        })
+    }
+}
+
+impl FromStr for ShortRowPolicy {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "refuse" => Ok(Self::Refuse),
+            "unreadable" => Ok(Self::TreatAsUnreadable),
+            other => Err(format!(
+                "unknown short-row policy '{other}' (expected refuse or unreadable)"
+            )),
+        }
+    }
+}
+
+/// How to read an export. The default detects everything.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct ImportOptions {
+    /// Force a shape instead of detecting it.
+    pub shape: Option<DataShape>,
+    /// The unit of plain-number times (needed when no header or block line states one).
+    pub time_unit: Option<TimeUnit>,
+    /// The plate format, instead of inferring it from the well IDs.
+    pub plate: Option<PlateFormat>,
+    /// The spreadsheet sheet to read (default: the first sheet holding kinetic data).
+    pub sheet: Option<String>,
+    /// What to do with rows cut short.
+    pub short_rows: ShortRowPolicy,
+}
+
+/// A kinetic export read into per-well traces.
+#[derive(Debug, Clone, PartialEq)]
+pub struct KineticData {
+    /// The file and sheet read.
+    pub source: Source,
+    /// The shape detected (or forced).
+    pub shape: DataShape,
+    /// The plate format inferred (or given).
+    pub plate: PlateFormat,
+    /// The time of each read in seconds, strictly increasing.
+    pub times_s: Vec<f64>,
+    /// The temperature of each read in degrees Celsius, if the export records one.
+    pub temperatures_c: Option<Vec<Option<f64>>>,
+    /// One trace per well, sorted by well (A1, A2, ..., B1, ...).
+    pub wells: Vec<WellTrace>,
+    /// Things the user should know, each naming the file, sheet and row.
+    pub warnings: Vec<String>,
+}
+
+/// The readings of one well, one per read.
+#[derive(Debug, Clone, PartialEq)]
+pub struct WellTrace {
+    /// The well.
+    pub well: WellId,
+    /// One value per read; `None` where the cell was unreadable or missing.
+    pub values: Vec<Option<f64>>,
+    /// The cells that held no number, in read order.
+    pub unreadable: Vec<UnreadableRead>,
+}
+
+/// A cell that held text (or nothing) where a reading belongs.
+#[derive(Debug, Clone, PartialEq)]
+pub struct UnreadableRead {
+    /// Zero-based read index.
+    pub read_index: usize,
+    /// The read's time in seconds.
+    pub time_s: f64,
+    /// Where the cell is (or would be, for a row cut short).
+    pub position: Position,
+    /// The cell's text; empty for a blank or missing cell.
+    pub text: String,
+}
+
+/// Why an export could not be imported. Every variant names where in the input the problem is.
+#[derive(Debug, thiserror::Error)]
+pub enum ImportError {
+    /// The file could not be read into cells.
+    #[error(transparent)]
+    Read(#[from] SheetReadError),
+    /// No table of a known shape was found.
+    #[error("{origin}: no kinetic data found in {searched}: looked for {looked_for}")]
+    NoShape {
+        /// The file (and sheet) searched.
+        origin: Source,
+        /// The rows or sheets searched, in words.
+        searched: String,
+        /// What was looked for, in words.
+        looked_for: String,
+    },
+    /// A header was found, but no column is a well.
+    #[error("{position}: no wells: {detail}")]
+    NoWells {
+        /// The header row (and column).
+        position: Position,
+        /// What was found instead.
+        detail: String,
+    },
+    /// A header was found with no data row below it.
+    #[error("{position}: the header has no data rows below it")]
+    NoReads {
+        /// The header row.
+        position: Position,
+    },
+    /// A long table lacks a column it needs.
+    #[error("{position}: the long table has no {what} column")]
+    MissingColumn {
+        /// The header row.
+        position: Position,
+        /// Which column, with examples of its header.
+        what: String,
+    },
+    /// A long table has several columns that could hold the values.
+    #[error("{position}: cannot tell which column holds the values: {candidates}; name one of them `value`")]
+    AmbiguousValueColumn {
+        /// The header row.
+        position: Position,
+        /// The candidate columns, with their positions.
+        candidates: String,
+    },
+    /// Plain-number times with no unit anywhere.
+    #[error(
+        "{position}: the times are plain numbers with no unit; write the unit in the header \
+         (`Time [s]`, `Time (min)`, `Time [h]`) or give --time-unit s|min|h"
+    )]
+    NoTimeUnit {
+        /// The first plain-number time cell.
+        position: Position,
+    },
+    /// The header's time unit and `--time-unit` disagree.
+    #[error(
+        "{position}: the file gives the time unit as {stated} but --time-unit says {given}; make them agree"
+    )]
+    TimeUnitConflict {
+        /// The header (or block line) cell stating the unit.
+        position: Position,
+        /// The unit the file states.
+        stated: TimeUnit,
+        /// The unit given with `--time-unit`.
+        given: TimeUnit,
+    },
+    /// A header or line states a time unit that is not one.
+    #[error("{position}: '{unit}' is not a time unit (expected s, min or h)")]
+    UnknownTimeUnit {
+        /// The cell stating it.
+        position: Position,
+        /// The unit as written.
+        unit: String,
+    },
+    /// Text that should be a time but is not.
+    #[error("{position}: bad time: {reason}")]
+    BadTime {
+        /// The time cell.
+        position: Position,
+        /// What is wrong, quoting the text.
+        reason: String,
+    },
+    /// A read's time is not after the previous read's.
+    #[error(
+        "{position}: time {time_s} s is not after the previous read's {previous_s} s (row {previous_row}); \
+         read times must be strictly increasing"
+    )]
+    TimesNotIncreasing {
+        /// The offending time cell.
+        position: Position,
+        /// Its time in seconds.
+        time_s: f64,
+        /// The previous read's time in seconds.
+        previous_s: f64,
+        /// The previous read's one-based row.
+        previous_row: usize,
+    },
+    /// The same well twice.
+    #[error("well {well} appears twice: at {} and at {}", .positions[0], .positions[1])]
+    DuplicateWell {
+        /// The well.
+        well: WellId,
+        /// Where it appears first, and where again (boxed: positions are large).
+        positions: Box<[Position; 2]>,
+    },
+    /// A row cut short, refused by [`ShortRowPolicy::Refuse`].
+    #[error("{position}: the row is cut short ({detail}), as an aborted read leaves it")]
+    ShortRow {
+        /// The row.
+        position: Position,
+        /// What is missing.
+        detail: String,
+    },
+    /// A well not on the plate format given.
+    #[error("{position}: well {well} is not on a {plate}-well plate")]
+    WellOffPlate {
+        /// The well.
+        well: WellId,
+        /// Where it is named.
+        position: Position,
+        /// The plate format.
+        plate: PlateFormat,
+    },
+    /// A grid block with no time line above it.
+    #[error(
+        "{position}: this plate block has no time line above it (such as `Time 0:01:30` or `t = 90 s`); \
+         two blocks under one time line are not two reads"
+    )]
+    MissingBlockTime {
+        /// The block's row of column numbers.
+        position: Position,
+    },
+}
+
+/// Reads an export from a file. Spreadsheets: `options.sheet`, else the first sheet holding
+/// kinetic data (sheets holding none are skipped with a warning).
+pub fn import_data(path: &Path, options: &ImportOptions) -> Result<KineticData, ImportError> {
+    if options.sheet.is_none() && is_spreadsheet_path(path) {
+        return import_first_sheet_with_data(path, options);
+    }
+    let grid = read_cells(path, options.sheet.as_deref())?;
+    import_cells(&grid, options)
+}
+
+/// Whether the file is a spreadsheet, by its extension (the same rule as the sheet reader).
+fn is_spreadsheet_path(path: &Path) -> bool {
+    matches!(
+        path.extension()
+            .and_then(|e| e.to_str())
+            .map(str::to_ascii_lowercase)
+            .as_deref(),
+        Some("xlsx" | "xlsm" | "xlsb" | "xls" | "ods")
+    )
+}
+
+/// Tries the sheets in order and imports the first that holds a table of a known shape.
+fn import_first_sheet_with_data(path: &Path, options: &ImportOptions) -> Result<KineticData, ImportError> {
+    let file = path.display().to_string();
+    let bytes = std::fs::read(path).map_err(|error| SheetReadError::Unreadable {
+        file: file.clone(),
+        message: error.to_string(),
+    })?;
+    let names = calamine::open_workbook_auto_from_rs(Cursor::new(bytes.as_slice()))
+        .map_err(|error| SheetReadError::BadSpreadsheet {
+            file: file.clone(),
+            message: error.to_string(),
+        })?
+        .sheet_names();
+    let mut skipped: Vec<String> = Vec::new();
+    let mut first_error: Option<ImportError> = None;
+    for name in &names {
+        let grid = read_spreadsheet_cells(&bytes, &file, Some(name))?;
+        if grid.rows.iter().all(|row| row.iter().all(Cell::is_empty)) {
+            continue;
+        }
+        match import_cells(&grid, options) {
+            Ok(mut data) => {
+                let notes = skipped.iter().map(|sheet| {
+                    format!("{file}, sheet '{sheet}': holds no kinetic data; read sheet '{name}' instead")
+                });
+                let mut warnings: Vec<String> = notes.collect();
+                warnings.append(&mut data.warnings);
+                data.warnings = warnings;
+                return Ok(data);
+            }
+            Err(error @ (ImportError::NoShape { .. } | ImportError::NoWells { .. })) => {
+                skipped.push(name.clone());
+                first_error.get_or_insert(error);
+            }
+            Err(error) => return Err(error),
+        }
+    }
+    match (first_error, skipped.len()) {
+        (None, _) => Err(SheetReadError::NoData { file }.into()),
+        (Some(error), 1) => Err(error),
+        (Some(_), _) => Err(ImportError::NoShape {
+            origin: Source { file, sheet: None },
+            searched: format!("any sheet ({})", skipped.join(", ")),
+            looked_for: looked_for(options.shape),
+        }),
+    }
+}
+
+/// What detection looks for, in words, for the shapes allowed.
+fn looked_for(forced: Option<DataShape>) -> String {
+    let shapes: Vec<&str> = DataShape::ALL
+        .into_iter()
+        .filter(|shape| forced.is_none_or(|forced| forced == *shape))
+        .map(DataShape::looked_for)
+        .collect();
+    shapes.join("; or ")
+}
+
+/// Imports an export already read into cells.
+pub fn import_cells(grid: &CellGrid, options: &ImportOptions) -> Result<KineticData, ImportError> {
+    let (shape, start_row) = detect_shape(grid, options.shape)?;
+    let table = match shape {
+        DataShape::Wide => wide::parse(grid, start_row, options)?,
+        DataShape::Grid => grid::parse(grid, options)?,
+        DataShape::Long => long::parse(grid, start_row, options)?,
+    };
+    finish(grid, table, options)
+}
+
+/// Finds the first row that starts a table of an allowed shape. On one row, wide is tried first,
+/// then grid, then long.
+fn detect_shape(grid: &CellGrid, forced: Option<DataShape>) -> Result<(DataShape, usize), ImportError> {
+    for row in 0..grid.rows.len() {
+        for shape in DataShape::ALL {
+            if forced.is_some_and(|forced| forced != shape) {
+                continue;
+            }
+            let starts_here = match shape {
+                DataShape::Wide => wide::is_header(&grid.rows[row]),
+                DataShape::Grid => grid::is_column_number_row(grid, row),
+                DataShape::Long => long::is_header(&grid.rows[row], forced.is_some()),
+            };
+            if starts_here {
+                return Ok((shape, row));
+            }
+        }
+    }
+    // A header with a time column but no well column is most likely a wide table whose well
+    // headers are not well IDs: say that rather than "nothing found".
+    if forced.is_none_or(|forced| forced == DataShape::Wide) {
+        for (row, cells) in grid.rows.iter().enumerate() {
+            let time_column = cells
+                .iter()
+                .position(|cell| matches!(classify_header(cell), HeaderKind::Time(_)));
+            if let Some(column) = time_column {
+                if cells.iter().filter(|cell| !cell.is_empty()).count() >= 2 {
+                    return Err(ImportError::NoWells {
+                        position: grid.position(row, Some(column)),
+                        detail: format!(
+                            "the row has a time column ('{}') but no column headed by a well ID such as A1 or A01",
+                            cells[column].as_text()
+                        ),
+                    });
+                }
+            }
+        }
+    }
+    Err(ImportError::NoShape {
+        origin: grid.source.clone(),
+        searched: format!("rows 1-{}", grid.rows.len()),
+        looked_for: looked_for(forced),
+    })
+}
+
+/// One read as a shape parser found it: its time and where the time is written.
+#[derive(Debug, Clone, Copy)]
+struct ReadRecord {
+    /// Seconds.
+    time_s: f64,
+    /// Zero-based row of the time cell (or the block's time line).
+    row: usize,
+    /// Zero-based column of the time cell.
+    column: usize,
+}
+
+/// A cell with no number where a reading belongs, before the read's time is attached.
+#[derive(Debug, Clone)]
+struct UnreadableCell {
+    /// Zero-based read index.
+    read_index: usize,
+    /// Zero-based row.
+    row: usize,
+    /// Zero-based column.
+    column: usize,
+    /// The cell's text ("" for blank or missing).
+    text: String,
+}
+
+/// One well's readings as a shape parser collected them.
+#[derive(Debug, Clone)]
+struct WellColumn {
+    /// The well.
+    well: WellId,
+    /// Zero-based row and column where the well is first named.
+    named_at: (usize, usize),
+    /// One value per read.
+    values: Vec<Option<f64>>,
+    /// Cells with no number.
+    unreadable: Vec<UnreadableCell>,
+}
+
+impl WellColumn {
+    /// A well with no readings yet.
+    fn new(well: WellId, named_at: (usize, usize), reads_expected: usize) -> Self {
+        Self {
+            well,
+            named_at,
+            values: Vec::with_capacity(reads_expected),
+            unreadable: Vec::new(),
+        }
+    }
+
+    /// Appends the reading of the next read from `cell` (`None`: the row ends before it).
+    fn push_cell(&mut self, cell: Option<&Cell>, row: usize, column: usize) {
+        let read_index = self.values.len();
+        match reading_of_cell(cell) {
+            Ok(value) => self.values.push(Some(value)),
+            Err(text) => {
+                self.values.push(None);
+                self.unreadable.push(UnreadableCell {
+                    read_index,
+                    row,
+                    column,
+                    text,
+                });
+            }
+        }
+    }
+}
+
+/// The number in a value cell, or the text to record when there is none. A blank or missing
+/// cell is text "", never zero.
+fn reading_of_cell(cell: Option<&Cell>) -> Result<f64, String> {
+    match cell {
+        Some(Cell::Number(value)) => Ok(*value),
+        None | Some(Cell::Empty) => Err(String::new()),
+        Some(Cell::Text(text)) => Err(text.clone()),
+        // A time-formatted cell shows a time, not the reading the instrument wrote.
+        Some(Cell::Duration(_)) => Err("time-formatted cell".to_string()),
+    }
+}
+
+/// What a shape parser hands to [`finish`].
+#[derive(Debug)]
+struct ShapeTable {
+    /// The shape.
+    shape: DataShape,
+    /// The reads in file order.
+    reads: Vec<ReadRecord>,
+    /// Per-read temperatures, if recorded.
+    temperatures_c: Option<Vec<Option<f64>>>,
+    /// The wells, each with one value per read.
+    wells: Vec<WellColumn>,
+    /// Warnings so far.
+    warnings: Vec<String>,
+}
+
+/// A map from well to a number (a column, a row, a trace index), dense over the largest plate.
+struct WellMap<T: Copy> {
+    /// Indexed by `row * 48 + column`.
+    slots: Vec<Option<T>>,
+}
+
+impl<T: Copy> WellMap<T> {
+    /// Columns of the largest plate: the stride of the slots.
+    const STRIDE: usize = 48;
+
+    /// An empty map.
+    fn new() -> Self {
+        Self {
+            slots: vec![None; 32 * Self::STRIDE],
+        }
+    }
+
+    /// The slot of a well; `None` for a well beyond the largest plate (never parsed from text).
+    fn slot(well: WellId) -> Option<usize> {
+        let (row, column) = (usize::from(well.row), usize::from(well.column));
+        (row < 32 && column < Self::STRIDE).then_some(row * Self::STRIDE + column)
+    }
+
+    /// The value stored for `well`.
+    fn get(&self, well: WellId) -> Option<T> {
+        Self::slot(well).and_then(|slot| self.slots[slot])
+    }
+
+    /// Stores `value` for `well` unless it already holds one, which is returned instead.
+    fn insert_new(&mut self, well: WellId, value: T) -> Result<(), T> {
+        match Self::slot(well) {
+            Some(slot) => match self.slots[slot] {
+                Some(existing) => Err(existing),
+                None => {
+                    self.slots[slot] = Some(value);
+                    Ok(())
+                }
+            },
+            None => Ok(()),
+        }
+    }
+}
+
+/// The time unit that applies to plain-number times, settled from what the file states and
+/// what the user gave.
+#[derive(Debug, Clone)]
+struct TimeUnitRule {
+    /// The unit to apply, if any.
+    unit: Option<TimeUnit>,
+    /// A unit text in the header that is not a unit, with its cell: an error once a plain
+    /// number needs it.
+    unknown: Option<(String, Position)>,
+}
+
+impl TimeUnitRule {
+    /// Settles the unit from a header (or block line) and `--time-unit`. A stated unit and a
+    /// given one must agree: silently preferring either would scale every rate.
+    fn settle(
+        stated: &HeaderTimeUnit,
+        given: Option<TimeUnit>,
+        stated_at: impl Fn() -> Position,
+    ) -> Result<Self, ImportError> {
+        match stated {
+            HeaderTimeUnit::Unit(stated) => match given {
+                Some(given) if given != *stated => Err(ImportError::TimeUnitConflict {
+                    position: stated_at(),
+                    stated: *stated,
+                    given,
+                }),
+                _ => Ok(Self {
+                    unit: Some(*stated),
+                    unknown: None,
+                }),
+            },
+            HeaderTimeUnit::Unknown(text) => Ok(Self {
+                unit: given,
+                unknown: Some((text.clone(), stated_at())),
+            }),
+            HeaderTimeUnit::Absent | HeaderTimeUnit::ClockPattern => Ok(Self {
+                unit: given,
+                unknown: None,
+            }),
+        }
+    }
+
+    /// Seconds of a raw time read at `position`.
+    fn seconds(&self, raw: RawTime, position: impl Fn() -> Position) -> Result<f64, ImportError> {
+        match raw {
+            RawTime::Seconds(seconds) => Ok(seconds),
+            RawTime::Plain(value) => match (&self.unknown, self.unit) {
+                (Some((unit, stated_at)), _) => Err(ImportError::UnknownTimeUnit {
+                    position: stated_at.clone(),
+                    unit: unit.clone(),
+                }),
+                (None, Some(unit)) => Ok(value * unit.in_seconds()),
+                (None, None) => Err(ImportError::NoTimeUnit { position: position() }),
+            },
+        }
+    }
+}
+
+/// Turns a time-text error at `position` into an import error.
+fn time_text_error(error: TimeTextError, position: Position) -> ImportError {
+    match error {
+        TimeTextError::BadClock(reason) => ImportError::BadTime { position, reason },
+        TimeTextError::UnknownUnit(unit) => ImportError::UnknownTimeUnit { position, unit },
+    }
+}
+
+/// Applies the short-row policy to a row: an error, or a warning naming the line.
+fn short_row(
+    grid: &CellGrid,
+    options: &ImportOptions,
+    row: usize,
+    detail: String,
+    consequence: &str,
+    warnings: &mut Vec<String>,
+) -> Result<(), ImportError> {
+    match options.short_rows {
+        ShortRowPolicy::Refuse => Err(ImportError::ShortRow {
+            position: grid.position(row, None),
+            detail,
+        }),
+        ShortRowPolicy::TreatAsUnreadable => {
+            warnings.push(format!(
+                "{}: the row is cut short ({detail}), as an aborted read leaves it; {consequence}",
+                grid.position(row, None)
+            ));
+            Ok(())
+        }
+    }
+}
+
+/// Checks the reads, settles the plate and builds the traces.
+fn finish(grid: &CellGrid, table: ShapeTable, options: &ImportOptions) -> Result<KineticData, ImportError> {
+    let ShapeTable {
+        shape,
+        reads,
+        temperatures_c,
+        mut wells,
+        warnings,
+    } = table;
+    for pair in reads.windows(2) {
+        if let [previous, current] = pair {
+            // Anything but "greater" fails, a NaN time included.
+            if current.time_s.partial_cmp(&previous.time_s) != Some(std::cmp::Ordering::Greater) {
+                return Err(ImportError::TimesNotIncreasing {
+                    position: grid.position(current.row, Some(current.column)),
+                    time_s: current.time_s,
+                    previous_s: previous.time_s,
+                    previous_row: previous.row + 1,
+                });
+            }
+        }
+    }
+    let plate = match options.plate {
+        Some(plate) => plate,
+        None => PlateFormat::smallest_holding(wells.iter().map(|column| &column.well))
+            .unwrap_or(PlateFormat::Wells1536),
+    };
+    if let Some(off) = wells.iter().find(|column| !plate.contains(column.well)) {
+        return Err(ImportError::WellOffPlate {
+            well: off.well,
+            position: grid.position(off.named_at.0, Some(off.named_at.1)),
+            plate,
+        });
+    }
+    wells.sort_by_key(|column| column.well);
+    let times_s: Vec<f64> = reads.iter().map(|read| read.time_s).collect();
+    let traces = wells
+        .into_iter()
+        .map(|mut column| {
+            column.unreadable.sort_by_key(|cell| cell.read_index);
+            let unreadable = column
+                .unreadable
+                .into_iter()
+                .map(|cell| UnreadableRead {
+                    read_index: cell.read_index,
+                    time_s: times_s[cell.read_index],
+                    position: grid.position(cell.row, Some(cell.column)),
+                    text: cell.text,
+                })
+                .collect();
+            WellTrace {
+                well: column.well,
+                values: column.values,
+                unreadable,
+            }
+        })
+        .collect();
+    Ok(KineticData {
+        source: grid.source.clone(),
+        shape,
+        plate,
+        times_s,
+        temperatures_c,
+        wells: traces,
+        warnings,
+    })
+}
+
+/// Formats a list of names for a message, at most `limit` of them.
+fn list_some(items: &[String], limit: usize) -> String {
+    if items.len() <= limit {
+        items.join(", ")
+    } else {
+        format!("{}, and {} more", items[..limit].join(", "), items.len() - limit)
+    }
+}

@@ -1,0 +1,66 @@
+//! The `platekin` binary: parse the command line, hand plain settings to the library, print what
+//! it returns, and turn errors into a message and exit code 2.
+
+mod cli;
+
+use std::io::Write;
+use std::process::ExitCode;
+
+use anyhow::Context;
+use clap::Parser;
+
+use cli::{Cli, Command};
+use platekin::settings::{resolve_import, resolve_run, SettingLayer};
+
+fn main() -> ExitCode {
+    run(Cli::parse())
+}
+
+/// Runs one command; the only place that prints.
+fn run(cli: Cli) -> ExitCode {
+    match execute(cli) {
+        Ok(text) => print_quietly(&text),
+        Err(error) => {
+            eprintln!("platekin: error: {error:#}");
+            ExitCode::from(2)
+        }
+    }
+}
+
+/// Prints to stdout; a closed pipe (`platekin ... | head`) ends quietly.
+fn print_quietly(text: &str) -> ExitCode {
+    let mut stdout = std::io::stdout().lock();
+    match stdout.write_all(text.as_bytes()).and_then(|()| stdout.flush()) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(error) if error.kind() == std::io::ErrorKind::BrokenPipe => ExitCode::SUCCESS,
+        Err(error) => {
+            eprintln!("platekin: error: cannot write to stdout: {error}");
+            ExitCode::from(2)
+        }
+    }
+}
+
+fn execute(cli: Cli) -> anyhow::Result<String> {
+    match cli.command {
+        Command::Run(args) => {
+            let flags = args.layer();
+            let layer = match &args.assay {
+                Some(path) => flags.over(SettingLayer::from_assay_file(path)?),
+                None => flags,
+            };
+            let settings = resolve_run(args.data.clone(), layer)?;
+            let outcome = platekin::run::run_plate(&settings, &args.out, args.force).with_context(|| {
+                format!(
+                    "run on {} not completed; nothing was written",
+                    args.data.display()
+                )
+            })?;
+            Ok(outcome.summary)
+        }
+        Command::Inspect(args) => {
+            let import = resolve_import(&args.read.layer())?;
+            Ok(platekin::run::inspect(&args.data, &import)?)
+        }
+        Command::Demo(args) => Ok(platekin::demo::run_demo(&args.out)?.summary),
+    }
+}

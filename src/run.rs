@@ -1,0 +1,323 @@
+//! One whole run: read the export and the layout, analyse every well, build the condition table
+//! and the group fits, render every output in memory, and only then write the files. An error at
+//! any step before writing leaves nothing on disk.
+
+use std::path::{Path, PathBuf};
+
+use serde_json::{json, Value};
+
+use crate::analysis::{analyse_plate, flag_counts, wells_in_data, PlateAnalysis};
+use crate::conditions::{condition_table, Condition, TableError};
+use crate::groups::{fit_groups, group_label, GroupFit};
+use crate::import::{import_data, inspect_report, ImportError, ImportOptions, KineticData};
+use crate::layout::{check_against_data, read_layout, Layout, LayoutError, Role};
+use crate::output::{write_outputs, OutputError, OutputFile};
+use crate::settings::{AnalysisSettings, RunSettings, SettingLayer};
+use crate::tables::{conditions_table, csv_bytes, wells_table};
+
+/// The caution every summary and output carries.
+pub const CAUTION: &str = "Results support, and do not replace, your lab's validated procedures: check flagged wells and fits before reporting them.";
+
+/// Why a run did not complete.
+#[derive(Debug, thiserror::Error)]
+pub enum RunError {
+    /// The raw export could not be read.
+    #[error(transparent)]
+    Import(#[from] ImportError),
+    /// The layout could not be read or does not fit the data.
+    #[error(transparent)]
+    Layout(#[from] LayoutError),
+    /// The condition table could not be built.
+    #[error(transparent)]
+    Table(#[from] TableError),
+    /// The outputs could not be written.
+    #[error(transparent)]
+    Output(#[from] OutputError),
+    /// A result could not be rendered as JSON.
+    #[error("rendering {file} failed: {message}")]
+    Render {
+        /// The file being rendered.
+        file: String,
+        /// The reason.
+        message: String,
+    },
+}
+
+/// Everything a run found, before rendering.
+#[derive(Debug, Clone)]
+pub struct RunResults {
+    /// The data as read.
+    pub data: KineticData,
+    /// The layout as read.
+    pub layout: Layout,
+    /// Per-well rates.
+    pub analysis: PlateAnalysis,
+    /// Per-condition rows.
+    pub conditions: Vec<Condition>,
+    /// Per-group fits.
+    pub fits: Vec<GroupFit>,
+    /// Warnings from reading the inputs and checking them against each other.
+    pub input_warnings: Vec<String>,
+}
+
+/// What a completed run hands back.
+#[derive(Debug, Clone)]
+pub struct RunOutcome {
+    /// The results.
+    pub results: RunResults,
+    /// The files written.
+    pub written: Vec<PathBuf>,
+    /// The one-screen summary for stdout.
+    pub summary: String,
+}
+
+/// Analyses inputs already read (the demo and the tests use this directly).
+pub fn analyse_inputs(
+    data: KineticData,
+    mut layout: Layout,
+    settings: &AnalysisSettings,
+) -> Result<RunResults, RunError> {
+    let mut input_warnings = data.warnings.clone();
+    input_warnings.extend(check_against_data(
+        &mut layout,
+        &wells_in_data(&data),
+        settings.allow_missing,
+    )?);
+    let analysis = analyse_plate(&data, &layout, settings);
+    let conditions = condition_table(&analysis, &layout)?;
+    let fits = fit_groups(&analysis, &layout);
+    Ok(RunResults {
+        data,
+        layout,
+        analysis,
+        conditions,
+        fits,
+        input_warnings,
+    })
+}
+
+/// Reads the inputs of a run and analyses them.
+pub fn load_and_analyse(settings: &RunSettings) -> Result<RunResults, RunError> {
+    let data = import_data(&settings.data, &settings.import)?;
+    let layout = read_layout(&settings.layout, settings.layout_sheet.as_deref(), data.plate)?;
+    analyse_inputs(data, layout, &settings.analysis)
+}
+
+/// Runs a plate from files and writes the outputs into `out`.
+pub fn run_plate(settings: &RunSettings, out: &Path, force: bool) -> Result<RunOutcome, RunError> {
+    crate::output::check_output_folder(out, force)?;
+    let results = load_and_analyse(settings)?;
+    let inputs = vec![settings.data.clone(), settings.layout.clone()];
+    finish_run(results, &settings.used, &inputs, out, force)
+}
+
+/// Renders and writes a run's outputs, and builds its summary.
+pub fn finish_run(
+    results: RunResults,
+    used: &SettingLayer,
+    inputs: &[PathBuf],
+    out: &Path,
+    force: bool,
+) -> Result<RunOutcome, RunError> {
+    let files = render_outputs(&results, used, inputs)?;
+    let written = write_outputs(out, force, inputs, &files)?;
+    let summary = summary_text(&results, out);
+    Ok(RunOutcome {
+        results,
+        written,
+        summary,
+    })
+}
+
+/// Prints what was understood of an export.
+pub fn inspect(path: &Path, options: &ImportOptions) -> Result<String, ImportError> {
+    Ok(inspect_report(&import_data(path, options)?))
+}
+
+fn json_bytes(file: &str, value: &Value) -> Result<Vec<u8>, RunError> {
+    let mut bytes = serde_json::to_vec_pretty(value).map_err(|error| RunError::Render {
+        file: file.to_string(),
+        message: error.to_string(),
+    })?;
+    bytes.push(b'\n');
+    Ok(bytes)
+}
+
+/// The settings as `fit.json` and `settings.toml` record them.
+fn settings_value(used: &SettingLayer) -> Value {
+    serde_json::to_value(used).unwrap_or(Value::Null)
+}
+
+/// Every output file, rendered in memory.
+pub fn render_outputs(
+    results: &RunResults,
+    used: &SettingLayer,
+    inputs: &[PathBuf],
+) -> Result<Vec<OutputFile>, RunError> {
+    let mut wells = wells_table(&results.analysis, &results.layout)?;
+    let mut conditions = conditions_table(&results.conditions, &results.layout, &results.analysis.rate_unit)?;
+    let fit = json!({
+        "tool": format!("platekin {}", env!("CARGO_PKG_VERSION")),
+        "inputs": inputs.iter().map(|p| p.display().to_string()).collect::<Vec<_>>(),
+        "groups": results.fits,
+        "plate_warnings": results.analysis.warnings,
+        "input_warnings": results.input_warnings,
+        "settings": settings_value(used),
+        "caution": CAUTION,
+    });
+    let settings_toml = format!(
+        "# Settings used by platekin {} for this run; repeat it with --assay settings.toml.\n{}",
+        env!("CARGO_PKG_VERSION"),
+        toml::to_string(used).unwrap_or_default()
+    );
+    Ok(vec![
+        OutputFile {
+            name: "wells.csv".into(),
+            bytes: csv_bytes(&mut wells)?,
+        },
+        OutputFile {
+            name: "conditions.csv".into(),
+            bytes: csv_bytes(&mut conditions)?,
+        },
+        OutputFile {
+            name: "fit.json".into(),
+            bytes: json_bytes("fit.json", &fit)?,
+        },
+        OutputFile {
+            name: "settings.toml".into(),
+            bytes: settings_toml.into_bytes(),
+        },
+    ])
+}
+
+/// Formats a value with its 95% interval: `12.1 [11.6, 12.6]`.
+fn with_interval(parameter: Option<&crate::groups::ParameterReport>) -> String {
+    match parameter {
+        None => "-".to_string(),
+        Some(p) => {
+            let value = significant(p.value);
+            let interval = p.ci95.map_or(String::new(), |[lo, hi]| {
+                format!(" [{}, {}]", significant(lo), significant(hi))
+            });
+            let doubt = if p.determined { "" } else { " (not determined)" };
+            format!("{value}{interval}{doubt}")
+        }
+    }
+}
+
+/// Four significant digits, plain or scientific as the size needs.
+pub fn significant(value: f64) -> String {
+    if value == 0.0 || !value.is_finite() {
+        return format!("{value}");
+    }
+    let magnitude = value.abs().log10().floor() as i32;
+    if (-3..6).contains(&magnitude) {
+        let decimals = (3 - magnitude).max(0) as usize;
+        format!("{value:.decimals$}")
+    } else {
+        format!("{value:.3e}")
+    }
+}
+
+/// The one-screen summary.
+pub fn summary_text(results: &RunResults, out: &Path) -> String {
+    let data = &results.data;
+    let analysis = &results.analysis;
+    let mut lines = Vec::new();
+    let span = match (data.times_s.first(), data.times_s.last()) {
+        (Some(first), Some(last)) => format!("{first}-{last} s"),
+        _ => "no reads".to_string(),
+    };
+    lines.push(format!(
+        "platekin {}: {} ({} export, {}-well plate, {} reads, {})",
+        env!("CARGO_PKG_VERSION"),
+        data.source,
+        data.shape,
+        data.plate,
+        data.times_s.len(),
+        span
+    ));
+    let count = |role: Role| analysis.wells.iter().filter(|w| w.setup.role == role).count();
+    lines.push(format!(
+        "wells analysed: {} ({} samples, {} no-enzyme, {} blanks); rates in {}",
+        analysis.wells.len(),
+        count(Role::Sample),
+        count(Role::NoEnzyme),
+        count(Role::Blank),
+        analysis.rate_unit
+    ));
+    let flagged = analysis.wells.iter().filter(|w| !w.rate.flags.is_empty()).count();
+    let counts = flag_counts(&analysis.wells);
+    let reasons = counts
+        .iter()
+        .map(|(flag, n)| format!("{flag} {n}"))
+        .collect::<Vec<_>>()
+        .join(", ");
+    if flagged == 0 {
+        lines.push("flagged wells: none".to_string());
+    } else {
+        lines.push(format!("flagged wells: {flagged} ({reasons})"));
+        let excluded: Vec<String> = analysis
+            .excluded()
+            .map(|(w, reason)| format!("{} {}", w.well, reason))
+            .collect();
+        if !excluded.is_empty() {
+            lines.push(format!("left out of means and fits: {}", excluded.join(", ")));
+        }
+    }
+    lines.push(String::new());
+    lines.push("Michaelis-Menten fits (value [95% interval]):".to_string());
+    for fit in &results.fits {
+        lines.push(format!("  {} (n = {})", group_label(&fit.group), fit.n));
+        if let Some(error) = &fit.error {
+            lines.push(format!("    {error}"));
+            continue;
+        }
+        let unit = |name: &str| {
+            fit.parameters
+                .get(name)
+                .map_or(String::new(), |p| format!(" {}", p.unit))
+        };
+        lines.push(format!(
+            "    kcat    {}{}",
+            with_interval(fit.parameters.get("kcat")),
+            unit("kcat")
+        ));
+        lines.push(format!(
+            "    Km      {}{}",
+            with_interval(fit.parameters.get("Km")),
+            unit("Km")
+        ));
+        lines.push(format!(
+            "    kcat/Km {}{}",
+            with_interval(fit.parameters.get("kcat_over_Km")),
+            unit("kcat_over_Km")
+        ));
+        if !fit.parameters.contains_key("kcat") {
+            lines.push(format!(
+                "    Vmax    {}{}",
+                with_interval(fit.parameters.get("Vmax")),
+                unit("Vmax")
+            ));
+        }
+        for warning in &fit.warnings {
+            lines.push(format!("    warning: {warning}"));
+        }
+    }
+    let mut warnings: Vec<&String> = results.input_warnings.iter().collect();
+    warnings.extend(&analysis.warnings);
+    if !warnings.is_empty() {
+        lines.push(String::new());
+        for warning in warnings {
+            lines.push(format!("warning: {warning}"));
+        }
+    }
+    lines.push(String::new());
+    lines.push(format!(
+        "outputs: {}/ (wells.csv, conditions.csv, fit.json, settings.toml)",
+        out.display()
+    ));
+    lines.push(CAUTION.to_string());
+    lines.push(String::new());
+    lines.join("\n")
+}

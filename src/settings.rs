@@ -1,0 +1,398 @@
+//! The settings of a run: one plain struct that the library takes, built from command-line flags
+//! laid over an assay file (`--assay assay.toml`, same keys as the flags; flags win) laid over the
+//! defaults. The settings actually used are written into the outputs so a run can be repeated.
+
+use std::path::{Path, PathBuf};
+
+use crate::import::{DataShape, ImportOptions, ShortRowPolicy};
+use crate::plate::PlateFormat;
+use crate::rates::RateSettings;
+use crate::units::TimeUnit;
+
+/// Which species the reader sees.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Readout {
+    /// The species read is formed: the signal rises.
+    Product,
+    /// The species read is consumed: the signal falls.
+    Substrate,
+}
+
+impl std::str::FromStr for Readout {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "product" => Ok(Readout::Product),
+            "substrate" => Ok(Readout::Substrate),
+            other => Err(format!(
+                "unknown readout '{other}' (expected product or substrate)"
+            )),
+        }
+    }
+}
+
+/// Every setting, each optional, as a flag set or an assay file gives them. Keys are the flags'
+/// names (`max-conversion`, `min-points`, ...).
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct SettingLayer {
+    /// Plate layout file.
+    pub layout: Option<PathBuf>,
+    /// Sheet of the data workbook.
+    pub sheet: Option<String>,
+    /// Sheet of the layout workbook.
+    pub layout_sheet: Option<String>,
+    /// Forced data shape.
+    pub shape: Option<String>,
+    /// Forced plate format.
+    pub plate: Option<String>,
+    /// Time unit for plain-number times.
+    pub time_unit: Option<String>,
+    /// What to do with a data row cut short: `refuse` or `unreadable`.
+    pub short_rows: Option<String>,
+    /// `product` or `substrate`.
+    pub readout: Option<String>,
+    /// Extinction coefficient of the species read, M^-1 cm^-1.
+    pub extinction: Option<f64>,
+    /// Pathlength, cm.
+    pub pathlength: Option<f64>,
+    /// Dead time to ignore at the start, s.
+    pub skip: Option<f64>,
+    /// Largest fraction of substrate converted in a window.
+    pub max_conversion: Option<f64>,
+    /// Fewest reads in a window.
+    pub min_points: Option<usize>,
+    /// A fixed window `start:end` in seconds.
+    pub window: Option<String>,
+    /// Raw absorbance limit.
+    pub max_absorbance: Option<f64>,
+    /// Level of the straightness tests.
+    pub alpha: Option<f64>,
+    /// Keep flagged wells in means and fits.
+    pub keep_flagged: Option<bool>,
+    /// Layout wells absent from the data only warn.
+    pub allow_missing: Option<bool>,
+}
+
+impl SettingLayer {
+    /// Lays `self` over `below`: every field set here wins.
+    pub fn over(self, below: SettingLayer) -> SettingLayer {
+        SettingLayer {
+            layout: self.layout.or(below.layout),
+            sheet: self.sheet.or(below.sheet),
+            layout_sheet: self.layout_sheet.or(below.layout_sheet),
+            shape: self.shape.or(below.shape),
+            plate: self.plate.or(below.plate),
+            time_unit: self.time_unit.or(below.time_unit),
+            short_rows: self.short_rows.or(below.short_rows),
+            readout: self.readout.or(below.readout),
+            extinction: self.extinction.or(below.extinction),
+            pathlength: self.pathlength.or(below.pathlength),
+            skip: self.skip.or(below.skip),
+            max_conversion: self.max_conversion.or(below.max_conversion),
+            min_points: self.min_points.or(below.min_points),
+            window: self.window.or(below.window),
+            max_absorbance: self.max_absorbance.or(below.max_absorbance),
+            alpha: self.alpha.or(below.alpha),
+            keep_flagged: self.keep_flagged.or(below.keep_flagged),
+            allow_missing: self.allow_missing.or(below.allow_missing),
+        }
+    }
+
+    /// Reads an assay file. Relative paths in it (`layout`) are taken from the file's folder.
+    pub fn from_assay_file(path: &Path) -> Result<SettingLayer, SettingsError> {
+        let text = std::fs::read_to_string(path).map_err(|error| {
+            SettingsError::new(format!("{}: cannot read the assay file: {error}", path.display()))
+        })?;
+        let mut layer: SettingLayer = toml::from_str(&text).map_err(|error| {
+            SettingsError::new(format!("{}: {}", path.display(), error.to_string().trim_end()))
+        })?;
+        if let (Some(layout), Some(folder)) = (&layer.layout, path.parent()) {
+            if layout.is_relative() {
+                layer.layout = Some(folder.join(layout));
+            }
+        }
+        Ok(layer)
+    }
+}
+
+/// A setting that cannot be used, with the reason.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{message}")]
+pub struct SettingsError {
+    message: String,
+}
+
+impl SettingsError {
+    fn new(message: String) -> SettingsError {
+        SettingsError { message }
+    }
+}
+
+/// The resolved settings of an analysis (everything but where the files are).
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct AnalysisSettings {
+    /// What is read.
+    pub readout: Readout,
+    /// M^-1 cm^-1, when known.
+    pub extinction_per_molar_cm: Option<f64>,
+    /// cm, when known.
+    pub pathlength_cm: Option<f64>,
+    /// Window rules.
+    pub rates: RateSettings,
+    /// Keep flagged wells in means and fits.
+    pub keep_flagged: bool,
+    /// Layout wells absent from the data only warn.
+    pub allow_missing: bool,
+}
+
+impl Default for AnalysisSettings {
+    fn default() -> Self {
+        AnalysisSettings {
+            readout: Readout::Product,
+            extinction_per_molar_cm: None,
+            pathlength_cm: None,
+            rates: RateSettings::default(),
+            keep_flagged: false,
+            allow_missing: false,
+        }
+    }
+}
+
+/// Everything a `run` needs.
+#[derive(Debug, Clone)]
+pub struct RunSettings {
+    /// The raw export.
+    pub data: PathBuf,
+    /// The plate layout.
+    pub layout: PathBuf,
+    /// How the export is read.
+    pub import: ImportOptions,
+    /// The sheet of a layout workbook.
+    pub layout_sheet: Option<String>,
+    /// The analysis.
+    pub analysis: AnalysisSettings,
+    /// Every setting as used, for the outputs (the layers merged, defaults filled in).
+    pub used: SettingLayer,
+}
+
+fn parse_field<T: std::str::FromStr<Err = String>>(
+    name: &str,
+    text: &Option<String>,
+) -> Result<Option<T>, SettingsError> {
+    text.as_deref()
+        .map(|value| {
+            value
+                .parse::<T>()
+                .map_err(|error| SettingsError::new(format!("{name}: {error}")))
+        })
+        .transpose()
+}
+
+/// Parses a window `start:end` in seconds.
+pub fn parse_window(text: &str) -> Result<(f64, f64), String> {
+    let (start, end) = text
+        .split_once(':')
+        .ok_or_else(|| format!("window '{text}' is not start:end in seconds (for example 0:300)"))?;
+    let start: f64 = start
+        .trim()
+        .parse()
+        .map_err(|_| format!("window start '{start}' is not a number"))?;
+    let end: f64 = end
+        .trim()
+        .parse()
+        .map_err(|_| format!("window end '{end}' is not a number"))?;
+    if !(start.is_finite() && end.is_finite() && end > start && start >= 0.0) {
+        return Err(format!("window '{text}' must have 0 <= start < end"));
+    }
+    Ok((start, end))
+}
+
+fn positive(name: &str, value: Option<f64>) -> Result<Option<f64>, SettingsError> {
+    match value {
+        Some(v) if !(v.is_finite() && v > 0.0) => Err(SettingsError::new(format!(
+            "{name} must be a positive number, got {v}"
+        ))),
+        other => Ok(other),
+    }
+}
+
+/// Resolves the merged layers of a run into settings, checking each value.
+pub fn resolve_run(data: PathBuf, layer: SettingLayer) -> Result<RunSettings, SettingsError> {
+    let layout = layer.layout.clone().ok_or_else(|| {
+        SettingsError::new("no plate layout: give --layout LAYOUT (or `layout` in the assay file)".into())
+    })?;
+    let import = resolve_import(&layer)?;
+    let analysis = resolve_analysis(&layer)?;
+    let used = used_layer(layer, &analysis);
+    Ok(RunSettings {
+        data,
+        layout,
+        import,
+        layout_sheet: used.layout_sheet.clone(),
+        analysis,
+        used,
+    })
+}
+
+/// Resolves how the raw export is read.
+pub fn resolve_import(layer: &SettingLayer) -> Result<ImportOptions, SettingsError> {
+    Ok(ImportOptions {
+        shape: parse_field::<DataShape>("shape", &layer.shape)?,
+        time_unit: parse_field::<TimeUnit>("time-unit", &layer.time_unit)?,
+        plate: parse_field::<PlateFormat>("plate", &layer.plate)?,
+        sheet: layer.sheet.clone(),
+        short_rows: match layer.short_rows.as_deref() {
+            None | Some("unreadable") => ShortRowPolicy::TreatAsUnreadable,
+            Some("refuse") => ShortRowPolicy::Refuse,
+            Some(other) => {
+                return Err(SettingsError::new(format!(
+                    "short-rows: unknown policy '{other}' (expected refuse or unreadable)"
+                )))
+            }
+        },
+    })
+}
+
+/// Resolves the analysis part of a layer.
+pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, SettingsError> {
+    let defaults = RateSettings::default();
+    let extinction = positive("extinction", layer.extinction)?;
+    let pathlength = positive("pathlength", layer.pathlength)?;
+    if extinction.is_some() != pathlength.is_some() {
+        return Err(SettingsError::new(
+            "give both --extinction and --pathlength (rates in concentration units need both), or neither (rates in absorbance units)"
+                .into(),
+        ));
+    }
+    let max_conversion = layer.max_conversion.unwrap_or(defaults.max_conversion);
+    if !(max_conversion > 0.0 && max_conversion <= 1.0) {
+        return Err(SettingsError::new(format!(
+            "max-conversion must lie in (0, 1], got {max_conversion}"
+        )));
+    }
+    let min_points = layer.min_points.unwrap_or(defaults.min_points);
+    if min_points < 3 {
+        return Err(SettingsError::new(format!(
+            "min-points must be at least 3, got {min_points}"
+        )));
+    }
+    let skip_s = layer.skip.unwrap_or(defaults.skip_s);
+    if !(skip_s.is_finite() && skip_s >= 0.0) {
+        return Err(SettingsError::new(format!(
+            "skip must be zero or more seconds, got {skip_s}"
+        )));
+    }
+    let alpha = layer.alpha.unwrap_or(defaults.alpha);
+    if !(alpha > 0.0 && alpha < 0.5) {
+        return Err(SettingsError::new(format!(
+            "alpha must lie in (0, 0.5), got {alpha}"
+        )));
+    }
+    let max_absorbance = positive("max-absorbance", layer.max_absorbance)?.unwrap_or(defaults.max_absorbance);
+    let fixed_window_s = layer
+        .window
+        .as_deref()
+        .map(parse_window)
+        .transpose()
+        .map_err(SettingsError::new)?;
+    Ok(AnalysisSettings {
+        readout: parse_field::<Readout>("readout", &layer.readout)?.unwrap_or(Readout::Product),
+        extinction_per_molar_cm: extinction,
+        pathlength_cm: pathlength,
+        rates: RateSettings {
+            min_points,
+            max_conversion,
+            skip_s,
+            fixed_window_s,
+            alpha,
+            max_absorbance,
+        },
+        keep_flagged: layer.keep_flagged.unwrap_or(false),
+        allow_missing: layer.allow_missing.unwrap_or(false),
+    })
+}
+
+/// The layer as used: defaults written out, so the outputs show every value that counted.
+fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLayer {
+    SettingLayer {
+        readout: Some(match analysis.readout {
+            Readout::Product => "product".into(),
+            Readout::Substrate => "substrate".into(),
+        }),
+        skip: Some(analysis.rates.skip_s),
+        max_conversion: Some(analysis.rates.max_conversion),
+        min_points: Some(analysis.rates.min_points),
+        max_absorbance: Some(analysis.rates.max_absorbance),
+        alpha: Some(analysis.rates.alpha),
+        keep_flagged: Some(analysis.keep_flagged),
+        allow_missing: Some(analysis.allow_missing),
+        short_rows: Some(layer.short_rows.clone().unwrap_or_else(|| "unreadable".into())),
+        ..layer
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn flags_win_over_the_assay_file() {
+        let file: SettingLayer =
+            toml::from_str("extinction = 16800\npathlength = 0.55\nmax-conversion = 0.05\n").unwrap();
+        let flags = SettingLayer {
+            max_conversion: Some(0.2),
+            ..SettingLayer::default()
+        };
+        let merged = flags.over(file);
+        assert_eq!(merged.max_conversion, Some(0.2));
+        assert_eq!(merged.extinction, Some(16800.0));
+    }
+
+    #[test]
+    fn unknown_keys_in_the_assay_file_are_refused() {
+        let error = toml::from_str::<SettingLayer>("max_conversoin = 0.1\n").unwrap_err();
+        assert!(error.to_string().contains("max_conversoin"), "{error}");
+    }
+
+    #[test]
+    fn windows_parse_and_bad_values_are_named() {
+        assert_eq!(parse_window("0:300"), Ok((0.0, 300.0)));
+        assert!(parse_window("300:0").is_err());
+        assert!(parse_window("abc").is_err());
+        let layer = SettingLayer {
+            extinction: Some(100.0),
+            ..SettingLayer::default()
+        };
+        assert!(resolve_analysis(&layer)
+            .unwrap_err()
+            .to_string()
+            .contains("pathlength"));
+        let layer = SettingLayer {
+            max_conversion: Some(2.0),
+            ..SettingLayer::default()
+        };
+        assert!(resolve_analysis(&layer)
+            .unwrap_err()
+            .to_string()
+            .contains("max-conversion"));
+    }
+
+    #[test]
+    fn used_settings_show_the_defaults() {
+        let run = resolve_run(
+            "d.csv".into(),
+            SettingLayer {
+                layout: Some("l.csv".into()),
+                ..SettingLayer::default()
+            },
+        )
+        .unwrap();
+        assert_eq!(run.used.max_conversion, Some(0.10));
+        assert_eq!(run.used.min_points, Some(5));
+        let text = toml::to_string(&run.used).unwrap();
+        assert!(text.contains("max-conversion = 0.1"), "{text}");
+    }
+}
