@@ -1,0 +1,94 @@
+//! Criterion benchmarks: import, per-well rates, the Michaelis-Menten fit, and the whole run
+//! (read, analyse, tables, fits, rendering; no disk writes) on a simulated 1536-well plate with
+//! 200 reads (a ~2 MB wide CSV). Run with `cargo bench`; timings never go into tests.
+
+use std::hint::black_box;
+
+use criterion::{criterion_group, criterion_main, Criterion};
+
+use platekin::import::{import_cells, ImportOptions};
+use platekin::layout::parse_layout;
+use platekin::plate::PlateFormat;
+use platekin::run::{analyse_inputs, render_outputs};
+use platekin::settings::{resolve_analysis, AnalysisSettings, SettingLayer};
+use platekin::sheet_reader::read_text_cells;
+use platekin::simulate::{large_plate_spec, layout_tidy_csv, simulate, wide_csv, WideCsvOptions};
+
+struct LargePlate {
+    data_csv: String,
+    layout_csv: String,
+    analysis: AnalysisSettings,
+}
+
+fn large_plate() -> LargePlate {
+    let plate =
+        simulate(&large_plate_spec(PlateFormat::Wells1536, 200)).expect("the benchmark plate simulates");
+    let layer = SettingLayer {
+        extinction: Some(16_800.0),
+        pathlength: Some(0.55),
+        ..SettingLayer::default()
+    };
+    LargePlate {
+        data_csv: wide_csv(&plate, &WideCsvOptions::default()),
+        layout_csv: layout_tidy_csv(&plate),
+        analysis: resolve_analysis(&layer).expect("benchmark settings are valid"),
+    }
+}
+
+fn whole_run(plate: &LargePlate) -> usize {
+    let grid = read_text_cells(plate.data_csv.as_bytes(), "large-plate.csv").expect("reads");
+    let data = import_cells(&grid, &ImportOptions::default()).expect("imports");
+    let layout_grid = read_text_cells(plate.layout_csv.as_bytes(), "large-layout.csv").expect("reads");
+    let layout = parse_layout(&layout_grid, data.plate).expect("layout parses");
+    let results = analyse_inputs(data, layout, &plate.analysis).expect("analyses");
+    let files = render_outputs(&results, &SettingLayer::default(), &[]).expect("renders");
+    files.iter().map(|file| file.bytes.len()).sum()
+}
+
+fn benchmarks(c: &mut Criterion) {
+    let plate = large_plate();
+    let mut group = c.benchmark_group("plate_1536x200");
+    group.sample_size(20);
+    group.bench_function("read_and_import", |b| {
+        b.iter(|| {
+            let grid =
+                read_text_cells(black_box(plate.data_csv.as_bytes()), "large-plate.csv").expect("reads");
+            import_cells(&grid, &ImportOptions::default()).expect("imports")
+        })
+    });
+    let grid = read_text_cells(plate.data_csv.as_bytes(), "large-plate.csv").expect("reads");
+    let data = import_cells(&grid, &ImportOptions::default()).expect("imports");
+    let layout_grid = read_text_cells(plate.layout_csv.as_bytes(), "large-layout.csv").expect("reads");
+    let layout = parse_layout(&layout_grid, data.plate).expect("layout parses");
+    group.bench_function("rates_all_wells", |b| {
+        b.iter(|| platekin::analysis::analyse_plate(black_box(&data), &layout, &plate.analysis))
+    });
+    group.bench_function("whole_run_without_disk", |b| {
+        b.iter(|| whole_run(black_box(&plate)))
+    });
+    group.finish();
+
+    // One group's Michaelis-Menten fit: 8 concentrations in triplicate, the demo's FenA-wt.
+    let substrate: Vec<f64> = [10.0, 20.0, 40.0, 80.0, 160.0, 320.0, 640.0, 1280.0]
+        .iter()
+        .flat_map(|s| [*s, *s, *s])
+        .collect();
+    let rates: Vec<f64> = substrate
+        .iter()
+        .enumerate()
+        .map(|(i, s)| 0.048 * s / (80.0 + s) * (1.0 + 0.02 * ((i as f64 * 1.7).sin())))
+        .collect();
+    c.bench_function("michaelis_menten_fit_24_points", |b| {
+        b.iter(|| {
+            platekin::fit::fit_michaelis_menten(
+                black_box(&substrate),
+                black_box(&rates),
+                &platekin::fit::MichaelisMentenOptions::default(),
+            )
+            .expect("fits")
+        })
+    });
+}
+
+criterion_group!(benches, benchmarks);
+criterion_main!(benches);
