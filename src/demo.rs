@@ -6,7 +6,7 @@ use std::path::Path;
 use crate::import::{import_cells, ImportOptions};
 use crate::layout::parse_layout;
 use crate::run::{analyse_inputs, finish_run, RunError, RunOutcome};
-use crate::settings::{resolve_analysis, SettingLayer};
+use crate::settings::{resolve_analysis, used_layer, SettingLayer};
 use crate::sheet_reader::read_text_cells;
 
 /// The demo's raw export (wide CSV).
@@ -34,5 +34,5 @@ pub fn run_demo(out: &Path) -> Result<RunOutcome, RunError> {
         message: error.to_string(),
     })?;
     let results = analyse_inputs(data, layout, &analysis)?;
-    finish_run(results, &layer, &[], out, false)
+    finish_run(results, &used_layer(layer, &analysis), &[], out, false)
 }

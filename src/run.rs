@@ -165,9 +165,17 @@ pub fn render_outputs(
         "settings": settings_value(used),
         "caution": CAUTION,
     });
+    let data_line = match inputs.first() {
+        Some(data) => format!(
+            "# data: {}\n",
+            data.canonicalize().unwrap_or_else(|_| data.clone()).display()
+        ),
+        None => "# data: the embedded demo plate (the same files are in demo-plates/)\n".to_string(),
+    };
     let settings_toml = format!(
-        "# Settings used by platekin {} for this run; repeat it with --assay settings.toml.\n{}",
+        "# Settings used by platekin {} for this run; repeat it with\n# platekin run DATA --assay settings.toml --out NEW_FOLDER\n{}{}",
         env!("CARGO_PKG_VERSION"),
+        data_line,
         toml::to_string(used).unwrap_or_default()
     );
     Ok(vec![

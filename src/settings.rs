@@ -226,7 +226,16 @@ pub fn resolve_run(data: PathBuf, layer: SettingLayer) -> Result<RunSettings, Se
     })?;
     let import = resolve_import(&layer)?;
     let analysis = resolve_analysis(&layer)?;
-    let used = used_layer(layer, &analysis);
+    // The recorded layout path is absolute, so that `--assay settings.toml` from the output folder
+    // finds the same file.
+    let recorded_layout = layout.canonicalize().unwrap_or_else(|_| layout.clone());
+    let used = used_layer(
+        SettingLayer {
+            layout: Some(recorded_layout),
+            ..layer
+        },
+        &analysis,
+    );
     Ok(RunSettings {
         data,
         layout,
@@ -316,7 +325,7 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
 }
 
 /// The layer as used: defaults written out, so the outputs show every value that counted.
-fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLayer {
+pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLayer {
     SettingLayer {
         readout: Some(match analysis.readout {
             Readout::Product => "product".into(),

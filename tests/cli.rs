@@ -531,3 +531,45 @@ fn missing_files_and_bad_settings_are_refused() {
     );
     check_refused(&["inspect", "no-such-plate.csv"], &["no-such-plate.csv"]);
 }
+
+#[test]
+fn a_run_repeats_exactly_from_its_settings_file() {
+    let scratch = tempfile::tempdir().unwrap();
+    let first = scratch.path().join("first");
+    let output = platekin(
+        &[
+            "run",
+            "small-plate.csv",
+            "--assay",
+            "assay-small.toml",
+            "--skip",
+            "10",
+            "--out",
+            first.to_str().unwrap(),
+        ],
+        &project("fixtures"),
+    );
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    // From another folder, with only the recorded settings.
+    let second = scratch.path().join("second");
+    let data = project("fixtures/small-plate.csv");
+    let output = platekin(
+        &[
+            "run",
+            data.to_str().unwrap(),
+            "--assay",
+            first.join("settings.toml").to_str().unwrap(),
+            "--out",
+            second.to_str().unwrap(),
+        ],
+        scratch.path(),
+    );
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    for file in ["wells.csv", "conditions.csv", "settings.toml"] {
+        assert_eq!(
+            std::fs::read_to_string(first.join(file)).unwrap(),
+            std::fs::read_to_string(second.join(file)).unwrap(),
+            "{file} differs"
+        );
+    }
+}
