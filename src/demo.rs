@@ -18,6 +18,17 @@ pub const DEMO_ASSAY: &str = include_str!("../demo-plates/amber-fen-assay.toml")
 
 /// Runs the embedded demo plate and writes its results into `out`.
 pub fn run_demo(out: &Path) -> Result<RunOutcome, RunError> {
+    run_demo_with_report(out, None)
+}
+
+/// Runs the embedded demo plate with a report choice (`none`, `html`, `full`; html when None).
+pub fn run_demo_with_report(out: &Path, report: Option<&str>) -> Result<RunOutcome, RunError> {
+    let mode = match report {
+        Some(text) => text
+            .parse::<crate::report::ReportMode>()
+            .map_err(|message| RunError::Report(crate::report::ReportError::Mode(message)))?,
+        None => crate::report::ReportMode::Html,
+    };
     crate::output::check_output_folder(out, false)?;
     let grid = read_text_cells(DEMO_DATA.as_bytes(), "amber-fen-wide.csv (embedded demo)")
         .map_err(crate::import::ImportError::from)?;
@@ -25,7 +36,7 @@ pub fn run_demo(out: &Path) -> Result<RunOutcome, RunError> {
     let layout_grid = read_text_cells(DEMO_LAYOUT.as_bytes(), "amber-fen-layout.csv (embedded demo)")
         .map_err(crate::layout::LayoutError::from)?;
     let layout = parse_layout(&layout_grid, data.plate)?;
-    let layer: SettingLayer = toml::from_str(DEMO_ASSAY).map_err(|error| RunError::Render {
+    let mut layer: SettingLayer = toml::from_str(DEMO_ASSAY).map_err(|error| RunError::Render {
         file: "amber-fen-assay.toml".into(),
         message: error.to_string(),
     })?;
@@ -33,6 +44,7 @@ pub fn run_demo(out: &Path) -> Result<RunOutcome, RunError> {
         file: "amber-fen-assay.toml".into(),
         message: error.to_string(),
     })?;
+    layer.report = Some(mode.word().to_string());
     let results = analyse_inputs(data, layout, &analysis)?;
     finish_run(results, &layer, &[], out, false)
 }
