@@ -270,7 +270,7 @@ impl GroupPlot<'_> {
                 .label_style(text_style(11.0, BLACK))
                 .axis_desc_style(text_style(12.0, BLACK))
                 .y_label_formatter(&|v| significant(*v))
-                .light_line_style(WHITE)
+                .max_light_lines(0)
                 .draw(),
         )?;
         if view.covariance.is_some() && !curve.is_empty() {
@@ -346,7 +346,7 @@ impl GroupPlot<'_> {
                 .label_style(text_style(11.0, BLACK))
                 .axis_desc_style(text_style(12.0, BLACK))
                 .y_label_formatter(&|v| significant(*v))
-                .light_line_style(WHITE)
+                .max_light_lines(0)
                 .draw(),
         )?;
         drawn(chart.draw_series(LineSeries::new([(x_range.0, 0.0), (x_range.1, 0.0)], FRAME_GREY)))?;
@@ -396,7 +396,7 @@ impl GroupPlot<'_> {
                 .label_style(text_style(11.0, BLACK))
                 .axis_desc_style(text_style(12.0, BLACK))
                 .y_label_formatter(&|v| significant(*v))
-                .light_line_style(WHITE)
+                .max_light_lines(0)
                 .draw(),
         )?;
         if let Some(line) = nonlinear_line {

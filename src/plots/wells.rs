@@ -685,7 +685,7 @@ impl Drawing for WellDetail<'_> {
                 .x_labels(6)
                 .y_labels(5)
                 .y_label_formatter(&|v| significant(*v))
-                .light_line_style(WHITE)
+                .max_light_lines(0)
                 .draw(),
         )?;
         if let Some((start, end)) = well.window {
@@ -696,16 +696,7 @@ impl Drawing for WellDetail<'_> {
             .label("initial-rate window")
             .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 16, y + 5)], ORANGE.mix(0.3).filled()));
         }
-        let points: Vec<(f64, f64)> = self
-            .view
-            .times_s
-            .iter()
-            .zip(&well.trace)
-            .filter_map(|(t, value)| value.map(|v| (*t, v)))
-            .collect();
-        drawn(chart.draw_series(points.iter().map(|p| Circle::new(*p, 2, BLUE.filled()))))?
-            .label("reads")
-            .legend(|(x, y)| Circle::new((x + 8, y), 3, BLUE.filled()));
+        // The line goes under the reads so they stay visible.
         if let (Some((start, end)), Some((intercept, slope))) = (well.window, well.line) {
             drawn(chart.draw_series(LineSeries::new(
                 [start, end].map(|t| (t, intercept + slope * t)),
@@ -714,6 +705,30 @@ impl Drawing for WellDetail<'_> {
             .label("fitted straight line")
             .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], BLACK.stroke_width(2)));
         }
+        let points: Vec<(f64, f64)> = self
+            .view
+            .times_s
+            .iter()
+            .zip(&well.trace)
+            .filter_map(|(t, value)| value.map(|v| (*t, v)))
+            .collect();
+        // Up to MARKED_READS reads each get a marker; longer traces are a line with markers only
+        // inside the window, which keeps a 384-well page's 384 detail plots to a few MB.
+        const MARKED_READS: usize = 120;
+        let marked: Vec<(f64, f64)> = if points.len() <= MARKED_READS {
+            points.clone()
+        } else {
+            drawn(chart.draw_series(LineSeries::new(points.iter().copied(), BLUE.stroke_width(1))))?;
+            let (start, end) = well.window.unwrap_or((f64::NAN, f64::NAN));
+            points
+                .iter()
+                .copied()
+                .filter(|p| p.0 >= start && p.0 <= end)
+                .collect()
+        };
+        drawn(chart.draw_series(marked.iter().map(|p| Circle::new(*p, 2, BLUE.filled()))))?
+            .label("reads")
+            .legend(|(x, y)| Circle::new((x + 8, y), 3, BLUE.filled()));
         drawn(
             chart
                 .configure_series_labels()
