@@ -608,7 +608,12 @@ fn checklist_section(parts: &ReportParts) -> String {
                 if enzyme_levels.is_empty() {
                     "not given".to_string()
                 } else {
-                    format!("{} level(s): {}", enzyme_levels.len(), enzyme_levels.into_iter().collect::<Vec<_>>().join(", "))
+                    format!(
+                        "{} level(s): {}{}",
+                        enzyme_levels.len(),
+                        enzyme_levels.into_iter().collect::<Vec<_>>().join(", "),
+                        results.layout.enzyme_unit.map_or(String::new(), |unit| format!(" {unit}"))
+                    )
                 }
             ),
         ),
