@@ -446,6 +446,25 @@ mod tests {
         assert!((fit_far - low_far) < 1e-6);
     }
 
+    proptest::proptest! {
+        /// For any positive-semidefinite covariance the band holds the curve and is symmetric
+        /// about it (common practice: a delta-method interval is fit +- t sd).
+        #[test]
+        fn band_brackets_the_curve(
+            vmax in 0.01f64..1e3,
+            km in 0.01f64..1e3,
+            sd_v in 0.0f64..10.0,
+            sd_k in 0.0f64..10.0,
+            rho in -1.0f64..1.0,
+            substrate in 0.0f64..1e4,
+        ) {
+            let covariance = [sd_v * sd_v, rho * sd_v * sd_k, sd_k * sd_k];
+            let (fit, low, high) = mean_band(vmax, km, covariance, 2.0, substrate);
+            proptest::prop_assert!(low <= fit + 1e-12 * fit.abs() && fit <= high + 1e-12 * fit.abs());
+            proptest::prop_assert!(((high - fit) - (fit - low)).abs() <= 1e-9 * (1.0 + fit.abs()));
+        }
+    }
+
     #[test]
     fn demo_groups_have_fits_bands_and_residuals() {
         let results = crate::report::tests::demo_results();

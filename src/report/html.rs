@@ -705,6 +705,22 @@ fn details_section(parts: &ReportParts) -> String {
 mod tests {
     use super::*;
 
+    proptest::proptest! {
+        /// Escaped text never opens a tag or closes an attribute, and unescaping gives it back.
+        #[test]
+        fn escaped_text_is_inert(text in ".{0,40}") {
+            let escaped = escape(&text);
+            proptest::prop_assert!(!escaped.contains('<') && !escaped.contains('>') && !escaped.contains('"'));
+            let back = escaped
+                .replace("&lt;", "<")
+                .replace("&gt;", ">")
+                .replace("&quot;", "\"")
+                .replace("&#39;", "'")
+                .replace("&amp;", "&");
+            proptest::prop_assert_eq!(back, text);
+        }
+    }
+
     #[test]
     fn escape_covers_markup_characters() {
         assert_eq!(
