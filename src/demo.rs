@@ -36,7 +36,7 @@ pub fn run_demo_with_report(out: &Path, report: Option<&str>) -> Result<RunOutco
     let layout_grid = read_text_cells(DEMO_LAYOUT.as_bytes(), "amber-fen-layout.csv (embedded demo)")
         .map_err(crate::layout::LayoutError::from)?;
     let layout = parse_layout(&layout_grid, data.plate)?;
-    let mut layer: SettingLayer = toml::from_str(DEMO_ASSAY).map_err(|error| RunError::Render {
+    let layer: SettingLayer = toml::from_str(DEMO_ASSAY).map_err(|error| RunError::Render {
         file: "amber-fen-assay.toml".into(),
         message: error.to_string(),
     })?;
@@ -44,6 +44,8 @@ pub fn run_demo_with_report(out: &Path, report: Option<&str>) -> Result<RunOutco
         file: "amber-fen-assay.toml".into(),
         message: error.to_string(),
     })?;
+    // Record the defaults too, so the report and settings.toml show every value used.
+    let mut layer = crate::settings::used_layer(layer, &analysis);
     layer.report = Some(mode.word().to_string());
     let results = analyse_inputs(data, layout, &analysis)?;
     finish_run(results, &layer, &[], out, false)

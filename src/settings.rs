@@ -321,7 +321,7 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
 }
 
 /// The layer as used: defaults written out, so the outputs show every value that counted.
-fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLayer {
+pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLayer {
     SettingLayer {
         readout: Some(match analysis.readout {
             Readout::Product => "product".into(),
