@@ -231,6 +231,8 @@ impl GroupPlot<'_> {
         let curve: Vec<(f64, f64, f64, f64)> = match (view.estimates, view.covariance) {
             (Some((vmax, km)), covariance) => {
                 let t = t_critical(0.05, view.used.len().saturating_sub(2));
+                // With no residual degrees of freedom there is no band, but the curve still shows.
+                let covariance = covariance.filter(|_| t.is_finite());
                 (0..=120)
                     .map(|i| {
                         let s = x_range.1 * f64::from(i) / 120.0;
@@ -273,7 +275,8 @@ impl GroupPlot<'_> {
                 .max_light_lines(0)
                 .draw(),
         )?;
-        if view.covariance.is_some() && !curve.is_empty() {
+        let has_band = curve.iter().any(|p| p.3 > p.2);
+        if has_band {
             let mut polygon: Vec<(f64, f64)> = curve.iter().map(|p| (p.0, p.3)).collect();
             polygon.extend(curve.iter().rev().map(|p| (p.0, p.2)));
             drawn(chart.draw_series(std::iter::once(Polygon::new(
@@ -462,6 +465,43 @@ mod tests {
             let (fit, low, high) = mean_band(vmax, km, covariance, 2.0, substrate);
             proptest::prop_assert!(low <= fit + 1e-12 * fit.abs() && fit <= high + 1e-12 * fit.abs());
             proptest::prop_assert!(((high - fit) - (fit - low)).abs() <= 1e-9 * (1.0 + fit.abs()));
+        }
+    }
+
+    /// Two wells leave no degrees of freedom: the curve is drawn without a band, and nothing fails.
+    #[test]
+    fn two_point_group_draws_its_curve_without_a_band() {
+        let view = GroupView {
+            number: 1,
+            label: "two wells".into(),
+            used: vec![
+                GroupPoint {
+                    well: "A1".into(),
+                    substrate: 10.0,
+                    rate: 1.0,
+                },
+                GroupPoint {
+                    well: "A2".into(),
+                    substrate: 100.0,
+                    rate: 3.0,
+                },
+            ],
+            left_out: Vec::new(),
+            estimates: Some((4.0, 30.0)),
+            covariance: Some([0.1, 0.0, 1.0]),
+            lineweaver_burk: None,
+            rate_unit: "uM/s".into(),
+            substrate_unit: "uM".into(),
+        };
+        let plot = crate::plots::render_svg(&GroupPlot {
+            view: &view,
+            kind: GroupPlotKind::Rate,
+        })
+        .unwrap();
+        assert!(plot.svg.contains("Michaelis-Menten fit"));
+        assert!(!plot.svg.contains("95% band"));
+        for kind in GroupPlotKind::ALL {
+            crate::plots::render_svg(&GroupPlot { view: &view, kind }).unwrap();
         }
     }
 
