@@ -41,7 +41,12 @@ fn whole_run(plate: &LargePlate) -> usize {
     let layout_grid = read_text_cells(plate.layout_csv.as_bytes(), "large-layout.csv").expect("reads");
     let layout = parse_layout(&layout_grid, data.plate).expect("layout parses");
     let results = analyse_inputs(data, layout, &plate.analysis).expect("analyses");
-    let files = render_outputs(&results, &SettingLayer::default(), &[]).expect("renders");
+    // The pipeline's own target excludes plots: no report here (see the report benchmark note).
+    let no_report = SettingLayer {
+        report: Some("none".into()),
+        ..SettingLayer::default()
+    };
+    let files = render_outputs(&results, &no_report, &[]).expect("renders");
     files.iter().map(|file| file.bytes.len()).sum()
 }
 

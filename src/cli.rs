@@ -103,6 +103,9 @@ pub struct RunArgs {
     /// Layout wells absent from the data only warn.
     #[arg(long)]
     pub allow_missing: bool,
+    /// Report: none, html (report.html, the default) or full (also one PNG per plot in plots/).
+    #[arg(long, value_name = "none|html|full")]
+    pub report: Option<String>,
 }
 
 /// `platekin inspect`.
@@ -120,6 +123,9 @@ pub struct DemoArgs {
     /// Output folder.
     #[arg(long, value_name = "DIR", default_value = "platekin-demo")]
     pub out: PathBuf,
+    /// Report: none, html (report.html, the default) or full (also one PNG per plot in plots/).
+    #[arg(long, value_name = "none|html|full")]
+    pub report: Option<String>,
 }
 
 impl ReadArgs {
@@ -153,6 +159,7 @@ impl RunArgs {
             alpha: self.alpha,
             keep_flagged: self.keep_flagged.then_some(true),
             allow_missing: self.allow_missing.then_some(true),
+            report: self.report.clone(),
             ..self.read.layer()
         }
     }

@@ -18,6 +18,17 @@ pub const DEMO_ASSAY: &str = include_str!("../demo-plates/amber-fen-assay.toml")
 
 /// Runs the embedded demo plate and writes its results into `out`.
 pub fn run_demo(out: &Path) -> Result<RunOutcome, RunError> {
+    run_demo_with_report(out, None)
+}
+
+/// Runs the embedded demo plate with a report choice (`none`, `html`, `full`; html when None).
+pub fn run_demo_with_report(out: &Path, report: Option<&str>) -> Result<RunOutcome, RunError> {
+    let mode = match report {
+        Some(text) => text
+            .parse::<crate::report::ReportMode>()
+            .map_err(|message| RunError::Report(crate::report::ReportError::Mode(message)))?,
+        None => crate::report::ReportMode::Html,
+    };
     crate::output::check_output_folder(out, false)?;
     let grid = read_text_cells(DEMO_DATA.as_bytes(), "amber-fen-wide.csv (embedded demo)")
         .map_err(crate::import::ImportError::from)?;
@@ -33,6 +44,9 @@ pub fn run_demo(out: &Path) -> Result<RunOutcome, RunError> {
         file: "amber-fen-assay.toml".into(),
         message: error.to_string(),
     })?;
+    // Record the defaults too, so the report and settings.toml show every value used.
+    let mut layer = used_layer(layer, &analysis);
+    layer.report = Some(mode.word().to_string());
     let results = analyse_inputs(data, layout, &analysis)?;
-    finish_run(results, &used_layer(layer, &analysis), &[], out, false)
+    finish_run(results, &layer, &[], out, false)
 }

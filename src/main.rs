@@ -61,6 +61,8 @@ fn execute(cli: Cli) -> anyhow::Result<String> {
             let import = resolve_import(&args.read.layer())?;
             Ok(platekin::run::inspect(&args.data, &import)?)
         }
-        Command::Demo(args) => Ok(platekin::demo::run_demo(&args.out)?.summary),
+        Command::Demo(args) => {
+            Ok(platekin::demo::run_demo_with_report(&args.out, args.report.as_deref())?.summary)
+        }
     }
 }

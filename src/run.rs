@@ -33,6 +33,9 @@ pub enum RunError {
     /// The outputs could not be written.
     #[error(transparent)]
     Output(#[from] OutputError),
+    /// The report or `run.json` could not be rendered.
+    #[error(transparent)]
+    Report(#[from] crate::report::ReportError),
     /// A result could not be rendered as JSON.
     #[error("rendering {file} failed: {message}")]
     Render {
@@ -121,7 +124,7 @@ pub fn finish_run(
 ) -> Result<RunOutcome, RunError> {
     let files = render_outputs(&results, used, inputs)?;
     let written = write_outputs(out, force, inputs, &files)?;
-    let summary = summary_text(&results, out);
+    let summary = summary_text_with(&results, used, out);
     Ok(RunOutcome {
         results,
         written,
@@ -178,7 +181,7 @@ pub fn render_outputs(
         data_line,
         toml::to_string(used).unwrap_or_default()
     );
-    Ok(vec![
+    let mut files = vec![
         OutputFile {
             name: "wells.csv".into(),
             bytes: csv_bytes(&mut wells)?,
@@ -195,7 +198,11 @@ pub fn render_outputs(
             name: "settings.toml".into(),
             bytes: settings_toml.into_bytes(),
         },
-    ])
+    ];
+    // The report (per --report) and run.json, which lists every file before it.
+    let report = crate::report::render_report_outputs(results, used, inputs, &files)?;
+    files.extend(report);
+    Ok(files)
 }
 
 /// Formats a value with its 95% interval: `12.1 [11.6, 12.6]`.
@@ -229,6 +236,11 @@ pub fn significant(value: f64) -> String {
 
 /// The one-screen summary.
 pub fn summary_text(results: &RunResults, out: &Path) -> String {
+    summary_text_with(results, &SettingLayer::default(), out)
+}
+
+/// The one-screen summary, naming the report files the settings ask for.
+pub fn summary_text_with(results: &RunResults, used: &SettingLayer, out: &Path) -> String {
     let data = &results.data;
     let analysis = &results.analysis;
     let mut lines = Vec::new();
@@ -322,8 +334,13 @@ pub fn summary_text(results: &RunResults, out: &Path) -> String {
     }
     lines.push(String::new());
     lines.push(format!(
-        "outputs: {}/ (wells.csv, conditions.csv, fit.json, settings.toml)",
-        out.display()
+        "outputs: {}/ (wells.csv, conditions.csv, fit.json, settings.toml{}, run.json)",
+        out.display(),
+        match crate::report::ReportMode::from_layer(used) {
+            Ok(crate::report::ReportMode::Html) => ", report.html",
+            Ok(crate::report::ReportMode::Full) => ", report.html, plots/*.png",
+            _ => "",
+        }
     ));
     lines.push(CAUTION.to_string());
     lines.push(String::new());

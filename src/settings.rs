@@ -74,6 +74,8 @@ pub struct SettingLayer {
     pub keep_flagged: Option<bool>,
     /// Layout wells absent from the data only warn.
     pub allow_missing: Option<bool>,
+    /// Report written: `none`, `html` (default) or `full` (adds PNGs).
+    pub report: Option<String>,
 }
 
 impl SettingLayer {
@@ -98,6 +100,7 @@ impl SettingLayer {
             alpha: self.alpha.or(below.alpha),
             keep_flagged: self.keep_flagged.or(below.keep_flagged),
             allow_missing: self.allow_missing.or(below.allow_missing),
+            report: self.report.or(below.report),
         }
     }
 
@@ -226,16 +229,18 @@ pub fn resolve_run(data: PathBuf, layer: SettingLayer) -> Result<RunSettings, Se
     })?;
     let import = resolve_import(&layer)?;
     let analysis = resolve_analysis(&layer)?;
+    let report = crate::report::ReportMode::from_layer(&layer).map_err(SettingsError::new)?;
     // The recorded layout path is absolute, so that `--assay settings.toml` from the output folder
     // finds the same file.
     let recorded_layout = layout.canonicalize().unwrap_or_else(|_| layout.clone());
-    let used = used_layer(
+    let mut used = used_layer(
         SettingLayer {
             layout: Some(recorded_layout),
             ..layer
         },
         &analysis,
     );
+    used.report = Some(report.word().to_string());
     Ok(RunSettings {
         data,
         layout,
