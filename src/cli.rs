@@ -5,6 +5,10 @@ use std::path::PathBuf;
 
 use clap::{Args, Parser, Subcommand};
 
+use platekin::fit::inference::{BootstrapSettings, RobustLoss};
+use platekin::fit::models::Weighting;
+use platekin::fit::selection::ModelRequest;
+use platekin::groups::GroupFitSettings;
 use platekin::settings::SettingLayer;
 
 /// Initial rates, linearity checks and Michaelis-Menten fits for continuous enzyme assays read in
@@ -26,6 +30,55 @@ pub enum Command {
     Inspect(InspectArgs),
     /// Run the embedded demo plate (an invented esterase assay) and write its results.
     Demo(DemoArgs),
+    /// Fit a rate table (a run's conditions.csv or wells.csv, or a CSV/XLSX with `substrate` and
+    /// `rate` columns) and write fit.json and a summary.
+    Fit(Box<FitArgs>),
+}
+
+/// How rates are fitted (shared by `run` and `fit`).
+#[derive(Debug, Args)]
+pub struct ModelArgs {
+    /// Rate law: auto, michaelis-menten, competitive, uncompetitive, noncompetitive, mixed,
+    /// substrate-inhibition, hill, morrison or ic50 (default: auto where a group varies the
+    /// inhibitor, else michaelis-menten).
+    #[arg(long, value_name = "MODEL")]
+    pub model: Option<String>,
+    /// Point weights: none (default), relative (1/v^2) or replicate-sd (1/SD^2).
+    #[arg(long, value_name = "none|relative|replicate-sd")]
+    pub weighting: Option<String>,
+    /// Robust loss against outliers: none (default) or huber.
+    #[arg(long, value_name = "none|huber")]
+    pub robust: Option<String>,
+    /// Residual-bootstrap replicates for percentile intervals (default: none).
+    #[arg(long, value_name = "N")]
+    pub bootstrap: Option<usize>,
+    /// Seed of the bootstrap (default 1).
+    #[arg(long, value_name = "SEED", default_value_t = 1)]
+    pub seed: u64,
+    /// Skip the profile-likelihood intervals.
+    #[arg(long)]
+    pub no_profile: bool,
+    /// Km (substrate unit) for the Cheng-Prusoff Ki of an IC50 (an assumption, labelled as such).
+    #[arg(long, value_name = "KM")]
+    pub cheng_prusoff_km: Option<f64>,
+}
+
+/// `platekin fit`.
+#[derive(Debug, Args)]
+pub struct FitArgs {
+    /// The rate table.
+    pub table: PathBuf,
+    /// Output folder.
+    #[arg(long, value_name = "DIR")]
+    pub out: PathBuf,
+    /// Write into a non-empty folder that platekin did not make.
+    #[arg(long)]
+    pub force: bool,
+    /// Sheet of a spreadsheet table.
+    #[arg(long, value_name = "NAME")]
+    pub sheet: Option<String>,
+    #[command(flatten)]
+    pub models: ModelArgs,
 }
 
 /// How the raw export is read (shared by `run` and `inspect`).
@@ -103,6 +156,8 @@ pub struct RunArgs {
     /// Layout wells absent from the data only warn.
     #[arg(long)]
     pub allow_missing: bool,
+    #[command(flatten)]
+    pub models: ModelArgs,
 }
 
 /// `platekin inspect`.
@@ -155,5 +210,45 @@ impl RunArgs {
             allow_missing: self.allow_missing.then_some(true),
             ..self.read.layer()
         }
+    }
+}
+
+impl ModelArgs {
+    /// The flags as fit settings; an unknown name is an error that lists the choices.
+    pub fn settings(&self) -> anyhow::Result<GroupFitSettings> {
+        let model = match &self.model {
+            None => None,
+            Some(name) => Some(ModelRequest::from_name(name).ok_or_else(|| {
+                anyhow::anyhow!(
+                    "unknown --model '{name}' (choose auto, michaelis-menten, competitive, uncompetitive, \
+                     noncompetitive, mixed, substrate-inhibition, hill, morrison or ic50)"
+                )
+            })?),
+        };
+        let weighting = match &self.weighting {
+            None => Weighting::None,
+            Some(name) => Weighting::from_name(name).ok_or_else(|| {
+                anyhow::anyhow!("unknown --weighting '{name}' (choose none, relative or replicate-sd)")
+            })?,
+        };
+        let loss = match &self.robust {
+            None => RobustLoss::None,
+            Some(name) => RobustLoss::from_name(name)
+                .ok_or_else(|| anyhow::anyhow!("unknown --robust '{name}' (choose none or huber)"))?,
+        };
+        if self.bootstrap == Some(0) {
+            anyhow::bail!("--bootstrap needs at least 1 replicate");
+        }
+        Ok(GroupFitSettings {
+            model,
+            weighting,
+            loss,
+            profile: !self.no_profile,
+            bootstrap: self.bootstrap.map(|replicates| BootstrapSettings {
+                replicates,
+                seed: self.seed,
+            }),
+            cheng_prusoff_km: self.cheng_prusoff_km,
+        })
     }
 }

@@ -49,12 +49,16 @@ fn execute(cli: Cli) -> anyhow::Result<String> {
                 None => flags,
             };
             let settings = resolve_run(args.data.clone(), layer)?;
-            let outcome = platekin::run::run_plate(&settings, &args.out, args.force).with_context(|| {
-                format!(
-                    "run on {} not completed; nothing was written",
-                    args.data.display()
-                )
-            })?;
+            let fit_settings = args.models.settings()?;
+            let mut progress = progress_reporter();
+            let outcome =
+                platekin::run::run_plate_with(&settings, &fit_settings, &args.out, args.force, &mut progress)
+                    .with_context(|| {
+                        format!(
+                            "run on {} not completed; nothing was written",
+                            args.data.display()
+                        )
+                    })?;
             Ok(outcome.summary)
         }
         Command::Inspect(args) => {
@@ -62,5 +66,38 @@ fn execute(cli: Cli) -> anyhow::Result<String> {
             Ok(platekin::run::inspect(&args.data, &import)?)
         }
         Command::Demo(args) => Ok(platekin::demo::run_demo(&args.out)?.summary),
+        Command::Fit(args) => {
+            let fit_settings = args.models.settings()?;
+            let mut progress = progress_reporter();
+            let outcome = platekin::rate_table::fit_table_file(
+                &args.table,
+                args.sheet.as_deref(),
+                &fit_settings,
+                &args.out,
+                args.force,
+                &mut progress,
+            )
+            .with_context(|| {
+                format!(
+                    "fit of {} not completed; nothing was written",
+                    args.table.display()
+                )
+            })?;
+            Ok(outcome.summary)
+        }
+    }
+}
+
+/// Bootstrap progress on stderr, only when stderr is a terminal (a log file gets nothing).
+fn progress_reporter() -> impl FnMut(usize, usize) {
+    use std::io::IsTerminal;
+    let terminal = std::io::stderr().is_terminal();
+    move |done: usize, total: usize| {
+        if terminal && (done.is_multiple_of(10) || done == total) {
+            eprint!("\rbootstrap {done}/{total}");
+            if done == total {
+                eprintln!();
+            }
+        }
     }
 }

@@ -145,7 +145,15 @@ pub const NESTED_PAIRS: [(RateModelKind, RateModelKind); 8] = [
 
 /// The candidates `auto` fits.
 pub fn auto_candidates(data: &RateData) -> Vec<RateModelKind> {
-    if data.varies_inhibitor() {
+    let substrate_levels = RateData::distinct(&data.substrate).len();
+    if data.varies_inhibitor() && substrate_levels == 1 {
+        // A single-[S] inhibitor series: the dose-response curve, and tight binding if [E] is known.
+        let mut candidates = vec![RateModelKind::Ic50];
+        if data.enzyme.is_some() {
+            candidates.push(RateModelKind::Morrison);
+        }
+        candidates
+    } else if data.varies_inhibitor() {
         vec![
             RateModelKind::MichaelisMenten,
             RateModelKind::Competitive,
