@@ -195,6 +195,8 @@ pub fn read_rate_table(
         columns.inhibitor,
         columns.enzyme,
         columns.sd,
+        // Never a factor, even when the mean's standard error is the weight.
+        find(&["rate_sd", "sd"]),
     ]
     .into_iter()
     .flatten()

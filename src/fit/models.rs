@@ -22,7 +22,8 @@
 //!
 //! Weighting: each residual and Jacobian row is multiplied by `sqrt(w_i)`, so the fit minimises
 //! `sum w_i (model_i - v_i)^2`. Weights are none (1), relative (`1 / v_i^2`, constant relative
-//! error) or replicate (`1 / sd_i^2`).
+//! error) or replicate (`1 / sd_i^2`, each SD first raised to at least a quarter of the median SD,
+//! see [`replicate_sd_floor`]).
 //!
 //! Starts: for each model, a grid over its shape constants (log-spaced over the data's range, plus
 //! 0 for inverse constants) with the scale (Vmax, v0) profiled out linearly,
@@ -295,6 +296,27 @@ impl Weighting {
     }
 }
 
+/// Fraction of the median replicate SD below which an SD is raised to it before weighting.
+pub const REPLICATE_SD_FLOOR_FRACTION: f64 = 0.25;
+
+/// The floor of replicate SDs: a quarter of their median. Duplicate wells agree closely by chance
+/// far more often than their true spread suggests, and `1/sd^2` would then let one condition
+/// dominate the fit (common practice: guard weights from few replicates).
+pub fn replicate_sd_floor(sd: &[f64]) -> f64 {
+    let mut sorted: Vec<f64> = sd.iter().copied().filter(|v| v.is_finite()).collect();
+    sorted.sort_by(f64::total_cmp);
+    if sorted.is_empty() {
+        return 0.0;
+    }
+    let middle = sorted.len() / 2;
+    let median = if sorted.len().is_multiple_of(2) {
+        0.5 * (sorted[middle - 1] + sorted[middle])
+    } else {
+        sorted[middle]
+    };
+    REPLICATE_SD_FLOOR_FRACTION * median
+}
+
 /// Rates with their conditions. All vectors have one entry per point.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct RateData {
@@ -331,7 +353,7 @@ pub enum RateDataError {
     },
     #[error("relative weighting needs a rate above zero, but point {index} has {value}")]
     RelativeWeightNeedsPositiveRate { index: usize, value: f64 },
-    #[error("replicate-SD weighting needs an SD above zero at every point; point {index} has {value}")]
+    #[error("replicate-SD weighting needs an SD of zero or more at every point and a median SD above zero; point {index} has {value}")]
     ReplicateSdNotPositive { index: usize, value: f64 },
     #[error("replicate-SD weighting needs an SD column")]
     ReplicateSdMissing,
@@ -409,16 +431,21 @@ impl RateData {
                         expected: n,
                     });
                 }
+                for (index, &value) in sd.iter().enumerate() {
+                    if !(value.is_finite() && value >= 0.0) {
+                        return Err(RateDataError::ReplicateSdNotPositive { index, value });
+                    }
+                }
+                let floor = replicate_sd_floor(sd);
+                if floor.is_nan() || floor <= 0.0 {
+                    return Err(RateDataError::ReplicateSdNotPositive { index: 0, value: 0.0 });
+                }
                 sd.iter()
-                    .enumerate()
-                    .map(|(index, &value)| {
-                        if value.is_finite() && value > 0.0 {
-                            Ok(1.0 / (value * value))
-                        } else {
-                            Err(RateDataError::ReplicateSdNotPositive { index, value })
-                        }
+                    .map(|&value| {
+                        let used = value.max(floor);
+                        1.0 / (used * used)
                     })
-                    .collect::<Result<Vec<f64>, _>>()?
+                    .collect()
             }
         };
         Ok(RateData {
@@ -958,6 +985,17 @@ mod tests {
         )
         .unwrap();
         assert_eq!(replicate.weights, vec![4.0, 16.0]);
+        // A near-zero SD is raised to a quarter of the median SD (median of 0.5, 0.001, 0.4 is 0.4).
+        let floored = RateData::new(
+            vec![1.0, 2.0, 3.0],
+            vec![],
+            vec![2.0, 4.0, 5.0],
+            Some(&[0.5, 0.001, 0.4]),
+            Weighting::ReplicateSd,
+            None,
+        )
+        .unwrap();
+        assert!((floored.weights[1] - 1.0 / (0.1f64 * 0.1)).abs() < 1e-9);
         assert_eq!(
             RateData::new(vec![1.0], vec![], vec![0.0], None, Weighting::Relative, None),
             Err(RateDataError::RelativeWeightNeedsPositiveRate { index: 0, value: 0.0 })

@@ -325,10 +325,10 @@ fn candidate_reports(candidates: &[Candidate], n: usize) -> Vec<CandidateReport>
 
 fn fit_candidate(kind: RateModelKind, data: &RateData, settings: &ModelSettings) -> Candidate {
     let outcome = fit_with_loss(kind, data, settings.loss, &settings.least_squares);
+    // Checked also when the solver stalled: running into a limit is a common cause of that.
     let collapsed_to = outcome
         .as_ref()
         .ok()
-        .filter(|robust| robust.fit.converged())
         .and_then(|robust| collapsed_case(&robust.fit, data));
     Candidate {
         kind,
