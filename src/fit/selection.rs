@@ -9,6 +9,8 @@
 //! * Extra sum of squares, simpler model s nested in fuller model f:
 //!   `F = ((RSS_s - RSS_f) / (p_f - p_s)) / (RSS_f / (n - p_f))` on `(p_f - p_s, n - p_f)` degrees of
 //!   freedom.
+//! * `auto` keeps, among the models within 2 AICc units of the lowest, the one with the fewest
+//!   parameters (parsimony), and says so.
 //! * Rule: a model is never preferred on fewer points than parameters plus two (`n >= k + 2`,
 //!   which also keeps AICc's correction finite), nor if its fit did not converge.
 //! * Collapse (common practice): an inverse constant below `1 / (100 max I)` (for substrate
@@ -169,6 +171,10 @@ pub fn auto_candidates(data: &RateData) -> Vec<RateModelKind> {
         ]
     }
 }
+
+/// `auto` keeps the simplest model within this many AICc units of the lowest (Burnham and Anderson
+/// 2002: a difference under 2 is substantial support for both).
+pub const PARSIMONY_DELTA_AICC: f64 = 2.0;
 
 /// An inverse constant more than this many times beyond the highest concentration has no effect.
 pub const COLLAPSE_FACTOR: f64 = 100.0;
@@ -375,14 +381,18 @@ pub fn analyse_rates(
             }
         }
         ModelRequest::Auto => {
+            // Parsimony: among the eligible models within PARSIMONY_DELTA_AICC of the lowest AICc,
+            // the one with the fewest parameters (then the lower AICc).
             let best = reports
                 .iter()
                 .enumerate()
-                .filter(|(_, r)| r.eligible)
+                .filter(|(_, r)| r.eligible && r.delta_aicc.is_some_and(|d| d < PARSIMONY_DELTA_AICC))
                 .min_by(|a, b| {
-                    a.1.aicc
-                        .unwrap_or(f64::INFINITY)
-                        .total_cmp(&b.1.aicc.unwrap_or(f64::INFINITY))
+                    a.1.n_parameters.cmp(&b.1.n_parameters).then(
+                        a.1.aicc
+                            .unwrap_or(f64::INFINITY)
+                            .total_cmp(&b.1.aicc.unwrap_or(f64::INFINITY)),
+                    )
                 })
                 .map(|(index, _)| index);
             match best {
@@ -555,8 +565,12 @@ fn choice_text(request: ModelRequest, reports: &[CandidateReport], chosen: usize
         ModelRequest::Fixed(kind) if kind == chosen_model => format!("{kind} as requested"),
         ModelRequest::Fixed(kind) => format!("{kind} was requested and collapsed to {chosen_model}"),
         ModelRequest::Auto => {
-            let mut text = match reports[chosen].aicc {
-                Some(_) if reports[chosen].eligible => format!("{chosen_model}: lowest AICc"),
+            let mut text = match reports[chosen].delta_aicc {
+                Some(delta) if reports[chosen].eligible && delta == 0.0 => format!("{chosen_model}: lowest AICc"),
+                Some(delta) if reports[chosen].eligible => format!(
+                    "{chosen_model}: fewest parameters within {PARSIMONY_DELTA_AICC} AICc units of the lowest \
+                     (delta AICc {delta:.2}; parsimony)"
+                ),
                 _ => format!("{chosen_model}: no model could be preferred"),
             };
             let runner_up = reports
