@@ -1024,6 +1024,133 @@ mod tests {
         ));
     }
 
+    // NIST/ITL StRD nonlinear regression, Misra1d.dat (https://www.itl.nist.gov/div898/strd/nls/),
+    // copied from the project's reference folder: y = b1 b2 x / (1 + b2 x), so Vmax = b1 and
+    // Km = 1/b2.
+    const MISRA1D_X: [f64; 14] = [
+        77.6, 114.9, 141.1, 190.8, 239.9, 289.0, 332.8, 378.4, 434.8, 477.3, 536.8, 593.1, 689.1, 760.0,
+    ];
+    const MISRA1D_Y: [f64; 14] = [
+        10.07, 14.73, 17.94, 23.93, 29.61, 35.18, 40.02, 44.82, 50.76, 55.05, 61.01, 66.40, 75.47, 81.78,
+    ];
+
+    #[test]
+    fn nist_misra1d_through_the_rate_model_to_six_digits() {
+        let data = RateData::new(
+            MISRA1D_X.to_vec(),
+            vec![],
+            MISRA1D_Y.to_vec(),
+            None,
+            Weighting::None,
+            None,
+        )
+        .unwrap();
+        let fit = fit_rate_model(
+            RateModelKind::MichaelisMenten,
+            &data,
+            None,
+            None,
+            &LeastSquaresOptions::default(),
+        )
+        .unwrap();
+        assert!(fit.converged());
+        // Certified: b1 = 4.3736970754E+02 (SD 3.6489174345E+00), b2 = 3.0227324449E-04
+        // (SD 2.9334354479E-06); Km = 1/b2 and se(Km) = se(b2)/b2^2 (exact for the asymptotic
+        // covariance, which transforms with the Jacobian of the map).
+        let b2 = 3.0227324449E-04;
+        let se_b2 = 2.9334354479E-06;
+        let relative = |a: f64, b: f64| (a / b - 1.0).abs();
+        let se = fit.fit.standard_errors.as_ref().unwrap();
+        assert!(relative(fit.fit.parameters[0], 4.3736970754E+02) < 1e-7);
+        assert!(relative(fit.fit.parameters[1], 1.0 / b2) < 1e-7);
+        assert!(relative(se[0], 3.6489174345E+00) < 1e-6);
+        assert!(relative(se[1], se_b2 / (b2 * b2)) < 1e-6);
+        assert!(relative(fit.fit.residual_standard_deviation.unwrap(), 6.8568272111E-02) < 1e-7);
+    }
+
+    #[test]
+    fn puromycin_treated_through_the_rate_model_matches_published_estimates() {
+        // Puromycin, treated (Treloar 1974; Bates and Watts 1988, Appendix A1.3), as in the R datasets
+        // source Puromycin.R, copied from the project's reference folder. Published: Vm = 212.68
+        // (SE 6.947), K = 0.06412 (SE 8.281e-03), residual SE 10.93 on 10 df.
+        let data = RateData::new(
+            vec![
+                0.02, 0.02, 0.06, 0.06, 0.11, 0.11, 0.22, 0.22, 0.56, 0.56, 1.10, 1.10,
+            ],
+            vec![],
+            vec![
+                76.0, 47.0, 97.0, 107.0, 123.0, 139.0, 159.0, 152.0, 191.0, 201.0, 207.0, 200.0,
+            ],
+            None,
+            Weighting::None,
+            None,
+        )
+        .unwrap();
+        let fit = fit_rate_model(
+            RateModelKind::MichaelisMenten,
+            &data,
+            None,
+            None,
+            &LeastSquaresOptions::default(),
+        )
+        .unwrap();
+        let se = fit.fit.standard_errors.as_ref().unwrap();
+        assert!((fit.fit.parameters[0] - 212.68).abs() < 5e-3);
+        assert!((fit.fit.parameters[1] - 0.06412).abs() < 5e-6);
+        assert!((se[0] - 6.947).abs() < 5e-4);
+        assert!((se[1] - 0.008281).abs() < 5e-7);
+        assert!((fit.fit.residual_standard_deviation.unwrap() - 10.93).abs() < 5e-3);
+    }
+
+    #[test]
+    fn weighted_fits_minimise_the_weighted_sum_of_squares() {
+        // Relative weights on data with 5% multiplicative scatter: at the optimum the weighted
+        // gradient J^T r vanishes, and every small step raises sum w (f - v)^2.
+        let truth = [10.0, 50.0];
+        let substrate: Vec<f64> = [5.0, 10.0, 25.0, 50.0, 100.0, 250.0, 500.0]
+            .iter()
+            .flat_map(|&s| [s, s])
+            .collect();
+        let mut rng = ChaCha8Rng::seed_from_u64(9);
+        let scatter = Normal::new(0.0, 0.05).unwrap();
+        let rate: Vec<f64> = substrate
+            .iter()
+            .map(|s| truth[0] * s / (truth[1] + s) * (1.0 + scatter.sample(&mut rng)))
+            .collect();
+        let data = RateData::new(substrate, vec![], rate, None, Weighting::Relative, None).unwrap();
+        let fit = fit_rate_model(
+            RateModelKind::MichaelisMenten,
+            &data,
+            None,
+            None,
+            &LeastSquaresOptions::default(),
+        )
+        .unwrap();
+        let model = RateModel {
+            kind: RateModelKind::MichaelisMenten,
+            data: &data,
+            extra_weights: None,
+        };
+        let weighted_rss = |parameters: &[f64]| {
+            let mut residuals = vec![0.0; data.len()];
+            model.residuals(parameters, &mut residuals);
+            residuals.iter().map(|r| r * r).sum::<f64>()
+        };
+        let best = weighted_rss(&fit.fit.parameters);
+        assert!((best - fit.fit.rss).abs() <= 1e-12 * best);
+        for (index, sign) in [(0, 1.0), (0, -1.0), (1, 1.0), (1, -1.0)] {
+            let mut moved = fit.fit.parameters.clone();
+            moved[index] *= 1.0 + sign * 1e-4;
+            assert!(weighted_rss(&moved) > best);
+        }
+        // Against the relative-error truth: Km within 15% at 5% scatter on 14 points (stated tolerance).
+        assert!(
+            (fit.fit.parameters[1] / 50.0 - 1.0).abs() < 0.15,
+            "{:?}",
+            fit.fit.parameters
+        );
+    }
+
     #[test]
     fn names_round_trip() {
         for kind in ALL_RATE_MODELS {
