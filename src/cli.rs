@@ -5,10 +5,6 @@ use std::path::PathBuf;
 
 use clap::{Args, Parser, Subcommand};
 
-use platekin::fit::inference::{BootstrapSettings, RobustLoss};
-use platekin::fit::models::Weighting;
-use platekin::fit::selection::ModelRequest;
-use platekin::groups::GroupFitSettings;
 use platekin::settings::SettingLayer;
 
 /// Initial rates, linearity checks and Michaelis-Menten fits for continuous enzyme assays read in
@@ -53,8 +49,8 @@ pub struct ModelArgs {
     #[arg(long, value_name = "N")]
     pub bootstrap: Option<usize>,
     /// Seed of the bootstrap (default 1).
-    #[arg(long, value_name = "SEED", default_value_t = 1)]
-    pub seed: u64,
+    #[arg(long, value_name = "SEED")]
+    pub seed: Option<u64>,
     /// Skip the profile-likelihood intervals.
     #[arg(long)]
     pub no_profile: bool,
@@ -208,47 +204,23 @@ impl RunArgs {
             alpha: self.alpha,
             keep_flagged: self.keep_flagged.then_some(true),
             allow_missing: self.allow_missing.then_some(true),
-            ..self.read.layer()
+            ..self.models.layer().over(self.read.layer())
         }
     }
 }
 
 impl ModelArgs {
-    /// The flags as fit settings; an unknown name is an error that lists the choices.
-    pub fn settings(&self) -> anyhow::Result<GroupFitSettings> {
-        let model = match &self.model {
-            None => None,
-            Some(name) => Some(ModelRequest::from_name(name).ok_or_else(|| {
-                anyhow::anyhow!(
-                    "unknown --model '{name}' (choose auto, michaelis-menten, competitive, uncompetitive, \
-                     noncompetitive, mixed, substrate-inhibition, hill, morrison or ic50)"
-                )
-            })?),
-        };
-        let weighting = match &self.weighting {
-            None => Weighting::None,
-            Some(name) => Weighting::from_name(name).ok_or_else(|| {
-                anyhow::anyhow!("unknown --weighting '{name}' (choose none, relative or replicate-sd)")
-            })?,
-        };
-        let loss = match &self.robust {
-            None => RobustLoss::None,
-            Some(name) => RobustLoss::from_name(name)
-                .ok_or_else(|| anyhow::anyhow!("unknown --robust '{name}' (choose none or huber)"))?,
-        };
-        if self.bootstrap == Some(0) {
-            anyhow::bail!("--bootstrap needs at least 1 replicate");
-        }
-        Ok(GroupFitSettings {
-            model,
-            weighting,
-            loss,
-            profile: !self.no_profile,
-            bootstrap: self.bootstrap.map(|replicates| BootstrapSettings {
-                replicates,
-                seed: self.seed,
-            }),
+    /// The model flags as a settings layer.
+    pub fn layer(&self) -> SettingLayer {
+        SettingLayer {
+            model: self.model.clone(),
+            weighting: self.weighting.clone(),
+            robust: self.robust.clone(),
+            bootstrap: self.bootstrap,
+            seed: self.seed,
+            profile: self.no_profile.then_some(false),
             cheng_prusoff_km: self.cheng_prusoff_km,
-        })
+            ..SettingLayer::default()
+        }
     }
 }

@@ -10,7 +10,7 @@ use anyhow::Context;
 use clap::Parser;
 
 use cli::{Cli, Command};
-use platekin::settings::{resolve_import, resolve_run, SettingLayer};
+use platekin::settings::{resolve_fit, resolve_import, resolve_run, SettingLayer};
 
 fn main() -> ExitCode {
     run(Cli::parse())
@@ -48,8 +48,8 @@ fn execute(cli: Cli) -> anyhow::Result<String> {
                 Some(path) => flags.over(SettingLayer::from_assay_file(path)?),
                 None => flags,
             };
+            let fit_settings = resolve_fit(&layer)?;
             let settings = resolve_run(args.data.clone(), layer)?;
-            let fit_settings = args.models.settings()?;
             let mut progress = progress_reporter();
             let outcome =
                 platekin::run::run_plate_with(&settings, &fit_settings, &args.out, args.force, &mut progress)
@@ -67,7 +67,7 @@ fn execute(cli: Cli) -> anyhow::Result<String> {
         }
         Command::Demo(args) => Ok(platekin::demo::run_demo(&args.out)?.summary),
         Command::Fit(args) => {
-            let fit_settings = args.models.settings()?;
+            let fit_settings = resolve_fit(&args.models.layer())?;
             let mut progress = progress_reporter();
             let outcome = platekin::rate_table::fit_table_file(
                 &args.table,

@@ -300,3 +300,39 @@ fn fit_refuses_bad_options_and_tables_and_writes_nothing() {
         assert!(!out.exists());
     }
 }
+
+#[test]
+fn model_settings_come_from_the_assay_file_and_are_written_back() {
+    let scratch = tempfile::tempdir().unwrap();
+    let (data, layout) = write_inhibition_plate(scratch.path());
+    let assay = scratch.path().join("assay.toml");
+    std::fs::write(
+        &assay,
+        "extinction = 18300\npathlength = 0.5\nmodel = \"noncompetitive\"\nweighting = \"relative\"\n",
+    )
+    .unwrap();
+    let out = scratch.path().join("assay-out");
+    let result = platekin(
+        &[
+            "run",
+            data.to_str().unwrap(),
+            "--layout",
+            layout.to_str().unwrap(),
+            "--assay",
+            assay.to_str().unwrap(),
+            "--model",
+            "competitive",
+            "--out",
+            out.to_str().unwrap(),
+        ],
+        scratch.path(),
+    );
+    assert!(result.status.success(), "{}", text(&result.stderr));
+    let group = &fit_json(&out)["groups"][0];
+    // The flag wins over the file; the file's weighting stays.
+    assert_eq!(group["model_requested"], "competitive");
+    assert_eq!(group["weighting"], "relative");
+    let written = std::fs::read_to_string(out.join("settings.toml")).unwrap();
+    assert!(written.contains("model = \"competitive\""), "{written}");
+    assert!(written.contains("weighting = \"relative\""), "{written}");
+}

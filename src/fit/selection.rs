@@ -820,6 +820,48 @@ mod tests {
         assert!(lo.unwrap() < ic50.value && ic50.value < hi.unwrap());
     }
 
+    #[test]
+    fn tight_binding_series_recovers_ki_app_with_the_morrison_equation() {
+        // Invented titration: [E] = 10 nM, Ki_app = 2 nM (so [E] is five times Ki_app and the
+        // classical hyperbola would fail), v0 = 1, 2% noise; Ki_app within 25% (stated tolerance).
+        let inhibitor: Vec<f64> = [0.0, 2.0, 4.0, 6.0, 8.0, 10.0, 12.0, 15.0, 20.0, 30.0, 50.0]
+            .iter()
+            .flat_map(|&i| [i, i, i])
+            .collect();
+        let n = inhibitor.len();
+        let mut data = RateData::new(
+            vec![100.0; n],
+            inhibitor,
+            vec![0.0; n],
+            None,
+            Weighting::None,
+            Some(10.0),
+        )
+        .unwrap();
+        let clean = RateModel {
+            kind: RateModelKind::Morrison,
+            data: &data,
+            extra_weights: None,
+        }
+        .predictions(&[1.0, 2.0]);
+        let mut generator = ChaCha8Rng::seed_from_u64(21);
+        let noise = Normal::new(0.0, 0.02).unwrap();
+        data.rate = clean.iter().map(|v| v + noise.sample(&mut generator)).collect();
+        let settings = ModelSettings {
+            request: ModelRequest::Fixed(RateModelKind::Morrison),
+            ..ModelSettings::default()
+        };
+        let analysis = analyse_rates(&data, &settings, &mut |_, _| {}).unwrap();
+        let ki_app = constant(&analysis, "Ki_app");
+        assert!((ki_app.value / 2.0 - 1.0).abs() < 0.25, "{ki_app:?}");
+        assert!(ki_app.determined);
+        // auto on a single-[S] series with [E] known tries the logistic and Morrison only.
+        let auto = analyse_rates(&data, &quick_settings(), &mut |_, _| {}).unwrap();
+        let tried: Vec<RateModelKind> = auto.models_tried.iter().map(|m| m.model).collect();
+        assert_eq!(tried, vec![RateModelKind::Ic50, RateModelKind::Morrison]);
+        assert_eq!(auto.model, RateModelKind::Morrison, "{}", auto.choice);
+    }
+
     /// Coverage of the profile-likelihood and asymptotic 95% intervals of Ki for a competitive
     /// inhibitor: 200 simulated matrices with known truth. Accepted band 181..=199 of 200 (95% +- 3
     /// binomial standard deviations, sqrt(200 0.95 0.05) = 3.08; common practice for a coverage check).
