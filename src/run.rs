@@ -347,8 +347,8 @@ pub fn group_fit_lines(fits: &[GroupFit]) -> Vec<String> {
                 .get(name)
                 .map_or(String::new(), |p| format!(" {}", p.unit))
         };
-        let has_saturation = fit.parameters.contains_key("Vmax") || fit.parameters.contains_key("Km");
-        if has_saturation {
+        // The run's classic block for Michaelis-Menten; other models list what they fitted.
+        if fit.model == "michaelis-menten" {
             lines.push(format!(
                 "    kcat    {}{}",
                 with_interval(fit.parameters.get("kcat")),
@@ -372,8 +372,12 @@ pub fn group_fit_lines(fits: &[GroupFit]) -> Vec<String> {
                 ));
             }
         }
+        let classic = fit.model == "michaelis-menten";
         for (name, parameter) in &fit.parameters {
-            if ["kcat", "Km", "kcat_over_Km", "Vmax"].contains(&name.as_str()) {
+            if classic && ["kcat", "Km", "kcat_over_Km", "Vmax"].contains(&name.as_str()) {
+                continue;
+            }
+            if name == "Vmax" && fit.parameters.contains_key("kcat") {
                 continue;
             }
             lines.push(format!(
