@@ -1151,6 +1151,29 @@ mod tests {
         );
     }
 
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
+        /// Analytic Jacobians agree with central differences over a wide range of parameter
+        /// scales, for every model.
+        #[test]
+        fn jacobians_match_finite_differences_at_random_parameters(
+            scale in 0.1f64..10.0,
+            shape in 0.3f64..3.0,
+            model_index in 0usize..9,
+        ) {
+            let kind = ALL_RATE_MODELS[model_index];
+            let mut parameters = parameters_for(kind);
+            parameters[0] *= scale;
+            let last = parameters.len() - 1;
+            parameters[last] *= shape;
+            let data = simulated(kind, &parameters_for(kind), 0.02, 3);
+            let model = RateModel { kind, data: &data, extra_weights: None };
+            let typical = vec![0.01; kind.n_parameters()];
+            let discrepancy = check_jacobian_scaled(&model, &parameters, &typical);
+            proptest::prop_assert!(discrepancy.largest_relative_error < 1e-6, "{kind}: {discrepancy:?}");
+        }
+    }
+
     #[test]
     fn names_round_trip() {
         for kind in ALL_RATE_MODELS {
