@@ -381,6 +381,19 @@ pub fn fit_points(
     let inhibitor: Vec<f64> = points.iter().map(|p| p.inhibitor).collect();
     let rates: Vec<f64> = points.iter().map(|p| p.rate).collect();
     let sds: Option<Vec<f64>> = points.iter().map(|p| p.sd).collect();
+    if settings.weighting == Weighting::ReplicateSd && sds.is_none() {
+        let lacking: Vec<&str> = points
+            .iter()
+            .filter(|p| p.sd.is_none())
+            .map(|p| p.label.as_str())
+            .collect();
+        report.error = Some(format!(
+            "no fit: replicate-SD weighting needs an SD at every point (an sd column, or at least two \
+             replicates at the same [S] and [I]); none for {}",
+            lacking.join(", ")
+        ));
+        return report;
+    }
     let enzyme_in_inhibitor_unit = match (units.enzyme, units.inhibitor_unit) {
         (Some((value, unit)), Some(inhibitor_unit)) => Some(value * unit.factor_to(inhibitor_unit)),
         _ => None,

@@ -530,5 +530,16 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(error.contains("mg"), "{error}");
+        // Replicate-SD weighting on single points names the rows without an SD.
+        let weighted = GroupFitSettings {
+            weighting: crate::fit::models::Weighting::ReplicateSd,
+            ..settings.clone()
+        };
+        let fits = fit_table(&table, &weighted, &mut |_, _| {});
+        let error = fits[0].error.as_deref().unwrap_or("");
+        assert!(
+            error.contains("row 2") && error.contains("replicate-SD"),
+            "{error}"
+        );
     }
 }
