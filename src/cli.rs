@@ -26,6 +26,55 @@ pub enum Command {
     Inspect(InspectArgs),
     /// Run the embedded demo plate (an invented esterase assay) and write its results.
     Demo(DemoArgs),
+    /// Fit a rate table (a run's conditions.csv or wells.csv, or a CSV/XLSX with `substrate` and
+    /// `rate` columns) and write fit.json and a summary.
+    Fit(Box<FitArgs>),
+}
+
+/// How rates are fitted (shared by `run` and `fit`).
+#[derive(Debug, Args)]
+pub struct ModelArgs {
+    /// Rate law: auto, michaelis-menten, competitive, uncompetitive, noncompetitive, mixed,
+    /// substrate-inhibition, hill, morrison or ic50 (default: auto where a group varies the
+    /// inhibitor, else michaelis-menten).
+    #[arg(long, value_name = "MODEL")]
+    pub model: Option<String>,
+    /// Point weights: none (default), relative (1/v^2) or replicate-sd (1/SD^2).
+    #[arg(long, value_name = "none|relative|replicate-sd")]
+    pub weighting: Option<String>,
+    /// Robust loss against outliers: none (default) or huber.
+    #[arg(long, value_name = "none|huber")]
+    pub robust: Option<String>,
+    /// Residual-bootstrap replicates for percentile intervals (default: none).
+    #[arg(long, value_name = "N")]
+    pub bootstrap: Option<usize>,
+    /// Seed of the bootstrap (default 1).
+    #[arg(long, value_name = "SEED")]
+    pub seed: Option<u64>,
+    /// Skip the profile-likelihood intervals.
+    #[arg(long)]
+    pub no_profile: bool,
+    /// Km (substrate unit) for the Cheng-Prusoff Ki of an IC50 (an assumption, labelled as such).
+    #[arg(long, value_name = "KM")]
+    pub cheng_prusoff_km: Option<f64>,
+}
+
+/// `platekin fit`.
+#[derive(Debug, Args)]
+pub struct FitArgs {
+    /// The rate table.
+    pub table: PathBuf,
+    /// Output folder.
+    #[arg(long, value_name = "DIR")]
+    pub out: PathBuf,
+    /// Write into a non-empty folder that platekin did not make.
+    #[arg(long)]
+    pub force: bool,
+    /// Sheet of a spreadsheet table.
+    #[arg(long, value_name = "NAME")]
+    pub sheet: Option<String>,
+    #[command(flatten)]
+    pub models: ModelArgs,
 }
 
 /// How the raw export is read (shared by `run` and `inspect`).
@@ -106,6 +155,8 @@ pub struct RunArgs {
     /// Report: none, html (report.html, the default) or full (also one PNG per plot in plots/).
     #[arg(long, value_name = "none|html|full")]
     pub report: Option<String>,
+    #[command(flatten)]
+    pub models: ModelArgs,
 }
 
 /// `platekin inspect`.
@@ -160,7 +211,23 @@ impl RunArgs {
             keep_flagged: self.keep_flagged.then_some(true),
             allow_missing: self.allow_missing.then_some(true),
             report: self.report.clone(),
-            ..self.read.layer()
+            ..self.models.layer().over(self.read.layer())
+        }
+    }
+}
+
+impl ModelArgs {
+    /// The model flags as a settings layer.
+    pub fn layer(&self) -> SettingLayer {
+        SettingLayer {
+            model: self.model.clone(),
+            weighting: self.weighting.clone(),
+            robust: self.robust.clone(),
+            bootstrap: self.bootstrap,
+            seed: self.seed,
+            profile: self.no_profile.then_some(false),
+            cheng_prusoff_km: self.cheng_prusoff_km,
+            ..SettingLayer::default()
         }
     }
 }

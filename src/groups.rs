@@ -1,14 +1,26 @@
-//! Michaelis-Menten fits per group: sample wells grouped by the layout's free factors, enzyme and
-//! inhibitor concentration, fitted on every used replicate well (not the means), with kcat and
-//! kcat/Km in SI-style units when the enzyme concentration and an extinction coefficient are known.
+//! Rate-law fits per group: sample wells grouped by the layout's free factors and enzyme
+//! concentration, fitted on every used replicate well (not the means), with kcat and kcat/Km in
+//! SI-style units when the enzyme concentration and an extinction coefficient are known. A group
+//! whose wells vary the inhibitor gets one global fit over [S] x [I] (model `auto` unless another is
+//! asked for); otherwise the inhibitor concentration also splits groups and Michaelis-Menten is the
+//! default. The same [`fit_points`] serves `platekin fit` on rate tables.
 
 use std::collections::BTreeMap;
 
 use serde_json::{json, Map, Value};
 
 use crate::analysis::{PlateAnalysis, WellResult};
-use crate::fit::{fit_michaelis_menten, turnover_estimates, MichaelisMentenOptions, ParameterEstimate};
+use crate::fit::inference::{BootstrapSettings, ConstantEstimate, Dimension, ProfileInterval, RobustLoss};
+use crate::fit::models::{RateData, RateModelKind, Weighting};
+use crate::fit::selection::{
+    analyse_rates, CandidateReport, FTest, ModelAnalysis, ModelRequest, ModelSettings,
+};
+use crate::fit::{
+    fit_michaelis_menten, linearised_estimates, t_quantile_975, turnover_estimates, MichaelisMentenOptions,
+    ParameterEstimate,
+};
 use crate::layout::{Layout, Role};
+use crate::units::ConcentrationUnit;
 
 /// One parameter as `fit.json` writes it.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
@@ -23,6 +35,12 @@ pub struct ParameterReport {
     pub unit: String,
     /// False when the data cannot pin this parameter down (see the warnings).
     pub determined: bool,
+    /// Profile-likelihood 95% interval (a `null` end: unbounded or beyond the search).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub ci95_profile: Option<ProfileInterval>,
+    /// Bootstrap percentile 95% interval (`--bootstrap N`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub ci95_bootstrap: Option<[f64; 2]>,
 }
 
 impl ParameterReport {
@@ -33,6 +51,22 @@ impl ParameterReport {
             ci95: estimate.ci95.map(|[lo, hi]| [lo * scale, hi * scale]),
             unit: unit.to_string(),
             determined: estimate.determined,
+            ci95_profile: None,
+            ci95_bootstrap: None,
+        }
+    }
+
+    fn from_constant(constant: &ConstantEstimate, unit: &str, scale: f64) -> ParameterReport {
+        ParameterReport {
+            value: constant.value * scale,
+            se: constant.se.map(|se| se * scale),
+            ci95: constant.ci95.map(|[lo, hi]| [lo * scale, hi * scale]),
+            unit: unit.to_string(),
+            determined: constant.determined,
+            ci95_profile: constant
+                .ci95_profile
+                .map(|[lo, hi]| [lo.map(|x| x * scale), hi.map(|x| x * scale)]),
+            ci95_bootstrap: constant.ci95_bootstrap.map(|[lo, hi]| [lo * scale, hi * scale]),
         }
     }
 }
@@ -64,10 +98,62 @@ pub struct GroupFit {
     pub warnings: Vec<String>,
     /// Why no fit could be made, if none was.
     pub error: Option<String>,
+    /// The model asked for (`auto` or a model name).
+    pub model_requested: String,
+    /// The equation of the reported model.
+    pub equation: Option<String>,
+    /// Every model fitted, with its AICc, delta AICc and Akaike weight.
+    pub models_tried: Vec<CandidateReport>,
+    /// Extra-sum-of-squares F tests between nested models that were fitted.
+    pub f_tests: Vec<FTest>,
+    /// Why the reported model, in words.
+    pub model_choice: Option<String>,
+    /// Weighting used: `none`, `relative` or `replicate-sd`.
+    pub weighting: String,
+    /// Loss used: `none` or `huber`.
+    pub robust_loss: String,
+    /// Bootstrap replicates asked for and converged, with the seed.
+    pub bootstrap: Option<Value>,
 }
 
-/// The key that splits sample wells into groups.
-fn group_key(well: &WellResult, layout: &Layout) -> Map<String, Value> {
+/// How groups are fitted.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct GroupFitSettings {
+    /// The model asked for; `None` is the default rule (auto where a group varies the inhibitor,
+    /// else Michaelis-Menten).
+    pub model: Option<ModelRequest>,
+    pub weighting: Weighting,
+    pub loss: RobustLoss,
+    /// Profile-likelihood intervals (default true).
+    pub profile: bool,
+    pub bootstrap: Option<BootstrapSettings>,
+    /// Km (substrate unit) for the Cheng-Prusoff conversion of an IC50.
+    pub cheng_prusoff_km: Option<f64>,
+}
+
+impl Default for GroupFitSettings {
+    fn default() -> Self {
+        GroupFitSettings {
+            model: None,
+            weighting: Weighting::None,
+            loss: RobustLoss::None,
+            profile: true,
+            bootstrap: None,
+            cheng_prusoff_km: None,
+        }
+    }
+}
+
+/// Whether a request fits an inhibitor-dependent model (so the inhibitor must not split groups).
+pub fn request_uses_inhibitor(request: Option<ModelRequest>) -> bool {
+    match request {
+        None | Some(ModelRequest::Auto) => true,
+        Some(ModelRequest::Fixed(kind)) => kind.needs_inhibitor(),
+    }
+}
+
+/// The key that splits sample wells into groups; the inhibitor joins it only when asked.
+fn group_key(well: &WellResult, layout: &Layout, with_inhibitor: bool) -> Map<String, Value> {
     let mut key = Map::new();
     for name in &layout.factor_names {
         key.insert(
@@ -78,8 +164,10 @@ fn group_key(well: &WellResult, layout: &Layout) -> Map<String, Value> {
     if let (Some(unit), Some(enzyme)) = (layout.enzyme_unit, well.setup.enzyme) {
         key.insert(format!("enzyme [{unit}]"), json!(enzyme));
     }
-    if let (Some(unit), Some(inhibitor)) = (layout.inhibitor_unit, well.setup.inhibitor) {
-        key.insert(format!("inhibitor [{unit}]"), json!(inhibitor));
+    if with_inhibitor {
+        if let (Some(unit), Some(inhibitor)) = (layout.inhibitor_unit, well.setup.inhibitor) {
+            key.insert(format!("inhibitor [{unit}]"), json!(inhibitor));
+        }
     }
     key
 }
@@ -99,20 +187,79 @@ pub fn group_label(group: &Map<String, Value>) -> String {
         .join(", ")
 }
 
-/// Fits every group of sample wells.
+/// Fits every group of sample wells with the default settings.
 pub fn fit_groups(analysis: &PlateAnalysis, layout: &Layout) -> Vec<GroupFit> {
+    fit_groups_with(analysis, layout, &GroupFitSettings::default(), &mut |_, _| {})
+}
+
+/// Fits every group of sample wells. `progress(done, total)` reports bootstrap replicates.
+pub fn fit_groups_with(
+    analysis: &PlateAnalysis,
+    layout: &Layout,
+    settings: &GroupFitSettings,
+    progress: &mut dyn FnMut(usize, usize),
+) -> Vec<GroupFit> {
     let mut groups: Vec<(Map<String, Value>, Vec<&WellResult>)> = Vec::new();
     for well in analysis.wells.iter().filter(|w| w.setup.role == Role::Sample) {
-        let key = group_key(well, layout);
+        let key = group_key(well, layout, false);
         match groups.iter_mut().find(|(existing, _)| *existing == key) {
             Some((_, wells)) => wells.push(well),
             None => groups.push((key, vec![well])),
         }
     }
-    groups
+    // A group that varies the inhibitor stays whole only for an inhibitor model (or auto).
+    let mut split: Vec<(Map<String, Value>, Vec<&WellResult>)> = Vec::new();
+    for (key, wells) in groups {
+        let levels = RateData::distinct(
+            &wells
+                .iter()
+                .map(|w| w.setup.inhibitor.unwrap_or(0.0))
+                .collect::<Vec<_>>(),
+        );
+        if levels.len() > 1 && request_uses_inhibitor(settings.model) {
+            split.push((key, wells));
+            continue;
+        }
+        for well in wells {
+            let key = group_key(well, layout, true);
+            match split.iter_mut().find(|(existing, _)| *existing == key) {
+                Some((_, members)) => members.push(well),
+                None => split.push((key, vec![well])),
+            }
+        }
+    }
+    split
         .into_iter()
-        .map(|(key, wells)| fit_one_group(key, &wells, analysis, layout))
+        .map(|(key, wells)| fit_one_group(key, &wells, analysis, layout, settings, progress))
         .collect()
+}
+
+/// One point of a rate table.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FitPoint {
+    /// The well or row it came from.
+    pub label: String,
+    pub substrate: f64,
+    /// 0 where there is no inhibitor.
+    pub inhibitor: f64,
+    pub rate: f64,
+    /// Replicate standard deviation, where known.
+    pub sd: Option<f64>,
+}
+
+/// Units and enzyme of a group, for the reports.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GroupUnits {
+    /// Rate unit text, e.g. `uM/s`, `AU/s`, or "" for unitless data.
+    pub rate_unit: String,
+    /// The concentration in the rate unit, when rates are concentrations per second.
+    pub rate_concentration_unit: Option<ConcentrationUnit>,
+    pub substrate_unit: Option<ConcentrationUnit>,
+    pub inhibitor_unit: Option<ConcentrationUnit>,
+    /// Text for a concentration without a unit (`substrate units` for a run, "" for unitless tables).
+    pub missing_unit_text: String,
+    /// Enzyme concentration and its unit.
+    pub enzyme: Option<(f64, ConcentrationUnit)>,
 }
 
 fn fit_one_group(
@@ -120,104 +267,365 @@ fn fit_one_group(
     wells: &[&WellResult],
     analysis: &PlateAnalysis,
     layout: &Layout,
+    settings: &GroupFitSettings,
+    progress: &mut dyn FnMut(usize, usize),
 ) -> GroupFit {
-    let rate_unit = analysis.rate_unit.clone();
-    let substrate_unit = layout.substrate_unit;
-    let mut used = Vec::new();
+    let mut points = Vec::new();
     let mut left_out = Vec::new();
     for well in wells {
         match (well.used, well.setup.substrate, well.rate_value) {
-            (true, Some(substrate), Some(rate)) => used.push((well.well.to_string(), substrate, rate)),
+            (true, Some(substrate), Some(rate)) => points.push(FitPoint {
+                label: well.well.to_string(),
+                substrate,
+                inhibitor: well.setup.inhibitor.unwrap_or(0.0),
+                rate,
+                sd: None,
+            }),
             _ => left_out.push(json!({
                 "well": well.well.to_string(),
                 "reason": if well.rate_value.is_none() { "no rate".to_string() } else { well.flag_text() },
             })),
         }
     }
-    let substrate: Vec<f64> = used.iter().map(|u| u.1).collect();
-    let rates: Vec<f64> = used.iter().map(|u| u.2).collect();
-    let mut report = GroupFit {
+    replicate_sds(&mut points);
+    let enzyme = match (wells.first().and_then(|w| w.setup.enzyme), layout.enzyme_unit) {
+        (Some(value), Some(unit)) => Some((value, unit)),
+        _ => None,
+    };
+    let units = GroupUnits {
+        rate_unit: analysis.rate_unit.clone(),
+        rate_concentration_unit: analysis.concentration_unit,
+        substrate_unit: layout.substrate_unit,
+        inhibitor_unit: layout.inhibitor_unit,
+        missing_unit_text: "substrate units".to_string(),
+        enzyme,
+    };
+    let n_wells = wells.len();
+    let mut report = fit_points(group, &points, left_out, &units, settings, progress);
+    if !report.wells_left_out.is_empty() {
+        report.warnings.insert(
+            0,
+            format!(
+                "{} of {} sample wells left out (flagged or without a rate); see wells_left_out",
+                report.wells_left_out.len(),
+                n_wells
+            ),
+        );
+    }
+    report
+}
+
+/// Fills each point's `sd` with the SD of the replicate points at the same [S] and [I] (two or more).
+pub fn replicate_sds(points: &mut [FitPoint]) {
+    let conditions: Vec<(f64, f64)> = points.iter().map(|p| (p.substrate, p.inhibitor)).collect();
+    for (index, &(substrate, inhibitor)) in conditions.iter().enumerate() {
+        if points[index].sd.is_some() {
+            continue;
+        }
+        let rates: Vec<f64> = points
+            .iter()
+            .filter(|p| p.substrate == substrate && p.inhibitor == inhibitor)
+            .map(|p| p.rate)
+            .collect();
+        if rates.len() >= 2 {
+            let mean = rates.iter().sum::<f64>() / rates.len() as f64;
+            let variance = rates.iter().map(|r| (r - mean).powi(2)).sum::<f64>() / (rates.len() - 1) as f64;
+            points[index].sd = Some(variance.sqrt());
+        }
+    }
+}
+
+fn empty_report(
+    group: Map<String, Value>,
+    points: &[FitPoint],
+    left_out: Vec<Value>,
+    settings: &GroupFitSettings,
+) -> GroupFit {
+    GroupFit {
         group,
         model: "michaelis-menten".to_string(),
         parameters: BTreeMap::new(),
-        n: used.len(),
+        n: points.len(),
         residual_sd: None,
         correlation_vmax_km: None,
         linearised: Value::Null,
         converged: false,
-        wells_used: used.iter().map(|u| u.0.clone()).collect(),
+        wells_used: points.iter().map(|p| p.label.clone()).collect(),
         wells_left_out: left_out,
         warnings: Vec::new(),
         error: None,
-    };
-    if !report.wells_left_out.is_empty() {
-        report.warnings.push(format!(
-            "{} of {} sample wells left out (flagged or without a rate); see wells_left_out",
-            report.wells_left_out.len(),
-            wells.len()
-        ));
+        model_requested: settings
+            .model
+            .map_or("default".to_string(), |m| m.name().to_string()),
+        equation: None,
+        models_tried: Vec::new(),
+        f_tests: Vec::new(),
+        model_choice: None,
+        weighting: settings.weighting.name().to_string(),
+        robust_loss: settings.loss.name().to_string(),
+        bootstrap: None,
     }
-    let fit = match fit_michaelis_menten(&substrate, &rates, &MichaelisMentenOptions::default()) {
-        Ok(fit) => fit,
+}
+
+/// Fits one group's points and builds its report (shared by runs and `platekin fit`).
+pub fn fit_points(
+    group: Map<String, Value>,
+    points: &[FitPoint],
+    left_out: Vec<Value>,
+    units: &GroupUnits,
+    settings: &GroupFitSettings,
+    progress: &mut dyn FnMut(usize, usize),
+) -> GroupFit {
+    let mut report = empty_report(group, points, left_out, settings);
+    let substrate: Vec<f64> = points.iter().map(|p| p.substrate).collect();
+    let inhibitor: Vec<f64> = points.iter().map(|p| p.inhibitor).collect();
+    let rates: Vec<f64> = points.iter().map(|p| p.rate).collect();
+    let sds: Option<Vec<f64>> = points.iter().map(|p| p.sd).collect();
+    if settings.weighting == Weighting::ReplicateSd && sds.is_none() {
+        let lacking: Vec<&str> = points
+            .iter()
+            .filter(|p| p.sd.is_none())
+            .map(|p| p.label.as_str())
+            .collect();
+        report.error = Some(format!(
+            "no fit: replicate-SD weighting needs an SD at every point (an sd column, or at least two \
+             replicates at the same [S] and [I]); none for {}",
+            lacking.join(", ")
+        ));
+        return report;
+    }
+    let enzyme_in_inhibitor_unit = match (units.enzyme, units.inhibitor_unit) {
+        (Some((value, unit)), Some(inhibitor_unit)) => Some(value * unit.factor_to(inhibitor_unit)),
+        _ => None,
+    };
+    let varies_inhibitor = RateData::distinct(&inhibitor).len() > 1;
+    let request = settings.model.unwrap_or(if varies_inhibitor {
+        ModelRequest::Auto
+    } else {
+        ModelRequest::Fixed(RateModelKind::MichaelisMenten)
+    });
+    report.model_requested = request.name().to_string();
+    let data = match RateData::new(
+        substrate.clone(),
+        inhibitor.clone(),
+        rates.clone(),
+        sds.as_deref(),
+        settings.weighting,
+        enzyme_in_inhibitor_unit,
+    ) {
+        Ok(data) => data,
         Err(error) => {
-            report.error = Some(format!("no Michaelis-Menten fit: {error}"));
+            report.error = Some(format!("no fit: {error}"));
             return report;
         }
     };
-    let km_unit = substrate_unit.map_or_else(|| "substrate units".to_string(), |u| u.to_string());
+    let model_settings = ModelSettings {
+        request,
+        weighting: settings.weighting,
+        loss: settings.loss,
+        profile: settings.profile,
+        bootstrap: settings.bootstrap,
+        cheng_prusoff_km: settings.cheng_prusoff_km,
+        ..ModelSettings::default()
+    };
+    let analysis = match analyse_rates(&data, &model_settings, progress) {
+        Ok(analysis) => analysis,
+        Err(error) => {
+            report.error = Some(format!("no {} fit: {error}", request.name()));
+            return report;
+        }
+    };
+    report.model = analysis.model.name().to_string();
+    report.equation = Some(analysis.equation.to_string());
+    report.models_tried = analysis.models_tried.clone();
+    report.f_tests = analysis.f_tests.clone();
+    report.model_choice = Some(if settings.model.is_none() && !varies_inhibitor {
+        format!(
+            "{} (the default where the inhibitor is not varied)",
+            analysis.choice
+        )
+    } else {
+        analysis.choice.clone()
+    });
+    report.bootstrap = analysis.bootstrap.as_ref().map(|b| {
+        json!({"replicates": b.replicates, "converged": b.converged, "seed": b.seed, "method": "residual resampling, percentile intervals"})
+    });
+    let plain_michaelis_menten = analysis.model == RateModelKind::MichaelisMenten
+        && settings.weighting == Weighting::None
+        && settings.loss == RobustLoss::None;
+    if plain_michaelis_menten {
+        michaelis_menten_report(&mut report, &substrate, &rates, units, &analysis);
+    } else {
+        general_report(&mut report, &substrate, &data.inhibitor, &rates, units, &analysis);
+    }
+    report.warnings.extend(analysis.warnings.iter().cloned());
+    report
+}
+
+fn concentration_unit_text(unit: Option<ConcentrationUnit>, units: &GroupUnits) -> String {
+    unit.map_or_else(|| units.missing_unit_text.clone(), |u| u.to_string())
+}
+
+fn unit_for(dimension: Dimension, units: &GroupUnits) -> String {
+    match dimension {
+        Dimension::Rate => units.rate_unit.clone(),
+        Dimension::Substrate => concentration_unit_text(units.substrate_unit, units),
+        Dimension::Inhibitor => concentration_unit_text(units.inhibitor_unit, units),
+        Dimension::Dimensionless => "1".to_string(),
+    }
+}
+
+/// The enzyme concentration in the substrate unit, when kcat can be given; else the reason not.
+fn enzyme_for_kcat(units: &GroupUnits) -> Result<(f64, ConcentrationUnit), &'static str> {
+    match (units.rate_concentration_unit, units.substrate_unit, units.enzyme) {
+        (Some(rate_unit), Some(s_unit), Some((e, e_unit))) if e > 0.0 && rate_unit == s_unit => {
+            Ok((e * e_unit.factor_to(s_unit), s_unit))
+        }
+        (None, ..) => Err("no kcat: rates are in absorbance units (give --extinction and --pathlength)"),
+        (_, _, None) | (_, None, _) => Err("no kcat: no enzyme concentration is given"),
+        (Some(_), Some(_), Some((e, _))) if e <= 0.0 => Err("no kcat: the enzyme concentration is zero"),
+        _ => Err("no kcat: the rate and substrate units differ"),
+    }
+}
+
+/// The run's Michaelis-Menten report (unchanged fields), with profile and bootstrap intervals added.
+fn michaelis_menten_report(
+    report: &mut GroupFit,
+    substrate: &[f64],
+    rates: &[f64],
+    units: &GroupUnits,
+    analysis: &ModelAnalysis,
+) {
+    let fit = match fit_michaelis_menten(substrate, rates, &MichaelisMentenOptions::default()) {
+        Ok(fit) => fit,
+        Err(error) => {
+            report.error = Some(format!("no Michaelis-Menten fit: {error}"));
+            return;
+        }
+    };
+    let km_unit = concentration_unit_text(units.substrate_unit, units);
+    let with_intervals = |mut parameter: ParameterReport, name: &str| {
+        if let Some(constant) = analysis.constants.iter().find(|c| c.name == name) {
+            parameter.ci95_profile = constant.ci95_profile;
+            parameter.ci95_bootstrap = constant.ci95_bootstrap;
+        }
+        parameter
+    };
     report.parameters.insert(
         "Vmax".into(),
-        ParameterReport::from_estimate(&fit.vmax, &rate_unit, 1.0),
+        with_intervals(
+            ParameterReport::from_estimate(&fit.vmax, &units.rate_unit, 1.0),
+            "Vmax",
+        ),
     );
     report.parameters.insert(
         "Km".into(),
-        ParameterReport::from_estimate(&fit.km, &km_unit, 1.0),
+        with_intervals(ParameterReport::from_estimate(&fit.km, &km_unit, 1.0), "Km"),
     );
     report.residual_sd = fit.residual_sd;
     report.correlation_vmax_km = fit.correlation_vmax_km;
     report.converged = fit.converged;
     report.linearised = serde_json::to_value(fit.linearised).unwrap_or(Value::Null);
     report.warnings.extend(fit.warnings.iter().cloned());
-
-    // kcat needs rates in concentration units and the enzyme concentration.
-    let enzyme = wells.first().and_then(|w| w.setup.enzyme);
-    match (
-        analysis.concentration_unit,
-        substrate_unit,
-        layout.enzyme_unit,
-        enzyme,
-    ) {
-        (Some(rate_unit_conc), Some(s_unit), Some(e_unit), Some(e))
-            if e > 0.0 && rate_unit_conc == s_unit =>
-        {
-            let enzyme_in_substrate_unit = e * e_unit.factor_to(s_unit);
-            match turnover_estimates(&fit, enzyme_in_substrate_unit, 0.0) {
-                Ok(turnover) => {
-                    report.parameters.insert(
-                        "kcat".into(),
-                        ParameterReport::from_estimate(&turnover.kcat, "1/s", 1.0),
-                    );
-                    if let Some(specificity) = &turnover.kcat_over_km {
-                        // (1/(unit*s)) -> (1/(M*s)).
-                        let scale = 1.0 / s_unit.in_molar();
-                        report.parameters.insert(
-                            "kcat_over_Km".into(),
-                            ParameterReport::from_estimate(specificity, "1/(M*s)", scale),
-                        );
-                    }
+    match enzyme_for_kcat(units) {
+        Ok((enzyme, s_unit)) => match turnover_estimates(&fit, enzyme, 0.0) {
+            Ok(turnover) => {
+                let mut kcat = ParameterReport::from_estimate(&turnover.kcat, "1/s", 1.0);
+                if let Some(vmax) = report.parameters.get("Vmax") {
+                    kcat.ci95_profile = vmax
+                        .ci95_profile
+                        .map(|[lo, hi]| [lo.map(|x| x / enzyme), hi.map(|x| x / enzyme)]);
+                    kcat.ci95_bootstrap = vmax.ci95_bootstrap.map(|[lo, hi]| [lo / enzyme, hi / enzyme]);
                 }
-                Err(error) => report.warnings.push(format!("no kcat: {error}")),
+                report.parameters.insert("kcat".into(), kcat);
+                if let Some(specificity) = &turnover.kcat_over_km {
+                    // (1/(unit*s)) -> (1/(M*s)).
+                    let scale = 1.0 / s_unit.in_molar();
+                    report.parameters.insert(
+                        "kcat_over_Km".into(),
+                        ParameterReport::from_estimate(specificity, "1/(M*s)", scale),
+                    );
+                }
+            }
+            Err(error) => report.warnings.push(format!("no kcat: {error}")),
+        },
+        Err(reason) => report.warnings.push(reason.to_string()),
+    }
+}
+
+/// The report of any other model (or of a weighted or robust Michaelis-Menten fit): every constant
+/// with its intervals, kcat = Vmax/[E], and kcat/Km from the fit's covariance of Vmax and Km.
+fn general_report(
+    report: &mut GroupFit,
+    substrate: &[f64],
+    inhibitor: &[f64],
+    rates: &[f64],
+    units: &GroupUnits,
+    analysis: &ModelAnalysis,
+) {
+    for constant in &analysis.constants {
+        report.parameters.insert(
+            constant.name.clone(),
+            ParameterReport::from_constant(constant, &unit_for(constant.dimension, units), 1.0),
+        );
+    }
+    report.residual_sd = analysis.residual_sd;
+    report.converged = analysis.converged;
+    let Some(fit) = analysis.fit.as_ref() else {
+        return;
+    };
+    let names = &fit.parameter_names;
+    let has_vmax_km = names.first() == Some(&"Vmax") && names.get(1) == Some(&"Km");
+    if has_vmax_km {
+        report.correlation_vmax_km = fit.fit.correlation.as_ref().map(|c| c[(0, 1)]);
+        // Diagnostics from the points without inhibitor (or at the lowest level).
+        let lowest = inhibitor.iter().copied().fold(f64::INFINITY, f64::min);
+        let (s0, v0): (Vec<f64>, Vec<f64>) = substrate
+            .iter()
+            .zip(rates)
+            .zip(inhibitor)
+            .filter(|(_, &level)| level == lowest)
+            .map(|((&s, &v), _)| (s, v))
+            .unzip();
+        report.linearised = serde_json::to_value(linearised_estimates(&s0, &v0)).unwrap_or(Value::Null);
+    }
+    if !names.contains(&"Vmax") {
+        return;
+    }
+    match enzyme_for_kcat(units) {
+        Ok((enzyme, s_unit)) => {
+            if let Some(vmax) = analysis.constants.iter().find(|c| c.name == "Vmax") {
+                report.parameters.insert(
+                    "kcat".into(),
+                    ParameterReport::from_constant(vmax, "1/s", 1.0 / enzyme),
+                );
+            }
+            if let (true, Some(covariance)) = (has_vmax_km, fit.fit.covariance.as_ref()) {
+                let (vmax, km) = (fit.fit.parameters[0], fit.fit.parameters[1]);
+                let gradient = [1.0 / km, -vmax / (km * km)];
+                let variance = gradient[0] * gradient[0] * covariance[(0, 0)]
+                    + 2.0 * gradient[0] * gradient[1] * covariance[(0, 1)]
+                    + gradient[1] * gradient[1] * covariance[(1, 1)];
+                let scale = 1.0 / (enzyme * s_unit.in_molar());
+                let value = vmax / km * scale;
+                let se = variance.max(0.0).sqrt() * scale;
+                let ci95 = t_quantile_975(fit.fit.degrees_of_freedom)
+                    .ok()
+                    .map(|q| [value - q * se, value + q * se]);
+                report.parameters.insert(
+                    "kcat_over_Km".into(),
+                    ParameterReport {
+                        value,
+                        se: Some(se),
+                        ci95,
+                        unit: "1/(M*s)".to_string(),
+                        determined: fit.converged() && se <= 0.5 * value.abs(),
+                        ci95_profile: None,
+                        ci95_bootstrap: None,
+                    },
+                );
             }
         }
-        (None, ..) => report
-            .warnings
-            .push("no kcat: rates are in absorbance units (give --extinction and --pathlength)".to_string()),
-        (_, _, _, None) | (_, _, None, _) => report
-            .warnings
-            .push("no kcat: the layout gives no enzyme concentration".to_string()),
-        _ => report
-            .warnings
-            .push("no kcat: the enzyme concentration is zero".to_string()),
+        Err(reason) => report.warnings.push(reason.to_string()),
     }
-    report
 }

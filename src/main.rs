@@ -10,7 +10,7 @@ use anyhow::Context;
 use clap::Parser;
 
 use cli::{Cli, Command};
-use platekin::settings::{resolve_import, resolve_run, SettingLayer};
+use platekin::settings::{resolve_fit, resolve_import, resolve_run, SettingLayer};
 
 fn main() -> ExitCode {
     run(Cli::parse())
@@ -48,13 +48,17 @@ fn execute(cli: Cli) -> anyhow::Result<String> {
                 Some(path) => flags.over(SettingLayer::from_assay_file(path)?),
                 None => flags,
             };
+            let fit_settings = resolve_fit(&layer)?;
             let settings = resolve_run(args.data.clone(), layer)?;
-            let outcome = platekin::run::run_plate(&settings, &args.out, args.force).with_context(|| {
-                format!(
-                    "run on {} not completed; nothing was written",
-                    args.data.display()
-                )
-            })?;
+            let mut progress = progress_reporter();
+            let outcome =
+                platekin::run::run_plate_with(&settings, &fit_settings, &args.out, args.force, &mut progress)
+                    .with_context(|| {
+                        format!(
+                            "run on {} not completed; nothing was written",
+                            args.data.display()
+                        )
+                    })?;
             Ok(outcome.summary)
         }
         Command::Inspect(args) => {
@@ -63,6 +67,39 @@ fn execute(cli: Cli) -> anyhow::Result<String> {
         }
         Command::Demo(args) => {
             Ok(platekin::demo::run_demo_with_report(&args.out, args.report.as_deref())?.summary)
+        }
+        Command::Fit(args) => {
+            let fit_settings = resolve_fit(&args.models.layer())?;
+            let mut progress = progress_reporter();
+            let outcome = platekin::rate_table::fit_table_file(
+                &args.table,
+                args.sheet.as_deref(),
+                &fit_settings,
+                &args.out,
+                args.force,
+                &mut progress,
+            )
+            .with_context(|| {
+                format!(
+                    "fit of {} not completed; nothing was written",
+                    args.table.display()
+                )
+            })?;
+            Ok(outcome.summary)
+        }
+    }
+}
+
+/// Bootstrap progress on stderr, only when stderr is a terminal (a log file gets nothing).
+fn progress_reporter() -> impl FnMut(usize, usize) {
+    use std::io::IsTerminal;
+    let terminal = std::io::stderr().is_terminal();
+    move |done: usize, total: usize| {
+        if terminal && (done.is_multiple_of(10) || done == total) {
+            eprint!("\rbootstrap {done}/{total}");
+            if done == total {
+                eprintln!();
+            }
         }
     }
 }

@@ -8,7 +8,7 @@ use serde_json::{json, Value};
 
 use crate::analysis::{analyse_plate, flag_counts, wells_in_data, PlateAnalysis};
 use crate::conditions::{condition_table, Condition, TableError};
-use crate::groups::{fit_groups, group_label, GroupFit};
+use crate::groups::{fit_groups_with, group_label, GroupFit, GroupFitSettings};
 use crate::import::{import_data, inspect_report, ImportError, ImportOptions, KineticData};
 use crate::layout::{check_against_data, read_layout, Layout, LayoutError, Role};
 use crate::output::{write_outputs, OutputError, OutputFile};
@@ -61,6 +61,8 @@ pub struct RunResults {
     pub fits: Vec<GroupFit>,
     /// Warnings from reading the inputs and checking them against each other.
     pub input_warnings: Vec<String>,
+    /// How the groups were fitted (model, weighting, loss, intervals).
+    pub fit_settings: GroupFitSettings,
 }
 
 /// What a completed run hands back.
@@ -74,11 +76,29 @@ pub struct RunOutcome {
     pub summary: String,
 }
 
-/// Analyses inputs already read (the demo and the tests use this directly).
+/// Analyses inputs already read (the demo and the tests use this directly), with the default fits.
 pub fn analyse_inputs(
+    data: KineticData,
+    layout: Layout,
+    settings: &AnalysisSettings,
+) -> Result<RunResults, RunError> {
+    analyse_inputs_with(
+        data,
+        layout,
+        settings,
+        &GroupFitSettings::default(),
+        &mut |_, _| {},
+    )
+}
+
+/// As [`analyse_inputs`] with the fit settings given; `progress(done, total)` reports bootstrap
+/// replicates.
+pub fn analyse_inputs_with(
     data: KineticData,
     mut layout: Layout,
     settings: &AnalysisSettings,
+    fit_settings: &GroupFitSettings,
+    progress: &mut dyn FnMut(usize, usize),
 ) -> Result<RunResults, RunError> {
     let mut input_warnings = data.warnings.clone();
     input_warnings.extend(check_against_data(
@@ -88,7 +108,7 @@ pub fn analyse_inputs(
     )?);
     let analysis = analyse_plate(&data, &layout, settings);
     let conditions = condition_table(&analysis, &layout)?;
-    let fits = fit_groups(&analysis, &layout);
+    let fits = fit_groups_with(&analysis, &layout, fit_settings, progress);
     Ok(RunResults {
         data,
         layout,
@@ -96,6 +116,7 @@ pub fn analyse_inputs(
         conditions,
         fits,
         input_warnings,
+        fit_settings: fit_settings.clone(),
     })
 }
 
@@ -108,8 +129,21 @@ pub fn load_and_analyse(settings: &RunSettings) -> Result<RunResults, RunError> 
 
 /// Runs a plate from files and writes the outputs into `out`.
 pub fn run_plate(settings: &RunSettings, out: &Path, force: bool) -> Result<RunOutcome, RunError> {
+    run_plate_with(settings, &GroupFitSettings::default(), out, force, &mut |_, _| {})
+}
+
+/// As [`run_plate`] with the fit settings given.
+pub fn run_plate_with(
+    settings: &RunSettings,
+    fit_settings: &GroupFitSettings,
+    out: &Path,
+    force: bool,
+    progress: &mut dyn FnMut(usize, usize),
+) -> Result<RunOutcome, RunError> {
     crate::output::check_output_folder(out, force)?;
-    let results = load_and_analyse(settings)?;
+    let data = import_data(&settings.data, &settings.import)?;
+    let layout = read_layout(&settings.layout, settings.layout_sheet.as_deref(), data.plate)?;
+    let results = analyse_inputs_with(data, layout, &settings.analysis, fit_settings, progress)?;
     let inputs = vec![settings.data.clone(), settings.layout.clone()];
     finish_run(results, &settings.used, &inputs, out, force)
 }
@@ -166,6 +200,7 @@ pub fn render_outputs(
         "plate_warnings": results.analysis.warnings,
         "input_warnings": results.input_warnings,
         "settings": settings_value(used),
+        "fit_settings": results.fit_settings,
         "caution": CAUTION,
     });
     let data_line = match inputs.first() {
@@ -214,8 +249,12 @@ fn with_interval(parameter: Option<&crate::groups::ParameterReport>) -> String {
             let interval = p.ci95.map_or(String::new(), |[lo, hi]| {
                 format!(" [{}, {}]", significant(lo), significant(hi))
             });
+            let end = |x: Option<f64>, open: &str| x.map_or(open.to_string(), significant);
+            let profile = p.ci95_profile.map_or(String::new(), |[lo, hi]| {
+                format!(" profile [{}, {}]", end(lo, "open"), end(hi, "open"))
+            });
             let doubt = if p.determined { "" } else { " (not determined)" };
-            format!("{value}{interval}{doubt}")
+            format!("{value}{interval}{profile}{doubt}")
         }
     }
 }
@@ -286,44 +325,8 @@ pub fn summary_text_with(results: &RunResults, used: &SettingLayer, out: &Path) 
         }
     }
     lines.push(String::new());
-    lines.push("Michaelis-Menten fits (value [95% interval]):".to_string());
-    for fit in &results.fits {
-        lines.push(format!("  {} (n = {})", group_label(&fit.group), fit.n));
-        if let Some(error) = &fit.error {
-            lines.push(format!("    {error}"));
-            continue;
-        }
-        let unit = |name: &str| {
-            fit.parameters
-                .get(name)
-                .map_or(String::new(), |p| format!(" {}", p.unit))
-        };
-        lines.push(format!(
-            "    kcat    {}{}",
-            with_interval(fit.parameters.get("kcat")),
-            unit("kcat")
-        ));
-        lines.push(format!(
-            "    Km      {}{}",
-            with_interval(fit.parameters.get("Km")),
-            unit("Km")
-        ));
-        lines.push(format!(
-            "    kcat/Km {}{}",
-            with_interval(fit.parameters.get("kcat_over_Km")),
-            unit("kcat_over_Km")
-        ));
-        if !fit.parameters.contains_key("kcat") {
-            lines.push(format!(
-                "    Vmax    {}{}",
-                with_interval(fit.parameters.get("Vmax")),
-                unit("Vmax")
-            ));
-        }
-        for warning in &fit.warnings {
-            lines.push(format!("    warning: {warning}"));
-        }
-    }
+    lines.push("Fits (value [95% interval]):".to_string());
+    lines.extend(group_fit_lines(&results.fits));
     let mut warnings: Vec<&String> = results.input_warnings.iter().collect();
     warnings.extend(&analysis.warnings);
     if !warnings.is_empty() {
@@ -345,4 +348,72 @@ pub fn summary_text_with(results: &RunResults, used: &SettingLayer, out: &Path) 
     lines.push(CAUTION.to_string());
     lines.push(String::new());
     lines.join("\n")
+}
+
+/// The summary lines of the group fits: model, kcat, Km, kcat/Km (or Vmax) and every other constant.
+pub fn group_fit_lines(fits: &[GroupFit]) -> Vec<String> {
+    let mut lines = Vec::new();
+    for fit in fits {
+        lines.push(format!(
+            "  {} (n = {}, model {})",
+            group_label(&fit.group),
+            fit.n,
+            fit.model
+        ));
+        if let Some(error) = &fit.error {
+            lines.push(format!("    {error}"));
+            continue;
+        }
+        if let Some(choice) = fit.model_choice.as_ref().filter(|_| fit.models_tried.len() > 1) {
+            lines.push(format!("    chosen: {choice}"));
+        }
+        let unit = |name: &str| {
+            fit.parameters
+                .get(name)
+                .map_or(String::new(), |p| format!(" {}", p.unit))
+        };
+        // The run's classic block for Michaelis-Menten; other models list what they fitted.
+        if fit.model == "michaelis-menten" {
+            lines.push(format!(
+                "    kcat    {}{}",
+                with_interval(fit.parameters.get("kcat")),
+                unit("kcat")
+            ));
+            lines.push(format!(
+                "    Km      {}{}",
+                with_interval(fit.parameters.get("Km")),
+                unit("Km")
+            ));
+            lines.push(format!(
+                "    kcat/Km {}{}",
+                with_interval(fit.parameters.get("kcat_over_Km")),
+                unit("kcat_over_Km")
+            ));
+            if !fit.parameters.contains_key("kcat") {
+                lines.push(format!(
+                    "    Vmax    {}{}",
+                    with_interval(fit.parameters.get("Vmax")),
+                    unit("Vmax")
+                ));
+            }
+        }
+        let classic = fit.model == "michaelis-menten";
+        for (name, parameter) in &fit.parameters {
+            if classic && ["kcat", "Km", "kcat_over_Km", "Vmax"].contains(&name.as_str()) {
+                continue;
+            }
+            if name == "Vmax" && fit.parameters.contains_key("kcat") {
+                continue;
+            }
+            lines.push(format!(
+                "    {name:<7} {} {}",
+                with_interval(Some(parameter)),
+                parameter.unit
+            ));
+        }
+        for warning in &fit.warnings {
+            lines.push(format!("    warning: {warning}"));
+        }
+    }
+    lines
 }

@@ -76,6 +76,20 @@ pub struct SettingLayer {
     pub allow_missing: Option<bool>,
     /// Report written: `none`, `html` (default) or `full` (adds PNGs).
     pub report: Option<String>,
+    /// Rate law: `auto` or a model name.
+    pub model: Option<String>,
+    /// Point weights: `none`, `relative` or `replicate-sd`.
+    pub weighting: Option<String>,
+    /// Robust loss: `none` or `huber`.
+    pub robust: Option<String>,
+    /// Residual-bootstrap replicates.
+    pub bootstrap: Option<usize>,
+    /// Seed of the bootstrap.
+    pub seed: Option<u64>,
+    /// Profile-likelihood intervals.
+    pub profile: Option<bool>,
+    /// Km for the Cheng-Prusoff Ki of an IC50.
+    pub cheng_prusoff_km: Option<f64>,
 }
 
 impl SettingLayer {
@@ -101,6 +115,13 @@ impl SettingLayer {
             keep_flagged: self.keep_flagged.or(below.keep_flagged),
             allow_missing: self.allow_missing.or(below.allow_missing),
             report: self.report.or(below.report),
+            model: self.model.or(below.model),
+            weighting: self.weighting.or(below.weighting),
+            robust: self.robust.or(below.robust),
+            bootstrap: self.bootstrap.or(below.bootstrap),
+            seed: self.seed.or(below.seed),
+            profile: self.profile.or(below.profile),
+            cheng_prusoff_km: self.cheng_prusoff_km.or(below.cheng_prusoff_km),
         }
     }
 
@@ -326,6 +347,59 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         },
         keep_flagged: layer.keep_flagged.unwrap_or(false),
         allow_missing: layer.allow_missing.unwrap_or(false),
+    })
+}
+
+/// The fit settings of a layer (`model`, `weighting`, `robust`, `bootstrap`, `seed`, `profile`,
+/// `cheng-prusoff-km`); an unknown name is an error that lists the choices.
+pub fn resolve_fit(layer: &SettingLayer) -> Result<crate::groups::GroupFitSettings, SettingsError> {
+    use crate::fit::inference::{BootstrapSettings, RobustLoss};
+    use crate::fit::models::Weighting;
+    use crate::fit::selection::ModelRequest;
+    let model = match &layer.model {
+        None => None,
+        Some(name) => Some(ModelRequest::from_name(name).ok_or_else(|| {
+            SettingsError::new(format!(
+                "unknown --model '{name}' (choose auto, michaelis-menten, competitive, uncompetitive, \
+                 noncompetitive, mixed, substrate-inhibition, hill, morrison or ic50)"
+            ))
+        })?),
+    };
+    let weighting = match &layer.weighting {
+        None => Weighting::None,
+        Some(name) => Weighting::from_name(name).ok_or_else(|| {
+            SettingsError::new(format!(
+                "unknown --weighting '{name}' (choose none, relative or replicate-sd)"
+            ))
+        })?,
+    };
+    let loss = match &layer.robust {
+        None => RobustLoss::None,
+        Some(name) => RobustLoss::from_name(name)
+            .ok_or_else(|| SettingsError::new(format!("unknown --robust '{name}' (choose none or huber)")))?,
+    };
+    if layer.bootstrap == Some(0) {
+        return Err(SettingsError::new(
+            "--bootstrap needs at least 1 replicate".to_string(),
+        ));
+    }
+    if let Some(km) = layer.cheng_prusoff_km {
+        if !(km.is_finite() && km > 0.0) {
+            return Err(SettingsError::new(format!(
+                "--cheng-prusoff-km must be a positive number, not {km}"
+            )));
+        }
+    }
+    Ok(crate::groups::GroupFitSettings {
+        model,
+        weighting,
+        loss,
+        profile: layer.profile.unwrap_or(true),
+        bootstrap: layer.bootstrap.map(|replicates| BootstrapSettings {
+            replicates,
+            seed: layer.seed.unwrap_or(1),
+        }),
+        cheng_prusoff_km: layer.cheng_prusoff_km,
     })
 }
 

@@ -3,8 +3,11 @@
 //!
 //! Residuals are always `model - observed`. Every result type is `serde::Serialize`.
 
+pub mod inference;
 pub mod least_squares;
 pub mod michaelis_menten;
+pub mod models;
+pub mod selection;
 
 pub use least_squares::{
     asymptotic_covariance, check_jacobian, check_jacobian_scaled, confidence_interval_95, f_quantile,
