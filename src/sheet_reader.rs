@@ -71,8 +71,8 @@ pub enum SheetReadError {
     },
 }
 
-/// The kind of file, judged by its extension.
-fn is_spreadsheet(path: &Path) -> bool {
+/// Whether the file is a spreadsheet (XLSX, XLSM, XLSB, XLS, ODS), judged by its extension.
+pub fn is_spreadsheet(path: &Path) -> bool {
     matches!(
         path.extension()
             .and_then(|e| e.to_str())

@@ -323,22 +323,11 @@ pub enum ImportError {
 /// Reads an export from a file. Spreadsheets: `options.sheet`, else the first sheet holding
 /// kinetic data (sheets holding none are skipped with a warning).
 pub fn import_data(path: &Path, options: &ImportOptions) -> Result<KineticData, ImportError> {
-    if options.sheet.is_none() && is_spreadsheet_path(path) {
+    if options.sheet.is_none() && crate::sheet_reader::is_spreadsheet(path) {
         return import_first_sheet_with_data(path, options);
     }
     let grid = read_cells(path, options.sheet.as_deref())?;
     import_cells(&grid, options)
-}
-
-/// Whether the file is a spreadsheet, by its extension (the same rule as the sheet reader).
-fn is_spreadsheet_path(path: &Path) -> bool {
-    matches!(
-        path.extension()
-            .and_then(|e| e.to_str())
-            .map(str::to_ascii_lowercase)
-            .as_deref(),
-        Some("xlsx" | "xlsm" | "xlsb" | "xls" | "ods")
-    )
 }
 
 /// Tries the sheets in order and imports the first that holds a table of a known shape.
