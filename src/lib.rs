@@ -15,6 +15,7 @@ pub mod import;
 pub mod layout;
 pub mod output;
 pub mod plate;
+pub mod progress;
 pub mod rates;
 pub mod regression;
 pub mod run;
