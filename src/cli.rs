@@ -103,6 +103,17 @@ pub struct RunArgs {
     /// Layout wells absent from the data only warn.
     #[arg(long)]
     pub allow_missing: bool,
+    /// Progress-curve analysis (global fit of whole curves): `auto` (default: groups whose initial
+    /// rates are suspect), `always` or `never`.
+    #[arg(long, value_name = "auto|always|never")]
+    pub progress: Option<String>,
+    /// Seconds from the start of the reaction (mixing) to the reads' time zero; added to every
+    /// read time in the progress-curve fits.
+    #[arg(long, value_name = "SECONDS")]
+    pub dead_time: Option<f64>,
+    /// Estimate one shared dead time in each progress-curve fit.
+    #[arg(long)]
+    pub fit_dead_time: bool,
 }
 
 /// `platekin inspect`.
@@ -153,6 +164,9 @@ impl RunArgs {
             alpha: self.alpha,
             keep_flagged: self.keep_flagged.then_some(true),
             allow_missing: self.allow_missing.then_some(true),
+            progress: self.progress.clone(),
+            dead_time: self.dead_time,
+            fit_dead_time: self.fit_dead_time.then_some(true),
             ..self.read.layer()
         }
     }

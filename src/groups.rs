@@ -99,8 +99,12 @@ pub fn group_label(group: &Map<String, Value>) -> String {
         .join(", ")
 }
 
-/// Fits every group of sample wells.
-pub fn fit_groups(analysis: &PlateAnalysis, layout: &Layout) -> Vec<GroupFit> {
+/// The sample wells split into groups (free factors, enzyme, inhibitor), in first-seen order;
+/// the progress-curve analysis uses the same groups.
+pub fn sample_groups<'a>(
+    analysis: &'a PlateAnalysis,
+    layout: &Layout,
+) -> Vec<(Map<String, Value>, Vec<&'a WellResult>)> {
     let mut groups: Vec<(Map<String, Value>, Vec<&WellResult>)> = Vec::new();
     for well in analysis.wells.iter().filter(|w| w.setup.role == Role::Sample) {
         let key = group_key(well, layout);
@@ -110,6 +114,11 @@ pub fn fit_groups(analysis: &PlateAnalysis, layout: &Layout) -> Vec<GroupFit> {
         }
     }
     groups
+}
+
+/// Fits every group of sample wells.
+pub fn fit_groups(analysis: &PlateAnalysis, layout: &Layout) -> Vec<GroupFit> {
+    sample_groups(analysis, layout)
         .into_iter()
         .map(|(key, wells)| fit_one_group(key, &wells, analysis, layout))
         .collect()

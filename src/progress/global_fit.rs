@@ -243,6 +243,9 @@ pub struct ProgressProblem<'a> {
     ode: OdeTolerances,
     offsets: Vec<usize>,
     n_observations: usize,
+    /// The closed form's derivatives cost little beside omega itself, so a residual evaluation
+    /// keeps them for the Jacobian that the solver asks for next at the same point.
+    cache: std::sync::Mutex<Option<(Vec<f64>, Vec<WellPoints>)>>,
 }
 
 /// Point values of one well: substrate and derivatives in (kcat, Km, extra, dead time).
@@ -266,6 +269,7 @@ impl<'a> ProgressProblem<'a> {
             ode: options.ode,
             offsets,
             n_observations: total,
+            cache: std::sync::Mutex::new(None),
         }
     }
 
@@ -348,19 +352,36 @@ impl<'a> ProgressProblem<'a> {
     }
 
     fn all_points(&self, parameters: &[f64], derivatives: bool) -> Vec<WellPoints> {
+        let closed_form = self.model == ProgressModel::MichaelisMenten;
+        if closed_form {
+            if let Ok(guard) = self.cache.lock() {
+                if let Some((at, points)) = guard.as_ref() {
+                    if at.as_slice() == parameters {
+                        return points.clone();
+                    }
+                }
+            }
+        }
         let (constants, dead) = self.unpack(parameters);
-        let is_ode = self.model != ProgressModel::MichaelisMenten;
-        if is_ode {
+        // Wells are independent: spread them over the cores (ODE wells always; closed-form wells
+        // when there are enough reads to outweigh the thread hand-off).
+        let points: Vec<WellPoints> = if !closed_form || self.n_observations >= 2000 {
             self.wells
                 .par_iter()
-                .map(|well| self.well_points(well, &constants, dead, derivatives))
+                .map(|well| self.well_points(well, &constants, dead, derivatives || closed_form))
                 .collect()
         } else {
             self.wells
                 .iter()
-                .map(|well| self.well_points(well, &constants, dead, derivatives))
+                .map(|well| self.well_points(well, &constants, dead, true))
                 .collect()
+        };
+        if closed_form {
+            if let Ok(mut guard) = self.cache.lock() {
+                *guard = Some((parameters.to_vec(), points.clone()));
+            }
         }
+        points
     }
 
     /// The signal offsets `b_i` at `parameters`.
@@ -571,8 +592,8 @@ fn michaelis_menten_start(problem: &ProgressProblem, wells: &[WellCurve], dead: 
     let s_max = wells.iter().map(|w| w.s0).fold(0.0, f64::max);
     let (low, high) = ((s_min / 20.0).ln(), (s_max * 20.0).ln());
     let mut best: Option<(f64, Vec<f64>)> = None;
-    for step in 0..=16 {
-        let km = (low + (high - low) * f64::from(step) / 16.0).exp();
+    for step in 0..=10 {
+        let km = (low + (high - low) * f64::from(step) / 10.0).exp();
         let kcat = median(
             wells
                 .iter()
