@@ -195,3 +195,63 @@ fn bad_groups_get_clear_messages_and_auto_skips_clean_groups() {
     assert!(never.progress.groups.iter().all(|g| !g.analysed));
     assert!(summary_text(&never, std::path::Path::new("out")).contains("--progress never"));
 }
+
+#[test]
+fn the_binary_writes_progress_json_and_refuses_a_bad_mode() {
+    let folder = tempfile::tempdir().unwrap();
+    let demo = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-plates");
+    let data = demo.join("amber-fen-wide.csv");
+    let layout = demo.join("amber-fen-layout.csv");
+    let out = folder.path().join("out");
+    let run = |mode: &str, out: &std::path::Path| {
+        std::process::Command::new(env!("CARGO_BIN_EXE_platekin"))
+            .args([
+                "run",
+                data.to_str().unwrap(),
+                "--layout",
+                layout.to_str().unwrap(),
+            ])
+            .args([
+                "--extinction",
+                "16800",
+                "--pathlength",
+                "0.55",
+                "--progress",
+                mode,
+            ])
+            .args(["--dead-time", "5", "--out", out.to_str().unwrap()])
+            .output()
+            .unwrap()
+    };
+    let output = run("always", &out);
+    assert!(
+        output.status.success(),
+        "{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+    let stdout = String::from_utf8_lossy(&output.stdout);
+    assert!(
+        stdout.contains("Progress-curve analysis (--progress always)"),
+        "{stdout}"
+    );
+    let json: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("progress.json")).unwrap()).unwrap();
+    assert_eq!(json["mode"], "always");
+    let groups = json["groups"].as_array().unwrap();
+    assert_eq!(groups.len(), 2);
+    // Demo truth (src/simulate/demo.rs): FenA-wt kcat 12 /s, Km 80 uM.
+    let wild_type = &groups[0];
+    assert_eq!(wild_type["dead_time_s"], 5.0);
+    let km = wild_type["parameters"]["Km"]["value"].as_f64().unwrap();
+    assert!((km / 80.0 - 1.0).abs() < 0.05, "Km {km}");
+    assert_eq!(json["settings"]["progress"], "always");
+
+    let refused = run("sometimes", &folder.path().join("refused"));
+    assert!(!refused.status.success());
+    let stderr = String::from_utf8_lossy(&refused.stderr);
+    assert!(
+        stderr.contains("progress") && stderr.contains("sometimes"),
+        "{stderr}"
+    );
+    assert!(!folder.path().join("refused").join("progress.json").exists());
+}

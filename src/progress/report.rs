@@ -18,8 +18,9 @@
 //! Trust statement: the progress-curve fit is preferred when the group's initial rates are suspect
 //! (depleted or nonlinear wells, or conversion above the limit) and the fit shows no systematic
 //! misfit in more than a third of the wells; when initial rates are clean and the two analyses'
-//! Km agree (each inside the other's 95% interval) either will do; otherwise the report says
-//! what disagrees.
+//! Km agree (their 95% intervals overlap) either will do; when they disagree and the window slopes
+//! of the lower-S0 wells fall short of the fitted initial rates (median below 97%, depletion within
+//! the windows) the progress-curve fit is preferred; otherwise the report says what disagrees.
 
 use std::collections::BTreeMap;
 
@@ -710,12 +711,12 @@ fn decide_trust(
     let many_misfits = 3 * misfit > fit.wells.len();
     let progress_km = report.parameters.get("Km").cloned();
     let initial_km = initial.and_then(|f| f.parameters.get("Km")).cloned();
+    // Agreement: the two 95% intervals of Km overlap.
     let agree = match (&progress_km, &initial_km) {
-        (Some(p), Some(i)) => {
-            let inside =
-                |value: f64, ci: Option<[f64; 2]>| ci.is_some_and(|[lo, hi]| lo <= value && value <= hi);
-            inside(i.value, p.ci95) && inside(p.value, i.ci95)
-        }
+        (Some(p), Some(i)) => match (p.ci95, i.ci95) {
+            (Some([plo, phi]), Some([ilo, ihi])) => plo <= ihi && ilo <= phi,
+            _ => false,
+        },
         _ => false,
     };
     let ratios: Vec<f64> = report
@@ -738,6 +739,18 @@ fn decide_trust(
         ),
         _ => String::new(),
     };
+    // Window slope over implied initial rate in the wells at or below the median S0.
+    let s0_of = |w: &Value| w.get("S0").and_then(Value::as_f64);
+    let median_s0 = crate::rates::median(report.wells.iter().filter_map(s0_of));
+    let low_substrate_shortfall = median_s0.and_then(|m| {
+        crate::rates::median(
+            report
+                .wells
+                .iter()
+                .filter(|w| s0_of(w).is_some_and(|s| s <= m))
+                .filter_map(|w| w.get("window_over_implied").and_then(Value::as_f64)),
+        )
+    });
     let (trust, reason) = if many_misfits {
         (
             "neither",
@@ -760,10 +773,18 @@ fn decide_trust(
                 report.reason.trim_start_matches("initial rates suspect: ")
             ),
         )
+    } else if !agree && low_substrate_shortfall.is_some_and(|r| r < 0.97) {
+        (
+            "progress-curve",
+            format!(
+                "the progress-curve fit: the analyses disagree{km_text}, and the window slopes of the lower-S0 wells fall short of the fitted initial rates (median {:.0}%), the signature of depletion within the windows",
+                100.0 * low_substrate_shortfall.unwrap_or(f64::NAN)
+            ),
+        )
     } else if agree {
         (
             "either",
-            format!("either: the initial rates are clean and both analyses agree{km_text}"),
+            format!("either: the initial rates are clean and both analyses agree{km_text}; the progress-curve fit uses every read and gives the narrower interval"),
         )
     } else {
         (
