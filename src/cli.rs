@@ -114,6 +114,10 @@ pub struct RunArgs {
     /// Estimate one shared dead time in each progress-curve fit.
     #[arg(long)]
     pub fit_dead_time: bool,
+    /// With `--readout substrate`: take each well's S0 from its own first signal in the
+    /// progress-curve fits (the layout's S0 is still shown beside it).
+    #[arg(long)]
+    pub s0_from_signal: bool,
 }
 
 /// `platekin inspect`.
@@ -167,6 +171,7 @@ impl RunArgs {
             progress: self.progress.clone(),
             dead_time: self.dead_time,
             fit_dead_time: self.fit_dead_time.then_some(true),
+            s0_from_signal: self.s0_from_signal.then_some(true),
             ..self.read.layer()
         }
     }

@@ -79,6 +79,8 @@ pub struct ProgressSettings {
     pub dead_time_s: f64,
     /// Estimate one shared dead time per group.
     pub fit_dead_time: bool,
+    /// Take each well's S0 from its own first signal (substrate readout) instead of the layout.
+    pub s0_from_signal: bool,
 }
 
 impl Default for ProgressSettings {
@@ -87,6 +89,7 @@ impl Default for ProgressSettings {
             mode: ProgressMode::Auto,
             dead_time_s: 0.0,
             fit_dead_time: false,
+            s0_from_signal: false,
         }
     }
 }
@@ -138,6 +141,8 @@ pub struct SettingLayer {
     pub dead_time: Option<f64>,
     /// Estimate a shared dead time in the progress-curve fits.
     pub fit_dead_time: Option<bool>,
+    /// Take S0 from each well's first signal (substrate readout) in the progress-curve fits.
+    pub s0_from_signal: Option<bool>,
 }
 
 impl SettingLayer {
@@ -165,6 +170,7 @@ impl SettingLayer {
             progress: self.progress.or(below.progress),
             dead_time: self.dead_time.or(below.dead_time),
             fit_dead_time: self.fit_dead_time.or(below.fit_dead_time),
+            s0_from_signal: self.s0_from_signal.or(below.s0_from_signal),
         }
     }
 
@@ -372,6 +378,7 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         mode: parse_field::<ProgressMode>("progress", &layer.progress)?.unwrap_or(ProgressMode::Auto),
         dead_time_s,
         fit_dead_time: layer.fit_dead_time.unwrap_or(false),
+        s0_from_signal: layer.s0_from_signal.unwrap_or(false),
     };
     let fixed_window_s = layer
         .window
@@ -414,6 +421,7 @@ fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLayer 
         progress: Some(analysis.progress.mode.word().into()),
         dead_time: Some(analysis.progress.dead_time_s),
         fit_dead_time: Some(analysis.progress.fit_dead_time),
+        s0_from_signal: Some(analysis.progress.s0_from_signal),
         short_rows: Some(layer.short_rows.clone().unwrap_or_else(|| "unreadable".into())),
         ..layer
     }

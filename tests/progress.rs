@@ -75,11 +75,19 @@ fn depletion_spec() -> SimulationSpec {
 }
 
 fn run(extra: SettingLayer) -> RunResults {
-    let plate = simulate(&depletion_spec()).unwrap();
+    run_spec(&depletion_spec(), extra, |layout| layout)
+}
+
+fn run_spec(
+    spec: &SimulationSpec,
+    extra: SettingLayer,
+    edit_layout: impl Fn(String) -> String,
+) -> RunResults {
+    let plate = simulate(spec).unwrap();
     let csv = wide_csv(&plate, &WideCsvOptions::default());
     let grid = read_text_cells(csv.as_bytes(), "depletion.csv").unwrap();
     let data = import_cells(&grid, &ImportOptions::default()).unwrap();
-    let layout_csv = layout_tidy_csv(&plate);
+    let layout_csv = edit_layout(layout_tidy_csv(&plate));
     let layout_grid = read_text_cells(layout_csv.as_bytes(), "depletion-layout.csv").unwrap();
     let layout = parse_layout(&layout_grid, data.plate).unwrap();
     let layer = SettingLayer {
@@ -254,4 +262,52 @@ fn the_binary_writes_progress_json_and_refuses_a_bad_mode() {
         "{stderr}"
     );
     assert!(!folder.path().join("refused").join("progress.json").exists());
+}
+
+#[test]
+fn substrate_readout_s0_from_signal_names_a_pipetting_error() {
+    // A substrate read (the signal falls); H3 truly holds 300 uM but the layout claims 200 uM.
+    let mut spec = depletion_spec();
+    spec.readout = platekin::simulate::Readout::Substrate;
+    for group in &mut spec.layout {
+        if group.selection == "H1:H3" {
+            group.selection = "H1:H2".into();
+        }
+    }
+    spec.layout.push(LayoutGroup {
+        selection: "H3".into(),
+        condition: WellCondition::sample(300.0, 10.0, "fast"),
+    });
+    let edit = |layout: String| layout.replace("H3,sample,300,", "H3,sample,200,");
+    let layer = |from_signal: bool| SettingLayer {
+        readout: Some("substrate".into()),
+        progress: Some("always".into()),
+        s0_from_signal: Some(from_signal),
+        ..SettingLayer::default()
+    };
+    let results = run_spec(&spec, layer(false), edit);
+    let fast = group_of(&results.progress.groups, "fast", |g| &g.group);
+    let warning = fast
+        .warnings
+        .iter()
+        .find(|w| w.contains("S0 from the first signal"))
+        .unwrap();
+    assert!(warning.contains("H3 (layout 200"), "{warning}");
+    assert!(
+        !warning.contains("H2 ("),
+        "only the wrong well is named: {warning}"
+    );
+    let h3 = fast.wells.iter().find(|w| w["well"] == "H3").unwrap();
+    let from_signal = h3["S0_from_signal"].as_f64().unwrap();
+    assert!((from_signal / 300.0 - 1.0).abs() < 0.03, "{h3}");
+
+    // Fitting with the signal's S0 recovers the truth within 5%.
+    let corrected = run_spec(&spec, layer(true), edit);
+    let fast = group_of(&corrected.progress.groups, "fast", |g| &g.group);
+    let km = fast.parameters["Km"].value;
+    let kcat = fast.parameters["kcat"].value;
+    assert!(
+        (km / KM_UM - 1.0).abs() < 0.05 && (kcat / KCAT - 1.0).abs() < 0.05,
+        "Km {km} kcat {kcat}"
+    );
 }

@@ -9,6 +9,10 @@
 //! Signal per unit substrate: `g = -epsilon l c_unit` for a product read (P = S0 - S),
 //! `+epsilon l c_unit` for a substrate read, `c_unit` the layout's substrate unit in M.
 //!
+//! S0 from the signal (substrate readout): the straight line through a well's first reads,
+//! extrapolated back to the reaction's start (t = -dead time), divided by `g`; wells where it differs
+//! from the layout by more than [`S0_DISAGREEMENT`] are named, and `--s0-from-signal` fits with it.
+//!
 //! Model choice (rules of this program, common practice in spirit): plain Michaelis-Menten is the
 //! default; an extended model (product inhibition, inactivation) is chosen only when its extra
 //! term is positive with a 95% interval excluding 0, the extra-sum-of-squares F test against plain
@@ -43,6 +47,10 @@ use crate::settings::{AnalysisSettings, ProgressMode, Readout};
 /// and small unmodelled effects (spontaneous hydrolysis, drift) produce them (a rule of this
 /// program).
 pub const MATERIAL_EFFECT: f64 = 0.05;
+
+/// Relative difference between the layout's S0 and the S0 read from the first signal above which
+/// the report names the well (a rule of this program: beyond pipetting precision).
+pub const S0_DISAGREEMENT: f64 = 0.10;
 
 /// Correlation above which a pair of parameters is reported as not separable.
 pub const CORRELATION_WARNING: f64 = 0.99;
@@ -272,7 +280,12 @@ struct GroupInput<'a> {
 }
 
 /// The wells' curves, or why none can be built for the group.
-fn well_curves(input: &GroupInput, left_out: &mut Vec<Value>) -> Result<Vec<WellCurve>, String> {
+fn well_curves(
+    input: &GroupInput,
+    left_out: &mut Vec<Value>,
+    warnings: &mut Vec<String>,
+    s0_pairs: &mut Vec<(String, f64, Option<f64>)>,
+) -> Result<Vec<WellCurve>, String> {
     let settings = input.settings;
     let (epsilon, path) = match (settings.extinction_per_molar_cm, settings.pathlength_cm) {
         (Some(e), Some(l)) => (e, l),
@@ -303,6 +316,7 @@ fn well_curves(input: &GroupInput, left_out: &mut Vec<Value>) -> Result<Vec<Well
         Readout::Substrate => -1.0,
     };
     let mut curves = Vec::new();
+    let mut disagreements = Vec::new();
     for well in input.wells {
         let mut leave = |reason: &str| {
             left_out.push(json!({"well": well.well.to_string(), "reason": reason}));
@@ -338,16 +352,66 @@ fn well_curves(input: &GroupInput, left_out: &mut Vec<Value>) -> Result<Vec<Well
             leave("fewer than 3 usable reads");
             continue;
         }
+        // A substrate read carries S0 itself: the early straight line extrapolated back to the
+        // start of the reaction (t = -dead time), over the signal per unit substrate.
+        let s0_signal = (settings.readout == Readout::Substrate)
+            .then(|| early_intercept(&times_s, &signal, -settings.progress.dead_time_s))
+            .flatten()
+            .map(|intercept| intercept / signal_per_substrate)
+            .filter(|s| s.is_finite() && *s > 0.0);
+        if let Some(from_signal) = s0_signal {
+            if (from_signal / s0 - 1.0).abs() > S0_DISAGREEMENT {
+                disagreements.push(format!(
+                    "{} (layout {}, signal {})",
+                    well.well,
+                    crate::run::significant(s0),
+                    crate::run::significant(from_signal)
+                ));
+            }
+        }
+        s0_pairs.push((well.well.to_string(), s0, s0_signal));
+        let s0_used = match (settings.progress.s0_from_signal, s0_signal) {
+            (true, Some(from_signal)) => from_signal,
+            _ => s0,
+        };
         curves.push(WellCurve {
             label: well.well.to_string(),
             times_s,
             signal,
-            s0,
+            s0: s0_used,
             e0: e0 * e_unit.factor_to(s_unit),
             signal_per_substrate,
         });
     }
+    if !disagreements.is_empty() {
+        warnings.push(format!(
+            "S0 from the first signal differs from the layout by more than {:.0}% in {} well(s) (a pipetting or stock error?): {}",
+            100.0 * S0_DISAGREEMENT,
+            disagreements.len(),
+            disagreements.join(", ")
+        ));
+    }
+    if settings.progress.s0_from_signal && settings.readout != Readout::Substrate {
+        warnings.push("--s0-from-signal needs --readout substrate; the layout's S0 was used".to_string());
+    }
     Ok(curves)
+}
+
+/// Intercept at `t_at` of the straight line through the first few reads.
+fn early_intercept(times: &[f64], values: &[f64], t_at: f64) -> Option<f64> {
+    let n = times.len().min(6);
+    if n < 2 {
+        return None;
+    }
+    let mean_t = times[..n].iter().sum::<f64>() / n as f64;
+    let mean_y = values[..n].iter().sum::<f64>() / n as f64;
+    let sxx: f64 = times[..n].iter().map(|t| (t - mean_t).powi(2)).sum();
+    let sxy: f64 = times[..n]
+        .iter()
+        .zip(&values[..n])
+        .map(|(t, y)| (t - mean_t) * (y - mean_y))
+        .sum();
+    (sxx > 0.0).then(|| mean_y + sxy / sxx * (t_at - mean_t))
 }
 
 fn parameter(fit: &GlobalFit, name: &str, unit: &str) -> Option<ProgressParameter> {
@@ -372,7 +436,13 @@ fn extra_term_value(fit: &GlobalFit) -> Option<(String, f64, Option<[f64; 2]>)> 
 
 fn analyse_group(input: GroupInput, reason: String, suspect: bool) -> ProgressGroupReport {
     let mut report = empty_report(input.group.clone(), reason, input.initial);
-    let curves = match well_curves(&input, &mut report.wells_left_out) {
+    let mut s0_pairs = Vec::new();
+    let curves = match well_curves(
+        &input,
+        &mut report.wells_left_out,
+        &mut report.warnings,
+        &mut s0_pairs,
+    ) {
         Ok(curves) => curves,
         Err(message) => return failed(report, message),
     };
@@ -387,6 +457,13 @@ fn analyse_group(input: GroupInput, reason: String, suspect: bool) -> ProgressGr
     };
     report.models_tried = models_tried;
     fill_from_fit(&mut report, &chosen, &curves, &input);
+    for ((entry, (_, layout_s0, signal_s0)), curve) in report.wells.iter_mut().zip(&s0_pairs).zip(&curves) {
+        if let Some(object) = entry.as_object_mut() {
+            object.insert("S0".into(), json!(layout_s0));
+            object.insert("S0_from_signal".into(), json!(signal_s0));
+            object.insert("S0_used".into(), json!(curve.s0));
+        }
+    }
     decide_trust(&mut report, &chosen, suspect, input.initial);
     report
 }
