@@ -5,7 +5,9 @@
 //!
 //! Signal: per read, raw absorbance minus the plate's blank at that read, minus the matching
 //! no-enzyme background drift (the background rate of the initial-rate analysis, in AU/s, times
-//! t); reads before `--skip`, unreadable reads and reads above `--max-absorbance` are left out.
+//! t); reads before `--skip`, unreadable reads and reads above `--max-absorbance` are left out, and
+//! so are wells flagged `lag` (the rate laws assume full activity from the start) or `noisy` (the
+//! fit weights every read equally).
 //! Signal per unit substrate: `g = -epsilon l c_unit` for a product read (P = S0 - S),
 //! `+epsilon l c_unit` for a substrate read, `c_unit` the layout's substrate unit in M.
 //!
@@ -329,6 +331,10 @@ fn well_curves(
             leave("no enzyme concentration in the layout");
             continue;
         };
+        if well.rate.flags.contains(&Flag::Noisy) {
+            leave("noisy: its scatter, far above the plate's blank noise, would dominate an unweighted fit");
+            continue;
+        }
         if well.rate.flags.contains(&Flag::Lag) {
             leave("lag: activity rises at the start, which the rate laws fitted here do not describe");
             continue;
