@@ -104,6 +104,33 @@ fn control_matches(control: &WellSetup, sample: &WellSetup) -> bool {
     same_substrate && inhibitor_ok && factors_ok
 }
 
+/// The blank at each read: the mean of the readable `blank` wells (0 where none is readable),
+/// and how many blank wells the layout has in the data.
+pub fn blank_per_read(data: &KineticData, layout: &Layout) -> (Vec<f64>, usize) {
+    let blank_wells: Vec<&[Option<f64>]> = data
+        .wells
+        .iter()
+        .filter(|trace| {
+            layout
+                .wells
+                .get(&trace.well)
+                .is_some_and(|setup| setup.role == Role::Blank)
+        })
+        .map(|trace| trace.values.as_slice())
+        .collect();
+    let per_read = (0..data.times_s.len())
+        .map(|read| {
+            let readable: Vec<f64> = blank_wells.iter().filter_map(|trace| trace[read]).collect();
+            if readable.is_empty() {
+                0.0
+            } else {
+                readable.iter().sum::<f64>() / readable.len() as f64
+            }
+        })
+        .collect();
+    (per_read, blank_wells.len())
+}
+
 /// Analyses a plate: every layout well present in the data gets a rate, flags and corrections.
 pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSettings) -> PlateAnalysis {
     let n_reads = data.times_s.len();
@@ -114,24 +141,8 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
         .map(|trace| (trace.well, trace.values.as_slice()))
         .collect();
 
-    // Blank at each read: the mean of the readable blank wells.
-    let blank_wells: Vec<&[Option<f64>]> = layout
-        .wells
-        .iter()
-        .filter(|(_, setup)| setup.role == Role::Blank)
-        .filter_map(|(well, _)| traces.get(well).copied())
-        .collect();
-    let blank_per_read: Vec<f64> = (0..n_reads)
-        .map(|read| {
-            let readable: Vec<f64> = blank_wells.iter().filter_map(|trace| trace[read]).collect();
-            if readable.is_empty() {
-                0.0
-            } else {
-                readable.iter().sum::<f64>() / readable.len() as f64
-            }
-        })
-        .collect();
-    if blank_wells.is_empty() {
+    let (blank_per_read, n_blank_wells) = blank_per_read(data, layout);
+    if n_blank_wells == 0 {
         warnings.push("no blank wells: absorbance is not blank-corrected".to_string());
     }
 
@@ -215,10 +226,10 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
         .filter_map(|((_, setup, _), rate)| rate.fit.map(|fit| (*setup, fit.slope, fit.slope_se)))
         .collect();
 
-    let blank_note = if blank_wells.is_empty() {
+    let blank_note = if n_blank_wells == 0 {
         "no blank correction".to_string()
     } else {
-        format!("blank: mean of {} blank wells at each read", blank_wells.len())
+        format!("blank: mean of {n_blank_wells} blank wells at each read")
     };
     let mut wells = Vec::with_capacity(wells_in_play.len());
     for ((well, setup, _), rate) in wells_in_play.iter().zip(rates.iter_mut()) {
@@ -276,7 +287,7 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
         rate_unit,
         concentration_unit,
         noise,
-        n_blank_wells: blank_wells.len(),
+        n_blank_wells,
         warnings,
     }
 }

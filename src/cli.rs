@@ -157,6 +157,21 @@ pub struct RunArgs {
     pub report: Option<String>,
     #[command(flatten)]
     pub models: ModelArgs,
+    /// Progress-curve analysis (global fit of whole curves): `auto` (default: groups whose initial
+    /// rates are suspect), `always` or `never`.
+    #[arg(long, value_name = "auto|always|never")]
+    pub progress: Option<String>,
+    /// Seconds from the start of the reaction (mixing) to the reads' time zero; added to every
+    /// read time in the progress-curve fits.
+    #[arg(long, value_name = "SECONDS")]
+    pub dead_time: Option<f64>,
+    /// Estimate one shared dead time in each progress-curve fit.
+    #[arg(long)]
+    pub fit_dead_time: bool,
+    /// With `--readout substrate`: take each well's S0 from its own first signal in the
+    /// progress-curve fits (the layout's S0 is still shown beside it).
+    #[arg(long)]
+    pub s0_from_signal: bool,
 }
 
 /// `platekin inspect`.
@@ -211,6 +226,10 @@ impl RunArgs {
             keep_flagged: self.keep_flagged.then_some(true),
             allow_missing: self.allow_missing.then_some(true),
             report: self.report.clone(),
+            progress: self.progress.clone(),
+            dead_time: self.dead_time,
+            fit_dead_time: self.fit_dead_time.then_some(true),
+            s0_from_signal: self.s0_from_signal.then_some(true),
             ..self.models.layer().over(self.read.layer())
         }
     }

@@ -187,6 +187,23 @@ pub fn group_label(group: &Map<String, Value>) -> String {
         .join(", ")
 }
 
+/// The sample wells split into groups by free factors, enzyme and inhibitor, in first-seen
+/// order: the progress-curve analysis fits each such group (one inhibitor level each).
+pub fn sample_groups<'a>(
+    analysis: &'a PlateAnalysis,
+    layout: &Layout,
+) -> Vec<(Map<String, Value>, Vec<&'a WellResult>)> {
+    let mut groups: Vec<(Map<String, Value>, Vec<&WellResult>)> = Vec::new();
+    for well in analysis.wells.iter().filter(|w| w.setup.role == Role::Sample) {
+        let key = group_key(well, layout, true);
+        match groups.iter_mut().find(|(existing, _)| *existing == key) {
+            Some((_, wells)) => wells.push(well),
+            None => groups.push((key, vec![well])),
+        }
+    }
+    groups
+}
+
 /// Fits every group of sample wells with the default settings.
 pub fn fit_groups(analysis: &PlateAnalysis, layout: &Layout) -> Vec<GroupFit> {
     fit_groups_with(analysis, layout, &GroupFitSettings::default(), &mut |_, _| {})

@@ -16,6 +16,7 @@ pub mod layout;
 pub mod output;
 pub mod plate;
 pub mod plots;
+pub mod progress;
 pub mod rate_table;
 pub mod rates;
 pub mod regression;

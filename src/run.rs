@@ -12,6 +12,7 @@ use crate::groups::{fit_groups_with, group_label, GroupFit, GroupFitSettings};
 use crate::import::{import_data, inspect_report, ImportError, ImportOptions, KineticData};
 use crate::layout::{check_against_data, read_layout, Layout, LayoutError, Role};
 use crate::output::{write_outputs, OutputError, OutputFile};
+use crate::progress::report::{analyse_progress, ProgressAnalysis};
 use crate::settings::{AnalysisSettings, RunSettings, SettingLayer};
 use crate::tables::{conditions_table, csv_bytes, wells_table};
 
@@ -59,6 +60,8 @@ pub struct RunResults {
     pub conditions: Vec<Condition>,
     /// Per-group fits.
     pub fits: Vec<GroupFit>,
+    /// Per-group progress-curve analysis (`progress.json`).
+    pub progress: ProgressAnalysis,
     /// Warnings from reading the inputs and checking them against each other.
     pub input_warnings: Vec<String>,
     /// How the groups were fitted (model, weighting, loss, intervals).
@@ -109,12 +112,14 @@ pub fn analyse_inputs_with(
     let analysis = analyse_plate(&data, &layout, settings);
     let conditions = condition_table(&analysis, &layout)?;
     let fits = fit_groups_with(&analysis, &layout, fit_settings, progress);
+    let progress_curves = analyse_progress(&data, &layout, &analysis, &fits, settings);
     Ok(RunResults {
         data,
         layout,
         analysis,
         conditions,
         fits,
+        progress: progress_curves,
         input_warnings,
         fit_settings: fit_settings.clone(),
     })
@@ -210,6 +215,14 @@ pub fn render_outputs(
         ),
         None => "# data: the embedded demo plate (the same files are in demo-plates/)\n".to_string(),
     };
+    let progress = json!({
+        "tool": format!("platekin {}", env!("CARGO_PKG_VERSION")),
+        "inputs": inputs.iter().map(|p| p.display().to_string()).collect::<Vec<_>>(),
+        "mode": results.progress.mode,
+        "groups": results.progress.groups,
+        "settings": settings_value(used),
+        "caution": CAUTION,
+    });
     let settings_toml = format!(
         "# Settings used by platekin {} for this run; repeat it with\n# platekin run DATA --assay settings.toml --out NEW_FOLDER\n{}{}",
         env!("CARGO_PKG_VERSION"),
@@ -228,6 +241,10 @@ pub fn render_outputs(
         OutputFile {
             name: "fit.json".into(),
             bytes: json_bytes("fit.json", &fit)?,
+        },
+        OutputFile {
+            name: "progress.json".into(),
+            bytes: json_bytes("progress.json", &progress)?,
         },
         OutputFile {
             name: "settings.toml".into(),
@@ -271,6 +288,64 @@ pub fn significant(value: f64) -> String {
     } else {
         format!("{value:.3e}")
     }
+}
+
+/// A progress-curve parameter with its interval, and Km's profile interval when there is one.
+fn progress_value(parameter: Option<&crate::progress::report::ProgressParameter>) -> String {
+    match parameter {
+        None => "-".to_string(),
+        Some(p) => {
+            let interval = p.ci95.map_or(String::new(), |[lo, hi]| {
+                format!(" [{}, {}]", significant(lo), significant(hi))
+            });
+            let profile = p.ci95_profile.map_or(String::new(), |[lo, hi]| {
+                let side = |v: Option<f64>| v.map_or("open".to_string(), significant);
+                format!(" (profile [{}, {}])", side(lo), side(hi))
+            });
+            let doubt = if p.determined { "" } else { " (not determined)" };
+            format!("{}{interval}{profile} {}{doubt}", significant(p.value), p.unit)
+        }
+    }
+}
+
+/// The progress-curve lines of the summary: one block per group, ending with what to trust.
+fn progress_summary(progress: &ProgressAnalysis) -> Vec<String> {
+    let mut lines = vec![
+        String::new(),
+        format!("Progress-curve analysis (--progress {}):", progress.mode),
+    ];
+    for group in &progress.groups {
+        let label = group_label(&group.group);
+        if !group.analysed {
+            lines.push(format!("  {label}: not fitted; trust: {}", group.trust_reason));
+            continue;
+        }
+        lines.push(format!(
+            "  {label}: {} global fit of {} wells ({}), residual SD {} AU",
+            group.model.as_deref().unwrap_or("-"),
+            group.n_wells,
+            group.reason,
+            group.residual_sd.map_or("-".to_string(), significant)
+        ));
+        lines.push(format!(
+            "    kcat    {}",
+            progress_value(group.parameters.get("kcat"))
+        ));
+        lines.push(format!(
+            "    Km      {}",
+            progress_value(group.parameters.get("Km"))
+        ));
+        for extra in ["Kp", "k_inact", "dead_time"] {
+            if let Some(p) = group.parameters.get(extra) {
+                lines.push(format!("    {extra:<7} {}", progress_value(Some(p))));
+            }
+        }
+        for warning in &group.warnings {
+            lines.push(format!("    warning: {warning}"));
+        }
+        lines.push(format!("    trust: {}", group.trust_reason));
+    }
+    lines
 }
 
 /// The one-screen summary.
@@ -327,6 +402,7 @@ pub fn summary_text_with(results: &RunResults, used: &SettingLayer, out: &Path) 
     lines.push(String::new());
     lines.push("Fits (value [95% interval]):".to_string());
     lines.extend(group_fit_lines(&results.fits));
+    lines.extend(progress_summary(&results.progress));
     let mut warnings: Vec<&String> = results.input_warnings.iter().collect();
     warnings.extend(&analysis.warnings);
     if !warnings.is_empty() {
@@ -337,7 +413,7 @@ pub fn summary_text_with(results: &RunResults, used: &SettingLayer, out: &Path) 
     }
     lines.push(String::new());
     lines.push(format!(
-        "outputs: {}/ (wells.csv, conditions.csv, fit.json, settings.toml{}, run.json)",
+        "outputs: {}/ (wells.csv, conditions.csv, fit.json, progress.json, settings.toml{}, run.json)",
         out.display(),
         match crate::report::ReportMode::from_layer(used) {
             Ok(crate::report::ReportMode::Html) => ", report.html",

@@ -33,6 +33,67 @@ impl std::str::FromStr for Readout {
     }
 }
 
+/// When the progress-curve analysis runs for a group.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum ProgressMode {
+    /// For groups whose initial rates are suspect (depleted or nonlinear wells, conversion above
+    /// the limit).
+    Auto,
+    /// For every group.
+    Always,
+    /// Never.
+    Never,
+}
+
+impl std::str::FromStr for ProgressMode {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "auto" => Ok(ProgressMode::Auto),
+            "always" => Ok(ProgressMode::Always),
+            "never" => Ok(ProgressMode::Never),
+            other => Err(format!("unknown mode '{other}' (expected auto, always or never)")),
+        }
+    }
+}
+
+impl ProgressMode {
+    /// The word the settings write.
+    pub fn word(self) -> &'static str {
+        match self {
+            ProgressMode::Auto => "auto",
+            ProgressMode::Always => "always",
+            ProgressMode::Never => "never",
+        }
+    }
+}
+
+/// Settings of the progress-curve analysis.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct ProgressSettings {
+    /// When it runs.
+    pub mode: ProgressMode,
+    /// Time from the start of the reaction to the reads' time zero, s.
+    pub dead_time_s: f64,
+    /// Estimate one shared dead time per group.
+    pub fit_dead_time: bool,
+    /// Take each well's S0 from its own first signal (substrate readout) instead of the layout.
+    pub s0_from_signal: bool,
+}
+
+impl Default for ProgressSettings {
+    fn default() -> Self {
+        ProgressSettings {
+            mode: ProgressMode::Auto,
+            dead_time_s: 0.0,
+            fit_dead_time: false,
+            s0_from_signal: false,
+        }
+    }
+}
+
 /// Every setting, each optional, as a flag set or an assay file gives them. Keys are the flags'
 /// names (`max-conversion`, `min-points`, ...).
 #[derive(Debug, Clone, Default, PartialEq, serde::Serialize, serde::Deserialize)]
@@ -90,6 +151,14 @@ pub struct SettingLayer {
     pub profile: Option<bool>,
     /// Km for the Cheng-Prusoff Ki of an IC50.
     pub cheng_prusoff_km: Option<f64>,
+    /// Progress-curve analysis: `auto`, `always` or `never`.
+    pub progress: Option<String>,
+    /// Time from the start of the reaction to the first read's time zero, s.
+    pub dead_time: Option<f64>,
+    /// Estimate a shared dead time in the progress-curve fits.
+    pub fit_dead_time: Option<bool>,
+    /// Take S0 from each well's first signal (substrate readout) in the progress-curve fits.
+    pub s0_from_signal: Option<bool>,
 }
 
 impl SettingLayer {
@@ -122,6 +191,10 @@ impl SettingLayer {
             seed: self.seed.or(below.seed),
             profile: self.profile.or(below.profile),
             cheng_prusoff_km: self.cheng_prusoff_km.or(below.cheng_prusoff_km),
+            progress: self.progress.or(below.progress),
+            dead_time: self.dead_time.or(below.dead_time),
+            fit_dead_time: self.fit_dead_time.or(below.fit_dead_time),
+            s0_from_signal: self.s0_from_signal.or(below.s0_from_signal),
         }
     }
 
@@ -170,6 +243,8 @@ pub struct AnalysisSettings {
     pub keep_flagged: bool,
     /// Layout wells absent from the data only warn.
     pub allow_missing: bool,
+    /// The progress-curve analysis.
+    pub progress: ProgressSettings,
 }
 
 impl Default for AnalysisSettings {
@@ -181,6 +256,7 @@ impl Default for AnalysisSettings {
             rates: RateSettings::default(),
             keep_flagged: false,
             allow_missing: false,
+            progress: ProgressSettings::default(),
         }
     }
 }
@@ -327,6 +403,18 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         )));
     }
     let max_absorbance = positive("max-absorbance", layer.max_absorbance)?.unwrap_or(defaults.max_absorbance);
+    let dead_time_s = layer.dead_time.unwrap_or(0.0);
+    if !(dead_time_s.is_finite() && dead_time_s >= 0.0) {
+        return Err(SettingsError::new(format!(
+            "dead-time must be zero or more seconds, got {dead_time_s}"
+        )));
+    }
+    let progress = ProgressSettings {
+        mode: parse_field::<ProgressMode>("progress", &layer.progress)?.unwrap_or(ProgressMode::Auto),
+        dead_time_s,
+        fit_dead_time: layer.fit_dead_time.unwrap_or(false),
+        s0_from_signal: layer.s0_from_signal.unwrap_or(false),
+    };
     let fixed_window_s = layer
         .window
         .as_deref()
@@ -347,6 +435,7 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         },
         keep_flagged: layer.keep_flagged.unwrap_or(false),
         allow_missing: layer.allow_missing.unwrap_or(false),
+        progress,
     })
 }
 
@@ -417,6 +506,10 @@ pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLa
         alpha: Some(analysis.rates.alpha),
         keep_flagged: Some(analysis.keep_flagged),
         allow_missing: Some(analysis.allow_missing),
+        progress: Some(analysis.progress.mode.word().into()),
+        dead_time: Some(analysis.progress.dead_time_s),
+        fit_dead_time: Some(analysis.progress.fit_dead_time),
+        s0_from_signal: Some(analysis.progress.s0_from_signal),
         short_rows: Some(layer.short_rows.clone().unwrap_or_else(|| "unreadable".into())),
         ..layer
     }
@@ -482,5 +575,32 @@ mod tests {
         assert_eq!(run.used.min_points, Some(5));
         let text = toml::to_string(&run.used).unwrap();
         assert!(text.contains("max-conversion = 0.1"), "{text}");
+        assert!(text.contains("progress = \"auto\""), "{text}");
+    }
+
+    #[test]
+    fn progress_settings_parse_and_bad_values_are_named() {
+        let layer: SettingLayer =
+            toml::from_str("progress = \"always\"\ndead-time = 12.5\nfit-dead-time = true\n").unwrap();
+        let analysis = resolve_analysis(&layer).unwrap();
+        assert_eq!(analysis.progress.mode, ProgressMode::Always);
+        assert_eq!(analysis.progress.dead_time_s, 12.5);
+        assert!(analysis.progress.fit_dead_time);
+        let bad = SettingLayer {
+            progress: Some("sometimes".into()),
+            ..SettingLayer::default()
+        };
+        assert!(resolve_analysis(&bad)
+            .unwrap_err()
+            .to_string()
+            .contains("progress"));
+        let negative = SettingLayer {
+            dead_time: Some(-3.0),
+            ..SettingLayer::default()
+        };
+        assert!(resolve_analysis(&negative)
+            .unwrap_err()
+            .to_string()
+            .contains("dead-time"));
     }
 }

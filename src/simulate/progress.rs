@@ -19,95 +19,11 @@
 //! Goudar, Sonnad and Duggleby 1999, Biochim Biophys Acta 1429:377; Goudar et al. 2004,
 //! J Microbiol Methods 59:317 (Lambert W and large-argument handling); Corless and Jeffrey 2002,
 //! "The Wright omega function" (LNCS 2385), for omega and `omega(z) ~ z - ln z` at large z (from
-//! memory); Halley's method for the root (common practice).
+//! memory); Halley's method for the root (common practice). The omega evaluator itself lives in
+//! [`crate::progress::lambert`], shared with the progress-curve fits.
 
-/// Above this z the simulator solves `w + ln w = z` itself instead of evaluating `W0(exp(z))`.
-/// `exp(z)` overflows a double beyond about 709.78; 500 leaves a wide margin while keeping the
-/// direct Lambert W route for every argument it handles without trouble.
-pub const WRIGHT_OMEGA_ITERATION_FROM_Z: f64 = 500.0;
-
-/// Halley steps allowed for the large-z Wright omega; from the start `z - ln z` the error is
-/// already below `ln z / z`, and Halley's cubic convergence reaches double precision in 2-3 steps.
-const WRIGHT_OMEGA_MAX_HALLEY_STEPS: usize = 12;
-
-/// The Wright omega function `omega(z) = W0(exp(z))`, the real solution of `w + ln w = z`.
-///
-/// For `z <= WRIGHT_OMEGA_ITERATION_FROM_Z` this is `lambert_w::lambert_w0(exp(z))` (Fukushima's
-/// piecewise minimax approximation, about 50 bits); above it, Halley's iteration on
-/// `f(w) = w + ln w - z` (`f' = 1 + 1/w`, `f'' = -1/w^2`) from `w = z - ln z`. Returns NaN for a
-/// NaN argument and `+inf` for `+inf`.
-pub fn wright_omega(z: f64) -> f64 {
-    if z.is_nan() {
-        return f64::NAN;
-    }
-    if z == f64::INFINITY {
-        return f64::INFINITY;
-    }
-    if z <= WRIGHT_OMEGA_ITERATION_FROM_Z {
-        // exp underflows to 0 for z below about -745, where omega(z) = exp(z) is below the
-        // smallest double anyway, so W0(0) = 0 is the right answer.
-        return lambert_w::lambert_w0(z.exp());
-    }
-    wright_omega_by_halley(z)
-}
-
-/// Halley's iteration for `w + ln w = z`, valid for z > 1 (there w > 1 and the start `z - ln z`
-/// is positive).
-fn wright_omega_by_halley(z: f64) -> f64 {
-    let mut w = z - z.ln();
-    for _ in 0..WRIGHT_OMEGA_MAX_HALLEY_STEPS {
-        let residual = w + w.ln() - z;
-        let first_derivative = 1.0 + 1.0 / w;
-        let second_derivative = -1.0 / (w * w);
-        let step = residual / (first_derivative - residual * second_derivative / (2.0 * first_derivative));
-        w -= step;
-        if step.abs() <= 2.0 * f64::EPSILON * w.abs() {
-            break;
-        }
-    }
-    w
-}
-
-/// Substrate left at time `t` of a Michaelis-Menten progress curve started at `s0`:
-/// `S(t) = Km omega(ln(S0/Km) + (S0 - Vmax t)/Km)` (equivalently `Km W0((S0/Km) exp((S0 - Vmax
-/// t)/Km))`, see the module notes).
-///
-/// Requires `km > 0`, `s0 >= 0`, `vmax >= 0`, `t >= 0`, all finite; returns NaN otherwise. With
-/// `vmax = 0` or `t = 0` the substrate is exactly `s0`.
-pub fn substrate_remaining(s0: f64, km: f64, vmax: f64, t: f64) -> f64 {
-    let inputs_valid = [s0, km, vmax, t].iter().all(|value| value.is_finite())
-        && km > 0.0
-        && s0 >= 0.0
-        && vmax >= 0.0
-        && t >= 0.0;
-    if !inputs_valid {
-        return f64::NAN;
-    }
-    if s0 == 0.0 {
-        return 0.0;
-    }
-    if vmax == 0.0 || t == 0.0 {
-        return s0;
-    }
-    let z = (s0 / km).ln() + (s0 - vmax * t) / km;
-    // The solution can only fall from s0; the clamp removes a last-bit overshoot at tiny t.
-    (km * wright_omega(z)).min(s0)
-}
-
-/// The implicit form: the time at which the substrate has fallen from `s0` to `s`,
-/// `t = ((S0 - S) + Km ln(S0 / S)) / Vmax`. Requires `0 < s <= s0`, `km > 0`, `vmax > 0`;
-/// returns NaN otherwise.
-pub fn time_to_reach_substrate(s0: f64, km: f64, vmax: f64, s: f64) -> f64 {
-    let inputs_valid = [s0, km, vmax, s].iter().all(|value| value.is_finite())
-        && km > 0.0
-        && vmax > 0.0
-        && s > 0.0
-        && s <= s0;
-    if !inputs_valid {
-        return f64::NAN;
-    }
-    ((s0 - s) + km * (s0 / s).ln()) / vmax
-}
+pub use crate::progress::closed_form::{substrate_remaining, time_to_reach_substrate};
+pub use crate::progress::lambert::{wright_omega, WRIGHT_OMEGA_ITERATION_FROM_Z};
 
 /// Effective time of a well whose activity ramps as `a(t) = 1 - exp(-t/tau)` (a lag: slow
 /// mixing, hysteretic activation). With `dS/dt = -a(t) Vmax S/(Km + S)` the integrated rate law
@@ -227,32 +143,6 @@ mod tests {
                 assert!(z > WRIGHT_OMEGA_ITERATION_FROM_Z);
             }
         }
-    }
-
-    #[test]
-    fn wright_omega_iteration_agrees_with_lambert_w_where_both_apply() {
-        // Both routes compute the same function; on 1 < z < 700 exp(z) is finite, so they must agree.
-        for step in 0..700 {
-            let z = 1.0 + f64::from(step);
-            let by_lambert_w = lambert_w::lambert_w0(z.exp());
-            let by_halley = wright_omega_by_halley(z);
-            assert_relative_eq!(by_halley, by_lambert_w, max_relative = 1e-13);
-        }
-    }
-
-    #[test]
-    fn wright_omega_solves_its_defining_equation() {
-        for z in [-20.0, -1.0, 0.0, 0.5, 3.0, 40.0, 499.0, 501.0, 1.0e4, 1.0e8] {
-            let w = wright_omega(z);
-            // w + ln w = z, checked relative to the size of the terms.
-            let residual = w + w.ln() - z;
-            assert!(
-                residual.abs() <= 1e-13 * (1.0 + z.abs()),
-                "z = {z}: residual {residual}"
-            );
-        }
-        assert_eq!(wright_omega(-800.0), 0.0);
-        assert!(wright_omega(f64::NAN).is_nan());
     }
 
     #[test]

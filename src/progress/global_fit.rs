@@ -1,0 +1,1170 @@
+//! The global fit of a group's progress curves: every well shares kcat and Km (and 1/Kp or
+//! k_inact when that model is chosen, and optionally one dead time), keeps its own S0 and E0 from
+//! the layout and its own signal offset, and the residuals are in the signal units measured.
+//!
+//! Model: well i, read j: `y_ij = b_i + g_i S_i(t_j + t_dead; theta)`, where `g_i` is the signal per
+//! unit substrate (`-epsilon l` for a product read, since P = S0 - S; `+epsilon l` for a
+//! substrate read, in AU per concentration unit), `b_i` the well's offset and `S_i` the substrate
+//! curve ([`super::closed_form`] or [`super::ode`]).
+//!
+//! Variable projection: the offsets enter linearly, so for given theta each is the well's mean of
+//! `y - g S`; substituting it leaves the projected residuals
+//! `r_ij = (g_i S_ij - y_ij) - mean_j(g_i S_ij - y_ij)`, a problem in theta alone. The projector
+//! (centring within each well) does not depend on theta, so the projected Jacobian is exactly the
+//! centred model Jacobian (Golub and Pereyra's result in its simplest case) and the covariance of
+//! theta from it equals the theta block of the full covariance (the Schur complement). The residual
+//! variance counts the offsets: `s^2 = RSS / (n - p - m)` for n reads, p shared parameters and m
+//! wells. The reduced problem (p <= 4 columns) goes to the Levenberg-Marquardt solver of
+//! [`crate::fit::least_squares`]; kcat and Km are fitted as logarithms (kept positive).
+//!
+//! Start: each well's first reads give an initial slope v_i; over a log grid of Km from
+//! min(S0)/20 to 20 max(S0), kcat = median_i v_i (Km + S0_i) / (S0_i E0_i), and the grid point with
+//! the lowest residual sum of squares starts the fit. Extended models start from the
+//! Michaelis-Menten optimum with the extra term at 0.
+//!
+//! Intervals: asymptotic `value +- t(0.975, n - p - m) se`; for Km also the profile-likelihood
+//! interval `{Km : RSS_Km <= RSS_min (1 + F(0.95; 1, n - p - m) / (n - p - m))}`, re-optimising the
+//! other shared parameters at each Km (Bates and Watts 1988). Model choice: AICc with
+//! k = p + m + 1 (the offsets and the variance count), and the extra-sum-of-squares F test of each
+//! extended model against plain Michaelis-Menten. Per well: residual SD and the Wald-Wolfowitz runs
+//! test on residual signs (too few runs means systematic misfit).
+//!
+//! Assumptions: independent, equal-variance Gaussian read noise within a group; S0 and E0 as the
+//! layout says; the signal is linear in the species read (Beer-Lambert).
+//!
+//! References: Golub and Pereyra 1973, SIAM J Numer Anal 10:413 (variable projection);
+//! Bates and Watts 1988, "Nonlinear Regression Analysis and Its Applications", Wiley (profile
+//! intervals); Hurvich and Tsai 1989, Biometrika 76:297 (AICc); Wald and Wolfowitz 1940, Ann Math
+//! Stat 11:147 (runs test); Duggleby 1995, Methods Enzymol 249:61 (global progress-curve fits).
+//! Volume and page numbers from memory.
+
+use nalgebra::DMatrix;
+use rayon::prelude::*;
+use statrs::distribution::{ContinuousCDF, FisherSnedecor};
+
+use super::closed_form::michaelis_menten_point;
+use super::ode::{integrate_curve, CurveConstants, OdeTolerances};
+use crate::fit::{asymptotic_covariance, f_quantile, fit_least_squares, LeastSquaresOptions, ResidualModel};
+use crate::rates::median;
+
+/// One well's curve, ready to fit.
+#[derive(Debug, Clone, PartialEq)]
+pub struct WellCurve {
+    /// The well's name, for messages.
+    pub label: String,
+    /// Read times as measured, s.
+    pub times_s: Vec<f64>,
+    /// Signal at those reads (blank-corrected), AU.
+    pub signal: Vec<f64>,
+    /// Starting substrate, concentration unit of the group.
+    pub s0: f64,
+    /// Enzyme, same concentration unit.
+    pub e0: f64,
+    /// d(signal)/d(substrate), AU per concentration unit (negative for a product read).
+    pub signal_per_substrate: f64,
+}
+
+/// The rate laws a group can be fitted with.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum ProgressModel {
+    /// Plain Michaelis-Menten, closed form.
+    MichaelisMenten,
+    /// Michaelis-Menten with competitive product inhibition (ODE).
+    ProductInhibition,
+    /// Michaelis-Menten with first-order enzyme inactivation (ODE).
+    Inactivation,
+}
+
+impl ProgressModel {
+    /// The name written in `progress.json`.
+    pub fn name(self) -> &'static str {
+        match self {
+            ProgressModel::MichaelisMenten => "michaelis-menten",
+            ProgressModel::ProductInhibition => "product-inhibition",
+            ProgressModel::Inactivation => "inactivation",
+        }
+    }
+
+    fn extra_parameter(self) -> Option<&'static str> {
+        match self {
+            ProgressModel::MichaelisMenten => None,
+            ProgressModel::ProductInhibition => Some("inverse_Kp"),
+            ProgressModel::Inactivation => Some("k_inact"),
+        }
+    }
+}
+
+/// How to fit.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GlobalFitOptions {
+    /// The rate law.
+    pub model: ProgressModel,
+    /// Time from the start of the reaction to time zero of the reads, s (added to every read time).
+    pub dead_time_s: f64,
+    /// Estimate one shared dead time (starting from `dead_time_s`).
+    pub fit_dead_time: bool,
+    /// ODE tolerances (ODE models only).
+    pub ode: OdeTolerances,
+    /// Compute the profile-likelihood interval of Km.
+    pub profile_km: bool,
+}
+
+impl Default for GlobalFitOptions {
+    fn default() -> Self {
+        GlobalFitOptions {
+            model: ProgressModel::MichaelisMenten,
+            dead_time_s: 0.0,
+            fit_dead_time: false,
+            ode: OdeTolerances::default(),
+            profile_km: true,
+        }
+    }
+}
+
+/// Why a group could not be fitted.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum ProgressError {
+    /// Fewer than two wells.
+    #[error("a global progress-curve fit needs at least 2 wells with a substrate and enzyme concentration; this group has {count}{}", if wells.is_empty() { String::new() } else { format!(" ({wells})") })]
+    TooFewWells {
+        /// How many.
+        count: usize,
+        /// Which.
+        wells: String,
+    },
+    /// A well's inputs are unusable.
+    #[error("well {well}: {reason}")]
+    BadWell {
+        /// The well.
+        well: String,
+        /// What is wrong.
+        reason: String,
+    },
+    /// No curve moves beyond the noise.
+    #[error("the curves are flat: no well's signal changes by more than 5 times its read-to-read scatter, so there is no progress curve to fit")]
+    FlatCurves,
+    /// The solver gave up.
+    #[error("the {model} fit did not converge: {reason}")]
+    DidNotConverge {
+        /// The model.
+        model: &'static str,
+        /// Why.
+        reason: String,
+    },
+    /// The least-squares core refused the problem.
+    #[error("the {model} fit failed: {message}")]
+    Fit {
+        /// The model.
+        model: &'static str,
+        /// The message.
+        message: String,
+    },
+}
+
+/// Per-well diagnostics of a fit.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct WellDiagnostics {
+    /// The well.
+    pub well: String,
+    /// Reads fitted.
+    pub n: usize,
+    /// The fitted signal offset, AU.
+    pub signal_offset: f64,
+    /// Residual SD, AU.
+    pub residual_sd: f64,
+    /// Runs of residual signs.
+    pub runs: usize,
+    /// Runs-test z (negative: fewer runs than chance, a systematic misfit).
+    pub runs_z: Option<f64>,
+    /// True when `runs_z < -2.576` (two-sided 1% level).
+    pub systematic_misfit: bool,
+    /// The initial rate the fitted constants imply, kcat E0 S0 / (Km + S0), concentration/s.
+    pub implied_initial_rate: f64,
+    /// Fraction of S0 converted by the last read, by the fitted curve.
+    pub fitted_conversion: f64,
+}
+
+/// One fitted shared parameter.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct FittedParameter {
+    /// Name (`kcat`, `Km`, `inverse_Kp`, `k_inact`, `dead_time`).
+    pub name: String,
+    /// Estimate.
+    pub value: f64,
+    /// Asymptotic standard error.
+    pub se: Option<f64>,
+    /// Asymptotic 95% interval.
+    pub ci95: Option<[f64; 2]>,
+}
+
+/// A group's global fit.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct GlobalFit {
+    /// The rate law.
+    pub model: ProgressModel,
+    /// Shared parameters in order kcat, Km, [extra], [dead_time].
+    pub parameters: Vec<FittedParameter>,
+    /// Profile-likelihood 95% interval of Km (`None` on a side the data leave open).
+    pub km_profile_ci95: Option<[Option<f64>; 2]>,
+    /// Correlation matrix of the shared parameters.
+    pub correlation: Option<Vec<Vec<f64>>>,
+    /// Residual sum of squares, AU^2.
+    pub rss: f64,
+    /// Reads fitted.
+    pub n_observations: usize,
+    /// Wells (offsets).
+    pub n_wells: usize,
+    /// Degrees of freedom n - p - m.
+    pub degrees_of_freedom: usize,
+    /// Residual SD, AU.
+    pub residual_sd: f64,
+    /// AICc.
+    pub aicc: f64,
+    /// Solver iterations.
+    pub iterations: u64,
+    /// Per-well diagnostics.
+    pub wells: Vec<WellDiagnostics>,
+}
+
+impl GlobalFit {
+    /// A parameter by name.
+    pub fn parameter(&self, name: &str) -> Option<&FittedParameter> {
+        self.parameters.iter().find(|p| p.name == name)
+    }
+}
+
+/// The projected least-squares problem (see the module notes).
+pub struct ProgressProblem<'a> {
+    wells: &'a [WellCurve],
+    model: ProgressModel,
+    dead_time_s: f64,
+    fit_dead_time: bool,
+    ode: OdeTolerances,
+    offsets: Vec<usize>,
+    n_observations: usize,
+    /// The closed form's derivatives cost little beside omega itself, so a residual evaluation
+    /// keeps them for the Jacobian that the solver asks for next at the same point.
+    cache: std::sync::Mutex<Option<(Vec<f64>, Vec<WellPoints>)>>,
+}
+
+/// Point values of one well: substrate and derivatives in (kcat, Km, extra, dead time).
+type WellPoints = Vec<(f64, [f64; 4])>;
+
+impl<'a> ProgressProblem<'a> {
+    /// Sets up the problem for `wells` with `options`.
+    pub fn new(wells: &'a [WellCurve], options: &GlobalFitOptions) -> ProgressProblem<'a> {
+        let mut offsets = Vec::with_capacity(wells.len() + 1);
+        let mut total = 0;
+        for well in wells {
+            offsets.push(total);
+            total += well.signal.len();
+        }
+        offsets.push(total);
+        ProgressProblem {
+            wells,
+            model: options.model,
+            dead_time_s: options.dead_time_s,
+            fit_dead_time: options.fit_dead_time,
+            ode: options.ode,
+            offsets,
+            n_observations: total,
+            cache: std::sync::Mutex::new(None),
+        }
+    }
+
+    /// Names of the shared parameters in order.
+    pub fn parameter_names(&self) -> Vec<String> {
+        let mut names = vec!["kcat".to_string(), "Km".to_string()];
+        if let Some(extra) = self.model.extra_parameter() {
+            names.push(extra.to_string());
+        }
+        if self.fit_dead_time {
+            names.push("dead_time".to_string());
+        }
+        names
+    }
+
+    fn unpack(&self, parameters: &[f64]) -> (CurveConstants, f64) {
+        let mut constants = CurveConstants {
+            kcat: parameters[0],
+            km: parameters[1],
+            inverse_kp: 0.0,
+            k_inact: 0.0,
+        };
+        let mut next = 2;
+        match self.model {
+            ProgressModel::MichaelisMenten => {}
+            ProgressModel::ProductInhibition => {
+                constants.inverse_kp = parameters[next];
+                next += 1;
+            }
+            ProgressModel::Inactivation => {
+                constants.k_inact = parameters[next];
+                next += 1;
+            }
+        }
+        let dead = if self.fit_dead_time {
+            parameters[next]
+        } else {
+            self.dead_time_s
+        };
+        (constants, dead)
+    }
+
+    /// Substrate (and derivatives when asked) for one well; NaN-filled when the model is undefined.
+    fn well_points(
+        &self,
+        well: &WellCurve,
+        constants: &CurveConstants,
+        dead: f64,
+        derivatives: bool,
+    ) -> WellPoints {
+        let times: Vec<f64> = well.times_s.iter().map(|t| t + dead).collect();
+        match self.model {
+            ProgressModel::MichaelisMenten => times
+                .iter()
+                .map(|&t| {
+                    let p = michaelis_menten_point(well.s0, well.e0, constants.kcat, constants.km, t);
+                    (p.substrate, [p.d_kcat, p.d_km, 0.0, p.d_time])
+                })
+                .collect(),
+            ProgressModel::ProductInhibition | ProgressModel::Inactivation => {
+                match integrate_curve(well.s0, well.e0, constants, &times, derivatives, self.ode) {
+                    Ok(points) => {
+                        let extra = if self.model == ProgressModel::ProductInhibition {
+                            2
+                        } else {
+                            3
+                        };
+                        points
+                            .iter()
+                            .map(|p| {
+                                let d = p.derivatives;
+                                (p.substrate, [d[0], d[1], d[extra], d[4]])
+                            })
+                            .collect()
+                    }
+                    Err(_) => vec![(f64::NAN, [f64::NAN; 4]); times.len()],
+                }
+            }
+        }
+    }
+
+    fn all_points(&self, parameters: &[f64], derivatives: bool) -> Vec<WellPoints> {
+        let closed_form = self.model == ProgressModel::MichaelisMenten;
+        if closed_form {
+            if let Ok(guard) = self.cache.lock() {
+                if let Some((at, points)) = guard.as_ref() {
+                    if at.as_slice() == parameters {
+                        return points.clone();
+                    }
+                }
+            }
+        }
+        let (constants, dead) = self.unpack(parameters);
+        // Wells are independent: spread them over the cores (ODE wells always; closed-form wells
+        // when there are enough reads to outweigh the thread hand-off).
+        let points: Vec<WellPoints> = if !closed_form || self.n_observations >= 2000 {
+            self.wells
+                .par_iter()
+                .map(|well| self.well_points(well, &constants, dead, derivatives || closed_form))
+                .collect()
+        } else {
+            self.wells
+                .iter()
+                .map(|well| self.well_points(well, &constants, dead, true))
+                .collect()
+        };
+        if closed_form {
+            if let Ok(mut guard) = self.cache.lock() {
+                *guard = Some((parameters.to_vec(), points.clone()));
+            }
+        }
+        points
+    }
+
+    /// The signal offsets `b_i` at `parameters`.
+    pub fn offsets(&self, parameters: &[f64]) -> Vec<f64> {
+        let points = self.all_points(parameters, false);
+        self.wells
+            .iter()
+            .zip(&points)
+            .map(|(well, pts)| {
+                let n = well.signal.len() as f64;
+                well.signal
+                    .iter()
+                    .zip(pts)
+                    .map(|(y, (s, _))| y - well.signal_per_substrate * s)
+                    .sum::<f64>()
+                    / n
+            })
+            .collect()
+    }
+
+    fn derivative_columns(&self) -> Vec<usize> {
+        let mut columns = vec![0, 1];
+        if self.model != ProgressModel::MichaelisMenten {
+            columns.push(2);
+        }
+        if self.fit_dead_time {
+            columns.push(3);
+        }
+        columns
+    }
+}
+
+impl ResidualModel for ProgressProblem<'_> {
+    fn n_parameters(&self) -> usize {
+        2 + usize::from(self.model != ProgressModel::MichaelisMenten) + usize::from(self.fit_dead_time)
+    }
+
+    fn n_observations(&self) -> usize {
+        self.n_observations
+    }
+
+    fn residuals(&self, parameters: &[f64], residuals: &mut [f64]) {
+        let points = self.all_points(parameters, false);
+        for (index, (well, pts)) in self.wells.iter().zip(&points).enumerate() {
+            let slice = &mut residuals[self.offsets[index]..self.offsets[index + 1]];
+            let mut sum = 0.0;
+            for ((r, y), (s, _)) in slice.iter_mut().zip(&well.signal).zip(pts) {
+                *r = well.signal_per_substrate * s - y;
+                sum += *r;
+            }
+            let mean = sum / slice.len() as f64;
+            slice.iter_mut().for_each(|r| *r -= mean);
+        }
+    }
+
+    fn jacobian(&self, parameters: &[f64], jacobian: &mut DMatrix<f64>) {
+        let points = self.all_points(parameters, true);
+        let columns = self.derivative_columns();
+        for (index, (well, pts)) in self.wells.iter().zip(&points).enumerate() {
+            let start = self.offsets[index];
+            let n = pts.len() as f64;
+            for (column, &which) in columns.iter().enumerate() {
+                let mean = pts.iter().map(|(_, d)| d[which]).sum::<f64>() / n;
+                for (row, (_, d)) in pts.iter().enumerate() {
+                    jacobian[(start + row, column)] = well.signal_per_substrate * (d[which] - mean);
+                }
+            }
+        }
+    }
+}
+
+/// A problem with some parameters held fixed (for starts and profiles).
+struct Fixed<'a, M> {
+    inner: &'a M,
+    full: Vec<f64>,
+    free: Vec<usize>,
+}
+
+impl<M: ResidualModel> Fixed<'_, M> {
+    fn expand(&self, reduced: &[f64]) -> Vec<f64> {
+        let mut full = self.full.clone();
+        for (value, &index) in reduced.iter().zip(&self.free) {
+            full[index] = *value;
+        }
+        full
+    }
+}
+
+impl<M: ResidualModel> ResidualModel for Fixed<'_, M> {
+    fn n_parameters(&self) -> usize {
+        self.free.len()
+    }
+    fn n_observations(&self) -> usize {
+        self.inner.n_observations()
+    }
+    fn residuals(&self, parameters: &[f64], residuals: &mut [f64]) {
+        self.inner.residuals(&self.expand(parameters), residuals);
+    }
+    fn jacobian(&self, parameters: &[f64], jacobian: &mut DMatrix<f64>) {
+        let mut full = DMatrix::zeros(self.inner.n_observations(), self.full.len());
+        self.inner.jacobian(&self.expand(parameters), &mut full);
+        for (column, &index) in self.free.iter().enumerate() {
+            jacobian.set_column(column, &full.column(index));
+        }
+    }
+}
+
+fn rss_of<M: ResidualModel>(model: &M, parameters: &[f64]) -> f64 {
+    let mut residuals = vec![0.0; model.n_observations()];
+    model.residuals(parameters, &mut residuals);
+    let rss: f64 = residuals.iter().map(|r| r * r).sum();
+    if rss.is_finite() {
+        rss
+    } else {
+        f64::INFINITY
+    }
+}
+
+/// Straight-line slope of the first few reads.
+fn early_slope(times: &[f64], values: &[f64]) -> Option<f64> {
+    let n = times.len().min(6);
+    if n < 2 {
+        return None;
+    }
+    let (t, y) = (&times[..n], &values[..n]);
+    let mean_t = t.iter().sum::<f64>() / n as f64;
+    let mean_y = y.iter().sum::<f64>() / n as f64;
+    let sxx: f64 = t.iter().map(|v| (v - mean_t).powi(2)).sum();
+    let sxy: f64 = t.iter().zip(y).map(|(a, b)| (a - mean_t) * (b - mean_y)).sum();
+    (sxx > 0.0).then(|| sxy / sxx)
+}
+
+/// Read-to-read scatter of a curve: the SD of second differences / sqrt(6) (insensitive to a
+/// smooth trend; common practice).
+fn scatter(values: &[f64]) -> f64 {
+    if values.len() < 4 {
+        return 0.0;
+    }
+    let second: Vec<f64> = values.windows(3).map(|w| w[0] - 2.0 * w[1] + w[2]).collect();
+    (second.iter().map(|d| d * d).sum::<f64>() / second.len() as f64 / 6.0).sqrt()
+}
+
+/// Checks the wells before any fitting: count, finite inputs, some movement.
+pub fn check_wells(wells: &[WellCurve]) -> Result<(), ProgressError> {
+    if wells.len() < 2 {
+        return Err(ProgressError::TooFewWells {
+            count: wells.len(),
+            wells: wells
+                .iter()
+                .map(|w| w.label.clone())
+                .collect::<Vec<_>>()
+                .join(", "),
+        });
+    }
+    for well in wells {
+        let bad = |reason: String| ProgressError::BadWell {
+            well: well.label.clone(),
+            reason,
+        };
+        if !(well.s0.is_finite() && well.s0 > 0.0) {
+            return Err(bad(format!(
+                "starting substrate must be above 0, not {}",
+                well.s0
+            )));
+        }
+        if !(well.e0.is_finite() && well.e0 > 0.0) {
+            return Err(bad(format!(
+                "enzyme concentration must be above 0, not {}",
+                well.e0
+            )));
+        }
+        if !(well.signal_per_substrate.is_finite() && well.signal_per_substrate != 0.0) {
+            return Err(bad(
+                "no signal per unit substrate (extinction and pathlength)".into()
+            ));
+        }
+        if well.times_s.len() != well.signal.len() || well.signal.len() < 3 {
+            return Err(bad(format!(
+                "{} readable reads; at least 3 are needed",
+                well.signal.len()
+            )));
+        }
+        if !well.signal.iter().chain(&well.times_s).all(|v| v.is_finite()) {
+            return Err(bad("a read time or signal is not a finite number".into()));
+        }
+    }
+    let moves = wells.iter().any(|well| {
+        let n = well.signal.len();
+        let k = (n / 4).clamp(1, 3);
+        let first = well.signal[..k].iter().sum::<f64>() / k as f64;
+        let last = well.signal[n - k..].iter().sum::<f64>() / k as f64;
+        let noise = scatter(&well.signal).max(1e-12 * first.abs().max(1.0));
+        (last - first).abs() > 5.0 * noise
+    });
+    if !moves {
+        return Err(ProgressError::FlatCurves);
+    }
+    Ok(())
+}
+
+/// A data-derived start for kcat and Km (module notes).
+fn michaelis_menten_start(problem: &ProgressProblem, wells: &[WellCurve], dead: f64) -> Vec<f64> {
+    let slopes: Vec<Option<f64>> = wells
+        .iter()
+        .map(|w| early_slope(&w.times_s, &w.signal).map(|s| -s / w.signal_per_substrate))
+        .collect();
+    let s_min = wells.iter().map(|w| w.s0).fold(f64::INFINITY, f64::min);
+    let s_max = wells.iter().map(|w| w.s0).fold(0.0, f64::max);
+    let (low, high) = ((s_min / 20.0).ln(), (s_max * 20.0).ln());
+    let mut best: Option<(f64, Vec<f64>)> = None;
+    for step in 0..=10 {
+        let km = (low + (high - low) * f64::from(step) / 10.0).exp();
+        let kcat = median(
+            wells
+                .iter()
+                .zip(&slopes)
+                .filter_map(|(w, v)| v.filter(|v| *v > 0.0).map(|v| v * (km + w.s0) / (w.s0 * w.e0))),
+        )
+        .unwrap_or(1.0);
+        let mut parameters = vec![kcat, km];
+        if problem.n_parameters() == 3 {
+            parameters.push(dead);
+        }
+        let rss = rss_of(problem, &parameters);
+        if best.as_ref().is_none_or(|(b, _)| rss < *b) {
+            best = Some((rss, parameters));
+        }
+    }
+    best.map_or_else(|| vec![1.0, s_max.max(1e-9)], |(_, p)| p)
+}
+
+fn least_squares_options(n_parameters: usize) -> LeastSquaresOptions {
+    LeastSquaresOptions {
+        max_iterations: 200,
+        relative_reduction_tolerance: 1e-12,
+        relative_step_tolerance: 1e-10,
+        gradient_tolerance: 1e-10,
+        positive_parameters: (0..n_parameters.min(2)).collect(),
+        ..LeastSquaresOptions::default()
+    }
+}
+
+/// Runs the solver for a problem from `start`; returns the parameters and iterations.
+fn solve<M: ResidualModel>(
+    model: &M,
+    start: &[f64],
+    positive: Vec<usize>,
+    name: &'static str,
+) -> Result<(Vec<f64>, f64, u64), ProgressError> {
+    let options = LeastSquaresOptions {
+        positive_parameters: positive,
+        ..least_squares_options(0)
+    };
+    let fit = fit_least_squares(model, start, &options).map_err(|error| ProgressError::Fit {
+        model: name,
+        message: error.to_string(),
+    })?;
+    if !fit.converged() {
+        return Err(ProgressError::DidNotConverge {
+            model: name,
+            reason: fit.stop_reason.to_string(),
+        });
+    }
+    Ok((fit.parameters, fit.rss, fit.iterations))
+}
+
+/// Fits the group's wells with `options.model` (a plain Michaelis-Menten fit first provides the
+/// start of the extended models).
+pub fn fit_group(wells: &[WellCurve], options: &GlobalFitOptions) -> Result<GlobalFit, ProgressError> {
+    check_wells(wells)?;
+    let plain_options = GlobalFitOptions {
+        model: ProgressModel::MichaelisMenten,
+        ..options.clone()
+    };
+    let plain = ProgressProblem::new(wells, &plain_options);
+    let start = michaelis_menten_start(&plain, wells, options.dead_time_s);
+    let (mut parameters, mut rss, mut iterations) =
+        solve(&plain, &start, vec![0, 1], ProgressModel::MichaelisMenten.name())?;
+    let problem = ProgressProblem::new(wells, options);
+    if options.model != ProgressModel::MichaelisMenten {
+        let mut extended = parameters[..2].to_vec();
+        extended.push(0.0);
+        if options.fit_dead_time {
+            extended.push(parameters[2]);
+        }
+        let (p, r, i) = solve(&problem, &extended, vec![0, 1], options.model.name())?;
+        parameters = p;
+        rss = r;
+        iterations += i;
+    }
+    Ok(summarise(&problem, wells, options, parameters, rss, iterations))
+}
+
+fn summarise(
+    problem: &ProgressProblem,
+    wells: &[WellCurve],
+    options: &GlobalFitOptions,
+    parameters: Vec<f64>,
+    rss: f64,
+    iterations: u64,
+) -> GlobalFit {
+    let n = problem.n_observations();
+    let p = problem.n_parameters();
+    let m = wells.len();
+    let dof = n.saturating_sub(p + m);
+    let mut jacobian = DMatrix::zeros(n, p);
+    problem.jacobian(&parameters, &mut jacobian);
+    // asymptotic_covariance divides by n - p; rescale so that s^2 = RSS / (n - p - m).
+    let scaled_rss = if dof > 0 {
+        rss * (n - p) as f64 / dof as f64
+    } else {
+        f64::NAN
+    };
+    let covariance = asymptotic_covariance(&jacobian, scaled_rss);
+    let quantile = if dof > 0 {
+        crate::fit::t_quantile_975(dof).ok()
+    } else {
+        None
+    };
+    let names = problem.parameter_names();
+    let fitted: Vec<FittedParameter> = names
+        .iter()
+        .enumerate()
+        .map(|(index, name)| {
+            let se = covariance.standard_errors.as_ref().map(|s| s[index]);
+            let value = parameters[index];
+            FittedParameter {
+                name: name.clone(),
+                value,
+                se,
+                ci95: se.zip(quantile).map(|(se, q)| [value - q * se, value + q * se]),
+            }
+        })
+        .collect();
+    let correlation = covariance
+        .correlation
+        .as_ref()
+        .map(|c| c.row_iter().map(|row| row.iter().copied().collect()).collect());
+    let residual_sd = if dof > 0 {
+        (rss / dof as f64).sqrt()
+    } else {
+        f64::NAN
+    };
+    let k = (p + m + 1) as f64;
+    let nf = n as f64;
+    let aicc = if nf - k - 1.0 > 0.0 && rss > 0.0 {
+        nf * (rss / nf).ln() + 2.0 * k + 2.0 * k * (k + 1.0) / (nf - k - 1.0)
+    } else {
+        f64::NAN
+    };
+    let km_profile_ci95 = (options.profile_km && dof > 0)
+        .then(|| profile_interval(problem, &parameters, 1, rss, dof))
+        .flatten();
+    let well_diagnostics = well_diagnostics(problem, wells, &parameters);
+    GlobalFit {
+        model: options.model,
+        parameters: fitted,
+        km_profile_ci95,
+        correlation,
+        rss,
+        n_observations: n,
+        n_wells: m,
+        degrees_of_freedom: dof,
+        residual_sd,
+        aicc,
+        iterations,
+        wells: well_diagnostics,
+    }
+}
+
+fn well_diagnostics(
+    problem: &ProgressProblem,
+    wells: &[WellCurve],
+    parameters: &[f64],
+) -> Vec<WellDiagnostics> {
+    let mut residuals = vec![0.0; problem.n_observations()];
+    problem.residuals(parameters, &mut residuals);
+    let offsets = problem.offsets(parameters);
+    let (constants, dead) = problem.unpack(parameters);
+    wells
+        .iter()
+        .enumerate()
+        .map(|(index, well)| {
+            let r = &residuals[problem.offsets[index]..problem.offsets[index + 1]];
+            let n = r.len();
+            let residual_sd = (r.iter().map(|v| v * v).sum::<f64>() / (n.max(2) - 1) as f64).sqrt();
+            let (runs, runs_z) = runs_test(r);
+            // Read times ascend, so the last point is the last read.
+            let s_end = problem
+                .well_points(well, &constants, dead, false)
+                .last()
+                .map_or(f64::NAN, |(s, _)| *s);
+            WellDiagnostics {
+                well: well.label.clone(),
+                n,
+                signal_offset: offsets[index],
+                residual_sd,
+                runs,
+                runs_z,
+                systematic_misfit: runs_z.is_some_and(|z| z < -2.576),
+                implied_initial_rate: constants.kcat * well.e0 * well.s0 / (constants.km + well.s0),
+                fitted_conversion: 1.0 - s_end / well.s0,
+            }
+        })
+        .collect()
+}
+
+/// Wald-Wolfowitz runs test on the signs of `residuals` (zeros skipped): the number of runs and
+/// `z = (R - E R) / sd R` with `E R = 1 + 2 n+ n- / N`,
+/// `Var R = 2 n+ n- (2 n+ n- - N) / (N^2 (N - 1))`.
+pub fn runs_test(residuals: &[f64]) -> (usize, Option<f64>) {
+    let signs: Vec<bool> = residuals
+        .iter()
+        .filter(|r| **r != 0.0)
+        .map(|r| *r > 0.0)
+        .collect();
+    if signs.is_empty() {
+        return (0, None);
+    }
+    let runs = 1 + signs.windows(2).filter(|w| w[0] != w[1]).count();
+    let positive = signs.iter().filter(|s| **s).count() as f64;
+    let negative = signs.len() as f64 - positive;
+    let total = signs.len() as f64;
+    if positive == 0.0 || negative == 0.0 || total < 3.0 {
+        return (runs, None);
+    }
+    let product = 2.0 * positive * negative;
+    let expected = 1.0 + product / total;
+    let variance = product * (product - total) / (total * total * (total - 1.0));
+    if variance <= 0.0 {
+        return (runs, None);
+    }
+    (runs, Some((runs as f64 - expected) / variance.sqrt()))
+}
+
+/// Profile-likelihood 95% interval of parameter `index` (module notes); `None` on a side where
+/// the residual sum of squares never reaches the threshold within a factor 10^4, or a sub-fit
+/// fails.
+fn profile_interval(
+    problem: &ProgressProblem,
+    optimum: &[f64],
+    index: usize,
+    rss_min: f64,
+    dof: usize,
+) -> Option<[Option<f64>; 2]> {
+    let f = f_quantile(0.95, 1.0, dof as f64).ok()?;
+    let threshold = rss_min * (1.0 + f / dof as f64);
+    let free: Vec<usize> = (0..optimum.len()).filter(|&i| i != index).collect();
+    let positive: Vec<usize> = free
+        .iter()
+        .enumerate()
+        .filter(|(_, &i)| i < 2)
+        .map(|(reduced, _)| reduced)
+        .collect();
+    // RSS at a fixed value, re-optimising the rest from `warm`.
+    let profile_at = |value: f64, warm: &[f64]| -> Option<(f64, Vec<f64>)> {
+        let mut full = optimum.to_vec();
+        full[index] = value;
+        let fixed = Fixed {
+            inner: problem,
+            full,
+            free: free.clone(),
+        };
+        let start: Vec<f64> = free.iter().map(|&i| warm[i]).collect();
+        let (reduced, rss, _) = solve(&fixed, &start, positive.clone(), "profile").ok()?;
+        Some((rss, fixed.expand(&reduced)))
+    };
+    let centre = optimum[index];
+    let side = |direction: f64| -> Option<f64> {
+        let factor: f64 = 1.25;
+        let mut inside = (centre.ln(), optimum.to_vec());
+        for _ in 0..42 {
+            let candidate = inside.0 + direction * factor.ln();
+            let (rss, at) = profile_at(candidate.exp(), &inside.1)?;
+            if rss > threshold {
+                // Bisect in log space between `inside` and `candidate`.
+                let (mut lo, mut hi) = (inside.0, candidate);
+                let mut warm = inside.1.clone();
+                for _ in 0..14 {
+                    let mid = 0.5 * (lo + hi);
+                    let (rss_mid, at_mid) = profile_at(mid.exp(), &warm)?;
+                    if rss_mid > threshold {
+                        hi = mid;
+                    } else {
+                        lo = mid;
+                        warm = at_mid;
+                    }
+                }
+                return Some((0.5 * (lo + hi)).exp());
+            }
+            inside = (candidate, at);
+        }
+        None
+    };
+    Some([side(-1.0), side(1.0)])
+}
+
+/// The extra-sum-of-squares F test of a model with one more parameter against a nested one:
+/// `F = (RSS_0 - RSS_1) / (RSS_1 / dof_1)` on (1, dof_1); returns `(F, p)`.
+pub fn extra_sum_of_squares_test(rss_nested: f64, rss_full: f64, dof_full: usize) -> Option<(f64, f64)> {
+    if dof_full == 0 || rss_full <= 0.0 {
+        return None;
+    }
+    let f = ((rss_nested - rss_full) / (rss_full / dof_full as f64)).max(0.0);
+    let distribution = FisherSnedecor::new(1.0, dof_full as f64).ok()?;
+    Some((f, 1.0 - distribution.cdf(f)))
+}
+
+/// Synthetic groups for tests and benchmarks: curves from the closed form or the ODE with
+/// Gaussian read noise (ChaCha8, seeded), each well with its own offset.
+pub mod synthetic {
+    use rand::SeedableRng;
+    use rand_chacha::ChaCha8Rng;
+    use rand_distr::{Distribution, Normal};
+
+    use super::WellCurve;
+    use crate::progress::ode::{integrate_curve, CurveConstants, OdeTolerances};
+
+    /// What to simulate.
+    #[derive(Debug, Clone, PartialEq)]
+    pub struct SyntheticGroup {
+        /// True constants.
+        pub constants: CurveConstants,
+        /// Starting substrate of each well, uM.
+        pub s0_um: Vec<f64>,
+        /// Enzyme, uM.
+        pub e0_um: f64,
+        /// Read times, s.
+        pub times_s: Vec<f64>,
+        /// True dead time added to every read time, s.
+        pub dead_time_s: f64,
+        /// Signal per uM of substrate, AU/uM (negative: product read).
+        pub signal_per_substrate: f64,
+        /// Read noise SD, AU.
+        pub noise_sd: f64,
+        /// Seed.
+        pub seed: u64,
+    }
+
+    /// Simulates the group; `None` if the ODE fails (not for sane inputs).
+    pub fn simulate_group(spec: &SyntheticGroup) -> Option<Vec<WellCurve>> {
+        let mut rng = ChaCha8Rng::seed_from_u64(spec.seed);
+        let noise = Normal::new(0.0, spec.noise_sd.max(0.0)).ok()?;
+        let times: Vec<f64> = spec.times_s.iter().map(|t| t + spec.dead_time_s).collect();
+        let tight = OdeTolerances { relative: 1e-11 };
+        spec.s0_um
+            .iter()
+            .enumerate()
+            .map(|(index, &s0)| {
+                let plain = spec.constants.inverse_kp == 0.0 && spec.constants.k_inact == 0.0;
+                let substrate: Vec<f64> = if plain {
+                    times
+                        .iter()
+                        .map(|&t| {
+                            crate::progress::closed_form::substrate_remaining(
+                                s0,
+                                spec.constants.km,
+                                spec.constants.kcat * spec.e0_um,
+                                t.max(0.0),
+                            )
+                        })
+                        .collect()
+                } else {
+                    integrate_curve(s0, spec.e0_um, &spec.constants, &times, false, tight)
+                        .ok()?
+                        .iter()
+                        .map(|p| p.substrate)
+                        .collect()
+                };
+                let offset = 0.04 + 0.002 * index as f64;
+                let signal = substrate
+                    .iter()
+                    .map(|s| offset + spec.signal_per_substrate * (s - s0) + noise.sample(&mut rng))
+                    .collect();
+                Some(WellCurve {
+                    label: format!("W{}", index + 1),
+                    times_s: spec.times_s.clone(),
+                    signal,
+                    s0,
+                    e0: spec.e0_um,
+                    signal_per_substrate: spec.signal_per_substrate,
+                })
+            })
+            .collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::synthetic::{simulate_group, SyntheticGroup};
+    use super::*;
+    use crate::fit::check_jacobian_scaled;
+
+    fn spec(constants: CurveConstants, seed: u64) -> SyntheticGroup {
+        SyntheticGroup {
+            constants,
+            s0_um: vec![5.0, 10.0, 20.0, 40.0, 80.0, 160.0, 320.0, 640.0],
+            e0_um: 0.005,
+            times_s: (0..60).map(|i| 30.0 * f64::from(i)).collect(),
+            dead_time_s: 0.0,
+            // 4-nitrophenolate-like 18000 M^-1 cm^-1 x 0.55 cm = 0.0099 AU/uM, product read.
+            signal_per_substrate: -0.0099,
+            noise_sd: 0.002,
+            seed,
+        }
+    }
+
+    fn plain(kcat: f64, km: f64) -> CurveConstants {
+        CurveConstants {
+            kcat,
+            km,
+            inverse_kp: 0.0,
+            k_inact: 0.0,
+        }
+    }
+
+    #[test]
+    fn projected_jacobian_matches_finite_differences() {
+        // Analytic (implicit-differentiation / sensitivity) Jacobians of the projected residuals
+        // against central differences (common practice).
+        let wells = simulate_group(&spec(plain(12.0, 60.0), 1)).unwrap();
+        for (model, parameters) in [
+            (ProgressModel::MichaelisMenten, vec![12.0, 60.0, 7.0]),
+            (ProgressModel::ProductInhibition, vec![12.0, 60.0, 0.01, 7.0]),
+            (ProgressModel::Inactivation, vec![12.0, 60.0, 2e-4, 7.0]),
+        ] {
+            let options = GlobalFitOptions {
+                model,
+                fit_dead_time: true,
+                ode: OdeTolerances { relative: 1e-12 },
+                ..GlobalFitOptions::default()
+            };
+            let problem = ProgressProblem::new(&wells, &options);
+            let check = check_jacobian_scaled(&problem, &parameters, &[1.0, 1.0, 1e-3, 1.0]);
+            // Central differences with step eps^(1/3) |theta| carry the ~1e-15 relative rounding
+            // of S (S0 up to 640 uM) divided by the step: about 1e-6 of a column's largest entry.
+            assert!(check.largest_relative_error < 1e-5, "{model:?}: {check:?}");
+        }
+    }
+
+    #[test]
+    fn plain_fit_recovers_truth_and_its_intervals_cover_it() {
+        let wells = simulate_group(&spec(plain(12.0, 60.0), 2)).unwrap();
+        let fit = fit_group(&wells, &GlobalFitOptions::default()).unwrap();
+        let kcat = fit.parameter("kcat").unwrap();
+        let km = fit.parameter("Km").unwrap();
+        assert!((kcat.value / 12.0 - 1.0).abs() < 0.03, "{kcat:?}");
+        assert!((km.value / 60.0 - 1.0).abs() < 0.05, "{km:?}");
+        let [lo, hi] = km.ci95.unwrap();
+        assert!(lo < 60.0 && 60.0 < hi, "asymptotic interval {lo}..{hi}");
+        let [plo, phi] = fit.km_profile_ci95.unwrap();
+        let (plo, phi) = (plo.unwrap(), phi.unwrap());
+        assert!(
+            plo < km.value && km.value < phi && plo < 60.0 && 60.0 < phi,
+            "profile {plo}..{phi}"
+        );
+        // The residual SD estimates the simulated noise.
+        assert!((fit.residual_sd / 0.002 - 1.0).abs() < 0.1, "{}", fit.residual_sd);
+        assert_eq!(fit.degrees_of_freedom, 8 * 60 - 2 - 8);
+        // Offsets: simulated b = 0.04 + 0.002 i - g S0 with the fitted S-form offset b_i + g S.
+        let first = &fit.wells[0];
+        assert!(
+            (first.signal_offset - (0.04 + 0.0099 * 5.0)).abs() < 0.002,
+            "{first:?}"
+        );
+        assert!(fit.wells.iter().filter(|w| w.systematic_misfit).count() <= 1);
+    }
+
+    #[test]
+    fn dead_time_is_estimated() {
+        let mut truth = spec(plain(12.0, 60.0), 3);
+        truth.dead_time_s = 20.0;
+        let wells = simulate_group(&truth).unwrap();
+        let options = GlobalFitOptions {
+            fit_dead_time: true,
+            profile_km: false,
+            ..GlobalFitOptions::default()
+        };
+        let fit = fit_group(&wells, &options).unwrap();
+        let dead = fit.parameter("dead_time").unwrap();
+        assert!(
+            (dead.value - 20.0).abs() < 3.0 * dead.se.unwrap() + 1.0,
+            "{dead:?}"
+        );
+        assert!((fit.parameter("Km").unwrap().value / 60.0 - 1.0).abs() < 0.06);
+    }
+
+    #[test]
+    fn product_inhibition_is_recovered_from_ode_data_and_not_needed_without_it() {
+        let inhibited = CurveConstants {
+            inverse_kp: 1.0 / 40.0,
+            ..plain(12.0, 60.0)
+        };
+        let wells = simulate_group(&spec(inhibited, 4)).unwrap();
+        let options = GlobalFitOptions {
+            model: ProgressModel::ProductInhibition,
+            profile_km: false,
+            ..GlobalFitOptions::default()
+        };
+        let fit = fit_group(&wells, &options).unwrap();
+        let q = fit.parameter("inverse_Kp").unwrap();
+        assert!((q.value * 40.0 - 1.0).abs() < 0.15, "{q:?}");
+        let plain_fit = fit_group(
+            &wells,
+            &GlobalFitOptions {
+                profile_km: false,
+                ..GlobalFitOptions::default()
+            },
+        )
+        .unwrap();
+        let (_, p) = extra_sum_of_squares_test(plain_fit.rss, fit.rss, fit.degrees_of_freedom).unwrap();
+        assert!(p < 1e-6 && fit.aicc < plain_fit.aicc, "p {p}");
+
+        let clean = simulate_group(&spec(plain(12.0, 60.0), 5)).unwrap();
+        let with_term = fit_group(&clean, &options).unwrap();
+        let without = fit_group(
+            &clean,
+            &GlobalFitOptions {
+                profile_km: false,
+                ..GlobalFitOptions::default()
+            },
+        )
+        .unwrap();
+        let q = with_term.parameter("inverse_Kp").unwrap();
+        let [lo, hi] = q.ci95.unwrap();
+        assert!(
+            lo < 0.0 && 0.0 < hi,
+            "1/Kp interval {lo}..{hi} must include 0 when absent"
+        );
+        let (_, p) =
+            extra_sum_of_squares_test(without.rss, with_term.rss, with_term.degrees_of_freedom).unwrap();
+        assert!(p > 0.01, "p {p}");
+    }
+
+    #[test]
+    fn inactivation_is_recovered_from_ode_data() {
+        let decaying = CurveConstants {
+            k_inact: 8e-4,
+            ..plain(12.0, 60.0)
+        };
+        let wells = simulate_group(&spec(decaying, 6)).unwrap();
+        let options = GlobalFitOptions {
+            model: ProgressModel::Inactivation,
+            profile_km: false,
+            ..GlobalFitOptions::default()
+        };
+        let fit = fit_group(&wells, &options).unwrap();
+        let k = fit.parameter("k_inact").unwrap();
+        assert!((k.value / 8e-4 - 1.0).abs() < 0.15, "{k:?}");
+        assert!((fit.parameter("kcat").unwrap().value / 12.0 - 1.0).abs() < 0.05);
+    }
+
+    #[test]
+    fn bad_groups_give_clear_errors() {
+        let wells = simulate_group(&spec(plain(12.0, 60.0), 7)).unwrap();
+        let one = fit_group(&wells[..1], &GlobalFitOptions::default()).unwrap_err();
+        assert!(
+            one.to_string().contains("at least 2 wells") && one.to_string().contains("W1"),
+            "{one}"
+        );
+        let mut flat = spec(plain(0.0, 60.0), 8);
+        flat.constants.kcat = 0.0;
+        let flat_wells = simulate_group(&flat).unwrap();
+        let error = fit_group(&flat_wells, &GlobalFitOptions::default()).unwrap_err();
+        assert_eq!(error, ProgressError::FlatCurves);
+        let mut no_substrate = wells.clone();
+        no_substrate[2].s0 = 0.0;
+        let error = fit_group(&no_substrate, &GlobalFitOptions::default()).unwrap_err();
+        assert!(
+            error.to_string().contains("W3") && error.to_string().contains("substrate"),
+            "{error}"
+        );
+    }
+
+    #[test]
+    fn runs_test_sees_systematic_patterns() {
+        let alternating: Vec<f64> = (0..40).map(|i| if i % 2 == 0 { 1.0 } else { -1.0 }).collect();
+        let (runs, z) = runs_test(&alternating);
+        assert_eq!(runs, 40);
+        assert!(z.unwrap() > 3.0);
+        let blocks: Vec<f64> = (0..40).map(|i| if i < 20 { 1.0 } else { -1.0 }).collect();
+        let (runs, z) = runs_test(&blocks);
+        assert_eq!(runs, 2);
+        assert!(z.unwrap() < -5.0);
+    }
+}
