@@ -856,7 +856,10 @@ fn decide_trust(
                 report.reason.trim_start_matches("initial rates suspect: ")
             ),
         )
-    } else if !agree && low_substrate_shortfall.is_some_and(|r| r < 0.97) {
+    // A window's chord slope runs low by about half the fraction it converts when S0 << Km (the
+    // rate falls nearly in proportion to S), so windows near the 10% limit give about 95% of the
+    // initial rate; a median below 99% in the lower-S0 wells is that signature, not noise.
+    } else if !agree && low_substrate_shortfall.is_some_and(|r| r < 0.99) {
         (
             "progress-curve",
             format!(
