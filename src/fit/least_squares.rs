@@ -52,10 +52,10 @@
 //! (linearised) standard errors are only as good as the model is close to linear near the optimum.
 //!
 //! References: Levenberg 1944, Q Appl Math 2:164; Marquardt 1963, J Soc Ind Appl Math 11:431;
-//! Moré 1978, "The Levenberg-Marquardt algorithm: implementation and theory", Lecture Notes in
-//! Mathematics 630:105 (scaling, MINPACK-style tests); Nielsen 1999, "Damping parameter in
-//! Marquardt's method", IMM-REP-1999-05, Technical University of Denmark, and Madsen, Nielsen and
-//! Tingleff 2004, "Methods for non-linear least squares problems" (damping rule); Bates and Watts
+//! Moré 1978, "The Levenberg-Marquardt algorithm: implementation and theory", in Numerical
+//! Analysis (G. A. Watson, ed.), Springer Mathematics series vol. 630, p. 105 (scaling,
+//! MINPACK-style tests); Nielsen 1999, "Damping parameter in Marquardt's method",
+//! IMM-REP-1999-05, Technical University of Denmark (damping rule); Bates and Watts
 //! 1988, "Nonlinear Regression Analysis and Its Applications", Wiley (covariance, intervals).
 //! Journal volume and page numbers are from memory.
 
