@@ -1,24 +1,10 @@
 //! Integration tests: the real `platekin` binary on the fixtures and the demo plates, checking exit
 //! codes, messages, and what is (and is not) written.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+mod common;
+use common::{platekin, project, text};
 
-fn project(path: &str) -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join(path)
-}
-
-fn platekin(args: &[&str], cwd: &Path) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_platekin"))
-        .args(args)
-        .current_dir(cwd)
-        .output()
-        .expect("the platekin binary runs")
-}
-
-fn text(bytes: &[u8]) -> String {
-    String::from_utf8_lossy(bytes).into_owned()
-}
+use std::path::Path;
 
 /// Runs a command that must fail: exit code 2, every expected fragment in stderr, no panic, and
 /// the output folder never created.

@@ -4,20 +4,11 @@
 //! generated in the test from stated truth (competitive inhibition, Vmax 0.05 uM/s, Km 50 uM,
 //! Ki 5 uM).
 
+mod common;
+use common::{platekin, text};
+
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
-
-fn platekin(args: &[&str], cwd: &Path) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_platekin"))
-        .args(args)
-        .current_dir(cwd)
-        .output()
-        .expect("the platekin binary runs")
-}
-
-fn text(bytes: &[u8]) -> String {
-    String::from_utf8_lossy(bytes).into_owned()
-}
+use std::process::Output;
 
 const VMAX_UM_PER_S: f64 = 0.05;
 const KM_UM: f64 = 50.0;

@@ -2,12 +2,11 @@
 //! run.json (html, the default), adds plot PNGs (full), writes no report (none), and refuses an
 //! unknown choice before writing anything.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+mod common;
+use common::project;
 
-fn project(path: &str) -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join(path)
-}
+use std::path::Path;
+use std::process::{Command, Output};
 
 fn run_demo_plate(extra: &[&str], out: &Path) -> Output {
     let mut args = vec![
