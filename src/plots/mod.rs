@@ -13,6 +13,7 @@
 //! Wong B (2011), Points of view: color blindness, Nature Methods 8:441.
 
 mod groups;
+mod inhibition;
 mod wells;
 
 use std::sync::OnceLock;
@@ -22,6 +23,10 @@ use plotters::prelude::*;
 use plotters::style::FontStyle;
 
 pub use groups::{group_plots, mean_band, GroupPlot, GroupPlotKind, GroupPoint, GroupView};
+pub use inhibition::{
+    inhibition_plots, level_style, model_parameters, InhibitionPlot, InhibitionPlotKind, InhibitionPoint,
+    InhibitionView, MarkerShape, LEVEL_COLOURS, LEVEL_SHAPES,
+};
 pub use wells::{
     flag_code, plate_view, viridis, Overview, OverviewGeometry, PlateView, WellDetail, WellState, WellView,
     ALL_FLAGS,

@@ -8,7 +8,8 @@ use std::fmt::Write as _;
 use crate::layout::Role;
 use crate::output::OutputFile;
 use crate::plots::{
-    group_plots, plate_view, render_png, render_svg, GroupPlotKind, GroupView, PlateView, Plot, WellState,
+    group_plots, inhibition_plots, plate_view, render_png, render_svg, GroupPlotKind, GroupView,
+    InhibitionPlot, InhibitionPlotKind, InhibitionView, PlateView, Plot, WellState,
 };
 use crate::plots::{Drawing, GroupPlot, Overview, OverviewGeometry, WellDetail};
 use crate::run::{significant, RunResults, CAUTION};
@@ -34,6 +35,8 @@ pub struct ReportParts<'a> {
     pub overview: Plot,
     /// The groups and their plots (rate, residuals, double reciprocal).
     pub groups: Vec<(GroupView, Vec<Plot>)>,
+    /// Groups fitted globally over [S] x [I] and their plots (rate at each [I], residuals).
+    pub inhibition: Vec<(InhibitionView, Vec<Plot>)>,
     /// Detail plots of wells, by index into `plate.wells`.
     pub details: Vec<(usize, Plot)>,
 }
@@ -72,6 +75,19 @@ impl<'a> ReportParts<'a> {
                 .collect::<Result<Vec<_>, _>>()?;
             groups.push((view, plots));
         }
+        let mut inhibition = Vec::new();
+        for view in inhibition_plots(results) {
+            let plots = InhibitionPlotKind::ALL
+                .iter()
+                .map(|kind| {
+                    render_svg(&InhibitionPlot {
+                        view: &view,
+                        kind: *kind,
+                    })
+                })
+                .collect::<Result<Vec<_>, _>>()?;
+            inhibition.push((view, plots));
+        }
         let all = plate.plate.n_wells() <= DETAIL_ALL_WELLS_UP_TO;
         let mut details = Vec::new();
         for (index, well) in plate.wells.iter().enumerate() {
@@ -86,6 +102,7 @@ impl<'a> ReportParts<'a> {
             plate,
             overview,
             groups,
+            inhibition,
             details,
         })
     }
@@ -102,6 +119,15 @@ impl<'a> ReportParts<'a> {
         for (view, _) in &self.groups {
             for kind in GroupPlotKind::ALL {
                 let drawing = GroupPlot { view, kind };
+                files.push(OutputFile {
+                    name: format!("plots/{}.png", drawing.name()),
+                    bytes: render_png(&drawing)?,
+                });
+            }
+        }
+        for (view, _) in &self.inhibition {
+            for kind in InhibitionPlotKind::ALL {
+                let drawing = InhibitionPlot { view, kind };
                 files.push(OutputFile {
                     name: format!("plots/{}.png", drawing.name()),
                     bytes: render_png(&drawing)?,
@@ -149,6 +175,7 @@ table{border-collapse:collapse;margin:.6em 0;font-size:.92em}th,td{border:1px so
 th{background:#eef4fa}td.num{text-align:right;font-variant-numeric:tabular-nums}
 .caution{border-left:5px solid #D55E00;background:#fdf1e8;padding:.6em 1em}
 .warn{color:#8a3b00}.scroll{overflow-x:auto;border:1px solid #ddd;padding:4px}
+tr.chosen td{font-weight:bold}p.model code{font-size:.95em}
 .scroll svg{max-width:none}svg{max-width:100%;height:auto}
 figure{display:inline-block;margin:.5em 1em .5em 0;vertical-align:top}figcaption{font-size:.85em;max-width:40em}
 .diagnostic{border:2px dashed #D55E00;padding:.3em}
@@ -470,7 +497,7 @@ fn figure(plot: &Plot, class: &str) -> String {
 
 fn groups_section(parts: &ReportParts) -> String {
     let mut html = heading("fits");
-    html.push_str("<p>Michaelis-Menten fits, v = Vmax [S] / (Km + [S]), by nonlinear least squares on every used replicate well (not the means); standard errors from the Jacobian at the optimum, 95% intervals from the t distribution. The band around the curve is the 95% band of the fitted mean (delta method).</p>\n");
+    html.push_str("<p>Fits of the rate law each group's model choice reports (Michaelis-Menten, v = Vmax [S] / (Km + [S]), unless another model is asked for or the inhibitor is varied), by nonlinear least squares on every used replicate well (not the means); standard errors from the Jacobian at the optimum, 95% intervals from the t distribution. The band around the curve is the 95% band of the fitted mean (delta method).</p>\n");
     for ((view, plots), fit) in parts.groups.iter().zip(&parts.results.fits) {
         let _ = writeln!(
             html,
@@ -483,7 +510,15 @@ fn groups_section(parts: &ReportParts) -> String {
             let _ = writeln!(html, "<p class=\"warn\">{}</p>", escape(error));
         }
         html.push_str("<table>\n<tr><th>parameter</th><th>value</th><th>SE</th><th>95% interval</th><th>unit</th><th>determined</th></tr>\n");
-        for name in ["Vmax", "Km", "kcat", "kcat_over_Km"] {
+        // The usual four first, then every other constant the reported model has (Ki, Ki', h...).
+        let first = ["Vmax", "Km", "kcat", "kcat_over_Km"];
+        let names = first.into_iter().chain(
+            fit.parameters
+                .keys()
+                .map(String::as_str)
+                .filter(|n| !first.contains(n)),
+        );
+        for name in names {
             if let Some(p) = fit.parameters.get(name) {
                 let interval = p.ci95.map_or("-".to_string(), |[lo, hi]| {
                     format!("{} to {}", significant(lo), significant(hi))
@@ -506,6 +541,7 @@ fn groups_section(parts: &ReportParts) -> String {
             optional(fit.residual_sd),
             escape(&parts.results.analysis.rate_unit)
         );
+        html.push_str(&model_choice_html(fit));
         if !fit.warnings.is_empty() {
             html.push_str("<ul class=\"warnings\">\n");
             for warning in &fit.warnings {
@@ -521,9 +557,63 @@ fn groups_section(parts: &ReportParts) -> String {
             };
             html.push_str(&figure(plot, class));
         }
+        if let Some((inhibition, plots)) = parts.inhibition.iter().find(|(v, _)| v.number == view.number) {
+            let _ = writeln!(
+                html,
+                "<p>This group varies the inhibitor ({} levels): one global {} fit over [S] x [I]. Each [I] has its own colour and marker shape; open markers are wells left out. The plain Michaelis-Menten views above pool every level and are for orientation only.</p>",
+                inhibition.levels.len(),
+                escape(inhibition.model.name())
+            );
+            for plot in plots {
+                html.push_str(&figure(plot, "plot inhibition"));
+            }
+        }
         html.push_str("<p>The double-reciprocal view is a diagnostic only: inverting rates distorts their errors, so its straight line is not an estimate (Smith, McCarty and Kitanidis 1998, Appl Environ Microbiol 64:2044).</p>\n</article>\n");
     }
     html.push_str("</section>\n");
+    html
+}
+
+/// The model choice of a group: the equation reported, why it was chosen, and every candidate
+/// with its AICc, difference to the best and Akaike weight.
+fn model_choice_html(fit: &crate::groups::GroupFit) -> String {
+    let mut html = String::new();
+    let _ = write!(
+        html,
+        "<p class=\"model\">Model reported: <strong>{}</strong>",
+        escape(&fit.model)
+    );
+    if let Some(equation) = &fit.equation {
+        let _ = write!(html, ", <code>{}</code>", escape(equation));
+    }
+    html.push('.');
+    if let Some(choice) = &fit.model_choice {
+        let _ = write!(html, " Choice: {}.", escape(choice));
+    }
+    html.push_str("</p>\n");
+    if fit.models_tried.is_empty() {
+        return html;
+    }
+    html.push_str("<table class=\"models\">\n<tr><th>model tried</th><th>parameters</th><th>RSS</th><th>AICc</th><th>delta AICc</th><th>Akaike weight</th><th>converged</th><th>eligible</th><th>note</th></tr>\n");
+    for candidate in &fit.models_tried {
+        let chosen = candidate.model.name() == fit.model;
+        let _ = writeln!(
+            html,
+            "<tr{}><td>{}{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            if chosen { " class=\"chosen\"" } else { "" },
+            escape(candidate.model.name()),
+            if chosen { " (reported)" } else { "" },
+            candidate.n_parameters,
+            optional(candidate.rss),
+            optional(candidate.aicc),
+            optional(candidate.delta_aicc),
+            optional(candidate.akaike_weight),
+            if candidate.converged { "yes" } else { "no" },
+            if candidate.eligible { "yes" } else { "no" },
+            escape(candidate.note.as_deref().unwrap_or(""))
+        );
+    }
+    html.push_str("</table>\n");
     html
 }
 

@@ -330,3 +330,131 @@ fn large_plates_give_a_legible_overview_with_every_well() {
         }
     }
 }
+
+/// Deterministic noise in [-1, 1] (a linear congruential generator, Knuth's MMIX constants).
+fn lcg_noise(seed: u64) -> f64 {
+    let mixed = seed
+        .wrapping_mul(6364136223846793005)
+        .wrapping_add(1442695040888963407);
+    ((mixed >> 11) as f64 / (1u64 << 53) as f64) * 2.0 - 1.0
+}
+
+/// An invented 56-well [S] x [I] plate (as `tests/fit_command.rs` builds one): competitive
+/// inhibition with Vmax 0.05 uM/s, Km 50 uM, Ki 5 uM; rows A-G the substrate levels, columns 1-8
+/// four inhibitor levels in duplicate, H1-H4 blanks; 10 reads 10 s apart.
+pub(crate) fn inhibition_results() -> (RunResults, SettingLayer) {
+    let substrate_um = [10.0, 20.0, 40.0, 80.0, 160.0, 320.0, 640.0];
+    let inhibitor_um = [0.0, 2.5, 5.0, 10.0];
+    // Absorbance per uM of product: 18300 M^-1 cm^-1 x 0.5 cm x 1e-6 M/uM.
+    let au_per_um = 18300.0 * 0.5 * 1e-6;
+    let mut wells = Vec::new();
+    let mut layout = String::from("well,role,substrate [uM],inhibitor [uM],enzyme [nM],variant\n");
+    for (row_index, row) in ['A', 'B', 'C', 'D', 'E', 'F', 'G'].iter().enumerate() {
+        for column in 1..=8 {
+            let substrate = substrate_um[row_index];
+            let inhibitor = inhibitor_um[(column - 1) / 2];
+            let rate = 0.05 * substrate / (50.0 * (1.0 + inhibitor / 5.0) + substrate);
+            wells.push((format!("{row}{column}"), rate));
+            layout.push_str(&format!("{row}{column},sample,{substrate},{inhibitor},10,wt\n"));
+        }
+    }
+    for column in 1..=4 {
+        wells.push((format!("H{column}"), 0.0));
+        layout.push_str(&format!("H{column},blank,,,,\n"));
+    }
+    let mut data = String::from("Time [s],");
+    data.push_str(&wells.iter().map(|(w, _)| w.clone()).collect::<Vec<_>>().join(","));
+    data.push('\n');
+    for read in 0..10u64 {
+        let time = 10.0 * read as f64;
+        data.push_str(&format!("{time}"));
+        for (index, (_, rate)) in wells.iter().enumerate() {
+            let absorbance =
+                0.05 + rate * time * au_per_um + 3.5e-4 * lcg_noise(read * 1000 + index as u64 + 17);
+            data.push_str(&format!(",{absorbance:.6}"));
+        }
+        data.push('\n');
+    }
+    let layer = SettingLayer {
+        extinction: Some(18_300.0),
+        pathlength: Some(0.5),
+        ..SettingLayer::default()
+    };
+    let grid = read_text_cells(data.as_bytes(), "inhibition-plate.csv").unwrap();
+    let imported = import_cells(&grid, &ImportOptions::default()).unwrap();
+    let layout_grid = read_text_cells(layout.as_bytes(), "inhibition-layout.csv").unwrap();
+    let layout = parse_layout(&layout_grid, imported.plate).unwrap();
+    let results = analyse_inputs(imported, layout, &resolve_analysis(&layer).unwrap()).unwrap();
+    (results, layer)
+}
+
+/// An inhibitor plate's report shows, in its one group, the rate against [S] at each of the four
+/// [I] levels with the global fit, the residuals, and the model choice with AICc.
+#[test]
+fn inhibitor_plate_report_has_the_inhibition_plots_and_model_choice() {
+    let (results, layer) = inhibition_results();
+    assert_eq!(results.fits.len(), 1, "one global [S] x [I] group");
+    let fit = &results.fits[0];
+    let records = input_records(&[], &results).unwrap();
+    let parts = ReportParts::build(&results, &layer, &records).unwrap();
+    assert_eq!(parts.inhibition.len(), 1);
+    let (view, plots) = &parts.inhibition[0];
+    assert_eq!(view.levels, vec![0.0, 2.5, 5.0, 10.0]);
+    // The invented truth is competitive inhibition; the curves come from the reported constants.
+    let residuals = view.residuals();
+    assert_eq!(residuals.len(), fit.wells_used.len());
+    let largest_rate = view.points.iter().map(|p| p.rate).fold(0.0, f64::max);
+    for (_, _, residual) in &residuals {
+        assert!(residual.abs() < 0.1 * largest_rate, "residual {residual}");
+    }
+    // The fitted curve falls with [I] at any [S] (every inhibition model does).
+    let at_km: Vec<f64> = (0..4).map(|level| view.fitted(50.0, level).unwrap()).collect();
+    assert!(at_km.windows(2).all(|w| w[1] < w[0]), "{at_km:?}");
+    let rate_plot = &plots[0];
+    for level in 0..4 {
+        assert!(
+            rate_plot.svg.contains(&view.level_text(level)),
+            "legend names {}",
+            view.level_text(level)
+        );
+    }
+    // Four colours: each level's colour appears in the plot.
+    for level in 0..4 {
+        let (colour, _) = crate::plots::level_style(level);
+        let hex = format!("#{:02X}{:02X}{:02X}", colour.0, colour.1, colour.2);
+        assert!(rate_plot.svg.to_uppercase().contains(&hex), "colour {hex}");
+    }
+    let page = report_html(&parts);
+    let fits = section(&page, "fits");
+    assert!(fits.contains("Rate against [S] at each [I]"));
+    assert!(fits.contains("Residuals of the global fit at each [I]"));
+    assert!(fits.contains("<table class=\"models\">"));
+    assert!(fits.contains("AICc"));
+    assert!(fits.contains(fit.equation.as_deref().unwrap()));
+    for candidate in &fit.models_tried {
+        assert!(fits.contains(candidate.model.name()), "{}", candidate.model);
+    }
+    assert!(fits.contains("<td>Ki</td>") || fits.contains("<td>Ki_prime</td>"));
+    // Full mode writes both plots as PNG, and they are not blank.
+    let pngs = parts.png_files().unwrap();
+    for stem in ["group-1-inhibition", "group-1-inhibition-residuals"] {
+        let file = pngs
+            .iter()
+            .find(|f| f.name == format!("plots/{stem}.png"))
+            .unwrap();
+        png_is_not_blank(&file.bytes);
+    }
+}
+
+/// Every level gets a distinct (colour, shape) pair for the first six levels, so no two levels
+/// differ by colour alone or by shape alone (common practice for colour-blind-safe plots).
+#[test]
+fn inhibitor_levels_differ_in_colour_and_shape() {
+    for a in 0..6 {
+        for b in (a + 1)..6 {
+            let (colour_a, shape_a) = crate::plots::level_style(a);
+            let (colour_b, shape_b) = crate::plots::level_style(b);
+            assert!(colour_a != colour_b && shape_a != shape_b, "levels {a} and {b}");
+        }
+    }
+}
