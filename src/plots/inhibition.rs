@@ -286,24 +286,28 @@ pub struct InhibitionPlot<'a> {
     pub kind: InhibitionPlotKind,
 }
 
-/// Draws one marker of `shape` at `at` in data coordinates.
-fn draw_markers<DB: DrawingBackend>(
-    chart: &mut ChartContext<
-        '_,
-        DB,
-        Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
-    >,
+/// The chart type every plot of this module and the progress plots draw on.
+pub(crate) type LinearChart<'a, DB> = ChartContext<
+    'a,
+    DB,
+    Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
+>;
+
+/// Draws markers of `shape` (radius `size` pixels) at `points` in data coordinates; `open` draws
+/// the outline only.
+pub(crate) fn draw_markers<DB: DrawingBackend>(
+    chart: &mut LinearChart<'_, DB>,
     points: &[(f64, f64)],
     shape: MarkerShape,
     colour: RGBColor,
     open: bool,
+    size: i32,
 ) -> Result<(), String> {
     let style = if open {
         colour.stroke_width(2)
     } else {
         colour.filled()
     };
-    let size = 5;
     match shape {
         MarkerShape::Circle => {
             drawn(chart.draw_series(points.iter().map(|p| Circle::new(*p, size, style))))?;
@@ -346,6 +350,65 @@ fn draw_markers<DB: DrawingBackend>(
     }
     Ok(())
 }
+
+/// A legend marker as pixel vertices around (9, 0) (beside the legend's line start) and whether
+/// it is filled: one polygon per shape keeps every legend entry one element type.
+pub(crate) fn legend_shape(shape: MarkerShape) -> (Vec<(i32, i32)>, bool) {
+    let around = |points: &[(f64, f64)]| -> Vec<(i32, i32)> {
+        points
+            .iter()
+            .map(|(x, y)| (9 + x.round() as i32, y.round() as i32))
+            .collect()
+    };
+    let circle: Vec<(f64, f64)> = (0..16)
+        .map(|i| {
+            let angle = std::f64::consts::TAU * f64::from(i) / 16.0;
+            (5.0 * angle.cos(), 5.0 * angle.sin())
+        })
+        .collect();
+    match shape {
+        MarkerShape::Circle => (around(&circle), true),
+        MarkerShape::Ring => (around(&circle), false),
+        MarkerShape::Triangle => (around(&[(0.0, -6.0), (5.5, 4.0), (-5.5, 4.0)]), true),
+        MarkerShape::Square => (
+            around(&[(-4.0, -4.0), (4.0, -4.0), (4.0, 4.0), (-4.0, 4.0)]),
+            true,
+        ),
+        MarkerShape::Diamond => (around(&[(0.0, -6.0), (6.0, 0.0), (0.0, 6.0), (-6.0, 0.0)]), true),
+        MarkerShape::Cross => (
+            around(&[
+                (-5.0, -3.5),
+                (-3.5, -5.0),
+                (0.0, -1.5),
+                (3.5, -5.0),
+                (5.0, -3.5),
+                (1.5, 0.0),
+                (5.0, 3.5),
+                (3.5, 5.0),
+                (0.0, 1.5),
+                (-3.5, 5.0),
+                (-5.0, 3.5),
+                (-1.5, 0.0),
+            ]),
+            true,
+        ),
+    }
+}
+
+/// A legend entry of `shape` in `colour` at (x, y): a short line with the marker on it.
+macro_rules! legend_entry {
+    ($x:expr, $y:expr, $shape:expr, $colour:expr) => {{
+        let (vertices, filled) = $crate::plots::inhibition::legend_shape($shape);
+        let mut outline = vertices.clone();
+        outline.push(vertices[0]);
+        let fill = if filled { $colour.filled() } else { WHITE.filled() };
+        EmptyElement::at(($x, $y))
+            + PathElement::new(vec![(0, 0), (18, 0)], $colour.stroke_width(2))
+            + Polygon::new(vertices, fill)
+            + PathElement::new(outline, $colour.stroke_width(1))
+    }};
+}
+pub(crate) use legend_entry;
 
 impl Drawing for InhibitionPlot<'_> {
     fn name(&self) -> String {
@@ -453,9 +516,9 @@ impl Drawing for InhibitionPlot<'_> {
                             chart.draw_series(LineSeries::new(curve.iter().copied(), colour.stroke_width(2))),
                         )?;
                     }
-                    draw_markers(&mut chart, &used, shape, colour, false)?;
+                    draw_markers(&mut chart, &used, shape, colour, false, 5)?;
                     // Left-out wells: the level's shape drawn open, so they read as not fitted.
-                    draw_markers(&mut chart, &left_out, shape, colour, true)?;
+                    draw_markers(&mut chart, &left_out, shape, colour, true, 5)?;
                 }
                 InhibitionPlotKind::Residuals => {
                     let points: Vec<(f64, f64)> = residuals
@@ -463,28 +526,13 @@ impl Drawing for InhibitionPlot<'_> {
                         .filter(|r| r.1 == level)
                         .map(|r| (r.0, r.2))
                         .collect();
-                    draw_markers(&mut chart, &points, shape, colour, false)?;
+                    draw_markers(&mut chart, &points, shape, colour, false, 5)?;
                 }
             }
             // The legend entry: the level's line and marker (drawn off-chart, legend only).
             drawn(chart.draw_series(std::iter::empty::<Circle<(f64, f64), i32>>()))?
                 .label(label)
-                .legend(move |(x, y)| {
-                    let style = colour.filled();
-                    let marker: DynElement<'static, _, (i32, i32)> = match shape {
-                        MarkerShape::Circle => Circle::new((9, 0), 5, style).into_dyn(),
-                        MarkerShape::Ring => Circle::new((9, 0), 5, colour.stroke_width(2)).into_dyn(),
-                        MarkerShape::Triangle => TriangleMarker::new((9, 0), 6, style).into_dyn(),
-                        MarkerShape::Cross => Cross::new((9, 0), 5, colour.stroke_width(2)).into_dyn(),
-                        MarkerShape::Square => Rectangle::new([(5, -4), (13, 4)], style).into_dyn(),
-                        MarkerShape::Diamond => {
-                            Polygon::new(vec![(9, -6), (15, 0), (9, 6), (3, 0)], style).into_dyn()
-                        }
-                    };
-                    EmptyElement::at((x, y))
-                        + PathElement::new(vec![(0, 0), (18, 0)], colour.stroke_width(2))
-                        + marker
-                });
+                .legend(move |(x, y)| legend_entry!(x, y, shape, colour));
         }
         drawn(
             chart

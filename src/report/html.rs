@@ -11,6 +11,7 @@ use crate::plots::{
     group_plots, inhibition_plots, plate_view, render_png, render_svg, GroupPlotKind, GroupView,
     InhibitionPlot, InhibitionPlotKind, InhibitionView, PlateView, Plot, WellState,
 };
+use crate::plots::{progress_plots, ProgressPlot, ProgressPlotKind, ProgressView};
 use crate::plots::{Drawing, GroupPlot, Overview, OverviewGeometry, WellDetail};
 use crate::run::{significant, RunResults, CAUTION};
 use crate::settings::SettingLayer;
@@ -37,6 +38,8 @@ pub struct ReportParts<'a> {
     pub groups: Vec<(GroupView, Vec<Plot>)>,
     /// Groups fitted globally over [S] x [I] and their plots (rate at each [I], residuals).
     pub inhibition: Vec<(InhibitionView, Vec<Plot>)>,
+    /// Groups with a progress-curve fit and their plots (curves with the fit, residuals).
+    pub progress: Vec<(ProgressView, Vec<Plot>)>,
     /// Detail plots of wells, by index into `plate.wells`.
     pub details: Vec<(usize, Plot)>,
 }
@@ -88,6 +91,19 @@ impl<'a> ReportParts<'a> {
                 .collect::<Result<Vec<_>, _>>()?;
             inhibition.push((view, plots));
         }
+        let mut progress = Vec::new();
+        for view in progress_plots(results) {
+            let plots = ProgressPlotKind::ALL
+                .iter()
+                .map(|kind| {
+                    render_svg(&ProgressPlot {
+                        view: &view,
+                        kind: *kind,
+                    })
+                })
+                .collect::<Result<Vec<_>, _>>()?;
+            progress.push((view, plots));
+        }
         let all = plate.plate.n_wells() <= DETAIL_ALL_WELLS_UP_TO;
         let mut details = Vec::new();
         for (index, well) in plate.wells.iter().enumerate() {
@@ -103,6 +119,7 @@ impl<'a> ReportParts<'a> {
             overview,
             groups,
             inhibition,
+            progress,
             details,
         })
     }
@@ -128,6 +145,15 @@ impl<'a> ReportParts<'a> {
         for (view, _) in &self.inhibition {
             for kind in InhibitionPlotKind::ALL {
                 let drawing = InhibitionPlot { view, kind };
+                files.push(OutputFile {
+                    name: format!("plots/{}.png", drawing.name()),
+                    bytes: render_png(&drawing)?,
+                });
+            }
+        }
+        for (view, _) in &self.progress {
+            for kind in ProgressPlotKind::ALL {
+                let drawing = ProgressPlot { view, kind };
                 files.push(OutputFile {
                     name: format!("plots/{}.png", drawing.name()),
                     bytes: render_png(&drawing)?,
@@ -210,6 +236,7 @@ pub fn report_html(parts: &ReportParts) -> String {
     page.push_str(&flagged_section(parts));
     page.push_str(&conditions_section(parts));
     page.push_str(&groups_section(parts));
+    page.push_str(&progress_section(parts));
     page.push_str(&trust_section(parts));
     page.push_str(&checklist_section(parts));
     page.push_str(&details_section(parts));
@@ -222,13 +249,14 @@ pub fn report_html(parts: &ReportParts) -> String {
 }
 
 /// The section ids and headings, in page order (the golden tests check these).
-pub const SECTIONS: [(&str, &str); 10] = [
+pub const SECTIONS: [(&str, &str); 11] = [
     ("inputs", "Inputs"),
     ("settings", "Settings used"),
     ("overview", "Plate overview"),
     ("flagged", "Flagged wells"),
     ("conditions", "Conditions"),
     ("fits", "Group fits"),
+    ("progress", "Progress-curve fits"),
     ("trust", "Which analysis to trust"),
     ("checklist", "Reporting checklist"),
     ("details", "Well details"),
@@ -614,6 +642,126 @@ fn model_choice_html(fit: &crate::groups::GroupFit) -> String {
         );
     }
     html.push_str("</table>\n");
+    html
+}
+
+/// A progress-curve parameter: value, 95% interval, and Km's profile interval when there is one.
+fn progress_parameter_cells(p: &crate::progress::report::ProgressParameter) -> String {
+    let interval = p.ci95.map_or("-".to_string(), |[lo, hi]| {
+        format!("{} to {}", significant(lo), significant(hi))
+    });
+    let profile = p.ci95_profile.map_or("-".to_string(), |[lo, hi]| {
+        let side = |v: Option<f64>| v.map_or("open".to_string(), significant);
+        format!("{} to {}", side(lo), side(hi))
+    });
+    format!(
+        "<td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{interval}</td><td class=\"num\">{profile}</td><td>{}</td><td>{}</td>",
+        significant(p.value),
+        optional(p.se),
+        escape(&p.unit),
+        if p.determined { "yes" } else { "no" }
+    )
+}
+
+fn progress_section(parts: &ReportParts) -> String {
+    let progress = &parts.results.progress;
+    let mut html = heading("progress");
+    let _ = writeln!(
+        html,
+        "<p>Global fits of the integrated rate law to every read of a group's wells at once (<code>--progress {}</code>): kcat and Km shared, one signal offset per well, in the signal units the fit used (absorbance, blank- and background-corrected). Per well, a runs test on the residual signs looks for systematic misfit (z below -2.576, the 1% level).</p>",
+        escape(&progress.mode)
+    );
+    if progress.groups.is_empty() {
+        html.push_str("<p>No group was analysed by progress curves.</p>\n</section>\n");
+        return html;
+    }
+    for (index, group) in progress.groups.iter().enumerate() {
+        let number = index + 1;
+        let _ = writeln!(
+            html,
+            "<article class=\"group\" id=\"progress-{number}\">\n<h3>Progress curves {number}: {}</h3>\n<p>{}</p>",
+            escape(&crate::groups::group_label(&group.group)),
+            escape(&group.reason)
+        );
+        if let Some(error) = &group.error {
+            let _ = writeln!(html, "<p class=\"warn\">{}</p>", escape(error));
+        }
+        if !group.analysed {
+            html.push_str("</article>\n");
+            continue;
+        }
+        let _ = writeln!(
+            html,
+            "<p class=\"model\">Model chosen: <strong>{}</strong>; {} reads of {} wells; residual SD {} AU; AICc {}; dead time {} s.</p>",
+            escape(group.model.as_deref().unwrap_or("-")),
+            group.n,
+            group.n_wells,
+            optional(group.residual_sd),
+            optional(group.aicc),
+            optional(group.dead_time_s)
+        );
+        html.push_str("<table class=\"progress-parameters\">\n<tr><th>parameter</th><th>value</th><th>SE</th><th>95% interval</th><th>profile 95% interval</th><th>unit</th><th>determined</th></tr>\n");
+        for (name, p) in &group.parameters {
+            let _ = writeln!(
+                html,
+                "<tr><td>{}</td>{}</tr>",
+                escape(&name.replace("_over_", "/")),
+                progress_parameter_cells(p)
+            );
+        }
+        html.push_str("</table>\n");
+        if !group.models_tried.is_empty() {
+            html.push_str("<table class=\"progress-models\">\n<tr><th>model tried</th><th>AICc</th><th>delta AICc</th><th>residual SD [AU]</th><th>F test p</th><th>verdict</th></tr>\n");
+            for tried in &group.models_tried {
+                let _ = writeln!(
+                    html,
+                    "<tr><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
+                    escape(&tried.model),
+                    optional(tried.aicc),
+                    optional(tried.delta_aicc),
+                    optional(tried.residual_sd),
+                    optional(tried.f_test_p),
+                    escape(&tried.verdict)
+                );
+            }
+            html.push_str("</table>\n");
+        }
+        if !group.warnings.is_empty() {
+            html.push_str("<ul class=\"warnings\">\n");
+            for warning in &group.warnings {
+                let _ = writeln!(html, "<li class=\"warn\">{}</li>", escape(warning));
+            }
+            html.push_str("</ul>\n");
+        }
+        if !group.curves.is_empty() {
+            html.push_str("<table class=\"runs\">\n<tr><th>well</th><th>S0</th><th>reads</th><th>runs</th><th>runs z</th><th>systematic misfit</th></tr>\n");
+            for curve in &group.curves {
+                let _ = writeln!(
+                    html,
+                    "<tr><td><a href=\"#well-{w}\">{w}</a></td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
+                    optional(curve.s0),
+                    curve.observed.len(),
+                    curve.runs.0,
+                    optional(curve.runs.1),
+                    if curve.systematic_misfit { "yes" } else { "no" },
+                    w = escape(&curve.well)
+                );
+            }
+            html.push_str("</table>\n");
+        }
+        if let Some((_, plots)) = parts.progress.iter().find(|(v, _)| v.number == number) {
+            for plot in plots {
+                html.push_str(&figure(plot, "plot progress"));
+            }
+        }
+        let _ = writeln!(
+            html,
+            "<p>Which analysis to trust: <strong>{}</strong>. {}</p>\n</article>",
+            escape(&group.trust),
+            escape(&group.trust_reason)
+        );
+    }
+    html.push_str("</section>\n");
     html
 }
 

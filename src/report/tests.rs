@@ -6,6 +6,7 @@ use super::*;
 use crate::import::{import_cells, ImportOptions};
 use crate::layout::parse_layout;
 use crate::plate::PlateFormat;
+use crate::plots::ProgressView;
 use crate::run::analyse_inputs;
 use crate::settings::resolve_analysis;
 use crate::sheet_reader::read_text_cells;
@@ -18,6 +19,11 @@ pub(crate) fn demo_layer() -> SettingLayer {
 
 /// The demo plate, analysed.
 pub(crate) fn demo_results() -> RunResults {
+    demo_results_with(&demo_layer())
+}
+
+/// The demo plate, analysed with `layer`'s settings.
+pub(crate) fn demo_results_with(layer: &SettingLayer) -> RunResults {
     let grid = read_text_cells(
         crate::demo::DEMO_DATA.as_bytes(),
         "amber-fen-wide.csv (embedded demo)",
@@ -26,7 +32,7 @@ pub(crate) fn demo_results() -> RunResults {
     let data = import_cells(&grid, &ImportOptions::default()).unwrap();
     let layout_grid = read_text_cells(crate::demo::DEMO_LAYOUT.as_bytes(), "amber-fen-layout.csv").unwrap();
     let layout = parse_layout(&layout_grid, data.plate).unwrap();
-    analyse_inputs(data, layout, &resolve_analysis(&demo_layer()).unwrap()).unwrap()
+    analyse_inputs(data, layout, &resolve_analysis(layer).unwrap()).unwrap()
 }
 
 fn large_results(format: PlateFormat) -> (RunResults, SettingLayer) {
@@ -106,6 +112,28 @@ fn structure(page: &str) -> String {
         "group figures {}",
         section(page, "fits").matches("<figure").count()
     ));
+    for table in all_between(section(page, "fits"), "<table class=\"models\">", "</table>") {
+        lines.push(format!("models tried rows {}", table_rows(table)));
+    }
+    let progress = section(page, "progress");
+    for article in all_between(progress, "<article class=\"group\" id=\"progress-", "</article>") {
+        let number = article.split('"').next().unwrap_or("");
+        let tables: Vec<String> = ["progress-parameters", "progress-models", "runs"]
+            .iter()
+            .map(|class| {
+                let rows: usize = all_between(article, &format!("<table class=\"{class}\">"), "</table>")
+                    .iter()
+                    .map(|t| table_rows(t))
+                    .sum();
+                format!("{class} {rows}")
+            })
+            .collect();
+        lines.push(format!(
+            "progress {number}: {} figures {}",
+            tables.join(", "),
+            article.matches("<figure").count()
+        ));
+    }
     lines.join("\n") + "\n"
 }
 
@@ -128,6 +156,30 @@ fn demo_report_structure_matches_the_golden_file() {
         std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("fixtures/golden/demo-report-structure.txt");
     if std::env::var_os("PLATEKIN_UPDATE_GOLDEN").is_some() {
         std::fs::create_dir_all(path.parent().unwrap()).unwrap();
+        std::fs::write(&path, &actual).unwrap();
+    }
+    let expected = std::fs::read_to_string(&path).unwrap();
+    assert_eq!(
+        actual, expected,
+        "report structure changed; see the test's doc comment"
+    );
+}
+
+/// Golden file: `fixtures/golden/demo-progress-report-structure.txt`, the demo with `--progress
+/// always` (the progress-curve articles, their tables and plots). Rewrite it as the test above.
+#[test]
+fn demo_progress_report_structure_matches_the_golden_file() {
+    let layer = SettingLayer {
+        progress: Some("always".into()),
+        ..demo_layer()
+    };
+    let results = demo_results_with(&layer);
+    let records = input_records(&[], &results).unwrap();
+    let parts = ReportParts::build(&results, &layer, &records).unwrap();
+    let actual = structure(&report_html(&parts));
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("fixtures/golden/demo-progress-report-structure.txt");
+    if std::env::var_os("PLATEKIN_UPDATE_GOLDEN").is_some() {
         std::fs::write(&path, &actual).unwrap();
     }
     let expected = std::fs::read_to_string(&path).unwrap();
@@ -456,5 +508,110 @@ fn inhibitor_levels_differ_in_colour_and_shape() {
             let (colour_b, shape_b) = crate::plots::level_style(b);
             assert!(colour_a != colour_b && shape_a != shape_b, "levels {a} and {b}");
         }
+    }
+}
+
+/// The demo with `--progress always`: every group gets a progress-curve article with its
+/// parameters, models tried, a runs-test row per fitted well, the two plots (whose fitted curves
+/// follow the reads), and the trust table takes the progress analysis's own verdict.
+#[test]
+fn demo_report_with_progress_always_has_the_progress_section_and_plots() {
+    let layer = SettingLayer {
+        progress: Some("always".into()),
+        report: Some("full".into()),
+        ..demo_layer()
+    };
+    let results = demo_results_with(&layer);
+    let analysed: Vec<_> = results.progress.groups.iter().filter(|g| g.analysed).collect();
+    assert!(
+        !analysed.is_empty(),
+        "the demo's groups get progress fits with --progress always"
+    );
+    let records = input_records(&[], &results).unwrap();
+    let parts = ReportParts::build(&results, &layer, &records).unwrap();
+    assert_eq!(parts.progress.len(), analysed.len());
+    for (view, plots) in &parts.progress {
+        assert_eq!(plots.len(), 2);
+        assert!(plots[0].svg.contains("S0 = "), "the legend names the S0 levels");
+        // The fitted curve follows the reads: residuals are small beside the signal's span.
+        let signal: Vec<f64> = view
+            .curves
+            .iter()
+            .flat_map(|c| c.observed.iter().copied())
+            .collect();
+        let span = signal.iter().copied().fold(f64::NEG_INFINITY, f64::max)
+            - signal.iter().copied().fold(f64::INFINITY, f64::min);
+        for curve in &view.curves {
+            assert_eq!(curve.times_s.len(), curve.fitted.len());
+            let worst = ProgressView::residuals(curve)
+                .iter()
+                .map(|r| r.1.abs())
+                .fold(0.0, f64::max);
+            assert!(
+                worst < 0.1 * span,
+                "well {}: residual {worst} of span {span}",
+                curve.well
+            );
+        }
+    }
+    let page = report_html(&parts);
+    let progress = section(&page, "progress");
+    assert_eq!(
+        progress
+            .matches("<article class=\"group\" id=\"progress-")
+            .count(),
+        results.progress.groups.len()
+    );
+    assert_eq!(progress.matches("<figure").count(), 2 * analysed.len());
+    for group in &analysed {
+        assert!(group.parameters.contains_key("Km"));
+        for tried in &group.models_tried {
+            assert!(
+                progress.contains(&super::html::escape(&tried.verdict)),
+                "{}",
+                tried.model
+            );
+        }
+        for curve in &group.curves {
+            assert!(progress.contains(&format!("<a href=\"#well-{}\">", curve.well)));
+        }
+        assert!(progress.contains(&super::html::escape(&group.trust_reason)));
+    }
+    assert!(progress.contains("profile 95% interval"));
+    // The trust table takes the progress analysis's verdict.
+    let trust = section(&page, "trust");
+    for group in &analysed {
+        assert!(
+            trust.contains(trust_analysis_words(&group.trust)),
+            "{}",
+            group.trust
+        );
+        assert!(trust.contains(&super::html::escape(&group.trust_reason)));
+    }
+    assert!(!trust.contains("the only analysis this run made"));
+    // Full mode writes the progress plots as PNG; they decode and are not blank.
+    let pngs = parts.png_files().unwrap();
+    for (view, _) in &parts.progress {
+        for stem in ["curves", "residuals"] {
+            let name = format!("plots/progress-{}-{stem}.png", view.number);
+            let file = pngs.iter().find(|f| f.name == name).unwrap();
+            let (width, height) = png_is_not_blank(&file.bytes);
+            assert!(width >= 600 && height >= 300, "{name}");
+        }
+    }
+}
+
+/// Without a progress fit the trust table keeps the initial-rate verdict and says why.
+#[test]
+fn trust_without_progress_fit_is_initial_rates() {
+    let layer = SettingLayer {
+        progress: Some("never".into()),
+        ..demo_layer()
+    };
+    let results = demo_results_with(&layer);
+    assert!(results.progress.groups.iter().all(|g| !g.analysed));
+    for verdict in trust_verdicts(&results) {
+        assert_eq!(verdict.analysis, "initial rates");
+        assert!(verdict.reasons[0].contains("only analysis"));
     }
 }
