@@ -141,11 +141,8 @@ impl InhibitionView {
 
     /// The legend text of a level.
     pub fn level_text(&self, level: usize) -> String {
-        format!(
-            "[I] = {} {}",
-            significant(self.levels[level]),
-            self.inhibitor_unit
-        )
+        // The level as the layout gave it (shortest form: 2.5, not 2.500).
+        format!("[I] = {} {}", self.levels[level], self.inhibitor_unit)
     }
 }
 

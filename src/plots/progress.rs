@@ -227,7 +227,7 @@ impl Drawing for ProgressPlot<'_> {
         for (level, s0) in view.levels.iter().enumerate() {
             let (colour, shape) = level_style(level);
             drawn(chart.draw_series(std::iter::empty::<Circle<(f64, f64), i32>>()))?
-                .label(format!("S0 = {} {}", significant(*s0), view.substrate_unit))
+                .label(format!("S0 = {s0} {}", view.substrate_unit))
                 .legend(move |(x, y)| legend_entry!(x, y, shape, colour));
         }
         drawn(
