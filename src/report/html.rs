@@ -198,7 +198,7 @@ const STYLE: &str = "
 body{font-family:'DejaVu Sans',Verdana,Arial,sans-serif;margin:1.5em auto;max-width:72em;padding:0 1em;color:#111;line-height:1.4}
 h1{font-size:1.6em;margin-bottom:.2em}h2{border-bottom:2px solid #0072B2;padding-bottom:.15em;margin-top:2em}
 table{border-collapse:collapse;margin:.6em 0;font-size:.92em}th,td{border:1px solid #bbb;padding:.2em .5em;text-align:left;vertical-align:top}
-th{background:#eef4fa}td.num{text-align:right;font-variant-numeric:tabular-nums}
+th{background:#eef4fa}td.num{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}
 .caution{border-left:5px solid #D55E00;background:#fdf1e8;padding:.6em 1em}
 .warn{color:#8a3b00}.scroll{overflow-x:auto;border:1px solid #ddd;padding:4px}
 tr.chosen td{font-weight:bold}p.model code{font-size:.95em}
