@@ -327,3 +327,26 @@ fn model_settings_come_from_the_assay_file_and_are_written_back() {
     assert!(written.contains("model = \"competitive\""), "{written}");
     assert!(written.contains("weighting = \"relative\""), "{written}");
 }
+
+/// The inhibitor plate's report shows the rate against [S] at each [I] with the global fit and the
+/// models tried; `--report full` writes that plot as a PNG that is not blank.
+#[test]
+fn inhibitor_plate_report_shows_the_rate_at_each_inhibitor_level() {
+    let scratch = tempfile::tempdir().unwrap();
+    let (output, out) = run_plate(scratch.path(), &["--report", "full"]);
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    let page = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(page.contains("Rate against [S] at each [I]"));
+    assert!(page.contains("<table class=\"models\">"));
+    for level in ["[I] = 0 uM", "[I] = 2.5 uM", "[I] = 5 uM", "[I] = 10 uM"] {
+        assert!(page.contains(level), "{level}");
+    }
+    let bytes = std::fs::read(out.join("plots/group-1-inhibition.png")).unwrap();
+    let mut reader = png::Decoder::new(&bytes[..]).read_info().unwrap();
+    let mut pixels = vec![0; reader.output_buffer_size()];
+    let info = reader.next_frame(&mut pixels).unwrap();
+    let pixels = &pixels[..info.buffer_size()];
+    let first = &pixels[..3];
+    assert!(pixels.chunks(3).filter(|p| *p != first).count() * 100 > pixels.len() / 3);
+    assert!(out.join("plots/group-1-inhibition-residuals.png").exists());
+}

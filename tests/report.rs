@@ -115,3 +115,67 @@ fn unknown_report_choice_is_refused_and_nothing_is_written() {
     );
     assert!(!out.exists());
 }
+
+/// Decodes a PNG and checks it is not blank: more than 1% of pixels differ from the first, and
+/// lines or text are drawn (common practice for a smoke test of a rendered plot).
+fn assert_png_not_blank(path: &Path) {
+    let bytes = std::fs::read(path).unwrap();
+    let mut reader = png::Decoder::new(&bytes[..]).read_info().unwrap();
+    let mut pixels = vec![0; reader.output_buffer_size()];
+    let info = reader.next_frame(&mut pixels).unwrap();
+    let pixels = &pixels[..info.buffer_size()];
+    let channels = info.color_type.samples();
+    let first = &pixels[..channels];
+    let differing = pixels.chunks(channels).filter(|p| *p != first).count();
+    assert!(
+        differing * 100 > pixels.len() / channels,
+        "{}: {differing} pixels differ",
+        path.display()
+    );
+    let dark = pixels
+        .chunks(channels)
+        .filter(|p| p.iter().take(3).all(|c| *c < 80))
+        .count();
+    assert!(dark > 100, "{}: {dark} dark pixels", path.display());
+}
+
+/// The demo with `--progress always --report full`: the page has the progress-curve section with
+/// its plots, and every progress PNG decodes and is not blank.
+#[test]
+fn progress_always_report_has_the_progress_section_and_plots() {
+    let scratch = tempfile::tempdir().unwrap();
+    let out = scratch.path().join("progress");
+    let output = run_demo_plate(&["--progress", "always", "--report", "full"], &out);
+    assert!(
+        output.status.success(),
+        "{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+    let page = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(page.contains("<section id=\"progress\">"));
+    assert!(page.contains("Progress curves with the global"));
+    assert!(page.contains("Progress-curve residuals against time"));
+    let progress: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("progress.json")).unwrap()).unwrap();
+    let groups = progress["groups"].as_array().unwrap();
+    let mut analysed = 0;
+    for (index, group) in groups.iter().enumerate() {
+        if group["analysed"] == true {
+            analysed += 1;
+            for stem in ["curves", "residuals"] {
+                assert_png_not_blank(&out.join(format!("plots/progress-{}-{stem}.png", index + 1)));
+            }
+        }
+    }
+    assert!(analysed > 0);
+    // The plot data stay out of progress.json.
+    assert!(groups.iter().all(|g| g.get("curves").is_none()));
+    for name in [
+        "overview",
+        "group-1-rate",
+        "group-1-residuals",
+        "group-2-double-reciprocal",
+    ] {
+        assert_png_not_blank(&out.join(format!("plots/{name}.png")));
+    }
+}

@@ -1,7 +1,8 @@
 //! Plots of a run, drawn with plotters into SVG strings in memory (and PNG bytes on request): the
 //! plate overview (miniatures, or a rate heat map for 1536 wells), one larger plot per well, and
 //! per group the rate against [S] with its fitted curve and 95% band, the residuals, and the
-//! double-reciprocal diagnostic.
+//! double-reciprocal diagnostic; per inhibitor group the rate at each [I] with the global fit, and
+//! per progress-curve group the observed curves with the fitted ones, each with its residuals.
 //!
 //! Text needs no system library: the DejaVu Sans font compiled in by the `dejavu` crate is
 //! registered once with plotters' ab_glyph text renderer ([`register_fonts`]).
@@ -13,6 +14,8 @@
 //! Wong B (2011), Points of view: color blindness, Nature Methods 8:441.
 
 mod groups;
+mod inhibition;
+mod progress;
 mod wells;
 
 use std::sync::OnceLock;
@@ -22,6 +25,11 @@ use plotters::prelude::*;
 use plotters::style::FontStyle;
 
 pub use groups::{group_plots, mean_band, GroupPlot, GroupPlotKind, GroupPoint, GroupView};
+pub use inhibition::{
+    inhibition_plots, level_style, model_parameters, InhibitionPlot, InhibitionPlotKind, InhibitionPoint,
+    InhibitionView, MarkerShape, LEVEL_COLOURS, LEVEL_SHAPES,
+};
+pub use progress::{progress_plots, ProgressPlot, ProgressPlotKind, ProgressView};
 pub use wells::{
     flag_code, plate_view, viridis, Overview, OverviewGeometry, PlateView, WellDetail, WellState, WellView,
     ALL_FLAGS,

@@ -173,6 +173,15 @@ pub struct WellDiagnostics {
     pub signal_offset: f64,
     /// Residual SD, AU.
     pub residual_sd: f64,
+    /// Read times of the fitted reads, s (for plots; not in `progress.json`).
+    #[serde(skip)]
+    pub times_s: Vec<f64>,
+    /// The fitted reads' signal, AU.
+    #[serde(skip)]
+    pub observed: Vec<f64>,
+    /// The fitted signal at those reads (offset included), AU.
+    #[serde(skip)]
+    pub fitted: Vec<f64>,
     /// Runs of residual signs.
     pub runs: usize,
     /// Runs-test z (negative: fewer runs than chance, a systematic misfit).
@@ -776,6 +785,11 @@ fn well_diagnostics(
                 .map_or(f64::NAN, |(s, _)| *s);
             WellDiagnostics {
                 well: well.label.clone(),
+                times_s: well.times_s.clone(),
+                observed: well.signal.clone(),
+                // The residuals are fitted minus observed (offset removed by the mean), so
+                // fitted = observed + residual.
+                fitted: well.signal.iter().zip(r).map(|(y, r)| y + r).collect(),
                 n,
                 signal_offset: offsets[index],
                 residual_sd,

@@ -135,6 +135,29 @@ pub struct ProgressGroupReport {
     pub warnings: Vec<String>,
     /// Why no fit could be made, if none was.
     pub error: Option<String>,
+    /// Each fitted well's reads and fitted curve, for the report's plots (not in `progress.json`).
+    #[serde(skip)]
+    pub curves: Vec<ProgressCurve>,
+}
+
+/// One well's observed and fitted progress curve, in the signal units the fit used (AU, blank- and
+/// background-corrected).
+#[derive(Debug, Clone, PartialEq)]
+pub struct ProgressCurve {
+    /// The well.
+    pub well: String,
+    /// S0 from the layout.
+    pub s0: Option<f64>,
+    /// Read times, s.
+    pub times_s: Vec<f64>,
+    /// Observed signal, AU.
+    pub observed: Vec<f64>,
+    /// Fitted signal, AU.
+    pub fitted: Vec<f64>,
+    /// Runs test on the residual signs: runs and z.
+    pub runs: (usize, Option<f64>),
+    /// Whether the runs test finds systematic misfit.
+    pub systematic_misfit: bool,
 }
 
 /// The progress-curve analysis of a plate.
@@ -253,6 +276,7 @@ fn empty_report(
         trust_reason: String::new(),
         warnings: Vec::new(),
         error: None,
+        curves: Vec::new(),
     }
 }
 
@@ -752,6 +776,15 @@ fn fill_from_fit(
         if diagnostics.systematic_misfit {
             misfits.push(diagnostics.well.clone());
         }
+        report.curves.push(ProgressCurve {
+            well: diagnostics.well.clone(),
+            s0: well.and_then(|w| w.setup.substrate),
+            times_s: diagnostics.times_s.clone(),
+            observed: diagnostics.observed.clone(),
+            fitted: diagnostics.fitted.clone(),
+            runs: (diagnostics.runs, diagnostics.runs_z),
+            systematic_misfit: diagnostics.systematic_misfit,
+        });
         report.wells.push(json!({
             "well": diagnostics.well,
             "S0": well.and_then(|w| w.setup.substrate),

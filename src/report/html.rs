@@ -8,8 +8,10 @@ use std::fmt::Write as _;
 use crate::layout::Role;
 use crate::output::OutputFile;
 use crate::plots::{
-    group_plots, plate_view, render_png, render_svg, GroupPlotKind, GroupView, PlateView, Plot, WellState,
+    group_plots, inhibition_plots, plate_view, render_png, render_svg, GroupPlotKind, GroupView,
+    InhibitionPlot, InhibitionPlotKind, InhibitionView, PlateView, Plot, WellState,
 };
+use crate::plots::{progress_plots, ProgressPlot, ProgressPlotKind, ProgressView};
 use crate::plots::{Drawing, GroupPlot, Overview, OverviewGeometry, WellDetail};
 use crate::run::{significant, RunResults, CAUTION};
 use crate::settings::SettingLayer;
@@ -34,6 +36,10 @@ pub struct ReportParts<'a> {
     pub overview: Plot,
     /// The groups and their plots (rate, residuals, double reciprocal).
     pub groups: Vec<(GroupView, Vec<Plot>)>,
+    /// Groups fitted globally over [S] x [I] and their plots (rate at each [I], residuals).
+    pub inhibition: Vec<(InhibitionView, Vec<Plot>)>,
+    /// Groups with a progress-curve fit and their plots (curves with the fit, residuals).
+    pub progress: Vec<(ProgressView, Vec<Plot>)>,
     /// Detail plots of wells, by index into `plate.wells`.
     pub details: Vec<(usize, Plot)>,
 }
@@ -72,6 +78,32 @@ impl<'a> ReportParts<'a> {
                 .collect::<Result<Vec<_>, _>>()?;
             groups.push((view, plots));
         }
+        let mut inhibition = Vec::new();
+        for view in inhibition_plots(results) {
+            let plots = InhibitionPlotKind::ALL
+                .iter()
+                .map(|kind| {
+                    render_svg(&InhibitionPlot {
+                        view: &view,
+                        kind: *kind,
+                    })
+                })
+                .collect::<Result<Vec<_>, _>>()?;
+            inhibition.push((view, plots));
+        }
+        let mut progress = Vec::new();
+        for view in progress_plots(results) {
+            let plots = ProgressPlotKind::ALL
+                .iter()
+                .map(|kind| {
+                    render_svg(&ProgressPlot {
+                        view: &view,
+                        kind: *kind,
+                    })
+                })
+                .collect::<Result<Vec<_>, _>>()?;
+            progress.push((view, plots));
+        }
         let all = plate.plate.n_wells() <= DETAIL_ALL_WELLS_UP_TO;
         let mut details = Vec::new();
         for (index, well) in plate.wells.iter().enumerate() {
@@ -86,6 +118,8 @@ impl<'a> ReportParts<'a> {
             plate,
             overview,
             groups,
+            inhibition,
+            progress,
             details,
         })
     }
@@ -102,6 +136,24 @@ impl<'a> ReportParts<'a> {
         for (view, _) in &self.groups {
             for kind in GroupPlotKind::ALL {
                 let drawing = GroupPlot { view, kind };
+                files.push(OutputFile {
+                    name: format!("plots/{}.png", drawing.name()),
+                    bytes: render_png(&drawing)?,
+                });
+            }
+        }
+        for (view, _) in &self.inhibition {
+            for kind in InhibitionPlotKind::ALL {
+                let drawing = InhibitionPlot { view, kind };
+                files.push(OutputFile {
+                    name: format!("plots/{}.png", drawing.name()),
+                    bytes: render_png(&drawing)?,
+                });
+            }
+        }
+        for (view, _) in &self.progress {
+            for kind in ProgressPlotKind::ALL {
+                let drawing = ProgressPlot { view, kind };
                 files.push(OutputFile {
                     name: format!("plots/{}.png", drawing.name()),
                     bytes: render_png(&drawing)?,
@@ -146,9 +198,10 @@ const STYLE: &str = "
 body{font-family:'DejaVu Sans',Verdana,Arial,sans-serif;margin:1.5em auto;max-width:72em;padding:0 1em;color:#111;line-height:1.4}
 h1{font-size:1.6em;margin-bottom:.2em}h2{border-bottom:2px solid #0072B2;padding-bottom:.15em;margin-top:2em}
 table{border-collapse:collapse;margin:.6em 0;font-size:.92em}th,td{border:1px solid #bbb;padding:.2em .5em;text-align:left;vertical-align:top}
-th{background:#eef4fa}td.num{text-align:right;font-variant-numeric:tabular-nums}
+th{background:#eef4fa}td.num{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}
 .caution{border-left:5px solid #D55E00;background:#fdf1e8;padding:.6em 1em}
 .warn{color:#8a3b00}.scroll{overflow-x:auto;border:1px solid #ddd;padding:4px}
+tr.chosen td{font-weight:bold}p.model code{font-size:.95em}
 .scroll svg{max-width:none}svg{max-width:100%;height:auto}
 figure{display:inline-block;margin:.5em 1em .5em 0;vertical-align:top}figcaption{font-size:.85em;max-width:40em}
 .diagnostic{border:2px dashed #D55E00;padding:.3em}
@@ -183,6 +236,7 @@ pub fn report_html(parts: &ReportParts) -> String {
     page.push_str(&flagged_section(parts));
     page.push_str(&conditions_section(parts));
     page.push_str(&groups_section(parts));
+    page.push_str(&progress_section(parts));
     page.push_str(&trust_section(parts));
     page.push_str(&checklist_section(parts));
     page.push_str(&details_section(parts));
@@ -195,13 +249,14 @@ pub fn report_html(parts: &ReportParts) -> String {
 }
 
 /// The section ids and headings, in page order (the golden tests check these).
-pub const SECTIONS: [(&str, &str); 10] = [
+pub const SECTIONS: [(&str, &str); 11] = [
     ("inputs", "Inputs"),
     ("settings", "Settings used"),
     ("overview", "Plate overview"),
     ("flagged", "Flagged wells"),
     ("conditions", "Conditions"),
     ("fits", "Group fits"),
+    ("progress", "Progress-curve fits"),
     ("trust", "Which analysis to trust"),
     ("checklist", "Reporting checklist"),
     ("details", "Well details"),
@@ -470,7 +525,7 @@ fn figure(plot: &Plot, class: &str) -> String {
 
 fn groups_section(parts: &ReportParts) -> String {
     let mut html = heading("fits");
-    html.push_str("<p>Michaelis-Menten fits, v = Vmax [S] / (Km + [S]), by nonlinear least squares on every used replicate well (not the means); standard errors from the Jacobian at the optimum, 95% intervals from the t distribution. The band around the curve is the 95% band of the fitted mean (delta method).</p>\n");
+    html.push_str("<p>Fits of the rate law each group's model choice reports (Michaelis-Menten, v = Vmax [S] / (Km + [S]), unless another model is asked for or the inhibitor is varied), by nonlinear least squares on every used replicate well (not the means); standard errors from the Jacobian at the optimum, 95% intervals from the t distribution. The band around the curve is the 95% band of the fitted mean (delta method).</p>\n");
     for ((view, plots), fit) in parts.groups.iter().zip(&parts.results.fits) {
         let _ = writeln!(
             html,
@@ -483,7 +538,15 @@ fn groups_section(parts: &ReportParts) -> String {
             let _ = writeln!(html, "<p class=\"warn\">{}</p>", escape(error));
         }
         html.push_str("<table>\n<tr><th>parameter</th><th>value</th><th>SE</th><th>95% interval</th><th>unit</th><th>determined</th></tr>\n");
-        for name in ["Vmax", "Km", "kcat", "kcat_over_Km"] {
+        // The usual four first, then every other constant the reported model has (Ki, Ki', h...).
+        let first = ["Vmax", "Km", "kcat", "kcat_over_Km"];
+        let names = first.into_iter().chain(
+            fit.parameters
+                .keys()
+                .map(String::as_str)
+                .filter(|n| !first.contains(n)),
+        );
+        for name in names {
             if let Some(p) = fit.parameters.get(name) {
                 let interval = p.ci95.map_or("-".to_string(), |[lo, hi]| {
                     format!("{} to {}", significant(lo), significant(hi))
@@ -506,6 +569,7 @@ fn groups_section(parts: &ReportParts) -> String {
             optional(fit.residual_sd),
             escape(&parts.results.analysis.rate_unit)
         );
+        html.push_str(&model_choice_html(fit));
         if !fit.warnings.is_empty() {
             html.push_str("<ul class=\"warnings\">\n");
             for warning in &fit.warnings {
@@ -521,7 +585,181 @@ fn groups_section(parts: &ReportParts) -> String {
             };
             html.push_str(&figure(plot, class));
         }
+        if let Some((inhibition, plots)) = parts.inhibition.iter().find(|(v, _)| v.number == view.number) {
+            let _ = writeln!(
+                html,
+                "<p>This group varies the inhibitor ({} levels): one global {} fit over [S] x [I]. Each [I] has its own colour and marker shape; open markers are wells left out. The plain Michaelis-Menten views above pool every level and are for orientation only.</p>",
+                inhibition.levels.len(),
+                escape(inhibition.model.name())
+            );
+            for plot in plots {
+                html.push_str(&figure(plot, "plot inhibition"));
+            }
+        }
         html.push_str("<p>The double-reciprocal view is a diagnostic only: inverting rates distorts their errors, so its straight line is not an estimate (Smith, McCarty and Kitanidis 1998, Appl Environ Microbiol 64:2044).</p>\n</article>\n");
+    }
+    html.push_str("</section>\n");
+    html
+}
+
+/// The model choice of a group: the equation reported, why it was chosen, and every candidate
+/// with its AICc, difference to the best and Akaike weight.
+fn model_choice_html(fit: &crate::groups::GroupFit) -> String {
+    let mut html = String::new();
+    let _ = write!(
+        html,
+        "<p class=\"model\">Model reported: <strong>{}</strong>",
+        escape(&fit.model)
+    );
+    if let Some(equation) = &fit.equation {
+        let _ = write!(html, ", <code>{}</code>", escape(equation));
+    }
+    html.push('.');
+    if let Some(choice) = &fit.model_choice {
+        let _ = write!(html, " Choice: {}.", escape(choice));
+    }
+    html.push_str("</p>\n");
+    if fit.models_tried.is_empty() {
+        return html;
+    }
+    html.push_str("<table class=\"models\">\n<tr><th>model tried</th><th>parameters</th><th>RSS</th><th>AICc</th><th>delta AICc</th><th>Akaike weight</th><th>converged</th><th>eligible</th><th>note</th></tr>\n");
+    for candidate in &fit.models_tried {
+        let chosen = candidate.model.name() == fit.model;
+        let _ = writeln!(
+            html,
+            "<tr{}><td>{}{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            if chosen { " class=\"chosen\"" } else { "" },
+            escape(candidate.model.name()),
+            if chosen { " (reported)" } else { "" },
+            candidate.n_parameters,
+            optional(candidate.rss),
+            optional(candidate.aicc),
+            optional(candidate.delta_aicc),
+            optional(candidate.akaike_weight),
+            if candidate.converged { "yes" } else { "no" },
+            if candidate.eligible { "yes" } else { "no" },
+            escape(candidate.note.as_deref().unwrap_or(""))
+        );
+    }
+    html.push_str("</table>\n");
+    html
+}
+
+/// A progress-curve parameter: value, 95% interval, and Km's profile interval when there is one.
+fn progress_parameter_cells(p: &crate::progress::report::ProgressParameter) -> String {
+    let interval = p.ci95.map_or("-".to_string(), |[lo, hi]| {
+        format!("{} to {}", significant(lo), significant(hi))
+    });
+    let profile = p.ci95_profile.map_or("-".to_string(), |[lo, hi]| {
+        let side = |v: Option<f64>| v.map_or("open".to_string(), significant);
+        format!("{} to {}", side(lo), side(hi))
+    });
+    format!(
+        "<td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{interval}</td><td class=\"num\">{profile}</td><td>{}</td><td>{}</td>",
+        significant(p.value),
+        optional(p.se),
+        escape(&p.unit),
+        if p.determined { "yes" } else { "no" }
+    )
+}
+
+fn progress_section(parts: &ReportParts) -> String {
+    let progress = &parts.results.progress;
+    let mut html = heading("progress");
+    let _ = writeln!(
+        html,
+        "<p>Global fits of the integrated rate law to every read of a group's wells at once (<code>--progress {}</code>): kcat and Km shared, one signal offset per well, in the signal units the fit used (absorbance, blank- and background-corrected). Per well, a runs test on the residual signs looks for systematic misfit (z below -2.576, the 1% level).</p>",
+        escape(&progress.mode)
+    );
+    if progress.groups.is_empty() {
+        html.push_str("<p>No group was analysed by progress curves.</p>\n</section>\n");
+        return html;
+    }
+    for (index, group) in progress.groups.iter().enumerate() {
+        let number = index + 1;
+        let _ = writeln!(
+            html,
+            "<article class=\"group\" id=\"progress-{number}\">\n<h3>Progress curves {number}: {}</h3>\n<p>{}</p>",
+            escape(&crate::groups::group_label(&group.group)),
+            escape(&group.reason)
+        );
+        if let Some(error) = &group.error {
+            let _ = writeln!(html, "<p class=\"warn\">{}</p>", escape(error));
+        }
+        if !group.analysed {
+            html.push_str("</article>\n");
+            continue;
+        }
+        let _ = writeln!(
+            html,
+            "<p class=\"model\">Model chosen: <strong>{}</strong>; {} reads of {} wells; residual SD {} AU; AICc {}; dead time {} s.</p>",
+            escape(group.model.as_deref().unwrap_or("-")),
+            group.n,
+            group.n_wells,
+            optional(group.residual_sd),
+            optional(group.aicc),
+            optional(group.dead_time_s)
+        );
+        html.push_str("<table class=\"progress-parameters\">\n<tr><th>parameter</th><th>value</th><th>SE</th><th>95% interval</th><th>profile 95% interval</th><th>unit</th><th>determined</th></tr>\n");
+        for (name, p) in &group.parameters {
+            let _ = writeln!(
+                html,
+                "<tr><td>{}</td>{}</tr>",
+                escape(&name.replace("_over_", "/")),
+                progress_parameter_cells(p)
+            );
+        }
+        html.push_str("</table>\n");
+        if !group.models_tried.is_empty() {
+            html.push_str("<table class=\"progress-models\">\n<tr><th>model tried</th><th>AICc</th><th>delta AICc</th><th>residual SD [AU]</th><th>F test p</th><th>verdict</th></tr>\n");
+            for tried in &group.models_tried {
+                let _ = writeln!(
+                    html,
+                    "<tr><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
+                    escape(&tried.model),
+                    optional(tried.aicc),
+                    optional(tried.delta_aicc),
+                    optional(tried.residual_sd),
+                    optional(tried.f_test_p),
+                    escape(&tried.verdict)
+                );
+            }
+            html.push_str("</table>\n");
+        }
+        if !group.warnings.is_empty() {
+            html.push_str("<ul class=\"warnings\">\n");
+            for warning in &group.warnings {
+                let _ = writeln!(html, "<li class=\"warn\">{}</li>", escape(warning));
+            }
+            html.push_str("</ul>\n");
+        }
+        if !group.curves.is_empty() {
+            html.push_str("<table class=\"runs\">\n<tr><th>well</th><th>S0</th><th>reads</th><th>runs</th><th>runs z</th><th>systematic misfit</th></tr>\n");
+            for curve in &group.curves {
+                let _ = writeln!(
+                    html,
+                    "<tr><td><a href=\"#well-{w}\">{w}</a></td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
+                    optional(curve.s0),
+                    curve.observed.len(),
+                    curve.runs.0,
+                    optional(curve.runs.1),
+                    if curve.systematic_misfit { "yes" } else { "no" },
+                    w = escape(&curve.well)
+                );
+            }
+            html.push_str("</table>\n");
+        }
+        if let Some((_, plots)) = parts.progress.iter().find(|(v, _)| v.number == number) {
+            for plot in plots {
+                html.push_str(&figure(plot, "plot progress"));
+            }
+        }
+        let _ = writeln!(
+            html,
+            "<p>Which analysis to trust: <strong>{}</strong>. {}</p>\n</article>",
+            escape(&group.trust),
+            escape(&group.trust_reason)
+        );
     }
     html.push_str("</section>\n");
     html

@@ -168,9 +168,53 @@ pub struct TrustVerdict {
     pub reasons: Vec<String>,
 }
 
-/// Which analysis to trust for each group. Today a run holds initial rates only; a progress-curve
-/// fit adds its candidate here and the choice compares them.
+/// The analysis a progress-curve report's `trust` word names, in the report's words.
+pub fn trust_analysis_words(trust: &str) -> &str {
+    match trust {
+        "progress-curve" => "progress curves",
+        "initial-rate" => "initial rates",
+        "either" => "either (they agree)",
+        "neither" => "neither",
+        other => other,
+    }
+}
+
+/// Which analysis to trust for each group: the progress-curve analysis's own verdict (`trust`,
+/// `trust_reason`) where it analysed the group, else initial rates, with the initial-rate fit's
+/// state as further reasons.
 pub fn trust_verdicts(results: &RunResults) -> Vec<TrustVerdict> {
+    let progress_of = |group: &serde_json::Map<String, Value>| {
+        results
+            .progress
+            .groups
+            .iter()
+            .find(|p| p.group == *group && p.analysed)
+    };
+    let mut verdicts = initial_rate_verdicts(results);
+    for (verdict, fit) in verdicts.iter_mut().zip(&results.fits) {
+        if let Some(progress) = progress_of(&fit.group) {
+            verdict.analysis = trust_analysis_words(&progress.trust).to_string();
+            // The initial-rate-only sentence no longer holds once a progress fit exists.
+            verdict.reasons.remove(0);
+            let mut reasons = vec![format!("progress-curve verdict: {}", progress.trust_reason)];
+            reasons.append(&mut verdict.reasons);
+            verdict.reasons = reasons;
+        }
+    }
+    // A progress-curve group with no initial-rate group of its own (a split by inhibitor level).
+    for progress in results.progress.groups.iter().filter(|p| p.analysed) {
+        if !results.fits.iter().any(|f| f.group == progress.group) {
+            verdicts.push(TrustVerdict {
+                group: crate::groups::group_label(&progress.group),
+                analysis: trust_analysis_words(&progress.trust).to_string(),
+                reasons: vec![format!("progress-curve verdict: {}", progress.trust_reason)],
+            });
+        }
+    }
+    verdicts
+}
+
+fn initial_rate_verdicts(results: &RunResults) -> Vec<TrustVerdict> {
     results
         .fits
         .iter()

@@ -6,6 +6,7 @@ use super::*;
 use crate::import::{import_cells, ImportOptions};
 use crate::layout::parse_layout;
 use crate::plate::PlateFormat;
+use crate::plots::ProgressView;
 use crate::run::analyse_inputs;
 use crate::settings::resolve_analysis;
 use crate::sheet_reader::read_text_cells;
@@ -18,6 +19,11 @@ pub(crate) fn demo_layer() -> SettingLayer {
 
 /// The demo plate, analysed.
 pub(crate) fn demo_results() -> RunResults {
+    demo_results_with(&demo_layer())
+}
+
+/// The demo plate, analysed with `layer`'s settings.
+pub(crate) fn demo_results_with(layer: &SettingLayer) -> RunResults {
     let grid = read_text_cells(
         crate::demo::DEMO_DATA.as_bytes(),
         "amber-fen-wide.csv (embedded demo)",
@@ -26,7 +32,7 @@ pub(crate) fn demo_results() -> RunResults {
     let data = import_cells(&grid, &ImportOptions::default()).unwrap();
     let layout_grid = read_text_cells(crate::demo::DEMO_LAYOUT.as_bytes(), "amber-fen-layout.csv").unwrap();
     let layout = parse_layout(&layout_grid, data.plate).unwrap();
-    analyse_inputs(data, layout, &resolve_analysis(&demo_layer()).unwrap()).unwrap()
+    analyse_inputs(data, layout, &resolve_analysis(layer).unwrap()).unwrap()
 }
 
 fn large_results(format: PlateFormat) -> (RunResults, SettingLayer) {
@@ -106,6 +112,28 @@ fn structure(page: &str) -> String {
         "group figures {}",
         section(page, "fits").matches("<figure").count()
     ));
+    for table in all_between(section(page, "fits"), "<table class=\"models\">", "</table>") {
+        lines.push(format!("models tried rows {}", table_rows(table)));
+    }
+    let progress = section(page, "progress");
+    for article in all_between(progress, "<article class=\"group\" id=\"progress-", "</article>") {
+        let number = article.split('"').next().unwrap_or("");
+        let tables: Vec<String> = ["progress-parameters", "progress-models", "runs"]
+            .iter()
+            .map(|class| {
+                let rows: usize = all_between(article, &format!("<table class=\"{class}\">"), "</table>")
+                    .iter()
+                    .map(|t| table_rows(t))
+                    .sum();
+                format!("{class} {rows}")
+            })
+            .collect();
+        lines.push(format!(
+            "progress {number}: {} figures {}",
+            tables.join(", "),
+            article.matches("<figure").count()
+        ));
+    }
     lines.join("\n") + "\n"
 }
 
@@ -128,6 +156,30 @@ fn demo_report_structure_matches_the_golden_file() {
         std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("fixtures/golden/demo-report-structure.txt");
     if std::env::var_os("PLATEKIN_UPDATE_GOLDEN").is_some() {
         std::fs::create_dir_all(path.parent().unwrap()).unwrap();
+        std::fs::write(&path, &actual).unwrap();
+    }
+    let expected = std::fs::read_to_string(&path).unwrap();
+    assert_eq!(
+        actual, expected,
+        "report structure changed; see the test's doc comment"
+    );
+}
+
+/// Golden file: `fixtures/golden/demo-progress-report-structure.txt`, the demo with `--progress
+/// always` (the progress-curve articles, their tables and plots). Rewrite it as the test above.
+#[test]
+fn demo_progress_report_structure_matches_the_golden_file() {
+    let layer = SettingLayer {
+        progress: Some("always".into()),
+        ..demo_layer()
+    };
+    let results = demo_results_with(&layer);
+    let records = input_records(&[], &results).unwrap();
+    let parts = ReportParts::build(&results, &layer, &records).unwrap();
+    let actual = structure(&report_html(&parts));
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("fixtures/golden/demo-progress-report-structure.txt");
+    if std::env::var_os("PLATEKIN_UPDATE_GOLDEN").is_some() {
         std::fs::write(&path, &actual).unwrap();
     }
     let expected = std::fs::read_to_string(&path).unwrap();
@@ -328,5 +380,238 @@ fn large_plates_give_a_legible_overview_with_every_well() {
                 );
             }
         }
+    }
+}
+
+/// Deterministic noise in [-1, 1] (a linear congruential generator, Knuth's MMIX constants).
+fn lcg_noise(seed: u64) -> f64 {
+    let mixed = seed
+        .wrapping_mul(6364136223846793005)
+        .wrapping_add(1442695040888963407);
+    ((mixed >> 11) as f64 / (1u64 << 53) as f64) * 2.0 - 1.0
+}
+
+/// An invented 56-well [S] x [I] plate (as `tests/fit_command.rs` builds one): competitive
+/// inhibition with Vmax 0.05 uM/s, Km 50 uM, Ki 5 uM; rows A-G the substrate levels, columns 1-8
+/// four inhibitor levels in duplicate, H1-H4 blanks; 10 reads 10 s apart.
+pub(crate) fn inhibition_results() -> (RunResults, SettingLayer) {
+    let substrate_um = [10.0, 20.0, 40.0, 80.0, 160.0, 320.0, 640.0];
+    let inhibitor_um = [0.0, 2.5, 5.0, 10.0];
+    // Absorbance per uM of product: 18300 M^-1 cm^-1 x 0.5 cm x 1e-6 M/uM.
+    let au_per_um = 18300.0 * 0.5 * 1e-6;
+    let mut wells = Vec::new();
+    let mut layout = String::from("well,role,substrate [uM],inhibitor [uM],enzyme [nM],variant\n");
+    for (row_index, row) in ['A', 'B', 'C', 'D', 'E', 'F', 'G'].iter().enumerate() {
+        for column in 1..=8 {
+            let substrate = substrate_um[row_index];
+            let inhibitor = inhibitor_um[(column - 1) / 2];
+            let rate = 0.05 * substrate / (50.0 * (1.0 + inhibitor / 5.0) + substrate);
+            wells.push((format!("{row}{column}"), rate));
+            layout.push_str(&format!("{row}{column},sample,{substrate},{inhibitor},10,wt\n"));
+        }
+    }
+    for column in 1..=4 {
+        wells.push((format!("H{column}"), 0.0));
+        layout.push_str(&format!("H{column},blank,,,,\n"));
+    }
+    let mut data = String::from("Time [s],");
+    data.push_str(&wells.iter().map(|(w, _)| w.clone()).collect::<Vec<_>>().join(","));
+    data.push('\n');
+    for read in 0..10u64 {
+        let time = 10.0 * read as f64;
+        data.push_str(&format!("{time}"));
+        for (index, (_, rate)) in wells.iter().enumerate() {
+            let absorbance =
+                0.05 + rate * time * au_per_um + 3.5e-4 * lcg_noise(read * 1000 + index as u64 + 17);
+            data.push_str(&format!(",{absorbance:.6}"));
+        }
+        data.push('\n');
+    }
+    let layer = SettingLayer {
+        extinction: Some(18_300.0),
+        pathlength: Some(0.5),
+        ..SettingLayer::default()
+    };
+    let grid = read_text_cells(data.as_bytes(), "inhibition-plate.csv").unwrap();
+    let imported = import_cells(&grid, &ImportOptions::default()).unwrap();
+    let layout_grid = read_text_cells(layout.as_bytes(), "inhibition-layout.csv").unwrap();
+    let layout = parse_layout(&layout_grid, imported.plate).unwrap();
+    let results = analyse_inputs(imported, layout, &resolve_analysis(&layer).unwrap()).unwrap();
+    (results, layer)
+}
+
+/// An inhibitor plate's report shows, in its one group, the rate against [S] at each of the four
+/// [I] levels with the global fit, the residuals, and the model choice with AICc.
+#[test]
+fn inhibitor_plate_report_has_the_inhibition_plots_and_model_choice() {
+    let (results, layer) = inhibition_results();
+    assert_eq!(results.fits.len(), 1, "one global [S] x [I] group");
+    let fit = &results.fits[0];
+    let records = input_records(&[], &results).unwrap();
+    let parts = ReportParts::build(&results, &layer, &records).unwrap();
+    assert_eq!(parts.inhibition.len(), 1);
+    let (view, plots) = &parts.inhibition[0];
+    assert_eq!(view.levels, vec![0.0, 2.5, 5.0, 10.0]);
+    // The invented truth is competitive inhibition; the curves come from the reported constants.
+    let residuals = view.residuals();
+    assert_eq!(residuals.len(), fit.wells_used.len());
+    let largest_rate = view.points.iter().map(|p| p.rate).fold(0.0, f64::max);
+    for (_, _, residual) in &residuals {
+        assert!(residual.abs() < 0.1 * largest_rate, "residual {residual}");
+    }
+    // The fitted curve falls with [I] at any [S] (every inhibition model does).
+    let at_km: Vec<f64> = (0..4).map(|level| view.fitted(50.0, level).unwrap()).collect();
+    assert!(at_km.windows(2).all(|w| w[1] < w[0]), "{at_km:?}");
+    let rate_plot = &plots[0];
+    for level in 0..4 {
+        assert!(
+            rate_plot.svg.contains(&view.level_text(level)),
+            "legend names {}",
+            view.level_text(level)
+        );
+    }
+    // Four colours: each level's colour appears in the plot.
+    for level in 0..4 {
+        let (colour, _) = crate::plots::level_style(level);
+        let hex = format!("#{:02X}{:02X}{:02X}", colour.0, colour.1, colour.2);
+        assert!(rate_plot.svg.to_uppercase().contains(&hex), "colour {hex}");
+    }
+    let page = report_html(&parts);
+    let fits = section(&page, "fits");
+    assert!(fits.contains("Rate against [S] at each [I]"));
+    assert!(fits.contains("Residuals of the global fit at each [I]"));
+    assert!(fits.contains("<table class=\"models\">"));
+    assert!(fits.contains("AICc"));
+    assert!(fits.contains(fit.equation.as_deref().unwrap()));
+    for candidate in &fit.models_tried {
+        assert!(fits.contains(candidate.model.name()), "{}", candidate.model);
+    }
+    assert!(fits.contains("<td>Ki</td>") || fits.contains("<td>Ki_prime</td>"));
+    // Full mode writes both plots as PNG, and they are not blank.
+    let pngs = parts.png_files().unwrap();
+    for stem in ["group-1-inhibition", "group-1-inhibition-residuals"] {
+        let file = pngs
+            .iter()
+            .find(|f| f.name == format!("plots/{stem}.png"))
+            .unwrap();
+        png_is_not_blank(&file.bytes);
+    }
+}
+
+/// Every level gets a distinct (colour, shape) pair for the first six levels, so no two levels
+/// differ by colour alone or by shape alone (common practice for colour-blind-safe plots).
+#[test]
+fn inhibitor_levels_differ_in_colour_and_shape() {
+    for a in 0..6 {
+        for b in (a + 1)..6 {
+            let (colour_a, shape_a) = crate::plots::level_style(a);
+            let (colour_b, shape_b) = crate::plots::level_style(b);
+            assert!(colour_a != colour_b && shape_a != shape_b, "levels {a} and {b}");
+        }
+    }
+}
+
+/// The demo with `--progress always`: every group gets a progress-curve article with its
+/// parameters, models tried, a runs-test row per fitted well, the two plots (whose fitted curves
+/// follow the reads), and the trust table takes the progress analysis's own verdict.
+#[test]
+fn demo_report_with_progress_always_has_the_progress_section_and_plots() {
+    let layer = SettingLayer {
+        progress: Some("always".into()),
+        report: Some("full".into()),
+        ..demo_layer()
+    };
+    let results = demo_results_with(&layer);
+    let analysed: Vec<_> = results.progress.groups.iter().filter(|g| g.analysed).collect();
+    assert!(
+        !analysed.is_empty(),
+        "the demo's groups get progress fits with --progress always"
+    );
+    let records = input_records(&[], &results).unwrap();
+    let parts = ReportParts::build(&results, &layer, &records).unwrap();
+    assert_eq!(parts.progress.len(), analysed.len());
+    for (view, plots) in &parts.progress {
+        assert_eq!(plots.len(), 2);
+        assert!(plots[0].svg.contains("S0 = "), "the legend names the S0 levels");
+        // The fitted curve follows the reads: residuals are small beside the signal's span.
+        let signal: Vec<f64> = view
+            .curves
+            .iter()
+            .flat_map(|c| c.observed.iter().copied())
+            .collect();
+        let span = signal.iter().copied().fold(f64::NEG_INFINITY, f64::max)
+            - signal.iter().copied().fold(f64::INFINITY, f64::min);
+        for curve in &view.curves {
+            assert_eq!(curve.times_s.len(), curve.fitted.len());
+            let worst = ProgressView::residuals(curve)
+                .iter()
+                .map(|r| r.1.abs())
+                .fold(0.0, f64::max);
+            assert!(
+                worst < 0.1 * span,
+                "well {}: residual {worst} of span {span}",
+                curve.well
+            );
+        }
+    }
+    let page = report_html(&parts);
+    let progress = section(&page, "progress");
+    assert_eq!(
+        progress
+            .matches("<article class=\"group\" id=\"progress-")
+            .count(),
+        results.progress.groups.len()
+    );
+    assert_eq!(progress.matches("<figure").count(), 2 * analysed.len());
+    for group in &analysed {
+        assert!(group.parameters.contains_key("Km"));
+        for tried in &group.models_tried {
+            assert!(
+                progress.contains(&super::html::escape(&tried.verdict)),
+                "{}",
+                tried.model
+            );
+        }
+        for curve in &group.curves {
+            assert!(progress.contains(&format!("<a href=\"#well-{}\">", curve.well)));
+        }
+        assert!(progress.contains(&super::html::escape(&group.trust_reason)));
+    }
+    assert!(progress.contains("profile 95% interval"));
+    // The trust table takes the progress analysis's verdict.
+    let trust = section(&page, "trust");
+    for group in &analysed {
+        assert!(
+            trust.contains(trust_analysis_words(&group.trust)),
+            "{}",
+            group.trust
+        );
+        assert!(trust.contains(&super::html::escape(&group.trust_reason)));
+    }
+    assert!(!trust.contains("the only analysis this run made"));
+    // Full mode writes the progress plots as PNG; they decode and are not blank.
+    let pngs = parts.png_files().unwrap();
+    for (view, _) in &parts.progress {
+        for stem in ["curves", "residuals"] {
+            let name = format!("plots/progress-{}-{stem}.png", view.number);
+            let file = pngs.iter().find(|f| f.name == name).unwrap();
+            let (width, height) = png_is_not_blank(&file.bytes);
+            assert!(width >= 600 && height >= 300, "{name}");
+        }
+    }
+}
+
+/// Without a progress fit the trust table keeps the initial-rate verdict and says why.
+#[test]
+fn trust_without_progress_fit_is_initial_rates() {
+    let layer = SettingLayer {
+        progress: Some("never".into()),
+        ..demo_layer()
+    };
+    let results = demo_results_with(&layer);
+    assert!(results.progress.groups.iter().all(|g| !g.analysed));
+    for verdict in trust_verdicts(&results) {
+        assert_eq!(verdict.analysis, "initial rates");
+        assert!(verdict.reasons[0].contains("only analysis"));
     }
 }
