@@ -363,6 +363,10 @@ fn well_curves(
             leave("lag: activity rises at the start, which the rate laws fitted here do not describe");
             continue;
         }
+        if well.rate.flags.contains(&Flag::Saturated) {
+            leave("saturated: its absorbance leaves the photometric range, so even the reads below the limit sit where readings are least reliable");
+            continue;
+        }
         let Some(trace) = input.data.wells.iter().find(|t| t.well == well.well) else {
             leave("no trace in the data");
             continue;
