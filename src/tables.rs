@@ -42,6 +42,24 @@ fn pick(
     }
 }
 
+/// A layout factor named like one of the table's own columns (`flags`, `n`, `role`...) is written
+/// as `factor:NAME`, so the table stays readable instead of failing on a duplicate header.
+fn rename_clashing_factors(columns: &mut [Column], first_factor: usize, n_factors: usize) {
+    let factor_range = first_factor..first_factor + n_factors;
+    let fixed: std::collections::HashSet<String> = columns
+        .iter()
+        .enumerate()
+        .filter(|(index, _)| !factor_range.contains(index))
+        .map(|(_, column)| column.name().to_string())
+        .collect();
+    for column in &mut columns[factor_range.clone()] {
+        if fixed.contains(column.name().as_str()) {
+            let renamed = format!("factor:{}", column.name());
+            column.rename(renamed.into());
+        }
+    }
+}
+
 /// Empty text as a missing value, so the CSV cell is empty rather than `""`.
 fn non_empty(text: String) -> Option<String> {
     (!text.is_empty()).then_some(text)
@@ -75,6 +93,7 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
             .collect();
         columns.push(Column::new(header.into(), values));
     }
+    let first_factor = columns.len();
     for name in &layout.factor_names {
         let values: Vec<String> = wells
             .iter()
@@ -145,6 +164,7 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
                 .collect::<Vec<_>>(),
         ),
     ]);
+    rename_clashing_factors(&mut columns, first_factor, layout.factor_names.len());
     Ok(DataFrame::new(wells.len(), columns)?)
 }
 
@@ -170,6 +190,7 @@ pub fn conditions_table(
             .collect();
         columns.push(Column::new(header.into(), values));
     }
+    let first_factor = columns.len();
     for name in &layout.factor_names {
         let values: Vec<String> = conditions
             .iter()
@@ -207,5 +228,6 @@ pub fn conditions_table(
                 .collect::<Vec<_>>(),
         ),
     ]);
+    rename_clashing_factors(&mut columns, first_factor, layout.factor_names.len());
     Ok(DataFrame::new(conditions.len(), columns)?)
 }

@@ -559,3 +559,35 @@ fn a_run_repeats_exactly_from_its_settings_file() {
         );
     }
 }
+
+#[test]
+fn a_factor_named_like_an_output_column_is_kept_apart() {
+    let scratch = tempfile::tempdir().unwrap();
+    let layout = scratch.path().join("layout.csv");
+    let layout_text = std::fs::read_to_string(project("fixtures/small-layout.csv"))
+        .unwrap()
+        .replace("variant", "flags");
+    std::fs::write(&layout, layout_text).unwrap();
+    let out = scratch.path().join("out");
+    let output = platekin(
+        &[
+            "run",
+            "small-plate.csv",
+            "--layout",
+            layout.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+        ],
+        &project("fixtures"),
+    );
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    for file in ["wells.csv", "conditions.csv"] {
+        let rows = csv_rows(&out.join(file));
+        assert!(
+            rows[0].iter().any(|h| h == "factor:flags"),
+            "{file}: {:?}",
+            rows[0]
+        );
+        assert!(rows[0].iter().any(|h| h == "flags"), "{file}: {:?}", rows[0]);
+    }
+}
