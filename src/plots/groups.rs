@@ -15,7 +15,7 @@ use plotters::coord::Shift;
 use plotters::prelude::*;
 
 use super::palette::{BLACK, BLUE, FRAME_GREY, ORANGE, SKY_BLUE, VERMILLION};
-use super::{drawn, padded_range, text_style, Drawing};
+use super::{drawn, padded_range, text_style, titled_chart, Drawing};
 use crate::groups::{group_label, GroupFit};
 use crate::regression::t_critical;
 use crate::run::{significant, RunResults};
@@ -256,14 +256,7 @@ impl GroupPlot<'_> {
             .map(|p| p.rate)
             .chain(curve.iter().flat_map(|p| [p.1, p.2, p.3]));
         let y_range = padded_range(y_values, true);
-        let mut chart = drawn(
-            ChartBuilder::on(root)
-                .caption(self.title(), text_style(14.0, BLACK))
-                .margin(10)
-                .x_label_area_size(40)
-                .y_label_area_size(72)
-                .build_cartesian_2d(x_range.0..x_range.1, y_range.0..y_range.1),
-        )?;
+        let mut chart = titled_chart(root, self.title(), text_style(14.0, BLACK), x_range, y_range)?;
         drawn(
             chart
                 .configure_mesh()
@@ -333,14 +326,7 @@ impl GroupPlot<'_> {
         let x_range = (0.0, if s_max > 0.0 { s_max * 1.05 } else { 1.0 });
         let largest = residuals.iter().map(|p| p.1.abs()).fold(0.0, f64::max);
         let y_range = padded_range([-largest, largest], true);
-        let mut chart = drawn(
-            ChartBuilder::on(root)
-                .caption(self.title(), text_style(14.0, BLACK))
-                .margin(10)
-                .x_label_area_size(40)
-                .y_label_area_size(72)
-                .build_cartesian_2d(x_range.0..x_range.1, y_range.0..y_range.1),
-        )?;
+        let mut chart = titled_chart(root, self.title(), text_style(14.0, BLACK), x_range, y_range)?;
         drawn(
             chart
                 .configure_mesh()
@@ -383,14 +369,7 @@ impl GroupPlot<'_> {
             .chain(nonlinear_line.iter().flatten().map(|p| p.1))
             .chain(straight_line.iter().flatten().map(|p| p.1));
         let y_range = padded_range(y_values, true);
-        let mut chart = drawn(
-            ChartBuilder::on(root)
-                .caption(self.title(), text_style(14.0, VERMILLION))
-                .margin(10)
-                .x_label_area_size(40)
-                .y_label_area_size(72)
-                .build_cartesian_2d(x_range.0..x_range.1, y_range.0..y_range.1),
-        )?;
+        let mut chart = titled_chart(root, self.title(), text_style(14.0, VERMILLION), x_range, y_range)?;
         drawn(
             chart
                 .configure_mesh()

@@ -14,7 +14,7 @@ use plotters::coord::Shift;
 use plotters::prelude::*;
 
 use super::palette::{BLACK, BLUE, BLUISH_GREEN, FRAME_GREY, ORANGE, REDDISH_PURPLE, SKY_BLUE, VERMILLION};
-use super::{drawn, padded_range, text_style, Drawing};
+use super::{drawn, padded_range, text_style, titled_chart, Drawing};
 use crate::fit::models::{predict_rate, RateModelKind};
 use crate::groups::{group_label, GroupFit};
 use crate::run::{significant, RunResults};
@@ -469,14 +469,7 @@ impl Drawing for InhibitionPlot<'_> {
                 )
             }
         };
-        let mut chart = drawn(
-            ChartBuilder::on(root)
-                .caption(self.title(), text_style(13.0, BLACK))
-                .margin(10)
-                .x_label_area_size(40)
-                .y_label_area_size(72)
-                .build_cartesian_2d(x_range.0..x_range.1, y_range.0..y_range.1),
-        )?;
+        let mut chart = titled_chart(root, self.title(), text_style(13.0, BLACK), x_range, y_range)?;
         drawn(
             chart
                 .configure_mesh()

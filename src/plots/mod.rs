@@ -20,6 +20,7 @@ mod wells;
 
 use std::sync::OnceLock;
 
+use plotters::coord::types::RangedCoordf64;
 use plotters::coord::Shift;
 use plotters::prelude::*;
 use plotters::style::FontStyle;
@@ -194,6 +195,25 @@ pub fn render_png<D: Drawing>(drawing: &D) -> Result<Vec<u8>, PlotError> {
 /// Turns any displayable drawing error into the plain message [`Drawing::draw`] returns.
 pub(crate) fn drawn<T, E: std::fmt::Display>(result: Result<T, E>) -> Result<T, String> {
     result.map_err(|error| error.to_string())
+}
+
+/// A chart over plain f64 axes with the caption, margin and label areas every group-level plot
+/// uses (one place, so the plots keep one look).
+pub(crate) fn titled_chart<'a, DB: DrawingBackend>(
+    root: &'a DrawingArea<DB, Shift>,
+    title: String,
+    title_style: TextStyle<'static>,
+    x_range: (f64, f64),
+    y_range: (f64, f64),
+) -> Result<ChartContext<'a, DB, Cartesian2d<RangedCoordf64, RangedCoordf64>>, String> {
+    drawn(
+        ChartBuilder::on(root)
+            .caption(title, title_style)
+            .margin(10)
+            .x_label_area_size(40)
+            .y_label_area_size(72)
+            .build_cartesian_2d(x_range.0..x_range.1, y_range.0..y_range.1),
+    )
 }
 
 /// A text style in the plots' font.

@@ -13,7 +13,7 @@ use plotters::prelude::*;
 
 use super::inhibition::{draw_markers, legend_entry, level_style};
 use super::palette::{BLACK, FRAME_GREY};
-use super::{drawn, padded_range, text_style, Drawing};
+use super::{drawn, padded_range, text_style, titled_chart, Drawing};
 use crate::groups::group_label;
 use crate::progress::report::{ProgressCurve, ProgressGroupReport};
 use crate::run::{significant, RunResults};
@@ -166,14 +166,7 @@ impl Drawing for ProgressPlot<'_> {
                 )
             }
         };
-        let mut chart = drawn(
-            ChartBuilder::on(root)
-                .caption(self.title(), text_style(13.0, BLACK))
-                .margin(10)
-                .x_label_area_size(40)
-                .y_label_area_size(72)
-                .build_cartesian_2d(x_range.0..x_range.1, y_range.0..y_range.1),
-        )?;
+        let mut chart = titled_chart(root, self.title(), text_style(13.0, BLACK), x_range, y_range)?;
         drawn(
             chart
                 .configure_mesh()
