@@ -6,12 +6,13 @@ use std::hint::black_box;
 
 use criterion::{criterion_group, criterion_main, Criterion};
 
+use platekin::config::{resolve_analysis, AnalysisSettings, FitSettings, ReportMode, SettingLayer};
+use platekin::core::plate::PlateFormat;
+use platekin::files::sheet::read_text_cells;
 use platekin::import::{import_cells, ImportOptions};
 use platekin::layout::parse_layout;
-use platekin::plate::PlateFormat;
-use platekin::run::{analyse_inputs, render_outputs};
-use platekin::settings::{resolve_analysis, AnalysisSettings, SettingLayer};
-use platekin::sheet_reader::read_text_cells;
+use platekin::pipeline::analyse_inputs;
+use platekin::render::{render_run_outputs, RunRecord};
 use platekin::simulate::{large_plate_spec, layout_tidy_csv, simulate, wide_csv, WideCsvOptions};
 
 struct LargePlate {
@@ -40,13 +41,23 @@ fn whole_run(plate: &LargePlate) -> usize {
     let data = import_cells(&grid, &ImportOptions::default()).expect("imports");
     let layout_grid = read_text_cells(plate.layout_csv.as_bytes(), "large-layout.csv").expect("reads");
     let layout = parse_layout(&layout_grid, data.plate).expect("layout parses");
-    let results = analyse_inputs(data, layout, &plate.analysis).expect("analyses");
+    let results = analyse_inputs(
+        data,
+        layout,
+        &plate.analysis,
+        &FitSettings::default(),
+        &mut |_, _| {},
+    )
+    .expect("analyses");
     // The pipeline's own target excludes plots: no report here (see the report benchmark note).
-    let no_report = SettingLayer {
-        report: Some("none".into()),
-        ..SettingLayer::default()
+    let record = RunRecord {
+        inputs: Vec::new(),
+        files_given: Vec::new(),
+        data_path: None,
+        used: SettingLayer::default(),
+        report: ReportMode::None,
     };
-    let files = render_outputs(&results, &no_report, &[]).expect("renders");
+    let files = render_run_outputs(&results, &record).expect("renders");
     files.iter().map(|file| file.bytes.len()).sum()
 }
 
@@ -66,7 +77,7 @@ fn benchmarks(c: &mut Criterion) {
     let layout_grid = read_text_cells(plate.layout_csv.as_bytes(), "large-layout.csv").expect("reads");
     let layout = parse_layout(&layout_grid, data.plate).expect("layout parses");
     group.bench_function("rates_all_wells", |b| {
-        b.iter(|| platekin::analysis::analyse_plate(black_box(&data), &layout, &plate.analysis))
+        b.iter(|| platekin::rates::analyse_plate(black_box(&data), &layout, &plate.analysis))
     });
     group.bench_function("whole_run_without_disk", |b| {
         b.iter(|| whole_run(black_box(&plate)))

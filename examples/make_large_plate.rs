@@ -5,7 +5,7 @@
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-use platekin::plate::PlateFormat;
+use platekin::core::plate::PlateFormat;
 use platekin::simulate::{large_plate_spec, layout_tidy_csv, simulate, wide_csv, WideCsvOptions};
 
 fn main() -> ExitCode {

@@ -5,7 +5,7 @@ use std::path::PathBuf;
 
 use clap::{Args, Parser, Subcommand};
 
-use platekin::settings::SettingLayer;
+use platekin::config::SettingLayer;
 
 /// Initial rates, linearity checks and Michaelis-Menten fits for continuous enzyme assays read in
 /// microplates. Results support, and do not replace, your lab's validated procedures.

@@ -1,5 +1,5 @@
-//! The `platekin` binary: parse the command line, hand plain settings to the library, print what
-//! it returns, and turn errors into a message and exit code 2.
+//! The `platekin` binary: parse the command line, hand resolved settings to the library's
+//! commands, print what they return, and turn errors into a message and exit code 2.
 
 mod cli;
 
@@ -10,7 +10,7 @@ use anyhow::Context;
 use clap::Parser;
 
 use cli::{Cli, Command};
-use platekin::settings::{resolve_fit, resolve_import, resolve_run, SettingLayer};
+use platekin::config::{resolve_fit, resolve_import, resolve_report, resolve_run, SettingLayer};
 
 fn main() -> ExitCode {
     run(Cli::parse())
@@ -48,30 +48,32 @@ fn execute(cli: Cli) -> anyhow::Result<String> {
                 Some(path) => flags.over(SettingLayer::from_assay_file(path)?),
                 None => flags,
             };
-            let fit_settings = resolve_fit(&layer)?;
             let settings = resolve_run(args.data.clone(), layer)?;
             let mut progress = progress_reporter();
-            let outcome =
-                platekin::run::run_plate_with(&settings, &fit_settings, &args.out, args.force, &mut progress)
-                    .with_context(|| {
-                        format!(
-                            "run on {} not completed; nothing was written",
-                            args.data.display()
-                        )
-                    })?;
+            let outcome = platekin::commands::run::run_plate(&settings, &args.out, args.force, &mut progress)
+                .with_context(|| {
+                    format!(
+                        "run on {} not completed; nothing was written",
+                        args.data.display()
+                    )
+                })?;
             Ok(outcome.summary)
         }
         Command::Inspect(args) => {
             let import = resolve_import(&args.read.layer())?;
-            Ok(platekin::run::inspect(&args.data, &import)?)
+            Ok(platekin::commands::inspect::inspect(&args.data, &import)?)
         }
         Command::Demo(args) => {
-            Ok(platekin::demo::run_demo_with_report(&args.out, args.report.as_deref())?.summary)
+            let report = resolve_report(&SettingLayer {
+                report: args.report.clone(),
+                ..SettingLayer::default()
+            })?;
+            Ok(platekin::commands::demo::run_demo(&args.out, report)?.summary)
         }
         Command::Fit(args) => {
             let fit_settings = resolve_fit(&args.models.layer())?;
             let mut progress = progress_reporter();
-            let outcome = platekin::rate_table::fit_table_file(
+            let outcome = platekin::commands::fit::fit_table_file(
                 &args.table,
                 args.sheet.as_deref(),
                 &fit_settings,

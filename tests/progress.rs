@@ -2,11 +2,17 @@
 //! initial rates, group fits, progress-curve fits): known truth recovered on a depletion-heavy
 //! plate where initial rates fail, model choice, and the bad cases (single well, flat curves).
 
+use platekin::config::{resolve_analysis, resolve_fit, ReportMode, SettingLayer};
+use platekin::files::sheet::read_text_cells;
+use platekin::groups::GroupKey;
 use platekin::import::{import_cells, ImportOptions};
 use platekin::layout::parse_layout;
-use platekin::run::{analyse_inputs, render_outputs, summary_text, RunResults};
-use platekin::settings::{resolve_analysis, SettingLayer};
-use platekin::sheet_reader::read_text_cells;
+use platekin::pipeline::{analyse_inputs, RunResults};
+use platekin::progress::choice::ModelVerdict;
+use platekin::progress::global_fit::ProgressModel;
+use platekin::progress::trust::{RunReason, Trust};
+use platekin::render::summary::run_summary;
+use platekin::render::{render_run_outputs, RunRecord};
 use platekin::simulate::{
     demo_spec, layout_tidy_csv, simulate, wide_csv, LayoutGroup, SimulationSpec, VariantKinetics,
     WellCondition, WideCsvOptions,
@@ -95,18 +101,25 @@ fn run_spec(
         pathlength: Some(0.55),
         ..extra
     };
-    analyse_inputs(data, layout, &resolve_analysis(&layer).unwrap()).unwrap()
+    analyse_inputs(
+        data,
+        layout,
+        &resolve_analysis(&layer).unwrap(),
+        &resolve_fit(&layer).unwrap(),
+        &mut |_, _| {},
+    )
+    .unwrap()
 }
 
-fn group_of<'a, T>(
-    items: &'a [T],
-    variant: &str,
-    key: impl Fn(&T) -> &serde_json::Map<String, serde_json::Value>,
-) -> &'a T {
+fn group_of<'a, T>(items: &'a [T], variant: &str, key: impl Fn(&T) -> &GroupKey) -> &'a T {
     items
         .iter()
-        .find(|item| key(item).get("variant").and_then(|v| v.as_str()) == Some(variant))
+        .find(|item| key(item).text("variant") == Some(variant))
         .unwrap()
+}
+
+fn summary(results: &RunResults) -> String {
+    run_summary(results, ReportMode::Html, std::path::Path::new("out"))
 }
 
 #[test]
@@ -127,9 +140,9 @@ fn depletion_heavy_plate_initial_rates_miss_km_and_the_global_fit_recovers_it() 
     let progress = group_of(&results.progress.groups, "fast", |g| &g.group);
     assert!(progress.analysed, "{progress:?}");
     assert!(
-        progress.reason.contains("initial rates suspect"),
-        "{}",
-        progress.reason
+        matches!(progress.run, RunReason::Suspect(_)),
+        "{:?}",
+        progress.run
     );
     let kcat = progress.parameters["kcat"].value;
     let km = progress.parameters["Km"].value;
@@ -145,21 +158,36 @@ fn depletion_heavy_plate_initial_rates_miss_km_and_the_global_fit_recovers_it() 
         "profile {lo}..{hi}"
     );
     assert_eq!(
-        progress.model.as_deref(),
-        Some("michaelis-menten"),
+        progress.model,
+        Some(ProgressModel::MichaelisMenten),
         "{:#?}",
         progress.models_tried
     );
-    assert_eq!(progress.trust, "progress-curve", "{}", progress.trust_reason);
+    assert_eq!(
+        progress.decision.trust,
+        Trust::ProgressCurve,
+        "{:?}",
+        progress.decision
+    );
     // Product inhibition and inactivation are absent from the truth and reported as not needed.
     for tried in &progress.models_tried[1..] {
-        assert!(tried.verdict.starts_with("not needed"), "{tried:?}");
+        assert!(
+            !tried.verdict.is_needed() && !matches!(tried.verdict, ModelVerdict::Failed(_)),
+            "{tried:?}"
+        );
     }
     // The window slopes fall short of the fitted initial rates at low S0.
-    let low = progress.wells.iter().find(|w| w["well"] == "A1").unwrap();
-    assert!(low["window_over_implied"].as_f64().unwrap() < 0.6, "{low}");
+    let low = progress.wells.iter().find(|w| w.well == "A1").unwrap();
+    assert!(low.window_over_implied.unwrap() < 0.6, "{low:?}");
     // progress.json holds the schema; the summary names what to trust.
-    let files = render_outputs(&results, &SettingLayer::default(), &[]).unwrap();
+    let record = RunRecord {
+        inputs: Vec::new(),
+        files_given: Vec::new(),
+        data_path: None,
+        used: SettingLayer::default(),
+        report: ReportMode::None,
+    };
+    let files = render_run_outputs(&results, &record).unwrap();
     let file = files.iter().find(|f| f.name == "progress.json").unwrap();
     let json: serde_json::Value = serde_json::from_slice(&file.bytes).unwrap();
     let group = &json["groups"].as_array().unwrap()[0];
@@ -176,7 +204,7 @@ fn depletion_heavy_plate_initial_rates_miss_km_and_the_global_fit_recovers_it() 
     }
     assert_eq!(group["parameters"]["kcat"]["unit"], "1/s");
     assert_eq!(group["parameters"]["Km"]["ci95"].as_array().unwrap().len(), 2);
-    let summary = summary_text(&results, std::path::Path::new("out"));
+    let summary = summary(&results);
     assert!(summary.contains("trust: the progress-curve fit"), "{summary}");
 }
 
@@ -192,7 +220,7 @@ fn bad_groups_get_clear_messages_and_auto_skips_clean_groups() {
         error.contains("at least 2 wells") && error.contains("A4"),
         "{error}"
     );
-    assert_eq!(solo.trust, "initial-rate");
+    assert_eq!(solo.decision.trust, Trust::InitialRate);
     let dead = group_of(&results.progress.groups, "dead", |g| &g.group);
     assert!(dead.error.as_deref().unwrap().contains("flat"), "{dead:?}");
 
@@ -201,7 +229,7 @@ fn bad_groups_get_clear_messages_and_auto_skips_clean_groups() {
         ..SettingLayer::default()
     });
     assert!(never.progress.groups.iter().all(|g| !g.analysed));
-    assert!(summary_text(&never, std::path::Path::new("out")).contains("--progress never"));
+    assert!(summary(&never).contains("--progress never"));
 }
 
 #[test]
@@ -297,9 +325,9 @@ fn substrate_readout_s0_from_signal_names_a_pipetting_error() {
         !warning.contains("H2 ("),
         "only the wrong well is named: {warning}"
     );
-    let h3 = fast.wells.iter().find(|w| w["well"] == "H3").unwrap();
-    let from_signal = h3["S0_from_signal"].as_f64().unwrap();
-    assert!((from_signal / 300.0 - 1.0).abs() < 0.03, "{h3}");
+    let h3 = fast.wells.iter().find(|w| w.well == "H3").unwrap();
+    let from_signal = h3.s0_from_signal.unwrap();
+    assert!((from_signal / 300.0 - 1.0).abs() < 0.03, "{h3:?}");
 
     // Fitting with the signal's S0 recovers the truth within 5%.
     let corrected = run_spec(&spec, layer(true), edit);

@@ -42,7 +42,10 @@ fn default_run_writes_a_report_and_run_json_with_checksums() {
     let run: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(out.join("run.json")).unwrap()).unwrap();
     let data = std::fs::read(project("demo-plates/amber-fen-wide.csv")).unwrap();
-    assert_eq!(run["inputs"][0]["sha256"], platekin::report::sha256_hex(&data));
+    assert_eq!(
+        run["inputs"][0]["sha256"],
+        platekin::files::input::sha256_hex(&data)
+    );
     assert_eq!(run["inputs"][0]["bytes"], data.len());
     assert_eq!(run["settings"]["report"], "html");
     assert_eq!(run["settings"]["alpha"], 0.01, "defaults are filled in");
@@ -67,7 +70,11 @@ fn default_run_writes_a_report_and_run_json_with_checksums() {
             .iter()
             .find(|o| o["name"] == name)
             .unwrap();
-        assert_eq!(listed["sha256"], platekin::report::sha256_hex(&bytes), "{name}");
+        assert_eq!(
+            listed["sha256"],
+            platekin::files::input::sha256_hex(&bytes),
+            "{name}"
+        );
     }
     let summary = String::from_utf8_lossy(&output.stdout);
     assert!(

@@ -33,35 +33,10 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use serde::Serialize;
 
-use super::least_squares::{
-    f_quantile, fit_least_squares, t_quantile_975, LeastSquaresOptions, ResidualModel,
-};
+use super::least_squares::{fit_least_squares, LeastSquaresOptions, ResidualModel};
 use super::models::{fit_rate_model, ModelFitError, RateData, RateModel, RateModelFit, RateModelKind};
-
-/// The loss minimised.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Default)]
-#[serde(rename_all = "kebab-case")]
-pub enum RobustLoss {
-    /// Plain (weighted) least squares.
-    #[default]
-    None,
-    /// Huber's loss, `c = 1.345` robust standard deviations.
-    Huber,
-}
-
-impl RobustLoss {
-    pub fn name(self) -> &'static str {
-        match self {
-            RobustLoss::None => "none",
-            RobustLoss::Huber => "huber",
-        }
-    }
-    pub fn from_name(name: &str) -> Option<RobustLoss> {
-        [RobustLoss::None, RobustLoss::Huber]
-            .into_iter()
-            .find(|loss| loss.name() == name)
-    }
-}
+pub use crate::config::{BootstrapSettings, RobustLoss};
+use crate::core::stats::{f_quantile, median, percentile, summary, t_quantile_975};
 
 /// Huber's tuning constant (95% efficiency at the normal distribution).
 pub const HUBER_TUNING: f64 = 1.345;
@@ -79,18 +54,6 @@ pub struct RobustFit {
     pub rounds: usize,
     /// Points whose weight was cut below 1 (possible outliers), by index.
     pub downweighted_points: Vec<usize>,
-}
-
-fn median(values: &mut [f64]) -> f64 {
-    values.sort_by(f64::total_cmp);
-    let middle = values.len() / 2;
-    if values.is_empty() {
-        f64::NAN
-    } else if values.len().is_multiple_of(2) {
-        0.5 * (values[middle - 1] + values[middle])
-    } else {
-        values[middle]
-    }
 }
 
 /// Fits `kind` with the chosen loss (see the module docs).
@@ -125,9 +88,8 @@ pub fn fit_with_loss(
             .zip(&data.weights)
             .map(|((f, v), w)| w.sqrt() * (f - v))
             .collect();
-        let centre = median(&mut residuals.clone());
-        let mut deviations: Vec<f64> = residuals.iter().map(|r| (r - centre).abs()).collect();
-        let scale = MAD_TO_SD * median(&mut deviations);
+        let centre = median(residuals.iter().copied()).unwrap_or(f64::NAN);
+        let scale = MAD_TO_SD * median(residuals.iter().map(|r| (r - centre).abs())).unwrap_or(f64::NAN);
         if !(scale.is_finite() && scale > 0.0) {
             break;
         }
@@ -384,13 +346,6 @@ fn illinois(inner: (f64, f64), outer: (f64, f64), scale: f64, mut g: impl FnMut(
     }
 }
 
-/// Settings of the residual bootstrap.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
-pub struct BootstrapSettings {
-    pub replicates: usize,
-    pub seed: u64,
-}
-
 /// Bootstrap results in the fitted parametrisation.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct BootstrapResult {
@@ -401,15 +356,6 @@ pub struct BootstrapResult {
     pub intervals: Vec<Option<[f64; 2]>>,
     /// Standard deviation of the replicates per fitted parameter.
     pub standard_deviations: Vec<Option<f64>>,
-}
-
-fn percentile(sorted: &[f64], fraction: f64) -> f64 {
-    // Linear interpolation between order statistics (common practice).
-    let position = fraction * (sorted.len() - 1) as f64;
-    let lower = position.floor() as usize;
-    let upper = position.ceil() as usize;
-    let weight = position - lower as f64;
-    sorted[lower] * (1.0 - weight) + sorted[upper] * weight
 }
 
 /// Residual bootstrap (see the module docs). `progress(done, total)` is called after each replicate.
@@ -473,14 +419,7 @@ pub fn residual_bootstrap(
         } else {
             intervals.push(None);
         }
-        if column.len() >= 2 {
-            let mean = column.iter().sum::<f64>() / column.len() as f64;
-            let variance =
-                column.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / (column.len() - 1) as f64;
-            standard_deviations.push(Some(variance.sqrt()));
-        } else {
-            standard_deviations.push(None);
-        }
+        standard_deviations.push(summary(column).and_then(|s| s.sd));
     }
     BootstrapResult {
         replicates: settings.replicates,

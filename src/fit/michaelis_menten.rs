@@ -44,11 +44,13 @@
 
 use serde::Serialize;
 
+use nalgebra::DMatrix;
+
 use super::least_squares::{
-    asymptotic_covariance, fit_least_squares, t_quantile_975, FitError, LeastSquaresOptions, ResidualModel,
+    asymptotic_covariance, fit_least_squares, FitError, LeastSquaresFit, LeastSquaresOptions, ResidualModel,
     StopReason,
 };
-use nalgebra::DMatrix;
+use crate::core::stats::{median, straight_line, t_quantile_975, Line};
 
 /// `Vmax S / (Km + S)`.
 pub fn michaelis_menten_rate(vmax: f64, km: f64, substrate: f64) -> f64 {
@@ -215,6 +217,8 @@ pub enum StartMethod {
     HanesWoolf,
     MaximumRateAndMedianSubstrate,
     ProfiledKmGrid,
+    /// The best of the general rate-law fit's data-derived starts.
+    RateLawCandidates,
 }
 
 /// One linearised regression, for diagnostics only.
@@ -332,33 +336,6 @@ fn validate_data(substrate: &[f64], rate: &[f64]) -> Result<ValidatedData, FitEr
     })
 }
 
-/// Ordinary least-squares line `y = intercept + slope x`; `None` without two distinct x values.
-fn straight_line(x: &[f64], y: &[f64]) -> Option<(f64, f64)> {
-    let count = x.len();
-    if count < 2 {
-        return None;
-    }
-    let mean_x = x.iter().sum::<f64>() / count as f64;
-    let mean_y = y.iter().sum::<f64>() / count as f64;
-    let mut sum_xx = 0.0;
-    let mut sum_xy = 0.0;
-    for (&xi, &yi) in x.iter().zip(y) {
-        sum_xx += (xi - mean_x) * (xi - mean_x);
-        sum_xy += (xi - mean_x) * (yi - mean_y);
-    }
-    let largest_x = x.iter().fold(0.0_f64, |largest, value| largest.max(value.abs()));
-    if sum_xx.is_nan() || sum_xx <= (f64::EPSILON * largest_x).powi(2) * count as f64 {
-        return None;
-    }
-    let slope = sum_xy / sum_xx;
-    let intercept = mean_y - slope * mean_x;
-    if slope.is_finite() && intercept.is_finite() {
-        Some((slope, intercept))
-    } else {
-        None
-    }
-}
-
 fn finite_estimate(
     vmax: f64,
     km: f64,
@@ -394,7 +371,7 @@ pub fn linearised_estimates(substrate: &[f64], rate: &[f64]) -> LinearisedEstima
     let lineweaver_burk = if all_rates_positive {
         let x: Vec<f64> = points.iter().map(|&(s, _)| 1.0 / s).collect();
         let y: Vec<f64> = points.iter().map(|&(_, v)| 1.0 / v).collect();
-        straight_line(&x, &y).and_then(|(slope, intercept)| {
+        straight_line(&x, &y).and_then(|Line { slope, intercept }| {
             finite_estimate(1.0 / intercept, slope / intercept, slope, intercept, n_points)
         })
     } else {
@@ -403,13 +380,14 @@ pub fn linearised_estimates(substrate: &[f64], rate: &[f64]) -> LinearisedEstima
     let eadie_hofstee = {
         let x: Vec<f64> = points.iter().map(|&(s, v)| v / s).collect();
         let y: Vec<f64> = points.iter().map(|&(_, v)| v).collect();
-        straight_line(&x, &y)
-            .and_then(|(slope, intercept)| finite_estimate(intercept, -slope, slope, intercept, n_points))
+        straight_line(&x, &y).and_then(|Line { slope, intercept }| {
+            finite_estimate(intercept, -slope, slope, intercept, n_points)
+        })
     };
     let hanes_woolf = if all_rates_positive {
         let x: Vec<f64> = points.iter().map(|&(s, _)| s).collect();
         let y: Vec<f64> = points.iter().map(|&(s, v)| s / v).collect();
-        straight_line(&x, &y).and_then(|(slope, intercept)| {
+        straight_line(&x, &y).and_then(|Line { slope, intercept }| {
             finite_estimate(1.0 / slope, intercept / slope, slope, intercept, n_points)
         })
     } else {
@@ -445,16 +423,6 @@ fn profiled_vmax(substrate: &[f64], rate: &[f64], km: f64) -> f64 {
     sum_fv / sum_ff
 }
 
-fn median(values: &mut [f64]) -> f64 {
-    values.sort_by(f64::total_cmp);
-    let middle = values.len() / 2;
-    if values.len().is_multiple_of(2) {
-        0.5 * (values[middle - 1] + values[middle])
-    } else {
-        values[middle]
-    }
-}
-
 /// Number of log-spaced Km values tried for the start.
 const START_GRID_POINTS: usize = 61;
 
@@ -468,8 +436,8 @@ fn data_derived_start(substrate: &[f64], rate: &[f64], data: &ValidatedData) -> 
     let maximum_rate = rate
         .iter()
         .fold(f64::NEG_INFINITY, |largest, &value| largest.max(value));
-    let mut positive_substrate: Vec<f64> = substrate.iter().copied().filter(|&value| value > 0.0).collect();
-    let median_substrate = median(&mut positive_substrate);
+    let median_substrate =
+        median(substrate.iter().copied().filter(|&value| value > 0.0)).unwrap_or(data.highest_substrate);
     let fallback = (
         [1.2 * maximum_rate, median_substrate],
         StartMethod::MaximumRateAndMedianSubstrate,
@@ -522,6 +490,30 @@ pub fn fit_michaelis_menten(
         ..options.least_squares.clone()
     };
     let fit = fit_least_squares(&model, &start, &least_squares_options)?;
+    describe_michaelis_menten(
+        substrate,
+        rate,
+        &fit,
+        start,
+        start_method,
+        options.keep_parameters_positive,
+    )
+}
+
+/// Everything [`fit_michaelis_menten`] reports, from a least-squares fit of `[Vmax, Km]` to these
+/// points that has already been made (by [`fit_michaelis_menten`], or by the general rate-law fit
+/// when a group's model is Michaelis-Menten, so that one fit serves every number reported):
+/// estimates with their intervals and `determined` flags, Vmax/Km with its delta-method standard
+/// error, the design warnings and the linearised diagnostics.
+pub fn describe_michaelis_menten(
+    substrate: &[f64],
+    rate: &[f64],
+    fit: &LeastSquaresFit,
+    start: [f64; 2],
+    start_method: StartMethod,
+    parameters_kept_positive: bool,
+) -> Result<MichaelisMentenFit, FitError> {
+    let data = validate_data(substrate, rate)?;
     let degrees_of_freedom = fit.degrees_of_freedom;
     let (vmax_value, km_value) = (fit.parameters[0], fit.parameters[1]);
     let standard_errors = fit.standard_errors.clone();
@@ -671,7 +663,7 @@ pub fn fit_michaelis_menten(
         converged,
         start,
         start_method,
-        parameters_kept_positive: options.keep_parameters_positive,
+        parameters_kept_positive,
         linearised: linearised_estimates(substrate, rate),
         warnings,
     })

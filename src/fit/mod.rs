@@ -17,8 +17,9 @@ pub use least_squares::{
     StopReason,
 };
 pub use michaelis_menten::{
-    fit_michaelis_menten, linearised_estimates, michaelis_menten_rate, turnover_estimates,
-    vmax_over_km_delta_method, LinearisedEstimate, LinearisedEstimates, MichaelisMentenFit,
-    MichaelisMentenModel, MichaelisMentenOptions, ParameterEstimate, SpecificityModel, StartMethod,
-    TurnoverEstimates, MAXIMUM_RELATIVE_STANDARD_ERROR, SUBSTRATE_ABOVE_KM_FACTOR, SUBSTRATE_BELOW_KM_FACTOR,
+    describe_michaelis_menten, fit_michaelis_menten, linearised_estimates, michaelis_menten_rate,
+    turnover_estimates, vmax_over_km_delta_method, LinearisedEstimate, LinearisedEstimates,
+    MichaelisMentenFit, MichaelisMentenModel, MichaelisMentenOptions, ParameterEstimate, SpecificityModel,
+    StartMethod, TurnoverEstimates, MAXIMUM_RELATIVE_STANDARD_ERROR, SUBSTRATE_ABOVE_KM_FACTOR,
+    SUBSTRATE_BELOW_KM_FACTOR,
 };

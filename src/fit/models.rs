@@ -44,56 +44,9 @@ use serde::Serialize;
 use super::least_squares::{
     fit_least_squares, FitError, LeastSquaresFit, LeastSquaresOptions, ResidualModel,
 };
-
-/// The rate laws platekin fits.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize)]
-#[serde(rename_all = "kebab-case")]
-pub enum RateModelKind {
-    MichaelisMenten,
-    SubstrateInhibition,
-    Hill,
-    Competitive,
-    Uncompetitive,
-    Noncompetitive,
-    Mixed,
-    Morrison,
-    Ic50,
-}
-
-/// Every kind, in a fixed order.
-pub const ALL_RATE_MODELS: [RateModelKind; 9] = [
-    RateModelKind::MichaelisMenten,
-    RateModelKind::SubstrateInhibition,
-    RateModelKind::Hill,
-    RateModelKind::Competitive,
-    RateModelKind::Uncompetitive,
-    RateModelKind::Noncompetitive,
-    RateModelKind::Mixed,
-    RateModelKind::Morrison,
-    RateModelKind::Ic50,
-];
+pub use crate::config::{RateModelKind, Weighting, ALL_RATE_MODELS};
 
 impl RateModelKind {
-    /// The name used on the command line and in `fit.json`.
-    pub fn name(self) -> &'static str {
-        match self {
-            RateModelKind::MichaelisMenten => "michaelis-menten",
-            RateModelKind::SubstrateInhibition => "substrate-inhibition",
-            RateModelKind::Hill => "hill",
-            RateModelKind::Competitive => "competitive",
-            RateModelKind::Uncompetitive => "uncompetitive",
-            RateModelKind::Noncompetitive => "noncompetitive",
-            RateModelKind::Mixed => "mixed",
-            RateModelKind::Morrison => "morrison",
-            RateModelKind::Ic50 => "ic50",
-        }
-    }
-
-    /// Parses a command-line name.
-    pub fn from_name(name: &str) -> Option<RateModelKind> {
-        ALL_RATE_MODELS.into_iter().find(|kind| kind.name() == name)
-    }
-
     /// Names of the fitted parameters, in order (inverse constants are `1/Ki` and so on).
     pub fn parameter_names(self) -> &'static [&'static str] {
         match self {
@@ -150,12 +103,6 @@ impl RateModelKind {
             }
             RateModelKind::Ic50 => "v = bottom + (top - bottom) / (1 + (I/IC50)^h)",
         }
-    }
-}
-
-impl std::fmt::Display for RateModelKind {
-    fn fmt(&self, formatter: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        formatter.write_str(self.name())
     }
 }
 
@@ -265,34 +212,6 @@ pub fn predict_rate(
             gradient[3] = -span * fraction * fraction * power * ratio.ln();
             bottom + span * fraction
         }
-    }
-}
-
-/// How the points are weighted.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Default)]
-#[serde(rename_all = "kebab-case")]
-pub enum Weighting {
-    /// Every point weight 1 (constant absolute error).
-    #[default]
-    None,
-    /// `1 / v^2` from the observed rate (constant relative error).
-    Relative,
-    /// `1 / sd^2` from each point's replicate standard deviation.
-    ReplicateSd,
-}
-
-impl Weighting {
-    pub fn name(self) -> &'static str {
-        match self {
-            Weighting::None => "none",
-            Weighting::Relative => "relative",
-            Weighting::ReplicateSd => "replicate-sd",
-        }
-    }
-    pub fn from_name(name: &str) -> Option<Weighting> {
-        [Weighting::None, Weighting::Relative, Weighting::ReplicateSd]
-            .into_iter()
-            .find(|weighting| weighting.name() == name)
     }
 }
 
@@ -733,7 +652,7 @@ pub fn start_candidates(kind: RateModelKind, data: &RateData) -> Vec<Vec<f64>> {
                     .filter(|(&i, _)| i == level)
                     .map(|(_, &v)| v)
                     .collect();
-                values.iter().sum::<f64>() / values.len().max(1) as f64
+                crate::core::stats::mean(&values).unwrap_or(0.0)
             };
             let top = mean_at(lowest_inhibitor);
             let bottom = mean_at(highest_inhibitor).min(top);

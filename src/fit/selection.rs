@@ -26,7 +26,6 @@
 //! memory.
 
 use serde::Serialize;
-use statrs::distribution::{ContinuousCDF, FisherSnedecor};
 
 use super::inference::{
     fit_with_loss, profile_intervals, reported_constants, residual_bootstrap, BootstrapResult,
@@ -34,31 +33,9 @@ use super::inference::{
 };
 use super::least_squares::LeastSquaresOptions;
 use super::models::{ModelFitError, RateData, RateModelFit, RateModelKind, Weighting};
-
-/// Which model to fit.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
-pub enum ModelRequest {
-    /// Fit the candidates and keep the one the data support.
-    Auto,
-    /// Fit this one model.
-    Fixed(RateModelKind),
-}
-
-impl ModelRequest {
-    pub fn name(self) -> &'static str {
-        match self {
-            ModelRequest::Auto => "auto",
-            ModelRequest::Fixed(kind) => kind.name(),
-        }
-    }
-    pub fn from_name(name: &str) -> Option<ModelRequest> {
-        if name == "auto" {
-            Some(ModelRequest::Auto)
-        } else {
-            RateModelKind::from_name(name).map(ModelRequest::Fixed)
-        }
-    }
-}
+pub use crate::config::ModelRequest;
+pub use crate::core::stats::aicc;
+use crate::core::stats::extra_sum_of_squares;
 
 /// Settings of [`analyse_rates`].
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -89,15 +66,6 @@ impl Default for ModelSettings {
     }
 }
 
-/// `n ln(RSS/n) + 2k + 2k(k+1)/(n-k-1)`; `None` when `n <= k + 1` or RSS is not positive.
-pub fn aicc(n: usize, k: usize, rss: f64) -> Option<f64> {
-    if n <= k + 1 || !(rss > 0.0 && rss.is_finite()) {
-        return None;
-    }
-    let (n, k) = (n as f64, k as f64);
-    Some(n * (rss / n).ln() + 2.0 * k + 2.0 * k * (k + 1.0) / (n - k - 1.0))
-}
-
 /// One extra-sum-of-squares F test.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct FTest {
@@ -117,19 +85,13 @@ pub fn extra_sum_of_squares_test(
 ) -> Option<FTest> {
     let (simple_kind, simple_p, simple_rss) = simpler;
     let (full_kind, full_p, full_rss) = fuller;
-    if full_p <= simple_p || n <= full_p || full_rss.is_nan() || full_rss <= 0.0 {
-        return None;
-    }
-    let numerator_dof = full_p - simple_p;
-    let denominator_dof = n - full_p;
-    let f = ((simple_rss - full_rss).max(0.0) / numerator_dof as f64) / (full_rss / denominator_dof as f64);
-    let distribution = FisherSnedecor::new(numerator_dof as f64, denominator_dof as f64).ok()?;
+    let test = extra_sum_of_squares(n, (simple_p, simple_rss), (full_p, full_rss))?;
     Some(FTest {
         simpler: simple_kind,
         fuller: full_kind,
-        f,
-        degrees_of_freedom: [numerator_dof, denominator_dof],
-        p_value: 1.0 - distribution.cdf(f),
+        f: test.f,
+        degrees_of_freedom: test.degrees_of_freedom,
+        p_value: test.p_value,
     })
 }
 
@@ -649,14 +611,6 @@ mod tests {
 
     fn constant<'a>(analysis: &'a ModelAnalysis, name: &str) -> &'a ConstantEstimate {
         analysis.constants.iter().find(|c| c.name == name).unwrap()
-    }
-
-    #[test]
-    fn aicc_matches_its_formula_and_refuses_too_few_points() {
-        // n = 10, k = 2, RSS = 5: 10 ln 0.5 + 4 + 12/7 (hand-computed from the formula).
-        let expected = 10.0 * 0.5f64.ln() + 4.0 + 12.0 / 7.0;
-        assert!((aicc(10, 2, 5.0).unwrap() - expected).abs() < 1e-12);
-        assert_eq!(aicc(3, 2, 1.0), None);
     }
 
     #[test]

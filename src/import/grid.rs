@@ -2,8 +2,8 @@
 //! `t = 90 s`, `Cycle 3, Time 0:01:30`), optionally a temperature line, a row of column numbers
 //! (first cell empty or a label) and one row per plate-row letter (`A`, `B`, ...).
 
-use crate::cells::{Cell, CellGrid};
-use crate::plate::{parse_row_letters, row_label, WellId};
+use crate::core::cells::{Cell, CellGrid};
+use crate::core::plate::{parse_row_letters, row_label, WellId};
 
 use super::time::{parse_block_line, BlockTime, HeaderTimeUnit};
 use super::{
@@ -239,7 +239,7 @@ fn assemble(
         return Err(ImportError::NoShape {
             origin: grid.source.clone(),
             searched: format!("rows 1-{}", grid.rows.len()),
-            looked_for: DataShape::Grid.looked_for().to_string(),
+            looked_for: super::shape_looked_for(DataShape::Grid).to_string(),
         });
     };
     if wells.is_empty() {

@@ -2,9 +2,9 @@
 //! column (named `value`, `absorbance`, `signal`, `OD`, or else the one remaining numeric
 //! column). Reads are matched across wells by time: the reads are the sorted distinct times.
 
-use crate::cells::{column_letters, Cell, CellGrid};
-use crate::plate::WellId;
-use crate::units::split_header_unit;
+use crate::core::cells::{column_letters, Cell, CellGrid};
+use crate::core::plate::WellId;
+use crate::core::units::split_header_unit;
 
 use super::time::{classify_header, raw_time_of_cell, HeaderKind, HeaderTimeUnit};
 use super::{

@@ -8,139 +8,23 @@
 
 mod grid;
 mod long;
-mod report;
 #[cfg(test)]
 mod tests;
 mod time;
 mod wide;
 
-use std::fmt;
 use std::io::Cursor;
-use std::path::Path;
-use std::str::FromStr;
 
 use calamine::Reader;
 
-use crate::cells::{Cell, CellGrid, Position, Source};
-use crate::plate::{PlateFormat, WellId};
-use crate::sheet_reader::{read_cells, read_spreadsheet_cells, SheetReadError};
-use crate::units::TimeUnit;
-
-pub use report::inspect_report;
+pub use crate::config::{DataShape, ImportOptions, ShortRowPolicy};
+use crate::core::cells::{Cell, CellGrid, Position, Source};
+use crate::core::plate::{PlateFormat, WellId};
+use crate::core::units::TimeUnit;
+use crate::files::input::InputFile;
+use crate::files::sheet::{read_input_cells, read_spreadsheet_cells, SheetReadError};
 
 use time::{classify_header, HeaderKind, HeaderTimeUnit, RawTime, TimeTextError};
-
-/// The layout of a kinetic export.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum DataShape {
-    /// One header row: a time column and one column per well; one row per read.
-    Wide,
-    /// One plate-shaped block per read (rows A, B, ... by columns 1, 2, ...) under a time line.
-    Grid,
-    /// One row per well per read, with well, time and value columns.
-    Long,
-}
-
-impl DataShape {
-    /// Every shape, in the order detection tries them on one row.
-    pub const ALL: [DataShape; 3] = [Self::Wide, Self::Grid, Self::Long];
-
-    /// The lowercase name used on the command line and in reports.
-    pub fn name(self) -> &'static str {
-        match self {
-            Self::Wide => "wide",
-            Self::Grid => "grid",
-            Self::Long => "long",
-        }
-    }
-
-    /// What detection looks for, for the "no shape recognised" error.
-    fn looked_for(self) -> &'static str {
-        match self {
-            Self::Wide => {
-                "a wide header row (a time column such as `Time [s]` beside well columns `A1` or `A01`)"
-            }
-            Self::Grid => {
-                "a grid block (a row of column numbers 1, 2, 3, ... followed by rows starting A, B, ...)"
-            }
-            Self::Long => {
-                "a long table (a header row with a `well` column, a time column and a value column)"
-            }
-        }
-    }
-}
-
-impl fmt::Display for DataShape {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(self.name())
-    }
-}
-
-impl FromStr for DataShape {
-    type Err = String;
-
-    fn from_str(text: &str) -> Result<Self, Self::Err> {
-        match text.trim().to_ascii_lowercase().as_str() {
-            "wide" => Ok(Self::Wide),
-            "grid" => Ok(Self::Grid),
-            "long" => Ok(Self::Long),
-            other => Err(format!(
-                "unknown data shape '{other}' (expected wide, grid or long)"
-            )),
-        }
-    }
-}
-
-/// What to do with a data row cut short (an aborted read).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Default, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum ShortRowPolicy {
-    /// Stop with an error naming the line.
-    Refuse,
-    /// Keep the read; its missing cells become unreadable and a warning names the line.
-    #[default]
-    #[serde(rename = "unreadable")]
-    TreatAsUnreadable,
-}
-
-impl fmt::Display for ShortRowPolicy {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(match self {
-            Self::Refuse => "refuse",
-            Self::TreatAsUnreadable => "unreadable",
-        })
-    }
-}
-
-impl FromStr for ShortRowPolicy {
-    type Err = String;
-
-    fn from_str(text: &str) -> Result<Self, Self::Err> {
-        match text.trim().to_ascii_lowercase().as_str() {
-            "refuse" => Ok(Self::Refuse),
-            "unreadable" => Ok(Self::TreatAsUnreadable),
-            other => Err(format!(
-                "unknown short-row policy '{other}' (expected refuse or unreadable)"
-            )),
-        }
-    }
-}
-
-/// How to read an export. The default detects everything.
-#[derive(Debug, Clone, Default, PartialEq)]
-pub struct ImportOptions {
-    /// Force a shape instead of detecting it.
-    pub shape: Option<DataShape>,
-    /// The unit of plain-number times (needed when no header or block line states one).
-    pub time_unit: Option<TimeUnit>,
-    /// The plate format, instead of inferring it from the well IDs.
-    pub plate: Option<PlateFormat>,
-    /// The spreadsheet sheet to read (default: the first sheet holding kinetic data).
-    pub sheet: Option<String>,
-    /// What to do with rows cut short.
-    pub short_rows: ShortRowPolicy,
-}
 
 /// A kinetic export read into per-well traces.
 #[derive(Debug, Clone, PartialEq)]
@@ -320,23 +204,23 @@ pub enum ImportError {
     },
 }
 
-/// Reads an export from a file. Spreadsheets: `options.sheet`, else the first sheet holding
-/// kinetic data (sheets holding none are skipped with a warning).
-pub fn import_data(path: &Path, options: &ImportOptions) -> Result<KineticData, ImportError> {
-    if options.sheet.is_none() && crate::sheet_reader::is_spreadsheet(path) {
-        return import_first_sheet_with_data(path, options);
+/// Reads an export from an input file's bytes. Spreadsheets: `options.sheet`, else the first
+/// sheet holding kinetic data (sheets holding none are skipped with a warning).
+pub fn import_data(input: &InputFile, options: &ImportOptions) -> Result<KineticData, ImportError> {
+    if options.sheet.is_none() && input.is_spreadsheet() {
+        return import_first_sheet_with_data(input, options);
     }
-    let grid = read_cells(path, options.sheet.as_deref())?;
+    let grid = read_input_cells(input, options.sheet.as_deref())?;
     import_cells(&grid, options)
 }
 
 /// Tries the sheets in order and imports the first that holds a table of a known shape.
-fn import_first_sheet_with_data(path: &Path, options: &ImportOptions) -> Result<KineticData, ImportError> {
-    let file = path.display().to_string();
-    let bytes = std::fs::read(path).map_err(|error| SheetReadError::Unreadable {
-        file: file.clone(),
-        message: error.to_string(),
-    })?;
+fn import_first_sheet_with_data(
+    input: &InputFile,
+    options: &ImportOptions,
+) -> Result<KineticData, ImportError> {
+    let file = input.name.clone();
+    let bytes = &input.bytes;
     let names = calamine::open_workbook_auto_from_rs(Cursor::new(bytes.as_slice()))
         .map_err(|error| SheetReadError::BadSpreadsheet {
             file: file.clone(),
@@ -346,7 +230,7 @@ fn import_first_sheet_with_data(path: &Path, options: &ImportOptions) -> Result<
     let mut skipped: Vec<String> = Vec::new();
     let mut first_error: Option<ImportError> = None;
     for name in &names {
-        let grid = read_spreadsheet_cells(&bytes, &file, Some(name))?;
+        let grid = read_spreadsheet_cells(bytes, &file, Some(name))?;
         if grid.rows.iter().all(|row| row.iter().all(Cell::is_empty)) {
             continue;
         }
@@ -378,12 +262,27 @@ fn import_first_sheet_with_data(path: &Path, options: &ImportOptions) -> Result<
     }
 }
 
+/// What detection looks for in each shape, for the "no shape recognised" error.
+pub(crate) fn shape_looked_for(shape: DataShape) -> &'static str {
+    match shape {
+        DataShape::Wide => {
+            "a wide header row (a time column such as `Time [s]` beside well columns `A1` or `A01`)"
+        }
+        DataShape::Grid => {
+            "a grid block (a row of column numbers 1, 2, 3, ... followed by rows starting A, B, ...)"
+        }
+        DataShape::Long => {
+            "a long table (a header row with a `well` column, a time column and a value column)"
+        }
+    }
+}
+
 /// What detection looks for, in words, for the shapes allowed.
 fn looked_for(forced: Option<DataShape>) -> String {
     let shapes: Vec<&str> = DataShape::ALL
         .into_iter()
         .filter(|shape| forced.is_none_or(|forced| forced == *shape))
-        .map(DataShape::looked_for)
+        .map(shape_looked_for)
         .collect();
     shapes.join("; or ")
 }

@@ -4,9 +4,12 @@
 
 use proptest::prelude::*;
 
+use std::path::Path;
+
 use super::*;
-use crate::plate::WellId;
-use crate::sheet_reader::read_text_cells;
+use crate::core::plate::WellId;
+use crate::files::input::{InputFile, InputRole};
+use crate::files::sheet::read_text_cells;
 
 /// Imports a text table given in memory, as if read from `run.csv`.
 fn import_text(text: &str, options: &ImportOptions) -> Result<KineticData, ImportError> {
@@ -484,7 +487,7 @@ fn grid_with_1536_rows() {
     text.push_str(&(1..=48).map(|c| c.to_string()).collect::<Vec<_>>().join(","));
     text.push('\n');
     for row in 0..32u16 {
-        text.push_str(&crate::plate::row_label(row));
+        text.push_str(&crate::core::plate::row_label(row));
         for column in 0..48 {
             text.push_str(&format!(",{}", row * 100 + column));
         }
@@ -596,11 +599,9 @@ fn shapes_and_policies_parse_and_serialise() {
     );
 }
 
-#[test]
-fn missing_file_is_a_read_error_naming_it() {
-    let error = import_data(Path::new("no-such-run.csv"), &ImportOptions::default()).unwrap_err();
-    assert!(matches!(error, ImportError::Read(_)));
-    assert!(error.to_string().contains("no-such-run.csv"), "{error}");
+/// Reads a file once, as a run does, and imports it.
+fn import_file(path: &Path, options: &ImportOptions) -> Result<KineticData, ImportError> {
+    import_data(&InputFile::read(InputRole::Data, path).unwrap(), options)
 }
 
 /// Writes a workbook with a notes sheet, a sheet timed `h:mm:ss` and one timed `[h]:mm:ss`.
@@ -657,7 +658,7 @@ fn xlsx_time_cells_sheet_choice_and_text_sheets_skipped() {
     write_test_workbook(&path);
 
     // No sheet given: the notes sheet holds no kinetic data and is skipped, with a warning.
-    let data = import_data(&path, &ImportOptions::default()).unwrap();
+    let data = import_file(&path, &ImportOptions::default()).unwrap();
     assert_eq!(data.source.sheet.as_deref(), Some("Kinetics"));
     assert!(
         data.warnings.iter().any(|w| w.contains("sheet 'Notes'")),
@@ -680,7 +681,7 @@ fn xlsx_time_cells_sheet_choice_and_text_sheets_skipped() {
         sheet: Some("Overnight".into()),
         ..ImportOptions::default()
     };
-    let data = import_data(&path, &overnight).unwrap();
+    let data = import_file(&path, &overnight).unwrap();
     assert_eq!(data.source.sheet.as_deref(), Some("Overnight"));
     assert_eq!(data.times_s, [0.0, 43_200.0, 91_800.0]);
     assert!(data.warnings.is_empty(), "{:?}", data.warnings);
@@ -690,7 +691,7 @@ fn xlsx_time_cells_sheet_choice_and_text_sheets_skipped() {
         sheet: Some("Notes".into()),
         ..ImportOptions::default()
     };
-    let message = import_data(&path, &notes).unwrap_err().to_string();
+    let message = import_file(&path, &notes).unwrap_err().to_string();
     assert!(
         message.contains("sheet 'Notes'") && message.contains("no kinetic data"),
         "{message}"
@@ -699,76 +700,10 @@ fn xlsx_time_cells_sheet_choice_and_text_sheets_skipped() {
         sheet: Some("Absent".into()),
         ..ImportOptions::default()
     };
-    assert!(import_data(&path, &missing)
+    assert!(import_file(&path, &missing)
         .unwrap_err()
         .to_string()
         .contains("no sheet named 'Absent'"));
-}
-
-#[test]
-fn inspect_report_states_the_facts() {
-    let report = inspect_report(&import_ok(WIDE_WITH_METADATA));
-    for expected in [
-        "source            run.csv\n",
-        "shape             wide\n",
-        "plate             96 wells (8 rows x 12 columns)\n",
-        "wells found       3: A1-A2, B1\n",
-        "reads             3\n",
-        "first read        0 s\n",
-        "last read         60 s (0:01:00)\n",
-        "median step       30 s (regular)\n",
-        "temperature       30 to 30.2 \u{b0}C (3 of 3 reads)\n",
-        "unreadable cells  1 in 1 wells\n",
-        "                  A2 read 3 (t = 60 s): 'OVER' at row 7, column 4 (D)\n",
-        "warnings          1\n",
-    ] {
-        assert!(report.contains(expected), "missing {expected:?} in\n{report}");
-    }
-    assert_eq!(
-        report,
-        inspect_report(&import_ok(WIDE_WITH_METADATA)),
-        "deterministic"
-    );
-
-    let irregular = inspect_report(&import_ok("Time [s],A1\n0,1\n30,1\n61,1\n90,1\n"));
-    assert!(
-        irregular.contains("median step       30 s (irregular)\n"),
-        "{irregular}"
-    );
-    assert!(
-        irregular.contains("step range        29 s to 31 s\n"),
-        "{irregular}"
-    );
-    assert!(
-        irregular.contains("temperature       no temperature recorded\n"),
-        "{irregular}"
-    );
-    let single = inspect_report(&import_ok("Time [s],A1\n0,1\n"));
-    assert!(
-        single.contains("median step       none (a single read)\n"),
-        "{single}"
-    );
-}
-
-#[test]
-fn compact_well_lists() {
-    use super::report::compact_well_list;
-    let plate: Vec<WellId> = PlateFormat::Wells96.wells().collect();
-    assert_eq!(compact_well_list(&plate), "A1-H12");
-    let plate: Vec<WellId> = PlateFormat::Wells1536.wells().collect();
-    assert_eq!(compact_well_list(&plate), "A1-AF48");
-    let some = ["A1", "A2", "A3", "B1", "B3"].map(|w| WellId::parse(w).unwrap());
-    assert_eq!(compact_well_list(&some), "A1-A3, B1, B3");
-    let scattered: Vec<WellId> = PlateFormat::Wells384
-        .wells()
-        .filter(|w| w.column % 2 == 0)
-        .collect();
-    let text = compact_well_list(&scattered);
-    assert!(
-        text.starts_with("per plate row A: 12, B: 12") && text.ends_with("P: 12"),
-        "{text}"
-    );
-    assert_eq!(compact_well_list(&[]), "none");
 }
 
 /// Builds a wide CSV of `wells` x `reads` with values in six decimals (like an export).
@@ -791,43 +726,6 @@ fn wide_csv(wells: &[WellId], reads: usize, zero_pad: bool, value: impl Fn(usize
         text.push('\n');
     }
     text
-}
-
-/// Times the whole run on a 1536-well x 200-read wide CSV (about 2 MB). Run with
-/// `cargo test --release -- --ignored --nocapture timing`.
-#[test]
-#[ignore]
-fn timing_1536_wells_200_reads() {
-    let wells: Vec<WellId> = PlateFormat::Wells1536.wells().collect();
-    let text = wide_csv(&wells, 200, false, |read, index| {
-        0.05 + (read * 1536 + index) as f64 * 1e-6
-    });
-    let directory = tempfile::tempdir().unwrap();
-    let path = directory.path().join("plate1536.csv");
-    std::fs::write(&path, &text).unwrap();
-    let mut best = f64::INFINITY;
-    for _ in 0..5 {
-        let start = std::time::Instant::now();
-        let grid = read_cells(&path, None).unwrap();
-        let read_done = start.elapsed();
-        let data = import_cells(&grid, &ImportOptions::default()).unwrap();
-        let import_done = start.elapsed();
-        let report = inspect_report(&data);
-        let total = start.elapsed();
-        assert_eq!(data.wells.len(), 1536);
-        assert_eq!(data.times_s.len(), 200);
-        assert!(report.contains("A1-AF48"));
-        println!(
-            "{} bytes: read {:.2} ms, import {:.2} ms, report {:.2} ms, total {:.2} ms",
-            text.len(),
-            read_done.as_secs_f64() * 1e3,
-            (import_done - read_done).as_secs_f64() * 1e3,
-            (total - import_done).as_secs_f64() * 1e3,
-            total.as_secs_f64() * 1e3
-        );
-        best = best.min(total.as_secs_f64());
-    }
-    println!("best total {:.2} ms", best * 1e3);
 }
 
 proptest! {

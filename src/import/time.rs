@@ -8,10 +8,10 @@
 
 use std::str::FromStr;
 
-use crate::cells::Cell;
-use crate::plate::WellId;
-use crate::sheet_reader::parse_number;
-use crate::units::{split_header_unit, TimeUnit};
+use crate::core::cells::Cell;
+use crate::core::plate::WellId;
+use crate::core::units::{split_header_unit, TimeUnit};
+use crate::files::sheet::parse_number;
 
 /// A time as read from one cell, before any unit from elsewhere is applied.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -490,7 +490,7 @@ mod tests {
     fn text_cells(texts: &[&str]) -> Vec<Cell> {
         texts
             .iter()
-            .map(|text| crate::sheet_reader::text_cell(text, false))
+            .map(|text| crate::files::sheet::text_cell(text, false))
             .collect()
     }
 

@@ -1,7 +1,7 @@
 //! The wide shape: one header row with a time column and one column per well (`A1` or `A01`),
 //! one row per read; metadata lines may sit above the header and summary lines below the block.
 
-use crate::cells::{column_letters, Cell, CellGrid};
+use crate::core::cells::{column_letters, Cell, CellGrid};
 
 use super::time::{classify_header, raw_time_of_cell, HeaderKind, HeaderTimeUnit};
 use super::{

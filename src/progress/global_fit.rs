@@ -40,12 +40,13 @@
 
 use nalgebra::DMatrix;
 use rayon::prelude::*;
-use statrs::distribution::{ContinuousCDF, FisherSnedecor};
 
 use super::closed_form::michaelis_menten_point;
 use super::ode::{integrate_curve, CurveConstants, OdeTolerances};
-use crate::fit::{asymptotic_covariance, f_quantile, fit_least_squares, LeastSquaresOptions, ResidualModel};
-use crate::rates::median;
+use crate::core::stats::{
+    aicc, extra_sum_of_squares, f_quantile, mean, median, straight_line, t_quantile_975,
+};
+use crate::fit::{asymptotic_covariance, fit_least_squares, LeastSquaresOptions, ResidualModel};
 
 /// One well's curve, ready to fit.
 #[derive(Debug, Clone, PartialEq)]
@@ -512,15 +513,7 @@ fn rss_of<M: ResidualModel>(model: &M, parameters: &[f64]) -> f64 {
 /// Straight-line slope of the first few reads.
 fn early_slope(times: &[f64], values: &[f64]) -> Option<f64> {
     let n = times.len().min(6);
-    if n < 2 {
-        return None;
-    }
-    let (t, y) = (&times[..n], &values[..n]);
-    let mean_t = t.iter().sum::<f64>() / n as f64;
-    let mean_y = y.iter().sum::<f64>() / n as f64;
-    let sxx: f64 = t.iter().map(|v| (v - mean_t).powi(2)).sum();
-    let sxy: f64 = t.iter().zip(y).map(|(a, b)| (a - mean_t) * (b - mean_y)).sum();
-    (sxx > 0.0).then(|| sxy / sxx)
+    straight_line(&times[..n], &values[..n]).map(|line| line.slope)
 }
 
 /// Read-to-read scatter of a curve: the SD of second differences / sqrt(6) (insensitive to a
@@ -580,8 +573,8 @@ pub fn check_wells(wells: &[WellCurve]) -> Result<(), ProgressError> {
     let moves = wells.iter().any(|well| {
         let n = well.signal.len();
         let k = (n / 4).clamp(1, 3);
-        let first = well.signal[..k].iter().sum::<f64>() / k as f64;
-        let last = well.signal[n - k..].iter().sum::<f64>() / k as f64;
+        let first = mean(&well.signal[..k]).unwrap_or(0.0);
+        let last = mean(&well.signal[n - k..]).unwrap_or(0.0);
         let noise = scatter(&well.signal).max(1e-12 * first.abs().max(1.0));
         (last - first).abs() > 5.0 * noise
     });
@@ -705,11 +698,7 @@ fn summarise(
         f64::NAN
     };
     let covariance = asymptotic_covariance(&jacobian, scaled_rss);
-    let quantile = if dof > 0 {
-        crate::fit::t_quantile_975(dof).ok()
-    } else {
-        None
-    };
+    let quantile = if dof > 0 { t_quantile_975(dof).ok() } else { None };
     let names = problem.parameter_names();
     let fitted: Vec<FittedParameter> = names
         .iter()
@@ -734,13 +723,8 @@ fn summarise(
     } else {
         f64::NAN
     };
-    let k = (p + m + 1) as f64;
-    let nf = n as f64;
-    let aicc = if nf - k - 1.0 > 0.0 && rss > 0.0 {
-        nf * (rss / nf).ln() + 2.0 * k + 2.0 * k * (k + 1.0) / (nf - k - 1.0)
-    } else {
-        f64::NAN
-    };
+    // The per-well offsets and the residual variance count as parameters.
+    let aicc = aicc(n, p + m + 1, rss).unwrap_or(f64::NAN);
     let km_profile_ci95 = (options.profile_km && dof > 0)
         .then(|| profile_interval(problem, &parameters, 1, rss, dof))
         .flatten();
@@ -896,12 +880,9 @@ fn profile_interval(
 /// The extra-sum-of-squares F test of a model with one more parameter against a nested one:
 /// `F = (RSS_0 - RSS_1) / (RSS_1 / dof_1)` on (1, dof_1); returns `(F, p)`.
 pub fn extra_sum_of_squares_test(rss_nested: f64, rss_full: f64, dof_full: usize) -> Option<(f64, f64)> {
-    if dof_full == 0 || rss_full <= 0.0 {
-        return None;
-    }
-    let f = ((rss_nested - rss_full) / (rss_full / dof_full as f64)).max(0.0);
-    let distribution = FisherSnedecor::new(1.0, dof_full as f64).ok()?;
-    Some((f, 1.0 - distribution.cdf(f)))
+    // n and p only enter through n - p = dof_full and the one extra parameter.
+    let test = extra_sum_of_squares(dof_full + 1, (0, rss_nested), (1, rss_full))?;
+    Some((test.f, test.p_value))
 }
 
 /// Synthetic groups for tests and benchmarks: curves from the closed form or the ODE with

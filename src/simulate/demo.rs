@@ -12,7 +12,7 @@ use super::{
     LayoutGroup, PlantedDefect, Readout, SimulatedPlate, SimulationSpec, VariantKinetics, WellCondition,
     WellRole,
 };
-use crate::plate::{row_label, PlateFormat, WellId};
+use crate::core::plate::{row_label, PlateFormat, WellId};
 
 /// Name of the wild-type variant of the invented esterase.
 pub const DEMO_WILD_TYPE: &str = "FenA-wt";

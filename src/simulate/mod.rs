@@ -35,7 +35,7 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
 
-use crate::plate::{parse_well_selection, PlateFormat, WellId};
+use crate::core::plate::{parse_well_selection, PlateFormat, WellId};
 
 pub use demo::{demo_files, demo_readme, demo_spec, large_plate_spec};
 pub use writers::{

@@ -9,7 +9,7 @@ use std::fmt::Write as _;
 use rust_xlsxwriter::{DocProperties, ExcelDateTime, Format, Workbook, XlsxError};
 
 use super::{SimulatedPlate, SimulatedReading, WellCondition, WellRole};
-use crate::plate::{row_label, WellId};
+use crate::core::plate::{row_label, WellId};
 
 /// Seconds in a day: spreadsheet times are fractions of a day.
 const SECONDS_PER_DAY: f64 = 86_400.0;
@@ -456,7 +456,7 @@ fn csv_field(text: &str) -> String {
 mod tests {
     use super::super::{simulate, LayoutGroup, PlantedDefect, Readout, SimulationSpec, VariantKinetics};
     use super::*;
-    use crate::plate::{parse_well_selection, PlateFormat};
+    use crate::core::plate::{parse_well_selection, PlateFormat};
 
     fn plate() -> SimulatedPlate {
         let spec = SimulationSpec {

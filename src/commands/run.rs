@@ -1,0 +1,77 @@
+//! `platekin run`: one plate from its files to every output.
+
+use std::path::{Path, PathBuf};
+
+use super::CommandError;
+use crate::config::RunSettings;
+use crate::files::input::{InputFile, InputRole};
+use crate::files::output::{check_output_folder, write_outputs};
+use crate::pipeline::{run_pipeline, PlateInputs, RunResults};
+use crate::render::summary::run_summary;
+use crate::render::{render_run_outputs, InputRecord, RunRecord};
+
+/// What a completed run hands back.
+#[derive(Debug, Clone)]
+pub struct RunOutcome {
+    /// The results.
+    pub results: RunResults,
+    /// The files written.
+    pub written: Vec<PathBuf>,
+    /// The one-screen summary for stdout.
+    pub summary: String,
+}
+
+/// Runs a plate from files and writes the outputs into `out`. `progress(done, total)` reports
+/// bootstrap replicates.
+pub fn run_plate(
+    settings: &RunSettings,
+    out: &Path,
+    force: bool,
+    progress: &mut dyn FnMut(usize, usize),
+) -> Result<RunOutcome, CommandError> {
+    check_output_folder(out, force)?;
+    let inputs = PlateInputs {
+        data: InputFile::read(InputRole::Data, &settings.data)?,
+        layout: InputFile::read(InputRole::Layout, &settings.layout)?,
+    };
+    let results = run_pipeline(
+        &inputs,
+        &settings.import,
+        settings.layout_sheet.as_deref(),
+        &settings.analysis,
+        &settings.fit,
+        progress,
+    )?;
+    let record = RunRecord {
+        inputs: vec![InputRecord::of(&inputs.data), InputRecord::of(&inputs.layout)],
+        files_given: vec![inputs.data.name.clone(), inputs.layout.name.clone()],
+        data_path: Some(
+            settings
+                .data
+                .canonicalize()
+                .unwrap_or_else(|_| settings.data.clone()),
+        ),
+        used: settings.used.clone(),
+        report: settings.report,
+    };
+    let input_paths = [settings.data.clone(), settings.layout.clone()];
+    finish_run(results, &record, out, force, &input_paths)
+}
+
+/// Renders a run's outputs, writes them as one unit, and builds its summary.
+pub fn finish_run(
+    results: RunResults,
+    record: &RunRecord,
+    out: &Path,
+    force: bool,
+    input_paths: &[PathBuf],
+) -> Result<RunOutcome, CommandError> {
+    let files = render_run_outputs(&results, record)?;
+    let written = write_outputs(out, force, input_paths, &files)?;
+    let summary = run_summary(&results, record.report, out);
+    Ok(RunOutcome {
+        results,
+        written,
+        summary,
+    })
+}

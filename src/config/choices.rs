@@ -1,0 +1,439 @@
+//! The typed choices of a run: every setting that is a choice among named options is an enum here,
+//! parsed once from its word (flags or the assay file) and passed down as a value. The layers
+//! below the configuration never see the words again; the words come back only when settings are
+//! written out.
+
+use std::fmt;
+use std::str::FromStr;
+
+use serde::Serialize;
+
+use crate::core::plate::PlateFormat;
+use crate::core::units::TimeUnit;
+
+/// Which species the reader sees.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Readout {
+    /// The species read is formed: the signal rises.
+    Product,
+    /// The species read is consumed: the signal falls.
+    Substrate,
+}
+
+impl Readout {
+    /// The word the settings write.
+    pub fn word(self) -> &'static str {
+        match self {
+            Readout::Product => "product",
+            Readout::Substrate => "substrate",
+        }
+    }
+}
+
+impl std::str::FromStr for Readout {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "product" => Ok(Readout::Product),
+            "substrate" => Ok(Readout::Substrate),
+            other => Err(format!(
+                "unknown readout '{other}' (expected product or substrate)"
+            )),
+        }
+    }
+}
+
+/// When the progress-curve analysis runs for a group.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum ProgressMode {
+    /// For groups whose initial rates are suspect (depleted or nonlinear wells, conversion above
+    /// the limit).
+    Auto,
+    /// For every group.
+    Always,
+    /// Never.
+    Never,
+}
+
+impl std::str::FromStr for ProgressMode {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "auto" => Ok(ProgressMode::Auto),
+            "always" => Ok(ProgressMode::Always),
+            "never" => Ok(ProgressMode::Never),
+            other => Err(format!("unknown mode '{other}' (expected auto, always or never)")),
+        }
+    }
+}
+
+impl ProgressMode {
+    /// The word the settings write.
+    pub fn word(self) -> &'static str {
+        match self {
+            ProgressMode::Auto => "auto",
+            ProgressMode::Always => "always",
+            ProgressMode::Never => "never",
+        }
+    }
+}
+
+/// Settings of the progress-curve analysis.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct ProgressSettings {
+    /// When it runs.
+    pub mode: ProgressMode,
+    /// Time from the start of the reaction to the reads' time zero, s.
+    pub dead_time_s: f64,
+    /// Estimate one shared dead time per group.
+    pub fit_dead_time: bool,
+    /// Take each well's S0 from its own first signal (substrate readout) instead of the layout.
+    pub s0_from_signal: bool,
+}
+
+impl Default for ProgressSettings {
+    fn default() -> Self {
+        ProgressSettings {
+            mode: ProgressMode::Auto,
+            dead_time_s: 0.0,
+            fit_dead_time: false,
+            s0_from_signal: false,
+        }
+    }
+}
+
+/// The layout of a kinetic export.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum DataShape {
+    /// One header row: a time column and one column per well; one row per read.
+    Wide,
+    /// One plate-shaped block per read (rows A, B, ... by columns 1, 2, ...) under a time line.
+    Grid,
+    /// One row per well per read, with well, time and value columns.
+    Long,
+}
+
+impl DataShape {
+    /// Every shape, in the order detection tries them on one row.
+    pub const ALL: [DataShape; 3] = [Self::Wide, Self::Grid, Self::Long];
+
+    /// The lowercase name used on the command line and in reports.
+    pub fn name(self) -> &'static str {
+        match self {
+            Self::Wide => "wide",
+            Self::Grid => "grid",
+            Self::Long => "long",
+        }
+    }
+}
+
+impl fmt::Display for DataShape {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+impl FromStr for DataShape {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "wide" => Ok(Self::Wide),
+            "grid" => Ok(Self::Grid),
+            "long" => Ok(Self::Long),
+            other => Err(format!(
+                "unknown data shape '{other}' (expected wide, grid or long)"
+            )),
+        }
+    }
+}
+
+/// What to do with a data row cut short (an aborted read).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Default, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum ShortRowPolicy {
+    /// Stop with an error naming the line.
+    Refuse,
+    /// Keep the read; its missing cells become unreadable and a warning names the line.
+    #[default]
+    #[serde(rename = "unreadable")]
+    TreatAsUnreadable,
+}
+
+impl fmt::Display for ShortRowPolicy {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            Self::Refuse => "refuse",
+            Self::TreatAsUnreadable => "unreadable",
+        })
+    }
+}
+
+impl FromStr for ShortRowPolicy {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "refuse" => Ok(Self::Refuse),
+            "unreadable" => Ok(Self::TreatAsUnreadable),
+            other => Err(format!(
+                "unknown policy '{other}' (expected refuse or unreadable)"
+            )),
+        }
+    }
+}
+
+/// How to read an export. The default detects everything.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct ImportOptions {
+    /// Force a shape instead of detecting it.
+    pub shape: Option<DataShape>,
+    /// The unit of plain-number times (needed when no header or block line states one).
+    pub time_unit: Option<TimeUnit>,
+    /// The plate format, instead of inferring it from the well IDs.
+    pub plate: Option<PlateFormat>,
+    /// The spreadsheet sheet to read (default: the first sheet holding kinetic data).
+    pub sheet: Option<String>,
+    /// What to do with rows cut short.
+    pub short_rows: ShortRowPolicy,
+}
+
+/// The rate laws platekin fits.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum RateModelKind {
+    MichaelisMenten,
+    SubstrateInhibition,
+    Hill,
+    Competitive,
+    Uncompetitive,
+    Noncompetitive,
+    Mixed,
+    Morrison,
+    Ic50,
+}
+
+/// Every kind, in a fixed order.
+pub const ALL_RATE_MODELS: [RateModelKind; 9] = [
+    RateModelKind::MichaelisMenten,
+    RateModelKind::SubstrateInhibition,
+    RateModelKind::Hill,
+    RateModelKind::Competitive,
+    RateModelKind::Uncompetitive,
+    RateModelKind::Noncompetitive,
+    RateModelKind::Mixed,
+    RateModelKind::Morrison,
+    RateModelKind::Ic50,
+];
+
+impl RateModelKind {
+    /// The name used on the command line and in `fit.json`.
+    pub fn name(self) -> &'static str {
+        match self {
+            RateModelKind::MichaelisMenten => "michaelis-menten",
+            RateModelKind::SubstrateInhibition => "substrate-inhibition",
+            RateModelKind::Hill => "hill",
+            RateModelKind::Competitive => "competitive",
+            RateModelKind::Uncompetitive => "uncompetitive",
+            RateModelKind::Noncompetitive => "noncompetitive",
+            RateModelKind::Mixed => "mixed",
+            RateModelKind::Morrison => "morrison",
+            RateModelKind::Ic50 => "ic50",
+        }
+    }
+
+    /// Parses a command-line name.
+    pub fn from_name(name: &str) -> Option<RateModelKind> {
+        ALL_RATE_MODELS.into_iter().find(|kind| kind.name() == name)
+    }
+}
+
+impl fmt::Display for RateModelKind {
+    fn fmt(&self, formatter: &mut fmt::Formatter<'_>) -> fmt::Result {
+        formatter.write_str(self.name())
+    }
+}
+
+/// How the points are weighted.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Default)]
+#[serde(rename_all = "kebab-case")]
+pub enum Weighting {
+    /// Every point weight 1 (constant absolute error).
+    #[default]
+    None,
+    /// `1 / v^2` from the observed rate (constant relative error).
+    Relative,
+    /// `1 / sd^2` from each point's replicate standard deviation.
+    ReplicateSd,
+}
+
+impl Weighting {
+    pub fn name(self) -> &'static str {
+        match self {
+            Weighting::None => "none",
+            Weighting::Relative => "relative",
+            Weighting::ReplicateSd => "replicate-sd",
+        }
+    }
+    pub fn from_name(name: &str) -> Option<Weighting> {
+        [Weighting::None, Weighting::Relative, Weighting::ReplicateSd]
+            .into_iter()
+            .find(|weighting| weighting.name() == name)
+    }
+}
+
+/// The loss minimised.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Default)]
+#[serde(rename_all = "kebab-case")]
+pub enum RobustLoss {
+    /// Plain (weighted) least squares.
+    #[default]
+    None,
+    /// Huber's loss, `c = 1.345` robust standard deviations.
+    Huber,
+}
+
+impl RobustLoss {
+    pub fn name(self) -> &'static str {
+        match self {
+            RobustLoss::None => "none",
+            RobustLoss::Huber => "huber",
+        }
+    }
+    pub fn from_name(name: &str) -> Option<RobustLoss> {
+        [RobustLoss::None, RobustLoss::Huber]
+            .into_iter()
+            .find(|loss| loss.name() == name)
+    }
+}
+
+/// Settings of the residual bootstrap.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+pub struct BootstrapSettings {
+    pub replicates: usize,
+    pub seed: u64,
+}
+
+/// Which model to fit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+pub enum ModelRequest {
+    /// Fit the candidates and keep the one the data support.
+    Auto,
+    /// Fit this one model.
+    Fixed(RateModelKind),
+}
+
+impl ModelRequest {
+    pub fn name(self) -> &'static str {
+        match self {
+            ModelRequest::Auto => "auto",
+            ModelRequest::Fixed(kind) => kind.name(),
+        }
+    }
+    pub fn from_name(name: &str) -> Option<ModelRequest> {
+        if name == "auto" {
+            Some(ModelRequest::Auto)
+        } else {
+            RateModelKind::from_name(name).map(ModelRequest::Fixed)
+        }
+    }
+}
+
+/// How windows are chosen.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct RateSettings {
+    /// Fewest reads in a window.
+    pub min_points: usize,
+    /// Largest fraction of substrate converted by the window's end.
+    pub max_conversion: f64,
+    /// Reads before this time (s) are ignored.
+    pub skip_s: f64,
+    /// A fixed window (start, end) in seconds instead of the automatic choice.
+    pub fixed_window_s: Option<(f64, f64)>,
+    /// Level of the straightness tests.
+    pub alpha: f64,
+    /// Raw absorbance above which reads are not used.
+    pub max_absorbance: f64,
+}
+
+impl Default for RateSettings {
+    fn default() -> Self {
+        RateSettings {
+            min_points: 5,
+            max_conversion: 0.10,
+            skip_s: 0.0,
+            fixed_window_s: None,
+            alpha: 0.01,
+            max_absorbance: 3.0,
+        }
+    }
+}
+
+/// How much report a run writes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum ReportMode {
+    /// No report (the tables, `fit.json` and `run.json` only).
+    None,
+    /// `report.html`.
+    #[default]
+    Html,
+    /// `report.html` and one PNG per plot in `plots/`.
+    Full,
+}
+
+impl ReportMode {
+    /// The word used on the command line and in settings.
+    pub fn word(self) -> &'static str {
+        match self {
+            ReportMode::None => "none",
+            ReportMode::Html => "html",
+            ReportMode::Full => "full",
+        }
+    }
+}
+
+impl std::str::FromStr for ReportMode {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "none" => Ok(ReportMode::None),
+            "html" => Ok(ReportMode::Html),
+            "full" => Ok(ReportMode::Full),
+            other => Err(format!("unknown report '{other}' (expected none, html or full)")),
+        }
+    }
+}
+
+/// How groups are fitted.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct FitSettings {
+    /// The model asked for; `None` is the default rule (auto where a group varies the inhibitor,
+    /// else Michaelis-Menten).
+    pub model: Option<ModelRequest>,
+    pub weighting: Weighting,
+    pub loss: RobustLoss,
+    /// Profile-likelihood intervals (default true).
+    pub profile: bool,
+    pub bootstrap: Option<BootstrapSettings>,
+    /// Km (substrate unit) for the Cheng-Prusoff conversion of an IC50.
+    pub cheng_prusoff_km: Option<f64>,
+}
+
+impl Default for FitSettings {
+    fn default() -> Self {
+        FitSettings {
+            model: None,
+            weighting: Weighting::None,
+            loss: RobustLoss::None,
+            profile: true,
+            bootstrap: None,
+            cheng_prusoff_km: None,
+        }
+    }
+}

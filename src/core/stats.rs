@@ -1,0 +1,331 @@
+//! The statistics every layer shares, written once: median, mean and sample standard deviation,
+//! the ordinary least-squares straight line, Student's t and Fisher's F quantiles, AICc and the
+//! extra-sum-of-squares F test of nested models, and percentiles of a sorted sample.
+//!
+//! # Formulas
+//! * Sample SD `s = sqrt(sum (x - mean)^2 / (n - 1))`, standard error of the mean `s / sqrt(n)`.
+//! * Straight line by ordinary least squares: `slope = Sxy / Sxx`, `intercept = mean_y - slope mean_x`.
+//! * `AICc = n ln(RSS/n) + 2k + 2k(k+1)/(n-k-1)` (Hurvich and Tsai 1989, Biometrika 76:297).
+//! * Extra sum of squares, simpler model s (p_s parameters) nested in fuller model f (p_f):
+//!   `F = ((RSS_s - RSS_f) / (p_f - p_s)) / (RSS_f / (n - p_f))` on `(p_f - p_s, n - p_f)` degrees of
+//!   freedom, p value the upper tail (Bates and Watts 1988, Nonlinear Regression Analysis and Its
+//!   Applications, Wiley).
+//!
+//! Quantiles come from `statrs`' distributions.
+
+use statrs::distribution::{ContinuousCDF, FisherSnedecor, StudentsT};
+
+/// Why a quantile could not be computed (a caller's bug, not a user's input).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum QuantileError {
+    /// Degrees of freedom that are zero, negative or not finite.
+    #[error("degrees of freedom must be positive and finite for a quantile, not {dof}")]
+    InvalidDegreesOfFreedom {
+        /// The value given.
+        dof: f64,
+    },
+    /// A probability outside (0, 1).
+    #[error("a probability must lie strictly between 0 and 1, not {probability}")]
+    InvalidProbability {
+        /// The value given.
+        probability: f64,
+    },
+}
+
+/// The median of the finite values; `None` when there are none.
+pub fn median(values: impl IntoIterator<Item = f64>) -> Option<f64> {
+    let mut sorted: Vec<f64> = values.into_iter().filter(|v| v.is_finite()).collect();
+    if sorted.is_empty() {
+        return None;
+    }
+    sorted.sort_by(f64::total_cmp);
+    let middle = sorted.len() / 2;
+    Some(if sorted.len().is_multiple_of(2) {
+        0.5 * (sorted[middle - 1] + sorted[middle])
+    } else {
+        sorted[middle]
+    })
+}
+
+/// The mean; `None` for no values.
+pub fn mean(values: &[f64]) -> Option<f64> {
+    (!values.is_empty()).then(|| values.iter().sum::<f64>() / values.len() as f64)
+}
+
+/// Mean and sample SD of a sample.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Summary {
+    /// How many values.
+    pub n: usize,
+    /// Their mean.
+    pub mean: f64,
+    /// Sample SD (n - 1 in the denominator); `None` below two values.
+    pub sd: Option<f64>,
+}
+
+impl Summary {
+    /// Standard error of the mean, `sd / sqrt(n)`.
+    pub fn sem(&self) -> Option<f64> {
+        self.sd.map(|sd| sd / (self.n as f64).sqrt())
+    }
+}
+
+/// Mean and sample SD; `None` for no values.
+pub fn summary(values: &[f64]) -> Option<Summary> {
+    let mean = mean(values)?;
+    let n = values.len();
+    let sd =
+        (n >= 2).then(|| (values.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1) as f64).sqrt());
+    Some(Summary { n, mean, sd })
+}
+
+/// A straight line `y = intercept + slope x`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Line {
+    /// dy/dx.
+    pub slope: f64,
+    /// y at x = 0.
+    pub intercept: f64,
+}
+
+impl Line {
+    /// The line's value at `x`.
+    pub fn at(&self, x: f64) -> f64 {
+        self.intercept + self.slope * x
+    }
+}
+
+/// Ordinary least-squares line through `(x, y)`; `None` without two distinct x values (relative to
+/// the x values' size) or when the result is not finite.
+pub fn straight_line(x: &[f64], y: &[f64]) -> Option<Line> {
+    let count = x.len().min(y.len());
+    if count < 2 {
+        return None;
+    }
+    let (x, y) = (&x[..count], &y[..count]);
+    let mean_x = x.iter().sum::<f64>() / count as f64;
+    let mean_y = y.iter().sum::<f64>() / count as f64;
+    let mut sum_xx = 0.0;
+    let mut sum_xy = 0.0;
+    for (&xi, &yi) in x.iter().zip(y) {
+        sum_xx += (xi - mean_x) * (xi - mean_x);
+        sum_xy += (xi - mean_x) * (yi - mean_y);
+    }
+    let largest_x = x.iter().fold(0.0_f64, |largest, value| largest.max(value.abs()));
+    if sum_xx.is_nan() || sum_xx <= (f64::EPSILON * largest_x).powi(2) * count as f64 {
+        return None;
+    }
+    let slope = sum_xy / sum_xx;
+    let intercept = mean_y - slope * mean_x;
+    (slope.is_finite() && intercept.is_finite()).then_some(Line { slope, intercept })
+}
+
+/// Quantile of Student's t distribution: the `t` with `P(T <= t) = probability`.
+pub fn t_quantile(probability: f64, degrees_of_freedom: f64) -> Result<f64, QuantileError> {
+    if !(probability > 0.0 && probability < 1.0) {
+        return Err(QuantileError::InvalidProbability { probability });
+    }
+    let invalid = QuantileError::InvalidDegreesOfFreedom {
+        dof: degrees_of_freedom,
+    };
+    if !(degrees_of_freedom > 0.0 && degrees_of_freedom.is_finite()) {
+        return Err(invalid);
+    }
+    let distribution = StudentsT::new(0.0, 1.0, degrees_of_freedom).map_err(|_| invalid)?;
+    Ok(distribution.inverse_cdf(probability))
+}
+
+/// `t(0.975, dof)`, the multiplier of a two-sided 95% interval.
+pub fn t_quantile_975(degrees_of_freedom: usize) -> Result<f64, QuantileError> {
+    t_quantile(0.975, degrees_of_freedom as f64)
+}
+
+/// The two-sided critical value of Student's t at level `alpha` (the `1 - alpha/2` quantile);
+/// infinite for zero degrees of freedom, so a test with no residual freedom never rejects.
+pub fn t_critical(alpha: f64, degrees_of_freedom: usize) -> f64 {
+    if degrees_of_freedom == 0 {
+        return f64::INFINITY;
+    }
+    t_quantile(1.0 - alpha / 2.0, degrees_of_freedom as f64).unwrap_or(f64::INFINITY)
+}
+
+/// Quantile of the F distribution with `(numerator, denominator)` degrees of freedom.
+pub fn f_quantile(
+    probability: f64,
+    numerator_degrees_of_freedom: f64,
+    denominator_degrees_of_freedom: f64,
+) -> Result<f64, QuantileError> {
+    if !(probability > 0.0 && probability < 1.0) {
+        return Err(QuantileError::InvalidProbability { probability });
+    }
+    for dof in [numerator_degrees_of_freedom, denominator_degrees_of_freedom] {
+        if !(dof > 0.0 && dof.is_finite()) {
+            return Err(QuantileError::InvalidDegreesOfFreedom { dof });
+        }
+    }
+    let distribution = FisherSnedecor::new(numerator_degrees_of_freedom, denominator_degrees_of_freedom)
+        .map_err(|_| QuantileError::InvalidDegreesOfFreedom {
+            dof: numerator_degrees_of_freedom,
+        })?;
+    Ok(distribution.inverse_cdf(probability))
+}
+
+/// `n ln(RSS/n) + 2k + 2k(k+1)/(n-k-1)`; `None` when `n <= k + 1` or RSS is not positive.
+pub fn aicc(n: usize, k: usize, rss: f64) -> Option<f64> {
+    if n <= k + 1 || !(rss > 0.0 && rss.is_finite()) {
+        return None;
+    }
+    let (n, k) = (n as f64, k as f64);
+    Some(n * (rss / n).ln() + 2.0 * k + 2.0 * k * (k + 1.0) / (n - k - 1.0))
+}
+
+/// One extra-sum-of-squares F test of a simpler model nested in a fuller one.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ExtraSumOfSquares {
+    /// The F statistic (0 when the fuller model fits no better).
+    pub f: f64,
+    /// `[p_f - p_s, n - p_f]`.
+    pub degrees_of_freedom: [usize; 2],
+    /// Upper-tail probability of `f`.
+    pub p_value: f64,
+}
+
+/// The F test of a simpler model (`p_simple` parameters, `rss_simple`) against a fuller one
+/// (`p_full`, `rss_full`) on `n` points; `None` when it is undefined (no extra parameter, no residual
+/// freedom, or a fuller RSS that is not positive).
+pub fn extra_sum_of_squares(
+    n: usize,
+    (p_simple, rss_simple): (usize, f64),
+    (p_full, rss_full): (usize, f64),
+) -> Option<ExtraSumOfSquares> {
+    if p_full <= p_simple || n <= p_full || rss_full.is_nan() || rss_full <= 0.0 {
+        return None;
+    }
+    let numerator_dof = p_full - p_simple;
+    let denominator_dof = n - p_full;
+    let f = ((rss_simple - rss_full).max(0.0) / numerator_dof as f64) / (rss_full / denominator_dof as f64);
+    let distribution = FisherSnedecor::new(numerator_dof as f64, denominator_dof as f64).ok()?;
+    Some(ExtraSumOfSquares {
+        f,
+        degrees_of_freedom: [numerator_dof, denominator_dof],
+        p_value: 1.0 - distribution.cdf(f),
+    })
+}
+
+/// The `fraction` percentile of an ascending sample by linear interpolation between order
+/// statistics (position `fraction (n - 1)`); NaN for an empty sample.
+pub fn percentile(sorted: &[f64], fraction: f64) -> f64 {
+    if sorted.is_empty() {
+        return f64::NAN;
+    }
+    let position = fraction.clamp(0.0, 1.0) * (sorted.len() - 1) as f64;
+    let below = position.floor() as usize;
+    let above = position.ceil() as usize;
+    let weight = position - below as f64;
+    sorted[below] * (1.0 - weight) + sorted[above] * weight
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use approx::assert_relative_eq;
+    use statrs::distribution::{ContinuousCDF, StudentsT};
+
+    #[test]
+    fn median_of_even_and_odd_counts_skips_non_finite_values() {
+        assert_eq!(median([3.0, 1.0, 2.0]), Some(2.0));
+        assert_eq!(median([4.0, 1.0, 3.0, 2.0]), Some(2.5));
+        assert_eq!(median([f64::NAN, 5.0]), Some(5.0));
+        assert_eq!(median(Vec::<f64>::new()), None);
+    }
+
+    #[test]
+    fn summary_gives_the_sample_sd_and_sem() {
+        // 2, 4, 4, 4, 5, 5, 7, 9: mean 5, sum of squares 32, sample SD sqrt(32/7).
+        let s = summary(&[2.0, 4.0, 4.0, 4.0, 5.0, 5.0, 7.0, 9.0]).unwrap();
+        assert_eq!(s.mean, 5.0);
+        assert_relative_eq!(s.sd.unwrap(), (32.0_f64 / 7.0).sqrt(), max_relative = 1e-15);
+        assert_relative_eq!(
+            s.sem().unwrap(),
+            (32.0_f64 / 7.0 / 8.0).sqrt(),
+            max_relative = 1e-15
+        );
+        assert_eq!(summary(&[1.0]).unwrap().sd, None);
+        assert!(summary(&[]).is_none());
+    }
+
+    #[test]
+    fn straight_line_recovers_an_exact_line_and_refuses_one_x() {
+        let x = [0.0, 1.0, 2.0, 3.0];
+        let y: Vec<f64> = x.iter().map(|v| 1.5 - 0.25 * v).collect();
+        let line = straight_line(&x, &y).unwrap();
+        assert_relative_eq!(line.slope, -0.25, max_relative = 1e-14);
+        assert_relative_eq!(line.intercept, 1.5, max_relative = 1e-14);
+        assert_relative_eq!(line.at(4.0), 0.5, max_relative = 1e-14);
+        assert!(straight_line(&[2.0, 2.0], &[1.0, 3.0]).is_none());
+    }
+
+    #[test]
+    fn quantiles_match_tables_and_invert_the_cdf() {
+        // t(0.975, 10) = 2.228138852 and F(0.95; 1, 10) = 4.964602744: standard table values (from
+        // memory), cross-checked below by the distribution functions themselves.
+        let t = t_quantile_975(10).unwrap();
+        assert!((t - 2.228_138_851_986).abs() < 1e-8, "t = {t}");
+        let f = f_quantile(0.95, 1.0, 10.0).unwrap();
+        assert!((f - 4.964_602_743_730_711).abs() < 1e-7, "F = {f}");
+        // F(1, d) is the square of t(d): F(0.95; 1, 10) = t(0.975, 10)^2.
+        assert!((f - t * t).abs() < 1e-8);
+        for dof in [1.0, 2.0, 4.0, 7.0, 12.0, 30.0, 100.0] {
+            for probability in [0.6, 0.9, 0.975, 0.995] {
+                let quantile = t_quantile(probability, dof).unwrap();
+                let distribution = StudentsT::new(0.0, 1.0, dof).unwrap();
+                assert!((distribution.cdf(quantile) - probability).abs() < 1e-10);
+            }
+        }
+        assert!(matches!(
+            t_quantile(1.0, 3.0),
+            Err(QuantileError::InvalidProbability { .. })
+        ));
+        assert!(matches!(
+            t_quantile_975(0),
+            Err(QuantileError::InvalidDegreesOfFreedom { .. })
+        ));
+        assert!(matches!(
+            f_quantile(0.5, 1.0, f64::NAN),
+            Err(QuantileError::InvalidDegreesOfFreedom { .. })
+        ));
+        assert_eq!(t_critical(0.05, 0), f64::INFINITY);
+        assert!((t_critical(0.05, 10) - t).abs() < 1e-12);
+        // 0.975 quantile at 1 df: 12.706 (NIST/SEMATECH e-Handbook of Statistical Methods, table
+        // 1.3.6.7.2).
+        assert!((t_critical(0.05, 1) - 12.706).abs() < 1e-3);
+    }
+
+    #[test]
+    fn aicc_matches_its_formula_and_refuses_too_few_points() {
+        let expected = 10.0 * (2.0_f64 / 10.0).ln() + 4.0 + 2.0 * 2.0 * 3.0 / 7.0;
+        assert_relative_eq!(aicc(10, 2, 2.0).unwrap(), expected, max_relative = 1e-14);
+        assert_eq!(aicc(3, 2, 1.0), None);
+        assert_eq!(aicc(10, 2, 0.0), None);
+    }
+
+    #[test]
+    fn f_test_p_value_is_the_upper_tail() {
+        // F = ((10 - 4) / 1) / (4 / 8) = 12 on (1, 8): the p value is the F(1, 8) upper tail at 12.
+        let test = extra_sum_of_squares(10, (1, 10.0), (2, 4.0)).unwrap();
+        assert_relative_eq!(test.f, 12.0, max_relative = 1e-14);
+        assert_eq!(test.degrees_of_freedom, [1, 8]);
+        let quantile = f_quantile(1.0 - test.p_value, 1.0, 8.0).unwrap();
+        assert_relative_eq!(quantile, 12.0, max_relative = 1e-8);
+        assert!(extra_sum_of_squares(10, (2, 1.0), (2, 1.0)).is_none());
+    }
+
+    #[test]
+    fn percentiles_interpolate() {
+        let sorted = [1.0, 2.0, 3.0, 4.0, 5.0];
+        assert_eq!(percentile(&sorted, 0.5), 3.0);
+        assert_eq!(percentile(&sorted, 0.25), 2.0);
+        assert_relative_eq!(percentile(&sorted, 0.1), 1.4, max_relative = 1e-14);
+        assert!(percentile(&[], 0.5).is_nan());
+    }
+}

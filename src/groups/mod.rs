@@ -1,0 +1,713 @@
+//! Rate-law fits per group: sample wells grouped by the layout's free factors and enzyme
+//! concentration, fitted on every used replicate well (not the means), with kcat and kcat/Km in
+//! SI-style units when the enzyme concentration and an extinction coefficient are known. A group
+//! whose wells vary the inhibitor gets one global fit over [S] x [I] (model `auto` unless another is
+//! asked for); otherwise the inhibitor concentration also splits groups and Michaelis-Menten is the
+//! default. The same [`fit_points`] serves `platekin fit` on rate tables ([`rate_table`]).
+//!
+//! Every number of a group's report comes from one fit: a plain Michaelis-Menten group is fitted
+//! once by the general rate-law fit, and its Michaelis-Menten description (design warnings, Vmax/Km
+//! by the reparametrised Jacobian, linearised diagnostics) is made from that same fit.
+
+pub mod rate_table;
+
+use std::collections::BTreeMap;
+
+use crate::config::{FitSettings, ModelRequest, RateModelKind, RobustLoss, Weighting};
+use crate::core::plate::WellId;
+use crate::core::stats::{summary, t_quantile_975};
+use crate::core::units::ConcentrationUnit;
+use crate::fit::inference::{ConstantEstimate, Dimension, ProfileInterval};
+use crate::fit::models::RateData;
+use crate::fit::selection::{analyse_rates, CandidateReport, FTest, ModelAnalysis, ModelSettings};
+use crate::fit::{
+    describe_michaelis_menten, linearised_estimates, turnover_estimates, vmax_over_km_delta_method,
+    LinearisedEstimates,
+};
+use crate::fit::{ParameterEstimate, StartMethod};
+use crate::layout::{Layout, Role};
+use crate::rates::{Flag, PlateAnalysis, WellResult};
+
+/// One value of a group's key: a factor's text or a concentration.
+#[derive(Debug, Clone, PartialEq)]
+pub enum GroupValue {
+    /// A factor's value (a variant, a buffer).
+    Text(String),
+    /// A concentration (enzyme, or the inhibitor level of a split group).
+    Number(f64),
+}
+
+/// What a group's wells share: factor values, enzyme and (for a split group) inhibitor
+/// concentration, by name (`variant`, `enzyme [nM]`), in name order.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct GroupKey {
+    /// The values by name.
+    pub values: BTreeMap<String, GroupValue>,
+}
+
+impl GroupKey {
+    /// The text of a factor, if the key holds it as text.
+    pub fn text(&self, name: &str) -> Option<&str> {
+        match self.values.get(name) {
+            Some(GroupValue::Text(text)) => Some(text),
+            _ => None,
+        }
+    }
+
+    fn insert(&mut self, name: String, value: GroupValue) {
+        self.values.insert(name, value);
+    }
+}
+
+/// Where a left-out point stood.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum LeftOutPlace {
+    /// A plate well.
+    Well(WellId),
+    /// A one-based row of a rate table.
+    Row(usize),
+}
+
+/// Why a point was left out of a fit.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum LeftOutReason {
+    /// The well has no rate.
+    NoRate,
+    /// The well carries flags that exclude it.
+    Flagged(Vec<Flag>),
+    /// A rate table row marked `used` false by the run that wrote it.
+    NotUsedInRun,
+    /// A rate table row without a substrate or a rate.
+    NoSubstrateOrRate,
+}
+
+/// A point left out of a fit, with the reason.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct LeftOut {
+    /// The well or row.
+    pub place: LeftOutPlace,
+    /// Why.
+    pub reason: LeftOutReason,
+}
+
+/// One reported parameter: value, uncertainty and unit (shared by the initial-rate fits and the
+/// progress-curve fits).
+#[derive(Debug, Clone, PartialEq)]
+pub struct ParameterReport {
+    /// Best estimate.
+    pub value: f64,
+    /// Asymptotic standard error.
+    pub se: Option<f64>,
+    /// Asymptotic 95% interval.
+    pub ci95: Option<[f64; 2]>,
+    /// Unit, e.g. `uM/s`, `1/s`, `1/(M*s)`.
+    pub unit: String,
+    /// False when the data cannot pin this parameter down (see the warnings).
+    pub determined: bool,
+    /// Profile-likelihood 95% interval (a `None` end: unbounded or beyond the search).
+    pub ci95_profile: Option<ProfileInterval>,
+    /// Bootstrap percentile 95% interval (`--bootstrap N`).
+    pub ci95_bootstrap: Option<[f64; 2]>,
+}
+
+impl ParameterReport {
+    fn from_estimate(estimate: &ParameterEstimate, unit: &str, scale: f64) -> ParameterReport {
+        ParameterReport {
+            value: estimate.value * scale,
+            se: estimate.standard_error.map(|se| se * scale),
+            ci95: estimate.ci95.map(|[lo, hi]| [lo * scale, hi * scale]),
+            unit: unit.to_string(),
+            determined: estimate.determined,
+            ci95_profile: None,
+            ci95_bootstrap: None,
+        }
+    }
+
+    fn from_constant(constant: &ConstantEstimate, unit: &str, scale: f64) -> ParameterReport {
+        ParameterReport {
+            value: constant.value * scale,
+            se: constant.se.map(|se| se * scale),
+            ci95: constant.ci95.map(|[lo, hi]| [lo * scale, hi * scale]),
+            unit: unit.to_string(),
+            determined: constant.determined,
+            ci95_profile: constant
+                .ci95_profile
+                .map(|[lo, hi]| [lo.map(|x| x * scale), hi.map(|x| x * scale)]),
+            ci95_bootstrap: constant.ci95_bootstrap.map(|[lo, hi]| [lo * scale, hi * scale]),
+        }
+    }
+}
+
+/// The bootstrap behind a group's percentile intervals.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct BootstrapSummary {
+    /// Replicates asked for.
+    pub replicates: usize,
+    /// Replicates whose refit converged.
+    pub converged: usize,
+    /// The seed.
+    pub seed: u64,
+}
+
+/// One group's fit.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GroupFit {
+    /// What the group's wells share.
+    pub group: GroupKey,
+    /// The model reported.
+    pub model: RateModelKind,
+    /// `Vmax`, `Km`, and where possible `kcat`, `kcat_over_Km`, and every other constant fitted.
+    pub parameters: BTreeMap<String, ParameterReport>,
+    /// Points fitted.
+    pub n: usize,
+    /// Residual standard deviation, rate units.
+    pub residual_sd: Option<f64>,
+    /// Correlation of the Vmax and Km estimates.
+    pub correlation_vmax_km: Option<f64>,
+    /// Lineweaver-Burk, Eadie-Hofstee and Hanes-Woolf estimates (diagnostics, never the answer).
+    pub linearised: Option<LinearisedEstimates>,
+    /// Whether the solver converged.
+    pub converged: bool,
+    /// Wells (or rows) fitted.
+    pub wells_used: Vec<String>,
+    /// Points of the group left out, with the reason.
+    pub wells_left_out: Vec<LeftOut>,
+    /// Plain-language warnings.
+    pub warnings: Vec<String>,
+    /// Why no fit could be made, if none was.
+    pub error: Option<String>,
+    /// The model asked for; `None`: the default rule.
+    pub model_requested: Option<ModelRequest>,
+    /// The equation of the reported model.
+    pub equation: Option<&'static str>,
+    /// Every model fitted, with its AICc, delta AICc and Akaike weight.
+    pub models_tried: Vec<CandidateReport>,
+    /// Extra-sum-of-squares F tests between nested models that were fitted.
+    pub f_tests: Vec<FTest>,
+    /// Why the reported model, in words.
+    pub model_choice: Option<String>,
+    /// Weighting used.
+    pub weighting: Weighting,
+    /// Loss used.
+    pub robust_loss: RobustLoss,
+    /// The bootstrap behind the percentile intervals, when one ran.
+    pub bootstrap: Option<BootstrapSummary>,
+}
+
+/// Whether a request fits an inhibitor-dependent model (so the inhibitor must not split groups).
+pub fn request_uses_inhibitor(request: Option<ModelRequest>) -> bool {
+    match request {
+        None | Some(ModelRequest::Auto) => true,
+        Some(ModelRequest::Fixed(kind)) => kind.needs_inhibitor(),
+    }
+}
+
+/// The key that splits sample wells into groups; the inhibitor joins it only when asked.
+fn group_key(well: &WellResult, layout: &Layout, with_inhibitor: bool) -> GroupKey {
+    let mut key = GroupKey::default();
+    for name in &layout.factor_names {
+        let value = well.setup.factors.get(name).cloned().unwrap_or_default();
+        key.insert(name.clone(), GroupValue::Text(value));
+    }
+    if let (Some(unit), Some(enzyme)) = (layout.enzyme_unit, well.setup.enzyme) {
+        key.insert(format!("enzyme [{unit}]"), GroupValue::Number(enzyme));
+    }
+    if with_inhibitor {
+        if let (Some(unit), Some(inhibitor)) = (layout.inhibitor_unit, well.setup.inhibitor) {
+            key.insert(format!("inhibitor [{unit}]"), GroupValue::Number(inhibitor));
+        }
+    }
+    key
+}
+
+/// Groups items by a key, in first-seen order.
+fn group_by<'a, T>(items: impl IntoIterator<Item = (GroupKey, &'a T)>) -> Vec<(GroupKey, Vec<&'a T>)> {
+    let mut groups: Vec<(GroupKey, Vec<&T>)> = Vec::new();
+    for (key, item) in items {
+        match groups.iter_mut().find(|(existing, _)| *existing == key) {
+            Some((_, members)) => members.push(item),
+            None => groups.push((key, vec![item])),
+        }
+    }
+    groups
+}
+
+/// The sample wells split into groups by free factors, enzyme and inhibitor, in first-seen
+/// order: the progress-curve analysis fits each such group (one inhibitor level each).
+pub fn sample_groups<'a>(
+    analysis: &'a PlateAnalysis,
+    layout: &Layout,
+) -> Vec<(GroupKey, Vec<&'a WellResult>)> {
+    group_by(
+        analysis
+            .wells
+            .iter()
+            .filter(|w| w.setup.role == Role::Sample)
+            .map(|well| (group_key(well, layout, true), well)),
+    )
+}
+
+/// Fits every group of sample wells with the default settings.
+pub fn fit_groups(analysis: &PlateAnalysis, layout: &Layout) -> Vec<GroupFit> {
+    fit_groups_with(analysis, layout, &FitSettings::default(), &mut |_, _| {})
+}
+
+/// Fits every group of sample wells. `progress(done, total)` reports bootstrap replicates.
+pub fn fit_groups_with(
+    analysis: &PlateAnalysis,
+    layout: &Layout,
+    settings: &FitSettings,
+    progress: &mut dyn FnMut(usize, usize),
+) -> Vec<GroupFit> {
+    let groups = group_by(
+        analysis
+            .wells
+            .iter()
+            .filter(|w| w.setup.role == Role::Sample)
+            .map(|well| (group_key(well, layout, false), well)),
+    );
+    // A group that varies the inhibitor stays whole only for an inhibitor model (or auto).
+    let mut split: Vec<(GroupKey, Vec<&WellResult>)> = Vec::new();
+    for (key, wells) in groups {
+        let levels = RateData::distinct(
+            &wells
+                .iter()
+                .map(|w| w.setup.inhibitor.unwrap_or(0.0))
+                .collect::<Vec<_>>(),
+        );
+        if levels.len() > 1 && request_uses_inhibitor(settings.model) {
+            split.push((key, wells));
+            continue;
+        }
+        for well in wells {
+            let key = group_key(well, layout, true);
+            match split.iter_mut().find(|(existing, _)| *existing == key) {
+                Some((_, members)) => members.push(well),
+                None => split.push((key, vec![well])),
+            }
+        }
+    }
+    split
+        .into_iter()
+        .map(|(key, wells)| fit_one_group(key, &wells, analysis, layout, settings, progress))
+        .collect()
+}
+
+/// One point of a rate table.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FitPoint {
+    /// The well or row it came from.
+    pub label: String,
+    pub substrate: f64,
+    /// 0 where there is no inhibitor.
+    pub inhibitor: f64,
+    pub rate: f64,
+    /// Replicate standard deviation, where known.
+    pub sd: Option<f64>,
+}
+
+/// Units and enzyme of a group, for the reports.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GroupUnits {
+    /// Rate unit text, e.g. `uM/s`, `AU/s`, or "" for unitless data.
+    pub rate_unit: String,
+    /// The concentration in the rate unit, when rates are concentrations per second.
+    pub rate_concentration_unit: Option<ConcentrationUnit>,
+    pub substrate_unit: Option<ConcentrationUnit>,
+    pub inhibitor_unit: Option<ConcentrationUnit>,
+    /// Text for a concentration without a unit (`substrate units` for a run, "" for unitless tables).
+    pub missing_unit_text: String,
+    /// Enzyme concentration and its unit.
+    pub enzyme: Option<(f64, ConcentrationUnit)>,
+}
+
+/// Why a well is left out of its group's fit, or `None` when it is fitted.
+pub fn left_out_reason(well: &WellResult) -> Option<LeftOutReason> {
+    match (well.used, well.setup.substrate, well.rate_value) {
+        (true, Some(_), Some(_)) => None,
+        (_, _, None) => Some(LeftOutReason::NoRate),
+        _ => Some(LeftOutReason::Flagged(well.rate.flags.clone())),
+    }
+}
+
+fn fit_one_group(
+    group: GroupKey,
+    wells: &[&WellResult],
+    analysis: &PlateAnalysis,
+    layout: &Layout,
+    settings: &FitSettings,
+    progress: &mut dyn FnMut(usize, usize),
+) -> GroupFit {
+    let mut points = Vec::new();
+    let mut left_out = Vec::new();
+    for well in wells {
+        match (left_out_reason(well), well.setup.substrate, well.rate_value) {
+            (None, Some(substrate), Some(rate)) => points.push(FitPoint {
+                label: well.well.to_string(),
+                substrate,
+                inhibitor: well.setup.inhibitor.unwrap_or(0.0),
+                rate,
+                sd: None,
+            }),
+            (reason, ..) => left_out.push(LeftOut {
+                place: LeftOutPlace::Well(well.well),
+                reason: reason.unwrap_or(LeftOutReason::NoRate),
+            }),
+        }
+    }
+    replicate_sds(&mut points);
+    let enzyme = match (wells.first().and_then(|w| w.setup.enzyme), layout.enzyme_unit) {
+        (Some(value), Some(unit)) => Some((value, unit)),
+        _ => None,
+    };
+    let units = GroupUnits {
+        rate_unit: analysis.signal.rate_unit(),
+        rate_concentration_unit: analysis.signal.concentration_unit,
+        substrate_unit: layout.substrate_unit,
+        inhibitor_unit: layout.inhibitor_unit,
+        missing_unit_text: "substrate units".to_string(),
+        enzyme,
+    };
+    let n_wells = wells.len();
+    let mut report = fit_points(group, &points, left_out, &units, settings, progress);
+    if !report.wells_left_out.is_empty() {
+        report.warnings.insert(
+            0,
+            format!(
+                "{} of {} sample wells left out (flagged or without a rate); see wells_left_out",
+                report.wells_left_out.len(),
+                n_wells
+            ),
+        );
+    }
+    report
+}
+
+/// Fills each point's `sd` with the SD of the replicate points at the same [S] and [I] (two or more).
+pub fn replicate_sds(points: &mut [FitPoint]) {
+    let conditions: Vec<(f64, f64)> = points.iter().map(|p| (p.substrate, p.inhibitor)).collect();
+    for (index, &(substrate, inhibitor)) in conditions.iter().enumerate() {
+        if points[index].sd.is_some() {
+            continue;
+        }
+        let rates: Vec<f64> = points
+            .iter()
+            .filter(|p| p.substrate == substrate && p.inhibitor == inhibitor)
+            .map(|p| p.rate)
+            .collect();
+        points[index].sd = summary(&rates).and_then(|s| s.sd);
+    }
+}
+
+fn empty_report(
+    group: GroupKey,
+    points: &[FitPoint],
+    left_out: Vec<LeftOut>,
+    settings: &FitSettings,
+) -> GroupFit {
+    GroupFit {
+        group,
+        model: RateModelKind::MichaelisMenten,
+        parameters: BTreeMap::new(),
+        n: points.len(),
+        residual_sd: None,
+        correlation_vmax_km: None,
+        linearised: None,
+        converged: false,
+        wells_used: points.iter().map(|p| p.label.clone()).collect(),
+        wells_left_out: left_out,
+        warnings: Vec::new(),
+        error: None,
+        model_requested: settings.model,
+        equation: None,
+        models_tried: Vec::new(),
+        f_tests: Vec::new(),
+        model_choice: None,
+        weighting: settings.weighting,
+        robust_loss: settings.loss,
+        bootstrap: None,
+    }
+}
+
+/// Fits one group's points and builds its report (shared by runs and `platekin fit`).
+pub fn fit_points(
+    group: GroupKey,
+    points: &[FitPoint],
+    left_out: Vec<LeftOut>,
+    units: &GroupUnits,
+    settings: &FitSettings,
+    progress: &mut dyn FnMut(usize, usize),
+) -> GroupFit {
+    let mut report = empty_report(group, points, left_out, settings);
+    let substrate: Vec<f64> = points.iter().map(|p| p.substrate).collect();
+    let inhibitor: Vec<f64> = points.iter().map(|p| p.inhibitor).collect();
+    let rates: Vec<f64> = points.iter().map(|p| p.rate).collect();
+    let sds: Option<Vec<f64>> = points.iter().map(|p| p.sd).collect();
+    if settings.weighting == Weighting::ReplicateSd && sds.is_none() {
+        let lacking: Vec<&str> = points
+            .iter()
+            .filter(|p| p.sd.is_none())
+            .map(|p| p.label.as_str())
+            .collect();
+        report.error = Some(format!(
+            "no fit: replicate-SD weighting needs an SD at every point (an sd column, or at least two \
+             replicates at the same [S] and [I]); none for {}",
+            lacking.join(", ")
+        ));
+        return report;
+    }
+    let enzyme_in_inhibitor_unit = match (units.enzyme, units.inhibitor_unit) {
+        (Some((value, unit)), Some(inhibitor_unit)) => Some(value * unit.factor_to(inhibitor_unit)),
+        _ => None,
+    };
+    let varies_inhibitor = RateData::distinct(&inhibitor).len() > 1;
+    let request = settings.model.unwrap_or(if varies_inhibitor {
+        ModelRequest::Auto
+    } else {
+        ModelRequest::Fixed(RateModelKind::MichaelisMenten)
+    });
+    report.model_requested = Some(request);
+    let data = match RateData::new(
+        substrate.clone(),
+        inhibitor.clone(),
+        rates.clone(),
+        sds.as_deref(),
+        settings.weighting,
+        enzyme_in_inhibitor_unit,
+    ) {
+        Ok(data) => data,
+        Err(error) => {
+            report.error = Some(format!("no fit: {error}"));
+            return report;
+        }
+    };
+    let model_settings = ModelSettings {
+        request,
+        weighting: settings.weighting,
+        loss: settings.loss,
+        profile: settings.profile,
+        bootstrap: settings.bootstrap,
+        cheng_prusoff_km: settings.cheng_prusoff_km,
+        ..ModelSettings::default()
+    };
+    let analysis = match analyse_rates(&data, &model_settings, progress) {
+        Ok(analysis) => analysis,
+        Err(error) => {
+            report.error = Some(format!("no {} fit: {error}", request.name()));
+            return report;
+        }
+    };
+    report.model = analysis.model;
+    report.equation = Some(analysis.equation);
+    report.models_tried = analysis.models_tried.clone();
+    report.f_tests = analysis.f_tests.clone();
+    report.model_choice = Some(if settings.model.is_none() && !varies_inhibitor {
+        format!(
+            "{} (the default where the inhibitor is not varied)",
+            analysis.choice
+        )
+    } else {
+        analysis.choice.clone()
+    });
+    report.bootstrap = analysis.bootstrap.as_ref().map(|b| BootstrapSummary {
+        replicates: b.replicates,
+        converged: b.converged,
+        seed: b.seed,
+    });
+    let plain_michaelis_menten = analysis.model == RateModelKind::MichaelisMenten
+        && settings.weighting == Weighting::None
+        && settings.loss == RobustLoss::None;
+    if plain_michaelis_menten {
+        michaelis_menten_report(&mut report, &substrate, &rates, units, &analysis);
+    } else {
+        general_report(&mut report, &substrate, &data.inhibitor, &rates, units, &analysis);
+    }
+    report.warnings.extend(analysis.warnings.iter().cloned());
+    report
+}
+
+fn concentration_unit_text(unit: Option<ConcentrationUnit>, units: &GroupUnits) -> String {
+    unit.map_or_else(|| units.missing_unit_text.clone(), |u| u.to_string())
+}
+
+fn unit_for(dimension: Dimension, units: &GroupUnits) -> String {
+    match dimension {
+        Dimension::Rate => units.rate_unit.clone(),
+        Dimension::Substrate => concentration_unit_text(units.substrate_unit, units),
+        Dimension::Inhibitor => concentration_unit_text(units.inhibitor_unit, units),
+        Dimension::Dimensionless => "1".to_string(),
+    }
+}
+
+/// The enzyme concentration in the substrate unit, when kcat can be given; else the reason not.
+fn enzyme_for_kcat(units: &GroupUnits) -> Result<(f64, ConcentrationUnit), &'static str> {
+    match (units.rate_concentration_unit, units.substrate_unit, units.enzyme) {
+        (Some(rate_unit), Some(s_unit), Some((e, e_unit))) if e > 0.0 && rate_unit == s_unit => {
+            Ok((e * e_unit.factor_to(s_unit), s_unit))
+        }
+        (None, ..) => Err("no kcat: rates are in absorbance units (give --extinction and --pathlength)"),
+        (_, _, None) | (_, None, _) => Err("no kcat: no enzyme concentration is given"),
+        (Some(_), Some(_), Some((e, _))) if e <= 0.0 => Err("no kcat: the enzyme concentration is zero"),
+        _ => Err("no kcat: the rate and substrate units differ"),
+    }
+}
+
+/// The Michaelis-Menten report of a plain (unweighted, non-robust) Michaelis-Menten group, made
+/// from the one fit behind the analysis: estimates and design warnings, profile and bootstrap
+/// intervals, kcat and kcat/Km.
+fn michaelis_menten_report(
+    report: &mut GroupFit,
+    substrate: &[f64],
+    rates: &[f64],
+    units: &GroupUnits,
+    analysis: &ModelAnalysis,
+) {
+    let Some(rate_fit) = analysis.fit.as_ref() else {
+        report.error = Some("no Michaelis-Menten fit: the fit left no result".to_string());
+        return;
+    };
+    let start = [
+        rate_fit.start.first().copied().unwrap_or(f64::NAN),
+        rate_fit.start.get(1).copied().unwrap_or(f64::NAN),
+    ];
+    let fit = match describe_michaelis_menten(
+        substrate,
+        rates,
+        &rate_fit.fit,
+        start,
+        StartMethod::RateLawCandidates,
+        true,
+    ) {
+        Ok(fit) => fit,
+        Err(error) => {
+            report.error = Some(format!("no Michaelis-Menten fit: {error}"));
+            return;
+        }
+    };
+    let km_unit = concentration_unit_text(units.substrate_unit, units);
+    let with_intervals = |mut parameter: ParameterReport, name: &str| {
+        if let Some(constant) = analysis.constants.iter().find(|c| c.name == name) {
+            parameter.ci95_profile = constant.ci95_profile;
+            parameter.ci95_bootstrap = constant.ci95_bootstrap;
+        }
+        parameter
+    };
+    report.parameters.insert(
+        "Vmax".into(),
+        with_intervals(
+            ParameterReport::from_estimate(&fit.vmax, &units.rate_unit, 1.0),
+            "Vmax",
+        ),
+    );
+    report.parameters.insert(
+        "Km".into(),
+        with_intervals(ParameterReport::from_estimate(&fit.km, &km_unit, 1.0), "Km"),
+    );
+    report.residual_sd = fit.residual_sd;
+    report.correlation_vmax_km = fit.correlation_vmax_km;
+    report.converged = fit.converged;
+    report.linearised = Some(fit.linearised);
+    report.warnings.extend(fit.warnings.iter().cloned());
+    match enzyme_for_kcat(units) {
+        Ok((enzyme, s_unit)) => match turnover_estimates(&fit, enzyme, 0.0) {
+            Ok(turnover) => {
+                let mut kcat = ParameterReport::from_estimate(&turnover.kcat, "1/s", 1.0);
+                if let Some(vmax) = report.parameters.get("Vmax") {
+                    kcat.ci95_profile = vmax
+                        .ci95_profile
+                        .map(|[lo, hi]| [lo.map(|x| x / enzyme), hi.map(|x| x / enzyme)]);
+                    kcat.ci95_bootstrap = vmax.ci95_bootstrap.map(|[lo, hi]| [lo / enzyme, hi / enzyme]);
+                }
+                report.parameters.insert("kcat".into(), kcat);
+                if let Some(specificity) = &turnover.kcat_over_km {
+                    // (1/(unit*s)) -> (1/(M*s)).
+                    let scale = 1.0 / s_unit.in_molar();
+                    report.parameters.insert(
+                        "kcat_over_Km".into(),
+                        ParameterReport::from_estimate(specificity, "1/(M*s)", scale),
+                    );
+                }
+            }
+            Err(error) => report.warnings.push(format!("no kcat: {error}")),
+        },
+        Err(reason) => report.warnings.push(reason.to_string()),
+    }
+}
+
+/// The report of any other model (or of a weighted or robust Michaelis-Menten fit): every constant
+/// with its intervals, kcat = Vmax/[E], and kcat/Km from the fit's covariance of Vmax and Km.
+fn general_report(
+    report: &mut GroupFit,
+    substrate: &[f64],
+    inhibitor: &[f64],
+    rates: &[f64],
+    units: &GroupUnits,
+    analysis: &ModelAnalysis,
+) {
+    for constant in &analysis.constants {
+        report.parameters.insert(
+            constant.name.clone(),
+            ParameterReport::from_constant(constant, &unit_for(constant.dimension, units), 1.0),
+        );
+    }
+    report.residual_sd = analysis.residual_sd;
+    report.converged = analysis.converged;
+    let Some(fit) = analysis.fit.as_ref() else {
+        return;
+    };
+    let names = &fit.parameter_names;
+    let has_vmax_km = names.first() == Some(&"Vmax") && names.get(1) == Some(&"Km");
+    if has_vmax_km {
+        report.correlation_vmax_km = fit.fit.correlation.as_ref().map(|c| c[(0, 1)]);
+        // Diagnostics from the points without inhibitor (or at the lowest level).
+        let lowest = inhibitor.iter().copied().fold(f64::INFINITY, f64::min);
+        let (s0, v0): (Vec<f64>, Vec<f64>) = substrate
+            .iter()
+            .zip(rates)
+            .zip(inhibitor)
+            .filter(|(_, &level)| level == lowest)
+            .map(|((&s, &v), _)| (s, v))
+            .unzip();
+        report.linearised = Some(linearised_estimates(&s0, &v0));
+    }
+    if !names.contains(&"Vmax") {
+        return;
+    }
+    match enzyme_for_kcat(units) {
+        Ok((enzyme, s_unit)) => {
+            if let Some(vmax) = analysis.constants.iter().find(|c| c.name == "Vmax") {
+                report.parameters.insert(
+                    "kcat".into(),
+                    ParameterReport::from_constant(vmax, "1/s", 1.0 / enzyme),
+                );
+            }
+            if let (true, Some(covariance)) = (has_vmax_km, fit.fit.covariance.as_ref()) {
+                let (vmax, km) = (fit.fit.parameters[0], fit.fit.parameters[1]);
+                let block = [
+                    [covariance[(0, 0)], covariance[(0, 1)]],
+                    [covariance[(1, 0)], covariance[(1, 1)]],
+                ];
+                let (ratio, ratio_se) = vmax_over_km_delta_method(vmax, km, &block);
+                let scale = 1.0 / (enzyme * s_unit.in_molar());
+                let value = ratio * scale;
+                let se = ratio_se * scale;
+                let ci95 = t_quantile_975(fit.fit.degrees_of_freedom)
+                    .ok()
+                    .map(|q| [value - q * se, value + q * se]);
+                report.parameters.insert(
+                    "kcat_over_Km".into(),
+                    ParameterReport {
+                        value,
+                        se: Some(se),
+                        ci95,
+                        unit: "1/(M*s)".to_string(),
+                        determined: fit.converged() && se <= 0.5 * value.abs(),
+                        ci95_profile: None,
+                        ci95_bootstrap: None,
+                    },
+                );
+            }
+        }
+        Err(reason) => report.warnings.push(reason.to_string()),
+    }
+}

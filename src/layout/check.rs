@@ -1,0 +1,57 @@
+//! The layout checked against the wells the data hold.
+
+use std::collections::BTreeSet;
+
+use super::common::spell_out_wells;
+use super::*;
+use crate::core::plate::WellId;
+
+/// Checks the layout against the wells present in the data. Layout wells other than `empty` ones
+/// that the data lack are an error naming them; with `allow_missing` they are dropped from the
+/// layout instead and a warning saying so is returned (the library never prints).
+pub fn check_against_data(
+    layout: &mut Layout,
+    wells_in_data: &BTreeSet<WellId>,
+    allow_missing: bool,
+) -> Result<Vec<String>, LayoutError> {
+    let missing: Vec<(WellId, &Position)> = layout
+        .wells
+        .iter()
+        .filter(|(well, setup)| setup.role != Role::Empty && !wells_in_data.contains(well))
+        .map(|(well, setup)| (*well, &setup.position))
+        .collect();
+    let Some(first) = missing
+        .iter()
+        .map(|(_, position)| *position)
+        .min_by_key(|p| (p.row, p.column))
+    else {
+        return Ok(Vec::new());
+    };
+    let first = first.clone();
+    let missing_wells: Vec<WellId> = missing.iter().map(|(well, _)| *well).collect();
+    let wells = spell_out_wells(&missing_wells);
+    if !allow_missing {
+        return Err(LayoutError::MissingFromData {
+            input: layout.source.clone(),
+            count: missing_wells.len(),
+            wells,
+            first: Box::new(first),
+        });
+    }
+    for well in &missing_wells {
+        layout.wells.remove(well);
+    }
+    if layout.wells.values().all(|setup| setup.role == Role::Empty) {
+        return Err(LayoutError::EmptyLayout {
+            input: layout.source.clone(),
+            form: layout.form,
+        });
+    }
+    Ok(vec![format!(
+        "{}: {} well(s) of the layout are not in the data and were left out: {} (the first set at {})",
+        layout.source,
+        missing_wells.len(),
+        wells,
+        first
+    )])
+}

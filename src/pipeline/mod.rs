@@ -1,0 +1,113 @@
+//! The pipeline: one function from a run's inputs (read once into memory) and its resolved
+//! settings to the typed results of every stage, each computed once and handed on: the data and
+//! layout as read, the plate analysis (signal, windows, flags, background), the condition table,
+//! the group fits and the progress-curve analysis. No text, JSON or file is made here.
+
+use std::collections::BTreeSet;
+
+use crate::config::{AnalysisSettings, FitSettings, ImportOptions};
+use crate::core::plate::WellId;
+use crate::files::input::InputFile;
+use crate::groups::{fit_groups_with, GroupFit};
+use crate::import::{import_data, ImportError, KineticData};
+use crate::layout::{check_against_data, read_layout, Layout, LayoutError};
+use crate::progress::analysis::{analyse_progress, ProgressAnalysis};
+use crate::rates::conditions::{condition_table, Condition, TableError};
+use crate::rates::{analyse_plate, PlateAnalysis};
+
+/// Why the pipeline stopped.
+#[derive(Debug, thiserror::Error)]
+pub enum PipelineError {
+    /// The raw export could not be read.
+    #[error(transparent)]
+    Import(#[from] ImportError),
+    /// The layout could not be read or does not fit the data.
+    #[error(transparent)]
+    Layout(#[from] LayoutError),
+    /// The condition table could not be built.
+    #[error(transparent)]
+    Table(#[from] TableError),
+}
+
+/// Everything a run found.
+#[derive(Debug, Clone)]
+pub struct RunResults {
+    /// The data as read.
+    pub data: KineticData,
+    /// The layout as read.
+    pub layout: Layout,
+    /// The analysis settings used.
+    pub settings: AnalysisSettings,
+    /// How the groups were fitted (model, weighting, loss, intervals).
+    pub fit_settings: FitSettings,
+    /// Per-well rates, with the plate's signal conversion.
+    pub analysis: PlateAnalysis,
+    /// Per-condition rows.
+    pub conditions: Vec<Condition>,
+    /// Per-group fits.
+    pub fits: Vec<GroupFit>,
+    /// Per-group progress-curve analysis.
+    pub progress: ProgressAnalysis,
+    /// Warnings from reading the inputs and checking them against each other.
+    pub input_warnings: Vec<String>,
+}
+
+/// The inputs of a plate, read once.
+#[derive(Debug, Clone)]
+pub struct PlateInputs {
+    /// The raw export.
+    pub data: InputFile,
+    /// The layout.
+    pub layout: InputFile,
+}
+
+/// Parses the inputs' bytes and analyses them. `progress(done, total)` reports bootstrap
+/// replicates.
+pub fn run_pipeline(
+    inputs: &PlateInputs,
+    import: &ImportOptions,
+    layout_sheet: Option<&str>,
+    settings: &AnalysisSettings,
+    fit_settings: &FitSettings,
+    progress: &mut dyn FnMut(usize, usize),
+) -> Result<RunResults, PipelineError> {
+    let data = import_data(&inputs.data, import)?;
+    let layout = read_layout(&inputs.layout, layout_sheet, data.plate)?;
+    analyse_inputs(data, layout, settings, fit_settings, progress)
+}
+
+/// Analyses inputs already parsed (tests and benchmarks start here).
+pub fn analyse_inputs(
+    data: KineticData,
+    mut layout: Layout,
+    settings: &AnalysisSettings,
+    fit_settings: &FitSettings,
+    progress: &mut dyn FnMut(usize, usize),
+) -> Result<RunResults, PipelineError> {
+    let mut input_warnings = data.warnings.clone();
+    input_warnings.extend(check_against_data(
+        &mut layout,
+        &wells_in_data(&data),
+        settings.allow_missing,
+    )?);
+    let analysis = analyse_plate(&data, &layout, settings);
+    let conditions = condition_table(&analysis, &layout)?;
+    let fits = fit_groups_with(&analysis, &layout, fit_settings, progress);
+    let progress_curves = analyse_progress(&data, &layout, &analysis, &fits, settings);
+    Ok(RunResults {
+        data,
+        layout,
+        settings: settings.clone(),
+        fit_settings: fit_settings.clone(),
+        analysis,
+        conditions,
+        fits,
+        progress: progress_curves,
+        input_warnings,
+    })
+}
+
+/// The set of wells the data holds.
+pub fn wells_in_data(data: &KineticData) -> BTreeSet<WellId> {
+    data.wells.iter().map(|trace| trace.well).collect()
+}

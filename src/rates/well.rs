@@ -1,0 +1,538 @@
+//! Initial rates: per well, the automatic choice of the initial-rate window, the straight-line
+//! fit over it, and the flags that say when a rate must not be trusted.
+//!
+//! # The window rule
+//! Reads earlier than `skip` seconds are ignored, and so are reads at and after the first whose
+//! raw absorbance exceeds `max_absorbance` (the photometer's linear range is over). Of the
+//! remaining readable points, the window is the longest run starting at the first of them that
+//! - holds at least `min_points` reads,
+//! - converts at most `max_conversion` of the well's substrate by its last read, estimated as
+//!   `slope * t_end / S0` (the rate times the time since the reaction started, as a fraction of the
+//!   starting substrate), and
+//! - is straight: (1) the quadratic term of y = a + b t + c t^2 over the window is not
+//!   significant by a two-sided t test at level `alpha` (default 0.01), and (2) the slopes of the
+//!   window's first and second halves agree by a two-sided t test at the same level.
+//!
+//! Two tests at 1% keep the false rejection of a truly straight window near 2% while catching both
+//! smooth curvature (depletion, product inhibition) and a kink.
+//!
+//! # Flags (plain words, `;`-separated in the outputs)
+//! - `unreadable`: some reads had no number (over-range marker, blank cell); they are named.
+//! - `nonlinear`: no straight window of `min_points` reads exists.
+//! - `lag`: the rate rises at the start (hysteresis, slow mixing, a coupled enzyme not yet at
+//!   steady state): the curvature just beyond the window, or over the shortest window, is
+//!   significantly upward.
+//! - `depleted`: even the shortest window converts more than `max_conversion`.
+//! - `saturated`: some read exceeds `max_absorbance` (the window uses only the reads before it).
+//! - `noisy` and `weak` need the whole plate (blank noise, blank slope scatter) and are set by
+//!   [`apply_plate_flags`].
+//!
+//! References: initial-rate conditions and the 10% rule are common practice (see the project's
+//! DOMAIN notes); the t tests are standard regression tests (Draper and Smith 1998, ch. 2).
+
+use std::fmt;
+
+use super::window_fit::{LineFit, WindowSums};
+pub use crate::config::RateSettings;
+use crate::core::format::format_seconds;
+use crate::core::stats::t_critical;
+
+/// A reason not to trust a well's rate.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, serde::Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Flag {
+    /// No straight window of the minimum length.
+    Nonlinear,
+    /// Rate rising at the start.
+    Lag,
+    /// Reads without a number were dropped.
+    Unreadable,
+    /// Substrate conversion above the limit even in the shortest window.
+    Depleted,
+    /// Scatter far above the plate's blank noise.
+    Noisy,
+    /// Rate not distinguishable from zero.
+    Weak,
+    /// Absorbance above the limit.
+    Saturated,
+}
+
+impl Flag {
+    /// The word written in the outputs.
+    pub fn word(self) -> &'static str {
+        match self {
+            Flag::Nonlinear => "nonlinear",
+            Flag::Lag => "lag",
+            Flag::Unreadable => "unreadable",
+            Flag::Depleted => "depleted",
+            Flag::Noisy => "noisy",
+            Flag::Weak => "weak",
+            Flag::Saturated => "saturated",
+        }
+    }
+}
+
+impl fmt::Display for Flag {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.word())
+    }
+}
+
+/// Joins flags as the outputs write them: `lag;unreadable`, or "" for none.
+pub fn flag_words(flags: &[Flag]) -> String {
+    flags.iter().map(|flag| flag.word()).collect::<Vec<_>>().join(";")
+}
+
+/// One well's trace, ready for the window search.
+#[derive(Debug, Clone, Copy)]
+pub struct TraceInput<'a> {
+    /// Read times in seconds since the reaction started.
+    pub times_s: &'a [f64],
+    /// Product formed (blank-corrected and sign-corrected), in concentration units when an
+    /// extinction coefficient is known, else in absorbance units; None where unreadable.
+    pub values: &'a [Option<f64>],
+    /// Raw absorbance, for the saturation limit.
+    pub raw_absorbance: &'a [Option<f64>],
+    /// Starting substrate in the same units as `values`, when known (for conversion).
+    pub substrate_start: Option<f64>,
+}
+
+/// A well's rate and the evidence for it.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct WellRate {
+    /// The window's straight-line fit; None when too few readable points exist.
+    pub fit: Option<LineFit>,
+    /// Window start and end (s).
+    pub window_s: Option<(f64, f64)>,
+    /// Fraction of substrate converted by the window's end, when S0 and units allow.
+    pub conversion: Option<f64>,
+    /// Flags raised.
+    pub flags: Vec<Flag>,
+    /// Plain-language notes (unreadable reads, why a window ended).
+    pub notes: Vec<String>,
+}
+
+impl WellRate {
+    fn flag(&mut self, flag: Flag) {
+        if !self.flags.contains(&flag) {
+            self.flags.push(flag);
+            self.flags.sort();
+        }
+    }
+}
+
+/// Precomputed critical values, so a plate's thousands of windows do not each invert a t CDF.
+#[derive(Debug, Clone)]
+pub struct CriticalValues {
+    alpha: f64,
+    by_dof: Vec<f64>,
+}
+
+impl CriticalValues {
+    /// Critical values for up to `max_dof` degrees of freedom at level `alpha`.
+    pub fn new(alpha: f64, max_dof: usize) -> CriticalValues {
+        CriticalValues {
+            alpha,
+            by_dof: (0..=max_dof).map(|dof| t_critical(alpha, dof)).collect(),
+        }
+    }
+
+    /// The two-sided critical t at `dof`.
+    pub fn get(&self, dof: usize) -> f64 {
+        self.by_dof
+            .get(dof)
+            .copied()
+            .unwrap_or_else(|| t_critical(self.alpha, dof))
+    }
+}
+
+/// Whether the window `0..=last` of `sums` is straight by both tests.
+fn is_straight(sums: &WindowSums, last: usize, critical: &CriticalValues) -> bool {
+    let n = last + 1;
+    if let Some(test) = sums.curvature(0, last) {
+        if test.is_significant(critical.get(n - 3)) {
+            return false;
+        }
+    }
+    // Halves: each needs three points for a slope standard error.
+    if n >= 6 {
+        let half = n / 2;
+        if let (Some(first), Some(second)) = (sums.line(0, half - 1), sums.line(half, last)) {
+            let spread = (first.slope_se.powi(2) + second.slope_se.powi(2)).sqrt();
+            let dof = n - 4;
+            let difference = second.slope - first.slope;
+            // Slopes equal to rounding agree whatever their (then meaningless) standard errors.
+            let negligible = difference.abs() <= 1e-9 * first.slope.abs().max(second.slope.abs());
+            if !negligible && (spread == 0.0 || (difference / spread).abs() > critical.get(dof)) {
+                return false;
+            }
+        }
+    }
+    true
+}
+
+/// Chooses the window and fits the rate of one well. `critical` must be built at `settings.alpha`.
+pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &CriticalValues) -> WellRate {
+    let mut result = WellRate {
+        fit: None,
+        window_s: None,
+        conversion: None,
+        flags: Vec::new(),
+        notes: Vec::new(),
+    };
+
+    // Unreadable reads are named whatever window is chosen.
+    let unreadable: Vec<usize> = (0..input.times_s.len())
+        .filter(|&i| input.values[i].is_none())
+        .collect();
+    if !unreadable.is_empty() {
+        result.flag(Flag::Unreadable);
+        let named: Vec<String> = unreadable
+            .iter()
+            .take(8)
+            .map(|&i| format!("read {} (t = {} s)", i + 1, format_seconds(input.times_s[i])))
+            .collect();
+        let more = if unreadable.len() > 8 {
+            format!(" and {} more", unreadable.len() - 8)
+        } else {
+            String::new()
+        };
+        result
+            .notes
+            .push(format!("unreadable: {}{}", named.join(", "), more));
+    }
+
+    // The reads in play: after the dead time, before saturation, readable.
+    let first_saturated = input
+        .raw_absorbance
+        .iter()
+        .position(|value| value.is_some_and(|a| a > settings.max_absorbance));
+    let end = first_saturated.unwrap_or(input.times_s.len());
+    if let Some(index) = first_saturated {
+        // Any read past the photometric limit marks the well: the reads before it still give a
+        // window (used with --keep-flagged), but the well's optics are suspect.
+        result.flag(Flag::Saturated);
+        result.notes.push(format!(
+            "absorbance above {} from read {} (t = {} s): later reads not used",
+            settings.max_absorbance,
+            index + 1,
+            format_seconds(input.times_s[index])
+        ));
+    }
+    let (mut times, mut values) = (Vec::with_capacity(end), Vec::with_capacity(end));
+    for i in 0..end {
+        let t = input.times_s[i];
+        let in_fixed = settings
+            .fixed_window_s
+            .is_none_or(|(start, stop)| t >= start && t <= stop);
+        if t < settings.skip_s || !in_fixed {
+            continue;
+        }
+        if let Some(value) = input.values[i] {
+            times.push(t);
+            values.push(value);
+        }
+    }
+    let min_points = settings.min_points.max(3);
+    if times.len() < min_points {
+        // Too few reads: when the absorbance limit is not to blame (already flagged), the data is.
+        if first_saturated.is_none() {
+            result.flag(Flag::Nonlinear);
+        }
+        result.notes.push(format!(
+            "only {} usable reads (at least {} needed)",
+            times.len(),
+            min_points
+        ));
+        if times.len() >= 3 {
+            let sums = WindowSums::new(&times, &values);
+            result.fit = sums.line(0, times.len() - 1);
+            result.window_s = Some((times[0], times[times.len() - 1]));
+        }
+        return result;
+    }
+
+    let sums = WindowSums::new(&times, &values);
+    let conversion_at = |last: usize, fit: &LineFit| -> Option<f64> {
+        input
+            .substrate_start
+            .filter(|&s0| s0 > 0.0)
+            .map(|s0| fit.slope * times[last] / s0)
+    };
+
+    let chosen = if settings.fixed_window_s.is_some() {
+        let last = times.len() - 1;
+        if !is_straight(&sums, last, critical) {
+            result.flag(Flag::Nonlinear);
+        }
+        Some(last)
+    } else {
+        let shortest = min_points - 1;
+        let mut accepted = None;
+        for last in (shortest..times.len()).rev() {
+            let Some(fit) = sums.line(0, last) else { continue };
+            if conversion_at(last, &fit).is_some_and(|c| c > settings.max_conversion) {
+                continue;
+            }
+            if is_straight(&sums, last, critical) {
+                accepted = Some(last);
+                break;
+            }
+        }
+        if accepted.is_none() {
+            let depleted = sums
+                .line(0, shortest)
+                .and_then(|fit| conversion_at(shortest, &fit))
+                .is_some_and(|c| c > settings.max_conversion);
+            if depleted {
+                result.flag(Flag::Depleted);
+            } else {
+                result.flag(Flag::Nonlinear);
+            }
+        }
+        // A rate that rises at the start shows as upward curvature just past the window (or,
+        // when no window was accepted, over twice the shortest one).
+        let probe_last = match accepted {
+            Some(last) => (last + min_points).min(times.len() - 1),
+            None => (2 * min_points - 1).min(times.len() - 1),
+        };
+        if accepted != Some(probe_last) {
+            if let Some(test) = sums.curvature(0, probe_last) {
+                if test.curvature > 0.0 && test.is_significant(critical.get(probe_last + 1 - 3)) {
+                    result.flag(Flag::Lag);
+                }
+            }
+        }
+        Some(accepted.unwrap_or(shortest))
+    };
+
+    if let Some(last) = chosen {
+        result.fit = sums.line(0, last);
+        result.window_s = Some((times[0], times[last]));
+        result.conversion = result.fit.as_ref().and_then(|fit| conversion_at(last, fit));
+    }
+    result
+}
+
+/// Plate-level reference values for the `noisy` and `weak` flags.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct PlateNoise {
+    /// Median residual SD of the blank wells' straight lines (signal units of `values`).
+    pub blank_residual_sd: Option<f64>,
+    /// SD of the blank wells' slopes (needs at least 3 blanks).
+    pub blank_slope_sd: Option<f64>,
+}
+
+/// How far above the blank scatter a well's residual SD may go before it is `noisy`.
+pub const NOISY_FACTOR: f64 = 5.0;
+/// How many standard errors (or blank slope SDs) a rate needs to be distinguishable from zero.
+pub const WEAK_FACTOR: f64 = 3.0;
+
+/// Sets `noisy` (residual SD above [`NOISY_FACTOR`] x the blank wells' median residual SD) and,
+/// for rates that should be non-zero, `weak` (|rate| below [`WEAK_FACTOR`] x its standard error
+/// or x the blank slope SD).
+pub fn apply_plate_flags(
+    rate: &mut WellRate,
+    corrected_slope: Option<(f64, f64)>,
+    noise: &PlateNoise,
+    check_weak: bool,
+) {
+    let Some(fit) = rate.fit else { return };
+    if let Some(blank_sd) = noise.blank_residual_sd.filter(|sd| *sd > 0.0) {
+        if fit.residual_sd > NOISY_FACTOR * blank_sd {
+            rate.flag(Flag::Noisy);
+            rate.notes.push(format!(
+                "scatter {:.3e} is {:.0}x the blanks' {:.3e}",
+                fit.residual_sd,
+                fit.residual_sd / blank_sd,
+                blank_sd
+            ));
+        }
+    }
+    if check_weak {
+        let (slope, se) = corrected_slope.unwrap_or((fit.slope, fit.slope_se));
+        let by_se = se.is_finite() && slope.abs() < WEAK_FACTOR * se;
+        let by_blanks = noise
+            .blank_slope_sd
+            .is_some_and(|sd| slope.abs() < WEAK_FACTOR * sd);
+        if by_se || by_blanks {
+            rate.flag(Flag::Weak);
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn reads(n: usize, step: f64) -> Vec<f64> {
+        (0..n).map(|i| step * i as f64).collect()
+    }
+
+    /// Deterministic pseudo-noise (a fixed sequence, so the tests cannot flake).
+    fn wiggle(i: usize, amplitude: f64) -> f64 {
+        let x = ((i as f64 + 1.0) * 12.9898).sin() * 43_758.545;
+        (x - x.floor() - 0.5) * 2.0 * amplitude
+    }
+
+    fn rate_of(times: &[f64], values: &[f64], s0: Option<f64>, settings: &RateSettings) -> WellRate {
+        let values: Vec<Option<f64>> = values.iter().copied().map(Some).collect();
+        // Raw absorbance well inside the photometric range, so saturation plays no part.
+        let raw = vec![Some(0.1); values.len()];
+        let critical = CriticalValues::new(settings.alpha, times.len());
+        well_rate(
+            TraceInput {
+                times_s: times,
+                values: &values,
+                raw_absorbance: &raw,
+                substrate_start: s0,
+            },
+            settings,
+            &critical,
+        )
+    }
+
+    #[test]
+    fn straight_trace_uses_every_read() {
+        let times = reads(25, 30.0);
+        let values: Vec<f64> = times
+            .iter()
+            .enumerate()
+            .map(|(i, t)| 0.01 * t + wiggle(i, 0.02))
+            .collect();
+        let rate = rate_of(&times, &values, Some(1000.0), &RateSettings::default());
+        assert!(rate.flags.is_empty(), "{:?}", rate.flags);
+        assert_eq!(rate.fit.unwrap().n_points, 25);
+        assert!((rate.fit.unwrap().slope - 0.01).abs() < 1e-4);
+    }
+
+    #[test]
+    fn depletion_shortens_the_window_to_the_conversion_limit() {
+        // First-order loss of substrate: P = S0 (1 - exp(-k t)), S0 = 10, k = 4e-4 /s, so 10%
+        // is converted at t = -ln(0.9)/k = 263 s (by construction). Noise 0.1% of S0.
+        let times = reads(25, 30.0);
+        let values: Vec<f64> = times
+            .iter()
+            .enumerate()
+            .map(|(i, t)| 10.0 * (1.0 - (-4e-4 * t).exp()) + wiggle(i, 0.01))
+            .collect();
+        let rate = rate_of(&times, &values, Some(10.0), &RateSettings::default());
+        let (_, end) = rate.window_s.unwrap();
+        assert!(rate.conversion.unwrap() <= 0.10, "{rate:?}");
+        assert!(
+            (150.0..=270.0).contains(&end),
+            "window should stop near 10% conversion, ended at {end}"
+        );
+        assert!(!rate.flags.contains(&Flag::Depleted));
+    }
+
+    #[test]
+    fn fast_depletion_is_flagged() {
+        let times = reads(25, 30.0);
+        let values: Vec<f64> = times
+            .iter()
+            .enumerate()
+            .map(|(i, t)| 10.0 * (1.0 - (-2e-2 * t).exp()) + wiggle(i, 0.01))
+            .collect();
+        let rate = rate_of(&times, &values, Some(10.0), &RateSettings::default());
+        assert!(rate.flags.contains(&Flag::Depleted), "{:?}", rate.flags);
+    }
+
+    #[test]
+    fn curvature_without_known_substrate_is_caught_by_the_tests() {
+        let times = reads(25, 30.0);
+        let values: Vec<f64> = times
+            .iter()
+            .enumerate()
+            .map(|(i, t)| 10.0 * (1.0 - (-2e-3 * t).exp()) + wiggle(i, 1e-3))
+            .collect();
+        let rate = rate_of(&times, &values, None, &RateSettings::default());
+        let n = rate.fit.unwrap().n_points;
+        assert!((5..25).contains(&n), "window of {n} points");
+        assert!(!rate.flags.contains(&Flag::Lag));
+    }
+
+    #[test]
+    fn lag_is_flagged() {
+        // Activity ramps up as 1 - exp(-t/tau): P = v (t - tau (1 - exp(-t/tau))).
+        let times = reads(25, 30.0);
+        let tau = 150.0;
+        let values: Vec<f64> = times
+            .iter()
+            .enumerate()
+            .map(|(i, t)| 0.01 * (t - tau * (1.0 - (-t / tau).exp())) + wiggle(i, 0.005))
+            .collect();
+        let rate = rate_of(&times, &values, Some(1000.0), &RateSettings::default());
+        assert!(rate.flags.contains(&Flag::Lag), "{:?}", rate.flags);
+    }
+
+    #[test]
+    fn unreadable_reads_are_named_and_skipped() {
+        let times = reads(10, 30.0);
+        let mut values: Vec<Option<f64>> = times.iter().map(|t| Some(0.01 * t)).collect();
+        values[3] = None;
+        let critical = CriticalValues::new(0.01, 10);
+        let rate = well_rate(
+            TraceInput {
+                times_s: &times,
+                values: &values,
+                raw_absorbance: &values,
+                substrate_start: None,
+            },
+            &RateSettings::default(),
+            &critical,
+        );
+        assert_eq!(rate.flags, vec![Flag::Unreadable]);
+        assert!(rate.notes[0].contains("read 4 (t = 90 s)"), "{:?}", rate.notes);
+        assert_eq!(rate.fit.unwrap().n_points, 9);
+    }
+
+    #[test]
+    fn saturation_ends_the_usable_reads() {
+        let times = reads(10, 30.0);
+        let values: Vec<Option<f64>> = times.iter().map(|t| Some(2.0 + 0.01 * t)).collect();
+        let critical = CriticalValues::new(0.01, 10);
+        let rate = well_rate(
+            TraceInput {
+                times_s: &times,
+                values: &values,
+                raw_absorbance: &values,
+                substrate_start: None,
+            },
+            &RateSettings::default(),
+            &critical,
+        );
+        assert!(rate.flags.contains(&Flag::Saturated), "{:?}", rate.flags);
+    }
+
+    #[test]
+    fn fixed_window_is_honoured() {
+        let times = reads(25, 30.0);
+        let values: Vec<f64> = times.iter().map(|t| 0.01 * t).collect();
+        let settings = RateSettings {
+            fixed_window_s: Some((60.0, 300.0)),
+            ..RateSettings::default()
+        };
+        let rate = rate_of(&times, &values, None, &settings);
+        assert_eq!(rate.window_s, Some((60.0, 300.0)));
+        assert_eq!(rate.fit.unwrap().n_points, 9);
+    }
+
+    #[test]
+    fn plate_flags_noisy_and_weak() {
+        let times = reads(25, 30.0);
+        let values: Vec<f64> = times
+            .iter()
+            .enumerate()
+            .map(|(i, t)| 1e-5 * t + wiggle(i, 0.05))
+            .collect();
+        let mut rate = rate_of(&times, &values, None, &RateSettings::default());
+        let noise = PlateNoise {
+            blank_residual_sd: Some(0.001),
+            blank_slope_sd: None,
+        };
+        apply_plate_flags(&mut rate, None, &noise, true);
+        assert!(rate.flags.contains(&Flag::Noisy));
+        assert!(rate.flags.contains(&Flag::Weak));
+    }
+}

@@ -1,0 +1,255 @@
+//! Per-group plots of a progress-curve fit: every fitted well's observed reads with the global
+//! fit's curve over them, and the residuals (observed - fitted) against time, in the signal units
+//! the fit used (AU, blank- and background-corrected; see `progress::report`).
+//!
+//! Wells are told apart by S0: one Okabe-Ito colour and one marker shape per S0 level (the same
+//! pairs as the inhibitor plots), the fitted curve drawn as a line in the level's colour. The
+//! fitted values are the model's signal at each read (offset included), so the line joins the
+//! fitted reads; reads are dense enough in a kinetic read for that to show the curve's shape.
+//! References: Okabe and Ito (2008) for the palette; the fit itself: `progress::global_fit`.
+
+use plotters::coord::Shift;
+use plotters::prelude::*;
+
+use super::inhibition::{draw_markers, legend_entry, level_style};
+use super::palette::{BLACK, FRAME_GREY};
+use super::{drawn, padded_range, text_style, titled_chart, Drawing};
+use crate::core::format::significant;
+use crate::pipeline::RunResults;
+use crate::progress::analysis::{ProgressCurve, ProgressGroupReport};
+use crate::render::words::group_label;
+
+/// A group's progress-curve fit, ready to draw.
+#[derive(Debug, Clone)]
+pub struct ProgressView {
+    /// One-based number of the group in the progress analysis (for file names and anchors).
+    pub number: usize,
+    /// Its label.
+    pub label: String,
+    /// The model chosen.
+    pub model: String,
+    /// The fitted wells' curves.
+    pub curves: Vec<ProgressCurve>,
+    /// The S0 levels, ascending (wells without S0 share the last level).
+    pub levels: Vec<f64>,
+    /// Substrate unit, for the legend.
+    pub substrate_unit: String,
+}
+
+impl ProgressView {
+    /// The level index of a curve.
+    pub fn level_of(&self, curve: &ProgressCurve) -> usize {
+        curve
+            .s0
+            .and_then(|s0| self.levels.iter().position(|l| *l == s0))
+            .unwrap_or(self.levels.len().saturating_sub(1))
+    }
+
+    /// Residuals (t, observed - fitted) of one curve.
+    pub fn residuals(curve: &ProgressCurve) -> Vec<(f64, f64)> {
+        curve
+            .times_s
+            .iter()
+            .zip(curve.observed.iter().zip(&curve.fitted))
+            .map(|(t, (y, f))| (*t, y - f))
+            .collect()
+    }
+}
+
+/// The view of every analysed progress-curve group with curves.
+pub fn progress_plots(results: &RunResults) -> Vec<ProgressView> {
+    results
+        .progress
+        .groups
+        .iter()
+        .enumerate()
+        .filter(|(_, group)| group.analysed && !group.curves.is_empty())
+        .map(|(index, group)| progress_view(index + 1, group, results))
+        .collect()
+}
+
+fn progress_view(number: usize, group: &ProgressGroupReport, results: &RunResults) -> ProgressView {
+    let mut levels: Vec<f64> = Vec::new();
+    for s0 in group.curves.iter().filter_map(|c| c.s0) {
+        if !levels.contains(&s0) {
+            levels.push(s0);
+        }
+    }
+    levels.sort_by(f64::total_cmp);
+    ProgressView {
+        number,
+        label: group_label(&group.group),
+        model: group.model.map(|m| m.name().to_string()).unwrap_or_default(),
+        curves: group.curves.clone(),
+        levels,
+        substrate_unit: results
+            .layout
+            .substrate_unit
+            .map_or_else(|| "substrate units".to_string(), |u| u.to_string()),
+    }
+}
+
+/// Which view of a progress-curve fit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ProgressPlotKind {
+    /// Observed reads with the fitted curves.
+    Curves,
+    /// Residuals against time.
+    Residuals,
+}
+
+impl ProgressPlotKind {
+    /// Both, in report order.
+    pub const ALL: [ProgressPlotKind; 2] = [Self::Curves, Self::Residuals];
+}
+
+/// One plot of a progress-curve fit.
+pub struct ProgressPlot<'a> {
+    /// The group.
+    pub view: &'a ProgressView,
+    /// Which plot.
+    pub kind: ProgressPlotKind,
+}
+
+impl Drawing for ProgressPlot<'_> {
+    fn name(&self) -> String {
+        match self.kind {
+            ProgressPlotKind::Curves => format!("progress-{}-curves", self.view.number),
+            ProgressPlotKind::Residuals => format!("progress-{}-residuals", self.view.number),
+        }
+    }
+
+    fn title(&self) -> String {
+        match self.kind {
+            ProgressPlotKind::Curves => format!(
+                "Progress curves with the global {} fit: {}",
+                self.view.model, self.view.label
+            ),
+            ProgressPlotKind::Residuals => {
+                format!("Progress-curve residuals against time: {}", self.view.label)
+            }
+        }
+    }
+
+    fn size(&self) -> (u32, u32) {
+        match self.kind {
+            ProgressPlotKind::Curves => (640, 460),
+            ProgressPlotKind::Residuals => (640, 320),
+        }
+    }
+
+    fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
+        drawn(root.fill(&WHITE))?;
+        let view = self.view;
+        let times = view.curves.iter().flat_map(|c| c.times_s.iter().copied());
+        let t_max = times.clone().fold(0.0, f64::max);
+        let x_range = (0.0, if t_max > 0.0 { t_max * 1.03 } else { 1.0 });
+        let (y_range, y_desc) = match self.kind {
+            ProgressPlotKind::Curves => (
+                padded_range(
+                    view.curves
+                        .iter()
+                        .flat_map(|c| c.observed.iter().chain(&c.fitted).copied()),
+                    false,
+                ),
+                "signal [AU] (blank- and background-corrected)".to_string(),
+            ),
+            ProgressPlotKind::Residuals => {
+                let largest = view
+                    .curves
+                    .iter()
+                    .flat_map(ProgressView::residuals)
+                    .map(|r| r.1.abs())
+                    .fold(0.0, f64::max);
+                (
+                    padded_range([-largest, largest], true),
+                    "observed - fitted [AU]".to_string(),
+                )
+            }
+        };
+        let mut chart = titled_chart(root, self.title(), text_style(13.0, BLACK), x_range, y_range)?;
+        drawn(
+            chart
+                .configure_mesh()
+                .x_desc("time [s]")
+                .y_desc(y_desc)
+                .label_style(text_style(11.0, BLACK))
+                .axis_desc_style(text_style(12.0, BLACK))
+                .y_label_formatter(&|v| significant(*v))
+                .max_light_lines(0)
+                .draw(),
+        )?;
+        if self.kind == ProgressPlotKind::Residuals {
+            drawn(chart.draw_series(LineSeries::new([(x_range.0, 0.0), (x_range.1, 0.0)], FRAME_GREY)))?;
+        }
+        for curve in &view.curves {
+            let (colour, shape) = level_style(view.level_of(curve));
+            match self.kind {
+                ProgressPlotKind::Curves => {
+                    let observed: Vec<(f64, f64)> = curve
+                        .times_s
+                        .iter()
+                        .copied()
+                        .zip(curve.observed.iter().copied())
+                        .collect();
+                    draw_markers(
+                        &mut chart,
+                        &observed,
+                        shape,
+                        colour.mix(0.55).rgb_colour(),
+                        false,
+                        3,
+                    )?;
+                    drawn(chart.draw_series(LineSeries::new(
+                        curve.times_s.iter().copied().zip(curve.fitted.iter().copied()),
+                        colour.stroke_width(2),
+                    )))?;
+                }
+                ProgressPlotKind::Residuals => {
+                    draw_markers(
+                        &mut chart,
+                        &ProgressView::residuals(curve),
+                        shape,
+                        colour,
+                        false,
+                        3,
+                    )?;
+                }
+            }
+        }
+        // One legend entry per S0 level.
+        for (level, s0) in view.levels.iter().enumerate() {
+            let (colour, shape) = level_style(level);
+            drawn(chart.draw_series(std::iter::empty::<Circle<(f64, f64), i32>>()))?
+                .label(format!("S0 = {s0} {}", view.substrate_unit))
+                .legend(move |(x, y)| legend_entry!(x, y, shape, colour));
+        }
+        drawn(
+            chart
+                .configure_series_labels()
+                .label_font(text_style(10.0, BLACK))
+                .background_style(WHITE.mix(0.85))
+                .border_style(FRAME_GREY)
+                .position(match self.kind {
+                    ProgressPlotKind::Curves => SeriesLabelPosition::UpperLeft,
+                    ProgressPlotKind::Residuals => SeriesLabelPosition::UpperRight,
+                })
+                .draw(),
+        )?;
+        Ok(())
+    }
+}
+
+/// Mixing a colour with white: plotters' `mix` gives an RGBA colour; this flattens it onto white
+/// so the marker helpers take one colour type.
+trait OnWhite {
+    fn rgb_colour(&self) -> RGBColor;
+}
+
+impl OnWhite for RGBAColor {
+    fn rgb_colour(&self) -> RGBColor {
+        let alpha = self.3;
+        let blend = |c: u8| (f64::from(c) * alpha + 255.0 * (1.0 - alpha)).round() as u8;
+        RGBColor(blend(self.0), blend(self.1), blend(self.2))
+    }
+}

@@ -1,0 +1,966 @@
+//! The HTML of `report.html`: one page, inline CSS and SVG, no scripts, no external resources.
+//! Sections, in order: inputs, settings, plate overview (each well with a hover text and a link to
+//! its detail), flagged wells, conditions, group fits with plots and warnings, which analysis to
+//! trust, a reporting checklist after the STRENDA guidelines, well details, and the caution.
+
+use std::fmt::Write as _;
+
+use super::trust_verdicts;
+use crate::core::format::{significant, CAUTION};
+use crate::files::output::OutputFile;
+use crate::layout::Role;
+use crate::pipeline::RunResults;
+use crate::render::plots::{
+    group_plots, inhibition_plots, plate_view, render_png, render_svg, GroupPlotKind, GroupView,
+    InhibitionPlot, InhibitionPlotKind, InhibitionView, PlateView, Plot, PlotError, WellState,
+};
+use crate::render::plots::{progress_plots, ProgressPlot, ProgressPlotKind, ProgressView};
+use crate::render::plots::{Drawing, GroupPlot, Overview, OverviewGeometry, WellDetail};
+use crate::render::words::{
+    flag_count_words, group_label, run_reason_words, trust_reason_words, verdict_words,
+};
+use crate::render::RunRecord;
+
+/// Plates up to this many wells get a detail plot for every analysed well; larger plates get one
+/// for each flagged well (a 1536-well page would otherwise carry 1536 plots).
+pub const DETAIL_ALL_WELLS_UP_TO: usize = 384;
+
+/// Everything the page shows, drawn.
+pub struct ReportParts<'a> {
+    /// The run.
+    pub results: &'a RunResults,
+    /// Where the run came from and what it used.
+    pub record: &'a RunRecord,
+    /// The plate, ready to draw.
+    pub plate: PlateView,
+    /// The overview plot.
+    pub overview: Plot,
+    /// The groups and their plots (rate, residuals, double reciprocal).
+    pub groups: Vec<(GroupView, Vec<Plot>)>,
+    /// Groups fitted globally over [S] x [I] and their plots (rate at each [I], residuals).
+    pub inhibition: Vec<(InhibitionView, Vec<Plot>)>,
+    /// Groups with a progress-curve fit and their plots (curves with the fit, residuals).
+    pub progress: Vec<(ProgressView, Vec<Plot>)>,
+    /// Detail plots of wells, by index into `plate.wells`.
+    pub details: Vec<(usize, Plot)>,
+}
+
+fn overview_title(results: &RunResults) -> String {
+    format!(
+        "Plate overview: {} ({}-well plate, {} reads)",
+        results.data.source,
+        results.data.plate,
+        results.data.times_s.len()
+    )
+}
+
+impl<'a> ReportParts<'a> {
+    /// Draws every plot of the page.
+    pub fn build(results: &'a RunResults, record: &'a RunRecord) -> Result<ReportParts<'a>, PlotError> {
+        let plate = plate_view(results);
+        let overview = render_svg(&Overview {
+            view: &plate,
+            title: overview_title(results),
+        })?;
+        let mut groups = Vec::new();
+        for view in group_plots(results) {
+            let plots = GroupPlotKind::ALL
+                .iter()
+                .map(|kind| {
+                    render_svg(&GroupPlot {
+                        view: &view,
+                        kind: *kind,
+                    })
+                })
+                .collect::<Result<Vec<_>, _>>()?;
+            groups.push((view, plots));
+        }
+        let mut inhibition = Vec::new();
+        for view in inhibition_plots(results) {
+            let plots = InhibitionPlotKind::ALL
+                .iter()
+                .map(|kind| {
+                    render_svg(&InhibitionPlot {
+                        view: &view,
+                        kind: *kind,
+                    })
+                })
+                .collect::<Result<Vec<_>, _>>()?;
+            inhibition.push((view, plots));
+        }
+        let mut progress = Vec::new();
+        for view in progress_plots(results) {
+            let plots = ProgressPlotKind::ALL
+                .iter()
+                .map(|kind| {
+                    render_svg(&ProgressPlot {
+                        view: &view,
+                        kind: *kind,
+                    })
+                })
+                .collect::<Result<Vec<_>, _>>()?;
+            progress.push((view, plots));
+        }
+        let all = plate.plate.n_wells() <= DETAIL_ALL_WELLS_UP_TO;
+        let mut details = Vec::new();
+        for (index, well) in plate.wells.iter().enumerate() {
+            if well.state == WellState::Analysed && (all || !well.flags.is_empty()) {
+                details.push((index, render_svg(&WellDetail { view: &plate, well })?));
+            }
+        }
+        Ok(ReportParts {
+            results,
+            record,
+            plate,
+            overview,
+            groups,
+            inhibition,
+            progress,
+            details,
+        })
+    }
+
+    /// One PNG per plot, under `plots/`.
+    pub fn png_files(&self) -> Result<Vec<OutputFile>, PlotError> {
+        let mut files = vec![OutputFile {
+            name: "plots/overview.png".into(),
+            bytes: render_png(&Overview {
+                view: &self.plate,
+                title: overview_title(self.results),
+            })?,
+        }];
+        for (view, _) in &self.groups {
+            for kind in GroupPlotKind::ALL {
+                let drawing = GroupPlot { view, kind };
+                files.push(OutputFile {
+                    name: format!("plots/{}.png", drawing.name()),
+                    bytes: render_png(&drawing)?,
+                });
+            }
+        }
+        for (view, _) in &self.inhibition {
+            for kind in InhibitionPlotKind::ALL {
+                let drawing = InhibitionPlot { view, kind };
+                files.push(OutputFile {
+                    name: format!("plots/{}.png", drawing.name()),
+                    bytes: render_png(&drawing)?,
+                });
+            }
+        }
+        for (view, _) in &self.progress {
+            for kind in ProgressPlotKind::ALL {
+                let drawing = ProgressPlot { view, kind };
+                files.push(OutputFile {
+                    name: format!("plots/{}.png", drawing.name()),
+                    bytes: render_png(&drawing)?,
+                });
+            }
+        }
+        for (index, _) in &self.details {
+            let drawing = WellDetail {
+                view: &self.plate,
+                well: &self.plate.wells[*index],
+            };
+            files.push(OutputFile {
+                name: format!("plots/{}.png", drawing.name()),
+                bytes: render_png(&drawing)?,
+            });
+        }
+        Ok(files)
+    }
+
+    fn has_detail(&self, index: usize) -> bool {
+        self.details.iter().any(|(i, _)| *i == index)
+    }
+}
+
+/// Escapes text for HTML and SVG.
+pub fn escape(text: &str) -> String {
+    let mut out = String::with_capacity(text.len());
+    for c in text.chars() {
+        match c {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '"' => out.push_str("&quot;"),
+            '\'' => out.push_str("&#39;"),
+            other => out.push(other),
+        }
+    }
+    out
+}
+
+const STYLE: &str = "
+body{font-family:'DejaVu Sans',Verdana,Arial,sans-serif;margin:1.5em auto;max-width:72em;padding:0 1em;color:#111;line-height:1.4}
+h1{font-size:1.6em;margin-bottom:.2em}h2{border-bottom:2px solid #0072B2;padding-bottom:.15em;margin-top:2em}
+table{border-collapse:collapse;margin:.6em 0;font-size:.92em}th,td{border:1px solid #bbb;padding:.2em .5em;text-align:left;vertical-align:top}
+th{background:#eef4fa}td.num{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}
+.caution{border-left:5px solid #D55E00;background:#fdf1e8;padding:.6em 1em}
+.warn{color:#8a3b00}.scroll{overflow-x:auto;border:1px solid #ddd;padding:4px}
+tr.chosen td{font-weight:bold}p.model code{font-size:.95em}
+.scroll svg{max-width:none}svg{max-width:100%;height:auto}
+figure{display:inline-block;margin:.5em 1em .5em 0;vertical-align:top}figcaption{font-size:.85em;max-width:40em}
+.diagnostic{border:2px dashed #D55E00;padding:.3em}
+.details figure{margin:.3em}.details figure:target{outline:3px solid #0072B2}
+code{background:#f3f3f3;padding:0 .2em}
+";
+
+/// The page.
+pub fn report_html(parts: &ReportParts) -> String {
+    let results = parts.results;
+    let mut page = String::new();
+    page.push_str("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n");
+    let _ = writeln!(
+        page,
+        "<title>platekin report: {}</title>\n<style>{STYLE}</style>\n</head>\n<body>",
+        escape(&results.data.source.to_string())
+    );
+    let _ = writeln!(
+        page,
+        "<h1>platekin run report</h1>\n<p>{} &middot; platekin {} &middot; {}-well plate, {} reads, rates in {}</p>",
+        escape(&results.data.source.to_string()),
+        env!("CARGO_PKG_VERSION"),
+        results.data.plate,
+        results.data.times_s.len(),
+        escape(&results.analysis.signal.rate_unit())
+    );
+    let _ = writeln!(page, "<p class=\"caution\">{}</p>", escape(CAUTION));
+    page.push_str(&contents());
+    page.push_str(&inputs_section(parts));
+    page.push_str(&settings_section(parts));
+    page.push_str(&overview_section(parts));
+    page.push_str(&flagged_section(parts));
+    page.push_str(&conditions_section(parts));
+    page.push_str(&groups_section(parts));
+    page.push_str(&progress_section(parts));
+    page.push_str(&trust_section(parts));
+    page.push_str(&checklist_section(parts));
+    page.push_str(&details_section(parts));
+    let _ = writeln!(
+        page,
+        "<section id=\"caution\">\n<h2>Caution</h2>\n<p class=\"caution\">{}</p>\n</section>\n</body>\n</html>",
+        escape(CAUTION)
+    );
+    page
+}
+
+/// The section ids and headings, in page order (the golden tests check these).
+pub const SECTIONS: [(&str, &str); 11] = [
+    ("inputs", "Inputs"),
+    ("settings", "Settings used"),
+    ("overview", "Plate overview"),
+    ("flagged", "Flagged wells"),
+    ("conditions", "Conditions"),
+    ("fits", "Group fits"),
+    ("progress", "Progress-curve fits"),
+    ("trust", "Which analysis to trust"),
+    ("checklist", "Reporting checklist"),
+    ("details", "Well details"),
+    ("caution", "Caution"),
+];
+
+fn heading(id: &str) -> String {
+    let title = SECTIONS
+        .iter()
+        .find(|(section, _)| *section == id)
+        .map_or(id, |(_, title)| title);
+    format!("<section id=\"{id}\">\n<h2>{title}</h2>\n")
+}
+
+fn contents() -> String {
+    let links: Vec<String> = SECTIONS
+        .iter()
+        .map(|(id, title)| format!("<a href=\"#{id}\">{title}</a>"))
+        .collect();
+    format!("<nav><p>{}</p></nav>\n", links.join(" &middot; "))
+}
+
+fn inputs_section(parts: &ReportParts) -> String {
+    let mut html = heading("inputs");
+    if parts.record.inputs.is_empty() {
+        html.push_str("<p>No input files were recorded for this run.</p>\n");
+    } else {
+        html.push_str("<table>\n<tr><th>input</th><th>file</th><th>bytes</th><th>SHA-256</th></tr>\n");
+        for record in &parts.record.inputs {
+            let _ = writeln!(
+                html,
+                "<tr><td>{}</td><td>{}</td><td class=\"num\">{}</td><td><code>{}</code></td></tr>",
+                escape(&record.role),
+                escape(&record.file),
+                record.bytes,
+                record.sha256
+            );
+        }
+        html.push_str("</table>\n");
+    }
+    let data = &parts.results.data;
+    let span = match (data.times_s.first(), data.times_s.last()) {
+        (Some(first), Some(last)) => format!("{} to {} s", significant(*first), significant(*last)),
+        _ => "no reads".to_string(),
+    };
+    let _ = writeln!(
+        html,
+        "<p>Read as a {} export: {} wells with data, {} reads from {span}; temperature {}.</p>",
+        data.shape,
+        data.wells.len(),
+        data.times_s.len(),
+        escape(&temperature_text(parts.results))
+    );
+    let warnings: Vec<&String> = parts
+        .results
+        .input_warnings
+        .iter()
+        .chain(&parts.results.analysis.warnings)
+        .collect();
+    if !warnings.is_empty() {
+        html.push_str("<ul>\n");
+        for warning in warnings {
+            let _ = writeln!(html, "<li class=\"warn\">{}</li>", escape(warning));
+        }
+        html.push_str("</ul>\n");
+    }
+    html.push_str("</section>\n");
+    html
+}
+
+/// The export's temperature: range and mean over the reads, or a note that it holds none.
+pub fn temperature_text(results: &RunResults) -> String {
+    let values: Vec<f64> = results
+        .data
+        .temperatures_c
+        .iter()
+        .flatten()
+        .flatten()
+        .copied()
+        .filter(|t| t.is_finite())
+        .collect();
+    if values.is_empty() {
+        return "not in the export".to_string();
+    }
+    let low = values.iter().copied().fold(f64::INFINITY, f64::min);
+    let high = values.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let mean = crate::core::stats::mean(&values).unwrap_or(f64::NAN);
+    format!("{low:.1} to {high:.1} °C in the export (mean {mean:.1} °C)")
+}
+
+fn settings_section(parts: &ReportParts) -> String {
+    let mut html = heading("settings");
+    html.push_str("<table>\n<tr><th>setting</th><th>value</th></tr>\n");
+    if let Ok(serde_json::Value::Object(map)) = serde_json::to_value(&parts.record.used) {
+        for (name, value) in map {
+            let text = match value {
+                serde_json::Value::Null => "(not set: default)".to_string(),
+                serde_json::Value::String(s) => s,
+                other => other.to_string(),
+            };
+            let _ = writeln!(
+                html,
+                "<tr><td>{}</td><td>{}</td></tr>",
+                escape(&name),
+                escape(&text)
+            );
+        }
+    }
+    html.push_str("</table>\n<p>The same settings are in <code>settings.toml</code> (repeat the run with <code>--assay settings.toml</code>) and <code>run.json</code>.</p>\n</section>\n");
+    html
+}
+
+/// The overview SVG with one transparent, titled (and, where a detail exists, linked) rectangle
+/// over each well: SVG `<title>` gives the hover text without scripts.
+fn overview_with_links(parts: &ReportParts) -> String {
+    let geometry = OverviewGeometry::for_plate(parts.plate.plate);
+    let mut overlay = String::from("<g class=\"wells\">\n");
+    for (index, well) in parts.plate.wells.iter().enumerate() {
+        let (x, y, w, h) = geometry.cell(well.well);
+        let rect = format!(
+            "<rect x=\"{x}\" y=\"{y}\" width=\"{w}\" height=\"{h}\" fill=\"transparent\" data-well=\"{}\"><title>{}</title></rect>",
+            well.well,
+            escape(&well.hover)
+        );
+        if parts.has_detail(index) {
+            let _ = writeln!(overlay, "<a href=\"#{}\">{rect}</a>", well.anchor());
+        } else {
+            let _ = writeln!(overlay, "{rect}");
+        }
+    }
+    overlay.push_str("</g>\n");
+    let svg = &parts.overview.svg;
+    match svg.rfind("</svg>") {
+        Some(end) => format!("{}{overlay}{}", &svg[..end], &svg[end..]),
+        None => svg.clone(),
+    }
+}
+
+fn overview_section(parts: &ReportParts) -> String {
+    let mut html = heading("overview");
+    let kind = if OverviewGeometry::for_plate(parts.plate.plate).heat_map {
+        "Each cell is one well coloured by its rate (viridis scale); flagged wells carry a white inset, a diagonal, a red frame and their first flag's code."
+    } else {
+        "Each miniature is one well: its curve (blue, on its own scale), the initial-rate window (orange) and the fitted straight line (black). Flagged wells are hatched, framed in red and carry their flag codes."
+    };
+    let _ = writeln!(
+        html,
+        "<p>{kind} Hover over a well for its rate and flags; click it for its detail.</p>\n<div class=\"scroll\">\n{}\n</div>",
+        overview_with_links(parts)
+    );
+    html.push_str("</section>\n");
+    html
+}
+
+fn flagged_section(parts: &ReportParts) -> String {
+    let mut html = heading("flagged");
+    let flagged: Vec<_> = parts
+        .results
+        .analysis
+        .wells
+        .iter()
+        .filter(|w| !w.rate.flags.is_empty() || w.rate_value.is_none())
+        .collect();
+    if flagged.is_empty() {
+        html.push_str("<p>No well was flagged.</p>\n</section>\n");
+        return html;
+    }
+    let _ = writeln!(
+        html,
+        "<p>{} wells flagged or without a rate. Flagged wells are left out of means and fits unless <code>--keep-flagged</code> is given.</p>",
+        flagged.len()
+    );
+    html.push_str("<table class=\"flagged\">\n<tr><th>well</th><th>role</th><th>flags</th><th>used</th><th>reason</th></tr>\n");
+    for well in flagged {
+        let codes = well
+            .rate
+            .flags
+            .iter()
+            .map(|f| format!("{} ({})", f.word(), crate::render::plots::flag_code(*f)))
+            .collect::<Vec<_>>()
+            .join(", ");
+        let reason = if well.rate.notes.is_empty() {
+            if well.rate_value.is_none() {
+                "no rate".to_string()
+            } else {
+                well.flag_text()
+            }
+        } else {
+            well.rate.notes.join("; ")
+        };
+        let _ = writeln!(
+            html,
+            "<tr data-well=\"{w}\"><td><a href=\"#well-{w}\">{w}</a></td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            well.setup.role,
+            escape(&codes),
+            if well.used { "yes" } else { "no" },
+            escape(&reason),
+            w = well.well,
+        );
+    }
+    html.push_str("</table>\n</section>\n");
+    html
+}
+
+fn optional(value: Option<f64>) -> String {
+    value.map_or("-".to_string(), significant)
+}
+
+fn conditions_section(parts: &ReportParts) -> String {
+    let results = parts.results;
+    let layout = &results.layout;
+    let unit =
+        |u: Option<crate::core::units::ConcentrationUnit>| u.map_or(String::new(), |u| format!(" [{u}]"));
+    let rate_unit = &results.analysis.signal.rate_unit();
+    let mut html = heading("conditions");
+    let _ = write!(
+        html,
+        "<table class=\"conditions\">\n<tr><th>role</th><th>substrate{}</th><th>enzyme{}</th><th>inhibitor{}</th>",
+        unit(layout.substrate_unit),
+        unit(layout.enzyme_unit),
+        unit(layout.inhibitor_unit)
+    );
+    for name in &layout.factor_names {
+        let _ = write!(html, "<th>{}</th>", escape(name));
+    }
+    let _ = writeln!(
+        html,
+        "<th>n</th><th>n used</th><th>mean [{r}]</th><th>SD [{r}]</th><th>SEM [{r}]</th><th>CV</th><th>flags</th></tr>",
+        r = escape(rate_unit)
+    );
+    for condition in &results.conditions {
+        let _ = write!(
+            html,
+            "<tr><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>",
+            escape(&condition.role.to_string()),
+            optional(condition.substrate),
+            optional(condition.enzyme),
+            optional(condition.inhibitor)
+        );
+        for name in &layout.factor_names {
+            let value = condition.factors.get(name).map_or("", String::as_str);
+            let _ = write!(html, "<td>{}</td>", escape(value));
+        }
+        let _ = writeln!(
+            html,
+            "<td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
+            condition.n,
+            condition.n_used,
+            optional(condition.rate_mean),
+            optional(condition.rate_sd),
+            optional(condition.rate_sem),
+            optional(condition.cv),
+            escape(&flag_count_words(&condition.flags))
+        );
+    }
+    html.push_str("</table>\n</section>\n");
+    html
+}
+
+fn figure(plot: &Plot, class: &str) -> String {
+    format!(
+        "<figure class=\"{class}\">\n{}\n<figcaption>{}</figcaption>\n</figure>\n",
+        plot.svg,
+        escape(&plot.title)
+    )
+}
+
+fn groups_section(parts: &ReportParts) -> String {
+    let mut html = heading("fits");
+    html.push_str("<p>Fits of the rate law each group's model choice reports (Michaelis-Menten, v = Vmax [S] / (Km + [S]), unless another model is asked for or the inhibitor is varied), by nonlinear least squares on every used replicate well (not the means); standard errors from the Jacobian at the optimum, 95% intervals from the t distribution. The band around the curve is the 95% band of the fitted mean (delta method).</p>\n");
+    for ((view, plots), fit) in parts.groups.iter().zip(&parts.results.fits) {
+        let _ = writeln!(
+            html,
+            "<article class=\"group\" id=\"group-{}\">\n<h3>Group {}: {}</h3>",
+            view.number,
+            view.number,
+            escape(&view.label)
+        );
+        if let Some(error) = &fit.error {
+            let _ = writeln!(html, "<p class=\"warn\">{}</p>", escape(error));
+        }
+        html.push_str("<table>\n<tr><th>parameter</th><th>value</th><th>SE</th><th>95% interval</th><th>unit</th><th>determined</th></tr>\n");
+        // The usual four first, then every other constant the reported model has (Ki, Ki', h...).
+        let first = ["Vmax", "Km", "kcat", "kcat_over_Km"];
+        let names = first.into_iter().chain(
+            fit.parameters
+                .keys()
+                .map(String::as_str)
+                .filter(|n| !first.contains(n)),
+        );
+        for name in names {
+            if let Some(p) = fit.parameters.get(name) {
+                let interval = p.ci95.map_or("-".to_string(), |[lo, hi]| {
+                    format!("{} to {}", significant(lo), significant(hi))
+                });
+                let _ = writeln!(
+                    html,
+                    "<tr><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{interval}</td><td>{}</td><td>{}</td></tr>",
+                    name.replace("_over_", "/"),
+                    significant(p.value),
+                    optional(p.se),
+                    escape(&p.unit),
+                    if p.determined { "yes" } else { "no" }
+                );
+            }
+        }
+        let _ = writeln!(
+            html,
+            "</table>\n<p>{} wells fitted; residual SD {} {}.</p>",
+            fit.n,
+            optional(fit.residual_sd),
+            escape(&parts.results.analysis.signal.rate_unit())
+        );
+        html.push_str(&model_choice_html(fit));
+        if !fit.warnings.is_empty() {
+            html.push_str("<ul class=\"warnings\">\n");
+            for warning in &fit.warnings {
+                let _ = writeln!(html, "<li class=\"warn\">{}</li>", escape(warning));
+            }
+            html.push_str("</ul>\n");
+        }
+        for (plot, kind) in plots.iter().zip(GroupPlotKind::ALL) {
+            let class = if kind == GroupPlotKind::DoubleReciprocal {
+                "diagnostic"
+            } else {
+                "plot"
+            };
+            html.push_str(&figure(plot, class));
+        }
+        if let Some((inhibition, plots)) = parts.inhibition.iter().find(|(v, _)| v.number == view.number) {
+            let _ = writeln!(
+                html,
+                "<p>This group varies the inhibitor ({} levels): one global {} fit over [S] x [I]. Each [I] has its own colour and marker shape; open markers are wells left out. The plain Michaelis-Menten views above pool every level and are for orientation only.</p>",
+                inhibition.levels.len(),
+                escape(inhibition.model.name())
+            );
+            for plot in plots {
+                html.push_str(&figure(plot, "plot inhibition"));
+            }
+        }
+        html.push_str("<p>The double-reciprocal view is a diagnostic only: inverting rates distorts their errors, so its straight line is not an estimate (Smith, McCarty and Kitanidis 1998, Appl Environ Microbiol 64:2044).</p>\n</article>\n");
+    }
+    html.push_str("</section>\n");
+    html
+}
+
+/// The model choice of a group: the equation reported, why it was chosen, and every candidate
+/// with its AICc, difference to the best and Akaike weight.
+fn model_choice_html(fit: &crate::groups::GroupFit) -> String {
+    let mut html = String::new();
+    let _ = write!(
+        html,
+        "<p class=\"model\">Model reported: <strong>{}</strong>",
+        escape(fit.model.name())
+    );
+    if let Some(equation) = &fit.equation {
+        let _ = write!(html, ", <code>{}</code>", escape(equation));
+    }
+    html.push('.');
+    if let Some(choice) = &fit.model_choice {
+        let _ = write!(html, " Choice: {}.", escape(choice));
+    }
+    html.push_str("</p>\n");
+    if fit.models_tried.is_empty() {
+        return html;
+    }
+    html.push_str("<table class=\"models\">\n<tr><th>model tried</th><th>parameters</th><th>RSS</th><th>AICc</th><th>delta AICc</th><th>Akaike weight</th><th>converged</th><th>eligible</th><th>note</th></tr>\n");
+    for candidate in &fit.models_tried {
+        let chosen = candidate.model == fit.model;
+        let _ = writeln!(
+            html,
+            "<tr{}><td>{}{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            if chosen { " class=\"chosen\"" } else { "" },
+            escape(candidate.model.name()),
+            if chosen { " (reported)" } else { "" },
+            candidate.n_parameters,
+            optional(candidate.rss),
+            optional(candidate.aicc),
+            optional(candidate.delta_aicc),
+            optional(candidate.akaike_weight),
+            if candidate.converged { "yes" } else { "no" },
+            if candidate.eligible { "yes" } else { "no" },
+            escape(candidate.note.as_deref().unwrap_or(""))
+        );
+    }
+    html.push_str("</table>\n");
+    html
+}
+
+/// A progress-curve parameter: value, 95% interval, and Km's profile interval when there is one.
+fn progress_parameter_cells(p: &crate::groups::ParameterReport) -> String {
+    let interval = p.ci95.map_or("-".to_string(), |[lo, hi]| {
+        format!("{} to {}", significant(lo), significant(hi))
+    });
+    let profile = p.ci95_profile.map_or("-".to_string(), |[lo, hi]| {
+        let side = |v: Option<f64>| v.map_or("open".to_string(), significant);
+        format!("{} to {}", side(lo), side(hi))
+    });
+    format!(
+        "<td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{interval}</td><td class=\"num\">{profile}</td><td>{}</td><td>{}</td>",
+        significant(p.value),
+        optional(p.se),
+        escape(&p.unit),
+        if p.determined { "yes" } else { "no" }
+    )
+}
+
+fn progress_section(parts: &ReportParts) -> String {
+    let progress = &parts.results.progress;
+    let mut html = heading("progress");
+    let _ = writeln!(
+        html,
+        "<p>Global fits of the integrated rate law to every read of a group's wells at once (<code>--progress {}</code>): kcat and Km shared, one signal offset per well, in the signal units the fit used (absorbance, blank- and background-corrected). Per well, a runs test on the residual signs looks for systematic misfit (z below -2.576, the 1% level).</p>",
+        escape(progress.mode.word())
+    );
+    if progress.groups.is_empty() {
+        html.push_str("<p>No group was analysed by progress curves.</p>\n</section>\n");
+        return html;
+    }
+    for (index, group) in progress.groups.iter().enumerate() {
+        let number = index + 1;
+        let _ = writeln!(
+            html,
+            "<article class=\"group\" id=\"progress-{number}\">\n<h3>Progress curves {number}: {}</h3>\n<p>{}</p>",
+            escape(&group_label(&group.group)),
+            escape(&run_reason_words(&group.run))
+        );
+        if let Some(error) = &group.error {
+            let _ = writeln!(html, "<p class=\"warn\">{}</p>", escape(error));
+        }
+        if !group.analysed {
+            html.push_str("</article>\n");
+            continue;
+        }
+        let _ = writeln!(
+            html,
+            "<p class=\"model\">Model chosen: <strong>{}</strong>; {} reads of {} wells; residual SD {} AU; AICc {}; dead time {} s.</p>",
+            escape(group.model.map_or("-", |m| m.name())),
+            group.n,
+            group.n_wells,
+            optional(group.residual_sd),
+            optional(group.aicc),
+            optional(group.dead_time_s)
+        );
+        html.push_str("<table class=\"progress-parameters\">\n<tr><th>parameter</th><th>value</th><th>SE</th><th>95% interval</th><th>profile 95% interval</th><th>unit</th><th>determined</th></tr>\n");
+        for (name, p) in &group.parameters {
+            let _ = writeln!(
+                html,
+                "<tr><td>{}</td>{}</tr>",
+                escape(&name.replace("_over_", "/")),
+                progress_parameter_cells(p)
+            );
+        }
+        html.push_str("</table>\n");
+        if !group.models_tried.is_empty() {
+            html.push_str("<table class=\"progress-models\">\n<tr><th>model tried</th><th>AICc</th><th>delta AICc</th><th>residual SD [AU]</th><th>F test p</th><th>verdict</th></tr>\n");
+            for tried in &group.models_tried {
+                let _ = writeln!(
+                    html,
+                    "<tr><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
+                    escape(tried.model.name()),
+                    optional(tried.aicc),
+                    optional(tried.delta_aicc),
+                    optional(tried.residual_sd),
+                    optional(tried.f_test_p),
+                    escape(&verdict_words(tried))
+                );
+            }
+            html.push_str("</table>\n");
+        }
+        if !group.warnings.is_empty() {
+            html.push_str("<ul class=\"warnings\">\n");
+            for warning in &group.warnings {
+                let _ = writeln!(html, "<li class=\"warn\">{}</li>", escape(warning));
+            }
+            html.push_str("</ul>\n");
+        }
+        if !group.curves.is_empty() {
+            html.push_str("<table class=\"runs\">\n<tr><th>well</th><th>S0</th><th>reads</th><th>runs</th><th>runs z</th><th>systematic misfit</th></tr>\n");
+            for curve in &group.curves {
+                let _ = writeln!(
+                    html,
+                    "<tr><td><a href=\"#well-{w}\">{w}</a></td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
+                    optional(curve.s0),
+                    curve.observed.len(),
+                    curve.runs.0,
+                    optional(curve.runs.1),
+                    if curve.systematic_misfit { "yes" } else { "no" },
+                    w = escape(&curve.well)
+                );
+            }
+            html.push_str("</table>\n");
+        }
+        if let Some((_, plots)) = parts.progress.iter().find(|(v, _)| v.number == number) {
+            for plot in plots {
+                html.push_str(&figure(plot, "plot progress"));
+            }
+        }
+        let _ = writeln!(
+            html,
+            "<p>Which analysis to trust: <strong>{}</strong>. {}</p>\n</article>",
+            escape(group.decision.trust.word()),
+            escape(&trust_reason_words(&group.decision.reason))
+        );
+    }
+    html.push_str("</section>\n");
+    html
+}
+
+fn trust_section(parts: &ReportParts) -> String {
+    let mut html = heading("trust");
+    html.push_str("<table>\n<tr><th>group</th><th>analysis to use</th><th>why</th></tr>\n");
+    for verdict in trust_verdicts(parts.results) {
+        let _ = writeln!(
+            html,
+            "<tr><td>{}</td><td>{}</td><td>{}</td></tr>",
+            escape(&verdict.group),
+            escape(&verdict.analysis),
+            escape(&verdict.reasons.join("; "))
+        );
+    }
+    html.push_str("</table>\n</section>\n");
+    html
+}
+
+fn checklist_section(parts: &ReportParts) -> String {
+    let results = parts.results;
+    let mut html = heading("checklist");
+    html.push_str("<p>What a publication of these kinetic data needs to state, following the items of the STRENDA guidelines (Standards for Reporting Enzymology Data; Tipton et al. 2014, Perspectives in Science 1:131), phrased here for this run: what the run supplies, and what only you can add.</p>\n");
+    let fitted = results.fits.iter().filter(|f| f.error.is_none()).count();
+    let has_kcat = results.fits.iter().any(|f| f.parameters.contains_key("kcat"));
+    let n_used = results.analysis.wells.iter().filter(|w| w.used).count();
+    let n_flagged = results
+        .analysis
+        .wells
+        .iter()
+        .filter(|w| !w.rate.flags.is_empty())
+        .count();
+    let max_conversion = results.settings.rates.max_conversion;
+    let temperature = temperature_text(results);
+    let temperature_known = results
+        .data
+        .temperatures_c
+        .as_ref()
+        .is_some_and(|t| t.iter().any(Option::is_some));
+    let enzyme_levels: std::collections::BTreeSet<String> = results
+        .analysis
+        .wells
+        .iter()
+        .filter(|w| w.setup.role == Role::Sample)
+        .filter_map(|w| w.setup.enzyme.map(significant))
+        .collect();
+    let supplied = "supplied by this run";
+    let yours = "you must state";
+    let mut rows: Vec<(&str, String, String)> = vec![
+        (
+            "Kinetic parameters with units and uncertainty",
+            supplied.into(),
+            format!(
+                "Vmax and Km{} with standard errors and 95% intervals for {fitted} of {} groups (Group fits).",
+                if has_kcat { ", kcat and kcat/Km" } else { "" },
+                results.fits.len()
+            ),
+        ),
+        (
+            "Equation fitted and fitting method",
+            supplied.into(),
+            "v = Vmax [S] / (Km + [S]) by nonlinear least squares on the replicate wells; standard errors from the Jacobian; linearisations shown as diagnostics only.".into(),
+        ),
+        (
+            "Replicates and precision",
+            supplied.into(),
+            format!("{n_used} wells used; n, SD, SEM and CV per condition (Conditions). Independent repeats on other days or preparations are not in one plate: state them."),
+        ),
+        (
+            "Evidence for initial-rate conditions",
+            supplied.into(),
+            format!(
+                "Each window is straight by two t tests and converts at most {:.0}% of the substrate; {n_flagged} wells flagged (Flagged wells).",
+                max_conversion * 100.0
+            ),
+        ),
+        (
+            "Substrate and enzyme concentrations",
+            supplied.into(),
+            format!(
+                "From the layout: substrate per well; enzyme {}.",
+                if enzyme_levels.is_empty() {
+                    "not given".to_string()
+                } else {
+                    format!(
+                        "{} level(s): {}{}",
+                        enzyme_levels.len(),
+                        enzyme_levels.into_iter().collect::<Vec<_>>().join(", "),
+                        results.layout.enzyme_unit.map_or(String::new(), |unit| format!(" {unit}"))
+                    )
+                }
+            ),
+        ),
+        (
+            "Assay temperature",
+            if temperature_known { supplied.into() } else { yours.into() },
+            if temperature_known {
+                format!("{temperature}; confirm it is the reaction temperature, not only the chamber's.")
+            } else {
+                "The export holds no temperature: state the assay temperature.".into()
+            },
+        ),
+        (
+            "Signal conversion",
+            if results.settings.extinction_per_molar_cm.is_some() { supplied.into() } else { yours.into() },
+            match (results.settings.extinction_per_molar_cm, results.settings.pathlength_cm) {
+                (Some(e), Some(l)) => format!("Extinction coefficient {e} M^-1 cm^-1 and pathlength {l} cm as given; state their source and the wavelength."),
+                _ => "Rates are in absorbance units: give the extinction coefficient and pathlength to report concentrations.".into(),
+            },
+        ),
+    ];
+    for item in [
+        (
+            "Enzyme identity",
+            "name, EC number, organism, sequence or variant, any tags",
+        ),
+        (
+            "Enzyme preparation",
+            "source, purity, how the concentration was measured, oligomeric state, storage",
+        ),
+        (
+            "Assay conditions",
+            "pH and how it was set, buffer and its concentration, ions and additives, total volume",
+        ),
+        (
+            "Substrate",
+            "identity and purity, and whether co-substrates were saturating",
+        ),
+        (
+            "How the reaction was started",
+            "what was added last, mixing, and the dead time before the first read",
+        ),
+        (
+            "Rate proportional to enzyme",
+            "evidence that the rate scales with enzyme concentration (a dilution series)",
+        ),
+    ] {
+        rows.push((item.0, yours.into(), format!("State {}.", item.1)));
+    }
+    html.push_str("<table class=\"checklist\">\n<tr><th>item</th><th>status</th><th>details</th></tr>\n");
+    for (item, status, details) in rows {
+        let _ = writeln!(
+            html,
+            "<tr><td>{}</td><td>{}</td><td>{}</td></tr>",
+            escape(item),
+            escape(&status),
+            escape(&details)
+        );
+    }
+    html.push_str("</table>\n</section>\n");
+    html
+}
+
+fn details_section(parts: &ReportParts) -> String {
+    let mut html = heading("details");
+    if parts.plate.plate.n_wells() > DETAIL_ALL_WELLS_UP_TO {
+        let _ = writeln!(
+            html,
+            "<p>On a {}-well plate only flagged wells get a detail plot here; every well is in <code>wells.csv</code>.</p>",
+            parts.plate.plate
+        );
+    }
+    html.push_str("<div class=\"details\">\n");
+    for (index, plot) in &parts.details {
+        let well = &parts.plate.wells[*index];
+        let _ = writeln!(
+            html,
+            "<figure id=\"{}\" class=\"well\">\n{}\n<figcaption>{}</figcaption>\n</figure>",
+            well.anchor(),
+            plot.svg,
+            escape(&well.hover)
+        );
+    }
+    html.push_str("</div>\n</section>\n");
+    html
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    proptest::proptest! {
+        /// Escaped text never opens a tag or closes an attribute, and unescaping gives it back.
+        #[test]
+        fn escaped_text_is_inert(text in ".{0,40}") {
+            let escaped = escape(&text);
+            proptest::prop_assert!(!escaped.contains('<') && !escaped.contains('>') && !escaped.contains('"'));
+            let back = escaped
+                .replace("&lt;", "<")
+                .replace("&gt;", ">")
+                .replace("&quot;", "\"")
+                .replace("&#39;", "'")
+                .replace("&amp;", "&");
+            proptest::prop_assert_eq!(back, text);
+        }
+    }
+
+    #[test]
+    fn escape_covers_markup_characters() {
+        assert_eq!(
+            escape("a<b & \"c\" 'd'>"),
+            "a&lt;b &amp; &quot;c&quot; &#39;d&#39;&gt;"
+        );
+    }
+}

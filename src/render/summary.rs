@@ -1,0 +1,254 @@
+//! The terminal summary of a run (and of `platekin fit`): what was read, the flagged wells, each
+//! group's constants with their intervals, the progress-curve analysis, the warnings, and where
+//! the outputs are.
+
+use std::path::Path;
+
+use super::words::{group_label, run_reason_words, trust_reason_words};
+use crate::config::{RateModelKind, ReportMode};
+use crate::core::format::{significant, CAUTION};
+use crate::groups::{GroupFit, ParameterReport};
+use crate::layout::Role;
+use crate::pipeline::RunResults;
+use crate::progress::analysis::ProgressAnalysis;
+use crate::rates::flag_counts;
+
+/// Formats a value with its 95% interval: `12.1 [11.6, 12.6]`.
+fn with_interval(parameter: Option<&ParameterReport>) -> String {
+    match parameter {
+        None => "-".to_string(),
+        Some(p) => {
+            let value = significant(p.value);
+            let interval = p.ci95.map_or(String::new(), |[lo, hi]| {
+                format!(" [{}, {}]", significant(lo), significant(hi))
+            });
+            let end = |x: Option<f64>, open: &str| x.map_or(open.to_string(), significant);
+            let profile = p.ci95_profile.map_or(String::new(), |[lo, hi]| {
+                format!(" profile [{}, {}]", end(lo, "open"), end(hi, "open"))
+            });
+            let doubt = if p.determined { "" } else { " (not determined)" };
+            format!("{value}{interval}{profile}{doubt}")
+        }
+    }
+}
+
+/// A progress-curve parameter with its interval, and Km's profile interval when there is one.
+fn progress_value(parameter: Option<&ParameterReport>) -> String {
+    match parameter {
+        None => "-".to_string(),
+        Some(p) => {
+            let interval = p.ci95.map_or(String::new(), |[lo, hi]| {
+                format!(" [{}, {}]", significant(lo), significant(hi))
+            });
+            let profile = p.ci95_profile.map_or(String::new(), |[lo, hi]| {
+                let side = |v: Option<f64>| v.map_or("open".to_string(), significant);
+                format!(" (profile [{}, {}])", side(lo), side(hi))
+            });
+            let doubt = if p.determined { "" } else { " (not determined)" };
+            format!("{}{interval}{profile} {}{doubt}", significant(p.value), p.unit)
+        }
+    }
+}
+
+/// The progress-curve lines of the summary: one block per group, ending with what to trust.
+fn progress_summary(progress: &ProgressAnalysis) -> Vec<String> {
+    let mut lines = vec![
+        String::new(),
+        format!("Progress-curve analysis (--progress {}):", progress.mode.word()),
+    ];
+    for group in &progress.groups {
+        let label = group_label(&group.group);
+        let trust = trust_reason_words(&group.decision.reason);
+        if !group.analysed {
+            lines.push(format!("  {label}: not fitted; trust: {trust}"));
+            continue;
+        }
+        lines.push(format!(
+            "  {label}: {} global fit of {} wells ({}), residual SD {} AU",
+            group.model.map_or("-", |m| m.name()),
+            group.n_wells,
+            run_reason_words(&group.run),
+            group.residual_sd.map_or("-".to_string(), significant)
+        ));
+        lines.push(format!(
+            "    kcat    {}",
+            progress_value(group.parameters.get("kcat"))
+        ));
+        lines.push(format!(
+            "    Km      {}",
+            progress_value(group.parameters.get("Km"))
+        ));
+        for extra in ["Kp", "k_inact", "dead_time"] {
+            if let Some(p) = group.parameters.get(extra) {
+                lines.push(format!("    {extra:<7} {}", progress_value(Some(p))));
+            }
+        }
+        for warning in &group.warnings {
+            lines.push(format!("    warning: {warning}"));
+        }
+        lines.push(format!("    trust: {trust}"));
+    }
+    lines
+}
+
+/// The one-screen summary of a run, naming the report files written.
+pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> String {
+    let data = &results.data;
+    let analysis = &results.analysis;
+    let mut lines = Vec::new();
+    let span = match (data.times_s.first(), data.times_s.last()) {
+        (Some(first), Some(last)) => format!("{first}-{last} s"),
+        _ => "no reads".to_string(),
+    };
+    lines.push(format!(
+        "platekin {}: {} ({} export, {}-well plate, {} reads, {})",
+        env!("CARGO_PKG_VERSION"),
+        data.source,
+        data.shape,
+        data.plate,
+        data.times_s.len(),
+        span
+    ));
+    let count = |role: Role| analysis.wells.iter().filter(|w| w.setup.role == role).count();
+    lines.push(format!(
+        "wells analysed: {} ({} samples, {} no-enzyme, {} blanks); rates in {}",
+        analysis.wells.len(),
+        count(Role::Sample),
+        count(Role::NoEnzyme),
+        count(Role::Blank),
+        analysis.signal.rate_unit()
+    ));
+    let flagged = analysis.wells.iter().filter(|w| !w.rate.flags.is_empty()).count();
+    let counts = flag_counts(&analysis.wells);
+    let reasons = counts
+        .iter()
+        .map(|(flag, n)| format!("{flag} {n}"))
+        .collect::<Vec<_>>()
+        .join(", ");
+    if flagged == 0 {
+        lines.push("flagged wells: none".to_string());
+    } else {
+        lines.push(format!("flagged wells: {flagged} ({reasons})"));
+        let excluded: Vec<String> = analysis
+            .excluded()
+            .map(|(w, reason)| format!("{} {}", w.well, reason))
+            .collect();
+        if !excluded.is_empty() {
+            lines.push(format!("left out of means and fits: {}", excluded.join(", ")));
+        }
+    }
+    lines.push(String::new());
+    lines.push("Fits (value [95% interval]):".to_string());
+    lines.extend(group_fit_lines(&results.fits));
+    lines.extend(progress_summary(&results.progress));
+    let mut warnings: Vec<&String> = results.input_warnings.iter().collect();
+    warnings.extend(&analysis.warnings);
+    if !warnings.is_empty() {
+        lines.push(String::new());
+        for warning in warnings {
+            lines.push(format!("warning: {warning}"));
+        }
+    }
+    lines.push(String::new());
+    lines.push(format!(
+        "outputs: {}/ (wells.csv, conditions.csv, fit.json, progress.json, settings.toml{}, run.json)",
+        out.display(),
+        match report {
+            ReportMode::Html => ", report.html",
+            ReportMode::Full => ", report.html, plots/*.png",
+            ReportMode::None => "",
+        }
+    ));
+    lines.push(CAUTION.to_string());
+    lines.push(String::new());
+    lines.join("\n")
+}
+
+/// The summary of `platekin fit` on a rate table.
+pub fn table_fit_summary(source: &str, kind: &str, fits: &[GroupFit], out: &Path) -> String {
+    let mut lines = vec![
+        format!(
+            "platekin {}: fit of {} ({}, {} group(s))",
+            env!("CARGO_PKG_VERSION"),
+            source,
+            kind,
+            fits.len()
+        ),
+        String::new(),
+        "Fits (value [95% interval]):".to_string(),
+    ];
+    lines.extend(group_fit_lines(fits));
+    lines.push(String::new());
+    lines.push(format!("outputs: {}/ (fit.json, summary.txt)", out.display()));
+    lines.push(CAUTION.to_string());
+    lines.push(String::new());
+    lines.join("\n")
+}
+
+/// The summary lines of the group fits: model, kcat, Km, kcat/Km (or Vmax) and every other constant.
+pub fn group_fit_lines(fits: &[GroupFit]) -> Vec<String> {
+    let mut lines = Vec::new();
+    for fit in fits {
+        lines.push(format!(
+            "  {} (n = {}, model {})",
+            group_label(&fit.group),
+            fit.n,
+            fit.model
+        ));
+        if let Some(error) = &fit.error {
+            lines.push(format!("    {error}"));
+            continue;
+        }
+        if let Some(choice) = fit.model_choice.as_ref().filter(|_| fit.models_tried.len() > 1) {
+            lines.push(format!("    chosen: {choice}"));
+        }
+        let unit = |name: &str| {
+            fit.parameters
+                .get(name)
+                .map_or(String::new(), |p| format!(" {}", p.unit))
+        };
+        // The classic block for Michaelis-Menten; other models list what they fitted.
+        let classic = fit.model == RateModelKind::MichaelisMenten;
+        if classic {
+            lines.push(format!(
+                "    kcat    {}{}",
+                with_interval(fit.parameters.get("kcat")),
+                unit("kcat")
+            ));
+            lines.push(format!(
+                "    Km      {}{}",
+                with_interval(fit.parameters.get("Km")),
+                unit("Km")
+            ));
+            lines.push(format!(
+                "    kcat/Km {}{}",
+                with_interval(fit.parameters.get("kcat_over_Km")),
+                unit("kcat_over_Km")
+            ));
+            if !fit.parameters.contains_key("kcat") {
+                lines.push(format!(
+                    "    Vmax    {}{}",
+                    with_interval(fit.parameters.get("Vmax")),
+                    unit("Vmax")
+                ));
+            }
+        }
+        for (name, parameter) in &fit.parameters {
+            if classic && ["kcat", "Km", "kcat_over_Km", "Vmax"].contains(&name.as_str()) {
+                continue;
+            }
+            if name == "Vmax" && fit.parameters.contains_key("kcat") {
+                continue;
+            }
+            lines.push(format!(
+                "    {name:<7} {} {}",
+                with_interval(Some(parameter)),
+                parameter.unit
+            ));
+        }
+        for warning in &fit.warnings {
+            lines.push(format!("    warning: {warning}"));
+        }
+    }
+    lines
+}

@@ -1,0 +1,232 @@
+//! The run's CSV tables, `wells.csv` and `conditions.csv`, as polars DataFrames written with
+//! polars' CSV writer. Units are written into the headers (`rate [uM/s]`, `substrate [uM]`).
+
+use polars::prelude::*;
+
+use crate::layout::Layout;
+use crate::rates::conditions::Condition;
+pub use crate::rates::conditions::TableError;
+use crate::rates::window_fit::LineFit;
+use crate::rates::PlateAnalysis;
+use crate::render::words::flag_count_words;
+
+/// The quantity columns the layout has, with their headers: (header, which quantity).
+fn quantity_headers(layout: &Layout) -> Vec<(String, Quantity)> {
+    let mut headers = Vec::new();
+    if let Some(unit) = layout.substrate_unit {
+        headers.push((format!("substrate [{unit}]"), Quantity::Substrate));
+    }
+    if let Some(unit) = layout.enzyme_unit {
+        headers.push((format!("enzyme [{unit}]"), Quantity::Enzyme));
+    }
+    if let Some(unit) = layout.inhibitor_unit {
+        headers.push((format!("inhibitor [{unit}]"), Quantity::Inhibitor));
+    }
+    headers
+}
+
+#[derive(Debug, Clone, Copy)]
+enum Quantity {
+    Substrate,
+    Enzyme,
+    Inhibitor,
+}
+
+fn pick(
+    quantity: Quantity,
+    substrate: Option<f64>,
+    enzyme: Option<f64>,
+    inhibitor: Option<f64>,
+) -> Option<f64> {
+    match quantity {
+        Quantity::Substrate => substrate,
+        Quantity::Enzyme => enzyme,
+        Quantity::Inhibitor => inhibitor,
+    }
+}
+
+/// A layout factor named like one of the table's own columns (`flags`, `n`, `role`...) is written
+/// as `factor:NAME`, so the table stays readable instead of failing on a duplicate header.
+fn rename_clashing_factors(columns: &mut [Column], first_factor: usize, n_factors: usize) {
+    let factor_range = first_factor..first_factor + n_factors;
+    let fixed: std::collections::HashSet<String> = columns
+        .iter()
+        .enumerate()
+        .filter(|(index, _)| !factor_range.contains(index))
+        .map(|(_, column)| column.name().to_string())
+        .collect();
+    for column in &mut columns[factor_range.clone()] {
+        if fixed.contains(column.name().as_str()) {
+            let renamed = format!("factor:{}", column.name());
+            column.rename(renamed.into());
+        }
+    }
+}
+
+/// Empty text as a missing value, so the CSV cell is empty rather than `""`.
+fn non_empty(text: String) -> Option<String> {
+    (!text.is_empty()).then_some(text)
+}
+
+/// Writes a DataFrame as CSV bytes.
+pub fn csv_bytes(frame: &mut DataFrame) -> Result<Vec<u8>, TableError> {
+    let mut bytes = Vec::new();
+    CsvWriter::new(&mut bytes).include_header(true).finish(frame)?;
+    Ok(bytes)
+}
+
+/// `wells.csv`: one row per layout well that is not `empty`.
+pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFrame, TableError> {
+    let wells = &analysis.wells;
+    let unit = analysis.signal.rate_unit();
+    let mut columns = vec![
+        Column::new(
+            "well".into(),
+            wells.iter().map(|w| w.well.to_string()).collect::<Vec<_>>(),
+        ),
+        Column::new(
+            "role".into(),
+            wells.iter().map(|w| w.setup.role.to_string()).collect::<Vec<_>>(),
+        ),
+    ];
+    for (header, quantity) in quantity_headers(layout) {
+        let values: Vec<Option<f64>> = wells
+            .iter()
+            .map(|w| pick(quantity, w.setup.substrate, w.setup.enzyme, w.setup.inhibitor))
+            .collect();
+        columns.push(Column::new(header.into(), values));
+    }
+    let first_factor = columns.len();
+    for name in &layout.factor_names {
+        let values: Vec<String> = wells
+            .iter()
+            .map(|w| w.setup.factors.get(name).cloned().unwrap_or_default())
+            .collect();
+        columns.push(Column::new(name.as_str().into(), values));
+    }
+    let fit_value = |f: fn(&LineFit) -> f64| -> Vec<Option<f64>> {
+        wells.iter().map(|w| w.rate.fit.as_ref().map(f)).collect()
+    };
+    columns.extend([
+        Column::new(
+            format!("rate [{unit}]").into(),
+            wells.iter().map(|w| w.rate_value).collect::<Vec<_>>(),
+        ),
+        Column::new(
+            format!("rate_se [{unit}]").into(),
+            wells.iter().map(|w| w.rate_se).collect::<Vec<_>>(),
+        ),
+        Column::new(
+            format!("background [{unit}]").into(),
+            wells.iter().map(|w| w.background).collect::<Vec<_>>(),
+        ),
+        Column::new(
+            format!("intercept [{}]", analysis.signal.amount_unit()).into(),
+            fit_value(|f| f.intercept),
+        ),
+        Column::new("r2".into(), fit_value(|f| f.r2)),
+        Column::new(
+            "window_start [s]".into(),
+            wells
+                .iter()
+                .map(|w| w.rate.window_s.map(|s| s.0))
+                .collect::<Vec<_>>(),
+        ),
+        Column::new(
+            "window_end [s]".into(),
+            wells
+                .iter()
+                .map(|w| w.rate.window_s.map(|s| s.1))
+                .collect::<Vec<_>>(),
+        ),
+        Column::new(
+            "n_points".into(),
+            wells
+                .iter()
+                .map(|w| w.rate.fit.map(|f| f.n_points as u32))
+                .collect::<Vec<_>>(),
+        ),
+        Column::new(
+            "conversion".into(),
+            wells.iter().map(|w| w.rate.conversion).collect::<Vec<_>>(),
+        ),
+        Column::new(
+            "flags".into(),
+            wells.iter().map(|w| non_empty(w.flag_text())).collect::<Vec<_>>(),
+        ),
+        Column::new("used".into(), wells.iter().map(|w| w.used).collect::<Vec<_>>()),
+        Column::new(
+            "correction".into(),
+            wells.iter().map(|w| w.correction.clone()).collect::<Vec<_>>(),
+        ),
+        Column::new(
+            "notes".into(),
+            wells
+                .iter()
+                .map(|w| non_empty(w.rate.notes.join("; ")))
+                .collect::<Vec<_>>(),
+        ),
+    ]);
+    rename_clashing_factors(&mut columns, first_factor, layout.factor_names.len());
+    Ok(DataFrame::new(wells.len(), columns)?)
+}
+
+/// `conditions.csv`: one row per condition.
+pub fn conditions_table(
+    conditions: &[Condition],
+    layout: &Layout,
+    analysis: &PlateAnalysis,
+) -> Result<DataFrame, TableError> {
+    let rate_unit = analysis.signal.rate_unit();
+    let mut columns = vec![Column::new(
+        "role".into(),
+        conditions.iter().map(|c| c.role.to_string()).collect::<Vec<_>>(),
+    )];
+    for (header, quantity) in quantity_headers(layout) {
+        let values: Vec<Option<f64>> = conditions
+            .iter()
+            .map(|c| pick(quantity, c.substrate, c.enzyme, c.inhibitor))
+            .collect();
+        columns.push(Column::new(header.into(), values));
+    }
+    let first_factor = columns.len();
+    for name in &layout.factor_names {
+        let values: Vec<String> = conditions
+            .iter()
+            .map(|c| c.factors.get(name).cloned().unwrap_or_default())
+            .collect();
+        columns.push(Column::new(name.as_str().into(), values));
+    }
+    columns.extend([
+        Column::new(
+            "n".into(),
+            conditions.iter().map(|c| c.n as u32).collect::<Vec<_>>(),
+        ),
+        Column::new(
+            "n_used".into(),
+            conditions.iter().map(|c| c.n_used as u32).collect::<Vec<_>>(),
+        ),
+        Column::new(
+            format!("rate_mean [{rate_unit}]").into(),
+            conditions.iter().map(|c| c.rate_mean).collect::<Vec<_>>(),
+        ),
+        Column::new(
+            format!("rate_sd [{rate_unit}]").into(),
+            conditions.iter().map(|c| c.rate_sd).collect::<Vec<_>>(),
+        ),
+        Column::new(
+            format!("rate_sem [{rate_unit}]").into(),
+            conditions.iter().map(|c| c.rate_sem).collect::<Vec<_>>(),
+        ),
+        Column::new("cv".into(), conditions.iter().map(|c| c.cv).collect::<Vec<_>>()),
+        Column::new(
+            "flags".into(),
+            conditions
+                .iter()
+                .map(|c| non_empty(flag_count_words(&c.flags)))
+                .collect::<Vec<_>>(),
+        ),
+    ]);
+    rename_clashing_factors(&mut columns, first_factor, layout.factor_names.len());
+    Ok(DataFrame::new(conditions.len(), columns)?)
+}

@@ -1,0 +1,264 @@
+//! Words made from typed results: group labels, reasons for leaving points out, the progress-curve
+//! analysis's run reasons, model verdicts and trust decisions. Every sentence the outputs carry about
+//! a decision is made here, from the decision's value; nothing reads these sentences back.
+
+use crate::core::format::significant;
+use crate::groups::{GroupKey, GroupValue, LeftOutPlace, LeftOutReason};
+use crate::progress::analysis::ProgressLeftOutReason;
+use crate::progress::choice::{ModelTried, ModelVerdict};
+use crate::progress::trust::{KmPair, RunReason, Suspicion, Trust, TrustReason};
+use crate::rates::{flag_words, Flag};
+
+/// A group key's value as JSON writes it (numbers as serde_json prints an f64).
+pub fn group_value_json(value: &GroupValue) -> serde_json::Value {
+    match value {
+        GroupValue::Text(text) => serde_json::Value::String(text.clone()),
+        GroupValue::Number(number) => serde_json::json!(number),
+    }
+}
+
+/// A group key as the JSON object `fit.json` and `progress.json` write.
+pub fn group_json(key: &GroupKey) -> serde_json::Map<String, serde_json::Value> {
+    key.values
+        .iter()
+        .map(|(name, value)| (name.clone(), group_value_json(value)))
+        .collect()
+}
+
+/// A short label for a group: `variant=FenA-wt, enzyme [nM]=4.0`.
+pub fn group_label(key: &GroupKey) -> String {
+    if key.values.is_empty() {
+        return "all samples".to_string();
+    }
+    key.values
+        .iter()
+        .map(|(name, value)| match value {
+            GroupValue::Text(text) => format!("{name}={text}"),
+            GroupValue::Number(_) => format!("{name}={}", group_value_json(value)),
+        })
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// Why a point was left out of a group fit, in words.
+pub fn left_out_words(reason: &LeftOutReason) -> String {
+    match reason {
+        LeftOutReason::NoRate => "no rate".to_string(),
+        LeftOutReason::Flagged(flags) => flag_words(flags),
+        LeftOutReason::NotUsedInRun => "not used in the run".to_string(),
+        LeftOutReason::NoSubstrateOrRate => "no substrate or no rate".to_string(),
+    }
+}
+
+/// Where a left-out point stood, as its label (`B3`, `row 7`).
+pub fn left_out_place(place: &LeftOutPlace) -> String {
+    match place {
+        LeftOutPlace::Well(well) => well.to_string(),
+        LeftOutPlace::Row(row) => format!("row {row}"),
+    }
+}
+
+/// Why a well is left out of a progress-curve fit, in words.
+pub fn progress_left_out_words(reason: ProgressLeftOutReason) -> &'static str {
+    match reason {
+        ProgressLeftOutReason::NoSubstrate => "no substrate concentration in the layout",
+        ProgressLeftOutReason::NoEnzyme => "no enzyme concentration in the layout",
+        ProgressLeftOutReason::Noisy => {
+            "noisy: its scatter, far above the plate's blank noise, would dominate an unweighted fit"
+        }
+        ProgressLeftOutReason::Lag => {
+            "lag: activity rises at the start, which the rate laws fitted here do not describe"
+        }
+        ProgressLeftOutReason::Saturated => {
+            "saturated: its absorbance leaves the photometric range, so even the reads below the limit sit where readings are least reliable"
+        }
+        ProgressLeftOutReason::NoTrace => "no trace in the data",
+        ProgressLeftOutReason::TooFewReads => "fewer than 3 usable reads",
+    }
+}
+
+/// The signs of suspicion, in words: `12 well(s) depleted, 3 well(s) nonlinear`.
+pub fn suspicion_words(suspicion: &Suspicion) -> String {
+    let mut parts = Vec::new();
+    if suspicion.depleted > 0 {
+        parts.push(format!("{} well(s) depleted", suspicion.depleted));
+    }
+    if suspicion.nonlinear > 0 {
+        parts.push(format!("{} well(s) nonlinear", suspicion.nonlinear));
+    }
+    if suspicion.over_limit > 0 {
+        parts.push(format!(
+            "{} well(s) converted more than {:.0}% in their window",
+            suspicion.over_limit,
+            100.0 * suspicion.max_conversion
+        ));
+    }
+    parts.join(", ")
+}
+
+/// Why the progress-curve analysis ran for a group, or did not (`progress.json`'s `reason`).
+pub fn run_reason_words(run: &RunReason) -> String {
+    match run {
+        RunReason::Never => "--progress never".to_string(),
+        RunReason::Sound => {
+            "initial rates look sound: no depleted or nonlinear wells, conversion within the limit"
+                .to_string()
+        }
+        RunReason::Always(None) => "--progress always".to_string(),
+        RunReason::Always(Some(suspicion)) => format!("--progress always ({})", suspicion_words(suspicion)),
+        RunReason::Suspect(suspicion) => format!("initial rates suspect: {}", suspicion_words(suspicion)),
+    }
+}
+
+/// A model's verdict in words, `chosen (...)` around the reported model's.
+pub fn verdict_words(tried: &ModelTried) -> String {
+    let words = match &tried.verdict {
+        ModelVerdict::Baseline => "baseline model".to_string(),
+        ModelVerdict::Failed(message) => format!("failed: {message}"),
+        ModelVerdict::NoFTest => "not needed: no F test possible".to_string(),
+        ModelVerdict::Needed { name, p, aicc_drop } => format!(
+            "needed: {name} > 0 (95% interval excludes 0), F test p = {p:.2e}, AICc lower by {aicc_drop:.1}"
+        ),
+        ModelVerdict::Immaterial { name, value, p, effect } => format!(
+            "not needed: {name} = {value:.3e} is detectable (F test p = {p:.1e}) but changes the rate by only {:.1}% over the read",
+            100.0 * effect
+        ),
+        ModelVerdict::Indistinguishable { name, p } => {
+            format!("not needed: {name} is not distinguishable from 0 (F test p = {p:.2})")
+        }
+        ModelVerdict::NotEnough {
+            name,
+            value,
+            p,
+            delta_aicc,
+        } => format!(
+            "not needed: {name} = {value:.3e} does not improve the fit enough (F test p = {p:.2}, AICc {delta_aicc:+.1})"
+        ),
+    };
+    if tried.chosen {
+        format!("chosen ({words})")
+    } else {
+        words
+    }
+}
+
+/// The trust decision's analysis in the report's words.
+pub fn trust_analysis_words(trust: Trust) -> &'static str {
+    match trust {
+        Trust::ProgressCurve => "progress curves",
+        Trust::InitialRate => "initial rates",
+        Trust::Either => "either (they agree)",
+        Trust::Neither => "neither",
+    }
+}
+
+fn km_text(km: &Option<KmPair>) -> String {
+    match km {
+        Some(pair) => format!(
+            " (Km {} vs {} from initial rates)",
+            significant(pair.progress),
+            significant(pair.initial)
+        ),
+        None => String::new(),
+    }
+}
+
+/// The trust decision's reason, as one sentence (`progress.json`'s `trust_reason`).
+pub fn trust_reason_words(reason: &TrustReason) -> String {
+    match reason {
+        TrustReason::NotRun(run) => {
+            format!("initial rates: progress-curve fit not run ({})", run_reason_words(run))
+        }
+        TrustReason::FitFailed(message) => {
+            format!("initial rates (with their flags): the progress-curve fit could not be made: {message}")
+        }
+        TrustReason::ManyMisfits {
+            model,
+            misfits,
+            wells,
+            suspect,
+        } => format!(
+            "neither without checking: the {} model misfits {misfits} of {wells} wells systematically, and {}",
+            model.name(),
+            if *suspect {
+                "the initial rates are suspect"
+            } else {
+                "the initial rates may be the safer summary"
+            }
+        ),
+        TrustReason::SuspectInitialRates { run, window_ratio, km } => {
+            let ratio_text = window_ratio.map_or(String::new(), |r| {
+                format!(
+                    "; window slopes are a median {:.0}% of the fitted initial rates",
+                    100.0 * r
+                )
+            });
+            let why = match run {
+                RunReason::Suspect(suspicion) => suspicion_words(suspicion),
+                other => run_reason_words(other),
+            };
+            format!(
+                "the progress-curve fit: the initial rates are suspect ({why}) and the whole curves fit without systematic misfit{ratio_text}{}",
+                km_text(km)
+            )
+        }
+        TrustReason::DepletionWithinWindows { km, shortfall } => format!(
+            "the progress-curve fit: the analyses disagree{}, and the window slopes of the lower-S0 wells fall short of the fitted initial rates (median {:.0}%), the signature of depletion within the windows",
+            km_text(km),
+            100.0 * shortfall
+        ),
+        TrustReason::Agree { km } => format!(
+            "either: the initial rates are clean and both analyses agree{}; the progress-curve fit uses every read and gives the narrower interval",
+            km_text(km)
+        ),
+        TrustReason::Disagree { km } => format!(
+            "neither without checking: the initial rates look clean but the two analyses disagree{}; check the rate law, the dead time and the substrate concentrations",
+            km_text(km)
+        ),
+    }
+}
+
+/// Flags among a condition's wells, by word: `depleted x2; lag x1`.
+pub fn flag_count_words(counts: &std::collections::BTreeMap<Flag, usize>) -> String {
+    let mut words: Vec<(&str, usize)> = counts.iter().map(|(flag, n)| (flag.word(), *n)).collect();
+    words.sort();
+    words
+        .iter()
+        .map(|(word, count)| format!("{word} x{count}"))
+        .collect::<Vec<_>>()
+        .join("; ")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::collections::BTreeMap;
+
+    #[test]
+    fn group_labels_print_numbers_as_json_does() {
+        let mut values = BTreeMap::new();
+        values.insert("variant".to_string(), GroupValue::Text("wt".into()));
+        values.insert("enzyme [nM]".to_string(), GroupValue::Number(4.0));
+        let key = GroupKey { values };
+        assert_eq!(group_label(&key), "enzyme [nM]=4.0, variant=wt");
+        assert_eq!(group_label(&GroupKey::default()), "all samples");
+    }
+
+    #[test]
+    fn run_reasons_name_the_suspicion() {
+        let suspicion = Suspicion {
+            depleted: 2,
+            nonlinear: 0,
+            over_limit: 1,
+            max_conversion: 0.1,
+        };
+        assert_eq!(
+            run_reason_words(&RunReason::Suspect(suspicion)),
+            "initial rates suspect: 2 well(s) depleted, 1 well(s) converted more than 10% in their window"
+        );
+        assert_eq!(
+            run_reason_words(&RunReason::Always(Some(suspicion))),
+            "--progress always (2 well(s) depleted, 1 well(s) converted more than 10% in their window)"
+        );
+    }
+}
