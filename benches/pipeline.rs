@@ -50,13 +50,7 @@ fn whole_run(plate: &LargePlate) -> usize {
     )
     .expect("analyses");
     // The pipeline's own target excludes plots: no report here (see the report benchmark note).
-    let record = RunRecord {
-        inputs: Vec::new(),
-        files_given: Vec::new(),
-        data_path: None,
-        used: SettingLayer::default(),
-        report: ReportMode::None,
-    };
+    let record = RunRecord::without_inputs(SettingLayer::default(), ReportMode::None);
     let files = render_run_outputs(&results, &record).expect("renders");
     files.iter().map(|file| file.bytes.len()).sum()
 }

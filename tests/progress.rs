@@ -180,13 +180,7 @@ fn depletion_heavy_plate_initial_rates_miss_km_and_the_global_fit_recovers_it() 
     let low = progress.wells.iter().find(|w| w.well == "A1").unwrap();
     assert!(low.window_over_implied.unwrap() < 0.6, "{low:?}");
     // progress.json holds the schema; the summary names what to trust.
-    let record = RunRecord {
-        inputs: Vec::new(),
-        files_given: Vec::new(),
-        data_path: None,
-        used: SettingLayer::default(),
-        report: ReportMode::None,
-    };
+    let record = RunRecord::without_inputs(SettingLayer::default(), ReportMode::None);
     let files = render_run_outputs(&results, &record).unwrap();
     let file = files.iter().find(|f| f.name == "progress.json").unwrap();
     let json: serde_json::Value = serde_json::from_slice(&file.bytes).unwrap();

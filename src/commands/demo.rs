@@ -1,42 +1,15 @@
-//! `platekin demo`: the embedded demo, an invented esterase plate (the Amber Fen scenario in
-//! `demo-plates/`), compiled into the binary so that it needs no files. Its inputs are passed on
-//! as data (embedded files with their names), like any run's.
+//! `platekin demo`: the embedded demo plate ([`crate::files::demo`]) run with its own assay
+//! settings; its inputs are passed on as data (embedded files with their names), like any run's.
 
 use std::path::Path;
 
 use super::run::{finish_run, RunOutcome};
 use super::CommandError;
 use crate::config::{resolve_analysis, resolve_fit, used_layer, ReportMode, SettingLayer, SettingsError};
-use crate::files::input::{InputFile, InputRole};
+use crate::files::demo::{demo_files, DEMO_ASSAY};
 use crate::files::output::check_output_folder;
 use crate::pipeline::{run_pipeline, PlateInputs};
 use crate::render::{InputRecord, RunRecord};
-
-/// The demo's raw export (wide CSV).
-pub const DEMO_DATA: &str = include_str!("../../demo-plates/amber-fen-wide.csv");
-/// The demo's layout (tidy CSV).
-pub const DEMO_LAYOUT: &str = include_str!("../../demo-plates/amber-fen-layout.csv");
-/// The demo's assay settings.
-pub const DEMO_ASSAY: &str = include_str!("../../demo-plates/amber-fen-assay.toml");
-
-/// The demo's inputs as embedded files.
-pub fn demo_inputs() -> (PlateInputs, InputFile) {
-    (
-        PlateInputs {
-            data: InputFile::embedded(InputRole::Data, "amber-fen-wide.csv (embedded demo)", DEMO_DATA),
-            layout: InputFile::embedded(
-                InputRole::Layout,
-                "amber-fen-layout.csv (embedded demo)",
-                DEMO_LAYOUT,
-            ),
-        },
-        InputFile::embedded(
-            InputRole::Assay,
-            "amber-fen-assay.toml (embedded demo)",
-            DEMO_ASSAY,
-        ),
-    )
-}
 
 /// The demo's settings layer, as its assay file gives it.
 pub fn demo_layer() -> Result<SettingLayer, SettingsError> {
@@ -52,7 +25,8 @@ pub fn run_demo(out: &Path, report: ReportMode) -> Result<RunOutcome, CommandErr
     let layer = demo_layer()?;
     let analysis = resolve_analysis(&layer)?;
     let fit = resolve_fit(&layer)?;
-    let (inputs, assay) = demo_inputs();
+    let [data, layout, assay] = demo_files();
+    let inputs = PlateInputs { data, layout };
     let results = run_pipeline(
         &inputs,
         &Default::default(),

@@ -38,17 +38,9 @@ fn well_names(data: &KineticData) -> Vec<String> {
     data.wells.iter().map(|trace| trace.well.to_string()).collect()
 }
 
-const WIDE_WITH_METADATA: &str = "\
-Plate run,2024-05-01 (invented lab),,,
-Operator,A. Nonymous,,,
-,,,,
-Time [s],Temperature [C],A1,A2,B1
-0,30.0,0.100,0.200,0.300
-30,30.1,0.110,0.210,0.310
-60,30.2,0.120,OVER,0.320
-,,,,
-Mean,,0.11,0.21,0.31
-";
+/// An invented export with metadata above, a temperature column, an over-range marker and a
+/// summary line below (`fixtures/wide-with-metadata.csv`).
+const WIDE_WITH_METADATA: &str = include_str!("../../fixtures/wide-with-metadata.csv");
 
 #[test]
 fn wide_with_metadata_above_and_summary_below() {

@@ -247,17 +247,7 @@ mod tests {
     }
 
     // An invented export: metadata above, a temperature column, an over-range marker, a summary line.
-    const WIDE_WITH_METADATA: &str = "\
-Plate run,2024-05-01 (invented lab),,,
-Operator,A. Nonymous,,,
-,,,,
-Time [s],Temperature [C],A1,A2,B1
-0,30.0,0.100,0.200,0.300
-30,30.1,0.110,0.210,0.310
-60,30.2,0.120,OVER,0.320
-,,,,
-Mean,,0.11,0.21,0.31
-";
+    const WIDE_WITH_METADATA: &str = include_str!("../../fixtures/wide-with-metadata.csv");
 
     #[test]
     fn inspect_report_states_the_facts() {

@@ -62,6 +62,19 @@ pub struct RunRecord {
     pub report: ReportMode,
 }
 
+impl RunRecord {
+    /// The record of a run made from inputs already in memory (tests, benchmarks): no files.
+    pub fn without_inputs(used: SettingLayer, report: ReportMode) -> RunRecord {
+        RunRecord {
+            inputs: Vec::new(),
+            files_given: Vec::new(),
+            data_path: None,
+            used,
+            report,
+        }
+    }
+}
+
 /// `settings.toml`: every setting used, with a comment naming the data, so that `--assay
 /// settings.toml` repeats the run.
 pub fn settings_toml(record: &RunRecord) -> Result<OutputFile, RenderError> {

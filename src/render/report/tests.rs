@@ -17,10 +17,7 @@ use crate::render::plots::ProgressView;
 use crate::render::words::trust_analysis_words;
 use crate::simulate::{large_plate_spec, layout_tidy_csv, simulate, wide_csv, WideCsvOptions};
 
-/// The demo plate's files (the ones `platekin demo` embeds).
-const DEMO_DATA: &str = include_str!("../../../demo-plates/amber-fen-wide.csv");
-const DEMO_LAYOUT: &str = include_str!("../../../demo-plates/amber-fen-layout.csv");
-const DEMO_ASSAY: &str = include_str!("../../../demo-plates/amber-fen-assay.toml");
+use crate::files::demo::{demo_files, DEMO_ASSAY, DEMO_DATA, DEMO_LAYOUT};
 
 /// The demo plate's settings.
 pub(crate) fn demo_layer() -> SettingLayer {
@@ -29,33 +26,13 @@ pub(crate) fn demo_layer() -> SettingLayer {
 
 /// A record of a run with no input files, for the page.
 pub(crate) fn record(layer: &SettingLayer) -> RunRecord {
-    RunRecord {
-        inputs: Vec::new(),
-        files_given: Vec::new(),
-        data_path: None,
-        used: layer.clone(),
-        report: crate::config::resolve_report(layer).unwrap(),
-    }
+    RunRecord::without_inputs(layer.clone(), crate::config::resolve_report(layer).unwrap())
 }
 
 /// The record of a demo run: the three embedded files, as `platekin demo` records them.
 pub(crate) fn demo_record(layer: &SettingLayer) -> RunRecord {
-    use crate::files::input::{InputFile, InputRole};
-    let inputs = [
-        InputFile::embedded(InputRole::Data, "amber-fen-wide.csv (embedded demo)", DEMO_DATA),
-        InputFile::embedded(
-            InputRole::Layout,
-            "amber-fen-layout.csv (embedded demo)",
-            DEMO_LAYOUT,
-        ),
-        InputFile::embedded(
-            InputRole::Assay,
-            "amber-fen-assay.toml (embedded demo)",
-            DEMO_ASSAY,
-        ),
-    ];
     RunRecord {
-        inputs: inputs.iter().map(crate::render::InputRecord::of).collect(),
+        inputs: demo_files().iter().map(crate::render::InputRecord::of).collect(),
         ..record(layer)
     }
 }
@@ -321,19 +298,7 @@ fn full_report_pngs_decode_and_are_not_blank() {
 fn run_json_records_inputs_settings_and_outputs() {
     let results = demo_results();
     let layer = demo_layer();
-    let inputs = [
-        crate::files::input::InputFile::embedded(crate::files::input::InputRole::Data, "d.csv", DEMO_DATA),
-        crate::files::input::InputFile::embedded(
-            crate::files::input::InputRole::Layout,
-            "l.csv",
-            DEMO_LAYOUT,
-        ),
-        crate::files::input::InputFile::embedded(crate::files::input::InputRole::Assay, "a.toml", DEMO_ASSAY),
-    ];
-    let record = RunRecord {
-        inputs: inputs.iter().map(crate::render::InputRecord::of).collect(),
-        ..record(&layer)
-    };
+    let record = demo_record(&layer);
     let files = crate::render::render_run_outputs(&results, &record).unwrap();
     let run: Value = serde_json::from_slice(&files.last().unwrap().bytes).unwrap();
     assert_eq!(run["version"], env!("CARGO_PKG_VERSION"));
