@@ -176,9 +176,12 @@ fn depletion_heavy_plate_initial_rates_miss_km_and_the_global_fit_recovers_it() 
             "{tried:?}"
         );
     }
-    // The window slopes fall short of the fitted initial rates at low S0.
+    // The window slopes fall short of the fitted initial rates at low S0: at S0 = 5 uM << Km the
+    // curve is nearly first order with k = Vmax/(Km + S0) = 0.2/105 per s, so the chord of the
+    // 0-600 s window is (1 - exp(-kT))/(kT) = 0.58 of the initial rate (kT = 1.14).
     let low = progress.wells.iter().find(|w| w.well == "A1").unwrap();
-    assert!(low.window_over_implied.unwrap() < 0.6, "{low:?}");
+    let ratio = low.window_over_implied.unwrap();
+    assert!(ratio > 0.5 && ratio < 0.65, "{low:?}");
     // progress.json holds the schema; the summary names what to trust.
     let record = RunRecord::without_inputs(SettingLayer::default(), ReportMode::None);
     let files = render_run_outputs(&results, &record).unwrap();

@@ -4,6 +4,8 @@
 //! Residuals are always `model - observed`. Every result type is `serde::Serialize`.
 
 pub mod inference;
+pub mod integrated;
+pub mod lambert;
 pub mod least_squares;
 pub mod michaelis_menten;
 pub mod models;

@@ -5,7 +5,7 @@
 //! Model: well i, read j: `y_ij = b_i + g_i S_i(t_j + t_dead; theta)`, where `g_i` is the signal per
 //! unit substrate (`-epsilon l` for a product read, since P = S0 - S; `+epsilon l` for a
 //! substrate read, in AU per concentration unit), `b_i` the well's offset and `S_i` the substrate
-//! curve ([`super::closed_form`] or [`super::ode`]).
+//! curve ([`crate::fit::integrated`] or [`super::ode`]).
 //!
 //! Variable projection: the offsets enter linearly, so for given theta each is the well's mean of
 //! `y - g S`; substituting it leaves the projected residuals
@@ -41,11 +41,11 @@
 use nalgebra::DMatrix;
 use rayon::prelude::*;
 
-use super::closed_form::michaelis_menten_point;
 use super::ode::{integrate_curve, CurveConstants, OdeTolerances};
 use crate::core::stats::{
     aicc, extra_sum_of_squares, f_quantile, mean, median, straight_line, t_quantile_975,
 };
+use crate::fit::integrated::michaelis_menten_point;
 use crate::fit::{asymptotic_covariance, fit_least_squares, LeastSquaresOptions, ResidualModel};
 
 /// One well's curve, ready to fit.
@@ -931,7 +931,7 @@ pub mod synthetic {
                     times
                         .iter()
                         .map(|&t| {
-                            crate::progress::closed_form::substrate_remaining(
+                            crate::fit::integrated::substrate_remaining(
                                 s0,
                                 spec.constants.km,
                                 spec.constants.kcat * spec.e0_um,

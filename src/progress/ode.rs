@@ -239,7 +239,7 @@ pub fn integrate_curve(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::progress::closed_form::{substrate_remaining, time_to_reach_substrate};
+    use crate::fit::integrated::{substrate_remaining, time_to_reach_substrate};
 
     fn plain(kcat: f64, km: f64) -> CurveConstants {
         CurveConstants {

@@ -139,6 +139,10 @@ pub fn demo_spec() -> SimulationSpec {
         noise_sd_au: 0.001,
         baseline_drift_au_per_s: 0.0,
         spontaneous_hydrolysis_per_s: 1e-6,
+        dead_time_s: 0.0,
+        substrate_pipetting_cv: 0.0,
+        noise_growth_per_au: 0.0,
+        well_drift_sd_au_per_s: 0.0,
         reading_decimals: 4,
         seed: DEMO_SEED,
     }
@@ -373,8 +377,9 @@ pub fn demo_files(plate: &SimulatedPlate) -> Result<Vec<(&'static str, Vec<u8>)>
 
 #[cfg(test)]
 mod tests {
-    use super::super::{progress, simulate, SimulatedReading};
+    use super::super::{simulate, SimulatedReading};
     use super::*;
+    use crate::fit::integrated as progress;
 
     fn demo_plate() -> SimulatedPlate {
         simulate(&demo_spec()).unwrap()

@@ -4,18 +4,22 @@
 //! invented demo runs start from plates whose answer is known.
 //!
 //! Signal model, per well and read time t (concentrations in uM, enzyme in nM, time in s):
-//! - sample: `Vmax = kcat [E]` (uM/s, with [E] converted from nM), substrate `S_enz(t)` from the
-//!   closed form in [`progress`] (with `Vmax t` replaced by `Vmax theta(t)` for a planted lag);
-//!   product `P(t) = (S0 - S_enz(t)) + k_spont integral_0^t S_enz(u) du`, the second term being the
-//!   spontaneous first-order hydrolysis added as a first-order correction (exact to O(k_spont t
-//!   times the converted fraction); k_spont is tiny). The integral is by composite Simpson's rule.
-//! - no-enzyme: `P(t) = S0 (1 - exp(-k_spont t))` (first order, exact).
-//! - blank (buffer only) and empty wells: no product.
-//! - read species: product (signal rises) or substrate `S0 - P` (signal falls).
-//! - absorbance: `A(t) = offset_well + background_extra + epsilon l c(t) + drift t + noise`, with
-//!   c in M (`c_uM 1e-6`), epsilon in M^-1 cm^-1 and l in cm (Beer-Lambert), noise
-//!   `N(0, sd_well)` from a ChaCha8 generator seeded by the spec seed with one stream per well, and
-//!   the result rounded to the reader's decimals.
+//! - the reaction started `dead_time_s` before the export's time zero, so a read at export time t
+//!   sees the reaction at `t + dead_time_s` since mixing;
+//! - each well's true S0 is the layout's times `1 + cv z` (`substrate_pipetting_cv`, z standard
+//!   normal): the layout states the intended amount, the well holds what was pipetted;
+//! - sample: `Vmax = kcat [E]` (uM/s, with [E] converted from nM); product `P` integrated
+//!   numerically from mixing ([`kinetics`]: Michaelis-Menten plus first-order spontaneous
+//!   hydrolysis, a planted lag as a ramp of activity), independently of the fitter's closed form;
+//! - no-enzyme: `P(t) = S0 (1 - exp(-k_spont t))` (first order, exact);
+//! - blank (buffer only) and empty wells: no product;
+//! - read species: product (signal rises) or substrate `S0 - P` (signal falls);
+//! - absorbance: `A(t) = offset_well + background_extra + epsilon l c(t) + (drift + drift_well) t
+//!   + noise`, with c in M (`c_uM 1e-6`), epsilon in M^-1 cm^-1 and l in cm (Beer-Lambert),
+//!   `drift_well` drawn per well (`well_drift_sd_au_per_s`), noise `N(0, sd_well 10^(g A_clean))`
+//!   (`noise_growth_per_au` = g: photometric noise grows with absorbance as less light reaches the
+//!   detector) from a ChaCha8 generator seeded by the spec seed with one stream per well, and the
+//!   result rounded to the reader's decimals.
 //!
 //! Assumptions: the Michaelis-Menten quasi-steady state ([E] much less than [S]), no product
 //! inhibition, no enzyme inactivation, the substrate does not absorb at the read wavelength when
@@ -26,7 +30,7 @@
 //! practice).
 
 pub mod demo;
-pub mod progress;
+pub mod kinetics;
 pub mod writers;
 
 use std::collections::BTreeMap;
@@ -36,16 +40,13 @@ use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
 
 use crate::core::plate::{parse_well_selection, PlateFormat, WellId};
+use kinetics::WellKinetics;
 
 pub use demo::{demo_files, demo_readme, demo_spec, large_plate_spec};
 pub use writers::{
     grid_csv, layout_grid_csv, layout_tidy_csv, long_csv, truth_json, wide_csv, xlsx_bytes, GridCsvOptions,
     GridTimeLabel, SimulationWriteError, TimeStyle, WellColumns, WideCsvOptions,
 };
-
-/// Simpson panels per interval between two reads for the spontaneous-hydrolysis integral. The
-/// substrate curve is smooth on a read interval, so 8 panels give about 1e-10 relative accuracy.
-const SIMPSON_PANELS_PER_READ_INTERVAL: usize = 8;
 
 /// The highest number of decimals a simulated reader may print; beyond this, rounding means nothing
 /// for a double.
@@ -245,6 +246,15 @@ pub struct SimulationSpec {
     pub baseline_drift_au_per_s: f64,
     /// First-order rate constant of the uncatalysed hydrolysis of the substrate, 1/s.
     pub spontaneous_hydrolysis_per_s: f64,
+    /// Time from mixing to the export's time zero, s.
+    pub dead_time_s: f64,
+    /// Relative SD of each well's true S0 around the layout's value (pipetting), 0 for none.
+    pub substrate_pipetting_cv: f64,
+    /// Growth of the read noise with absorbance: SD `noise_sd_au 10^(g A)` at absorbance A; 0 for
+    /// constant noise.
+    pub noise_growth_per_au: f64,
+    /// SD of a per-well baseline drift (optics, evaporation), AU/s; 0 for none.
+    pub well_drift_sd_au_per_s: f64,
     /// Decimals the simulated reader prints.
     pub reading_decimals: u32,
     /// Seed of the ChaCha8 generator; the same seed gives the same plate.
@@ -354,6 +364,14 @@ pub struct TruthSettings {
     pub baseline_drift_au_per_s: f64,
     /// Spontaneous hydrolysis rate constant, 1/s.
     pub spontaneous_hydrolysis_per_s: f64,
+    /// Time from mixing to the export's time zero, s.
+    pub dead_time_s: f64,
+    /// Relative SD of the wells' true S0 around the layout's (pipetting).
+    pub substrate_pipetting_cv: f64,
+    /// Growth of the read noise with absorbance (SD `noise_sd_au 10^(g A)`).
+    pub noise_growth_per_au: f64,
+    /// SD of the per-well baseline drift, AU/s.
+    pub well_drift_sd_au_per_s: f64,
     /// Decimals of the readings.
     pub reading_decimals: u32,
     /// Generator seed.
@@ -388,12 +406,16 @@ pub struct WellTruth {
     pub well: WellId,
     /// What it holds.
     pub role: WellRole,
-    /// Initial substrate, uM.
+    /// Initial substrate as the layout states it, uM.
     pub substrate_um: Option<f64>,
+    /// Initial substrate the well truly held (after pipetting error), uM.
+    pub substrate_true_um: Option<f64>,
     /// Enzyme, nM.
     pub enzyme_nm: Option<f64>,
     /// Variant.
     pub variant: Option<String>,
+    /// The well's own baseline drift, AU/s (besides the plate's).
+    pub drift_au_per_s: f64,
     /// Absorbance offset (before any planted background), AU.
     pub offset_au: f64,
     /// Noise SD of this well, AU.
@@ -498,6 +520,14 @@ pub enum SimulationError {
         /// What is wrong.
         problem: String,
     },
+    /// The numerical integration of a well's rate law failed.
+    #[error("well {well}: the rate law's integration failed: {message}")]
+    Integration {
+        /// The well.
+        well: WellId,
+        /// The integrator's reason.
+        message: String,
+    },
     /// A defect is on a well outside the layout, repeats a well, or has bad parameters.
     #[error("defect at well {well}: {problem}")]
     BadDefect {
@@ -535,6 +565,16 @@ pub fn simulate(spec: &SimulationSpec) -> Result<SimulatedPlate, SimulationError
             _ => spec.liquid_offset_range_au,
         };
         let offset_au = rng.random_range(offset_range.0..=offset_range.1);
+        let standard_normal = Normal::new(0.0, 1.0).map_err(|_| SimulationError::BadSetting {
+            setting: "substrate_pipetting_cv",
+            value: spec.substrate_pipetting_cv.to_string(),
+            requirement: "must be finite and at least 0",
+        })?;
+        // The pipetting factor and the well's drift are drawn for every well, so that a setting
+        // of 0 leaves the noise stream where it would be otherwise.
+        let pipetting_factor =
+            (1.0 + spec.substrate_pipetting_cv * standard_normal.sample(&mut rng)).max(0.05);
+        let drift_au_per_s = spec.well_drift_sd_au_per_s * standard_normal.sample(&mut rng);
         let noise_factor = match defect {
             Some(PlantedDefect::ExtraNoise { factor }) => *factor,
             _ => 1.0,
@@ -548,9 +588,17 @@ pub fn simulate(spec: &SimulationSpec) -> Result<SimulatedPlate, SimulationError
             Some(PlantedDefect::Lag { tau_s }) => *tau_s,
             _ => 0.0,
         };
-        let curve =
-            ProgressModel::for_well(condition, kinetics, lag_tau_s, spec.spontaneous_hydrolysis_per_s);
-        let products_um = curve.product_at(&spec.read_times_s);
+        let curve = well_kinetics(
+            condition,
+            kinetics,
+            lag_tau_s,
+            spec.spontaneous_hydrolysis_per_s,
+            pipetting_factor,
+        );
+        let since_mixing: Vec<f64> = spec.read_times_s.iter().map(|t| t + spec.dead_time_s).collect();
+        let products_um = curve
+            .product_at(&since_mixing)
+            .map_err(|message| SimulationError::Integration { well, message })?;
         let absorbance_per_um = spec.extinction_coefficient_per_m_per_cm * spec.pathlength_cm * 1e-6;
         let noise = Normal::new(0.0, noise_sd_au).map_err(|_| SimulationError::BadSetting {
             setting: "noise_sd_au",
@@ -567,10 +615,11 @@ pub fn simulate(spec: &SimulationSpec) -> Result<SimulatedPlate, SimulationError
             let clean = offset_au
                 + background_extra
                 + absorbance_per_um * read_species_um
-                + spec.baseline_drift_au_per_s * time_s;
+                + (spec.baseline_drift_au_per_s + drift_au_per_s) * time_s;
             // Draw the noise even where a marker replaces the number, so that a planted marker
             // leaves the well's other readings as they would be without it.
-            let noisy = clean + noise.sample(&mut rng);
+            let growth = 10f64.powf(spec.noise_growth_per_au * clean.max(0.0));
+            let noisy = clean + growth * noise.sample(&mut rng);
             let reading = match defect {
                 Some(PlantedDefect::OverRange { read_indices, marker })
                     if read_indices.contains(&read_index) =>
@@ -588,7 +637,7 @@ pub fn simulate(spec: &SimulationSpec) -> Result<SimulatedPlate, SimulationError
             condition,
             &curve,
             &products_um,
-            offset_au,
+            (offset_au, drift_au_per_s),
             noise_sd_au,
             defect,
         ));
@@ -614,6 +663,10 @@ pub fn simulate(spec: &SimulationSpec) -> Result<SimulatedPlate, SimulationError
             noise_sd_au: spec.noise_sd_au,
             baseline_drift_au_per_s: spec.baseline_drift_au_per_s,
             spontaneous_hydrolysis_per_s: spec.spontaneous_hydrolysis_per_s,
+            dead_time_s: spec.dead_time_s,
+            substrate_pipetting_cv: spec.substrate_pipetting_cv,
+            noise_growth_per_au: spec.noise_growth_per_au,
+            well_drift_sd_au_per_s: spec.well_drift_sd_au_per_s,
             reading_decimals: spec.reading_decimals,
             seed: spec.seed,
             substrate_unit: "uM".to_string(),
@@ -661,97 +714,33 @@ fn simulate_temperatures(spec: &SimulationSpec) -> Result<Vec<f64>, SimulationEr
         .collect())
 }
 
-/// The noiseless chemistry of one well.
-#[derive(Debug, Clone, Copy)]
-struct ProgressModel {
-    role: WellRole,
-    substrate_initial_um: f64,
-    km_um: f64,
-    vmax_um_per_s: f64,
+/// The chemistry of one well: what it holds (with its true S0) and its enzyme's constants.
+fn well_kinetics(
+    condition: &WellCondition,
+    kinetics: Option<&VariantKinetics>,
     lag_tau_s: f64,
     spontaneous_per_s: f64,
-}
-
-impl ProgressModel {
-    fn for_well(
-        condition: &WellCondition,
-        kinetics: Option<&VariantKinetics>,
-        lag_tau_s: f64,
-        spontaneous_per_s: f64,
-    ) -> Self {
-        let substrate_initial_um = match condition.role {
-            WellRole::Sample | WellRole::NoEnzyme => condition.substrate_um.unwrap_or(0.0),
-            WellRole::Blank | WellRole::Empty => 0.0,
-        };
-        let (km_um, vmax_um_per_s) = match (condition.role, kinetics) {
-            // kcat [1/s] times [E] in nM converted to uM gives Vmax in uM/s.
-            (WellRole::Sample, Some(kinetics)) => (
-                kinetics.km_um,
-                kinetics.kcat_per_s * condition.enzyme_nm.unwrap_or(0.0) * 1e-3,
-            ),
-            // Without enzyme the Michaelis-Menten part is idle; any positive Km will do.
-            _ => (1.0, 0.0),
-        };
-        Self {
-            role: condition.role,
-            substrate_initial_um,
-            km_um,
-            vmax_um_per_s,
-            lag_tau_s,
-            spontaneous_per_s,
-        }
-    }
-
-    /// Substrate left by the enzyme alone at time t, uM.
-    fn enzymatic_substrate_at(&self, time_s: f64) -> f64 {
-        let effective_time_s = progress::lag_effective_time(time_s, self.lag_tau_s);
-        progress::substrate_remaining(
-            self.substrate_initial_um,
-            self.km_um,
-            self.vmax_um_per_s,
-            effective_time_s,
-        )
-    }
-
-    /// Product at each read time, uM (see the module notes for the formulas).
-    fn product_at(&self, read_times_s: &[f64]) -> Vec<f64> {
-        let s0 = self.substrate_initial_um;
-        match self.role {
-            WellRole::Blank | WellRole::Empty => vec![0.0; read_times_s.len()],
-            // -expm1(-k t) = 1 - exp(-k t), accurate for the tiny k t of spontaneous hydrolysis.
-            WellRole::NoEnzyme => read_times_s
-                .iter()
-                .map(|&t| s0 * -(-self.spontaneous_per_s * t).exp_m1())
-                .collect(),
-            WellRole::Sample => {
-                let mut products = Vec::with_capacity(read_times_s.len());
-                let mut integral_um_s = 0.0;
-                let mut previous_time_s = 0.0;
-                for &time_s in read_times_s {
-                    integral_um_s += self.simpson_substrate_integral(previous_time_s, time_s);
-                    previous_time_s = time_s;
-                    let enzymatic_product = s0 - self.enzymatic_substrate_at(time_s);
-                    let spontaneous_product = self.spontaneous_per_s * integral_um_s;
-                    products.push((enzymatic_product + spontaneous_product).min(s0));
-                }
-                products
-            }
-        }
-    }
-
-    /// Composite Simpson's rule for `integral_from^to S_enz(u) du`.
-    fn simpson_substrate_integral(&self, from_s: f64, to_s: f64) -> f64 {
-        if to_s <= from_s {
-            return 0.0;
-        }
-        let panels = SIMPSON_PANELS_PER_READ_INTERVAL;
-        let step = (to_s - from_s) / panels as f64;
-        let mut sum = self.enzymatic_substrate_at(from_s) + self.enzymatic_substrate_at(to_s);
-        for node in 1..panels {
-            let weight = if node % 2 == 1 { 4.0 } else { 2.0 };
-            sum += weight * self.enzymatic_substrate_at(from_s + step * node as f64);
-        }
-        sum * step / 3.0
+    pipetting_factor: f64,
+) -> WellKinetics {
+    let substrate_initial_um = match condition.role {
+        WellRole::Sample | WellRole::NoEnzyme => condition.substrate_um.unwrap_or(0.0) * pipetting_factor,
+        WellRole::Blank | WellRole::Empty => 0.0,
+    };
+    let (km_um, vmax_um_per_s) = match (condition.role, kinetics) {
+        // kcat [1/s] times [E] in nM converted to uM gives Vmax in uM/s.
+        (WellRole::Sample, Some(kinetics)) => (
+            kinetics.km_um,
+            kinetics.kcat_per_s * condition.enzyme_nm.unwrap_or(0.0) * 1e-3,
+        ),
+        // Without enzyme the Michaelis-Menten part is idle; any positive Km will do.
+        _ => (1.0, 0.0),
+    };
+    WellKinetics {
+        substrate_initial_um,
+        km_um,
+        vmax_um_per_s,
+        lag_tau_s,
+        spontaneous_per_s,
     }
 }
 
@@ -761,9 +750,9 @@ fn well_truth(
     spec: &SimulationSpec,
     well: WellId,
     condition: &WellCondition,
-    curve: &ProgressModel,
+    curve: &WellKinetics,
     products_um: &[f64],
-    offset_au: f64,
+    (offset_au, drift_au_per_s): (f64, f64),
     noise_sd_au: f64,
     defect: Option<&PlantedDefect>,
 ) -> WellTruth {
@@ -781,11 +770,11 @@ fn well_truth(
         Readout::Product => 1.0,
         Readout::Substrate => -1.0,
     };
+    let drift = spec.baseline_drift_au_per_s + drift_au_per_s;
     let initial_slope_au_per_s = if has_substrate {
-        sign * spec.extinction_coefficient_per_m_per_cm * spec.pathlength_cm * 1e-6 * total_rate
-            + spec.baseline_drift_au_per_s
+        sign * spec.extinction_coefficient_per_m_per_cm * spec.pathlength_cm * 1e-6 * total_rate + drift
     } else {
-        spec.baseline_drift_au_per_s
+        drift
     };
     let fractions: Vec<f64> = if has_substrate && s0 > 0.0 {
         products_um.iter().map(|product| product / s0).collect()
@@ -802,8 +791,10 @@ fn well_truth(
         well,
         role: condition.role,
         substrate_um: condition.substrate_um,
+        substrate_true_um: has_substrate.then_some(s0),
         enzyme_nm: condition.enzyme_nm,
         variant: condition.variant.clone(),
+        drift_au_per_s,
         offset_au,
         noise_sd_au,
         vmax_um_per_s: is_sample.then_some(curve.vmax_um_per_s),
@@ -896,6 +887,10 @@ fn check_settings(spec: &SimulationSpec) -> Result<(), SimulationError> {
         ("noise_sd_au", spec.noise_sd_au),
         ("temperature_jitter_sd_c", spec.temperature_jitter_sd_c),
         ("spontaneous_hydrolysis_per_s", spec.spontaneous_hydrolysis_per_s),
+        ("dead_time_s", spec.dead_time_s),
+        ("substrate_pipetting_cv", spec.substrate_pipetting_cv),
+        ("noise_growth_per_au", spec.noise_growth_per_au),
+        ("well_drift_sd_au_per_s", spec.well_drift_sd_au_per_s),
     ];
     for (setting, value) in non_negative {
         if !(value.is_finite() && value >= 0.0) {
@@ -1165,43 +1160,48 @@ mod tests {
             noise_sd_au: 0.0,
             baseline_drift_au_per_s: 0.0,
             spontaneous_hydrolysis_per_s: 1e-5,
+            dead_time_s: 0.0,
+            substrate_pipetting_cv: 0.0,
+            noise_growth_per_au: 0.0,
+            well_drift_sd_au_per_s: 0.0,
             reading_decimals: 12,
             seed: 7,
         }
     }
 
+    /// The simulator integrates the rate law numerically; the fitter's closed form (an independent
+    /// implementation, checked against mpmath in `fit::integrated`) must agree with it.
     #[test]
-    fn noiseless_sample_follows_beer_lambert_of_closed_form_product() {
+    fn noiseless_sample_follows_beer_lambert_of_the_integrated_rate_law() {
         let mut spec = small_spec();
         spec.spontaneous_hydrolysis_per_s = 0.0;
+        spec.dead_time_s = 25.0;
         let plate = simulate(&spec).unwrap();
         let truth = &plate.truth.wells[0];
         let readings = plate.readings_of(WellId::new(0, 0)).unwrap();
         let vmax = 10.0 * 10.0 * 1e-3;
         for (reading, &time) in readings.iter().zip(&spec.read_times_s) {
-            let product = 20.0 - progress::substrate_remaining(20.0, 50.0, vmax, time);
+            // The reaction is 25 s older than the export's clock says.
+            let product = 20.0 - crate::fit::integrated::substrate_remaining(20.0, 50.0, vmax, time + 25.0);
             let expected = truth.offset_au + 10_000.0 * 0.5 * product * 1e-6;
-            assert_relative_eq!(reading.as_number().unwrap(), expected, max_relative = 1e-10);
+            assert_relative_eq!(reading.as_number().unwrap(), expected, max_relative = 1e-9);
         }
     }
 
     #[test]
-    fn simpson_integral_matches_exact_substrate_integral() {
-        // Exact: integral S dt = (Km (S0 - S) + (S0^2 - S^2)/2) / Vmax (no lag).
-        let condition = WellCondition::sample(30.0, 5.0, "X");
-        let kinetics = VariantKinetics {
-            name: "X".to_string(),
-            kcat_per_s: 20.0,
-            km_um: 40.0,
-        };
-        let model = ProgressModel::for_well(&condition, Some(&kinetics), 0.0, 0.0);
-        let mut integral = 0.0;
-        for step in 0..20 {
-            integral += model.simpson_substrate_integral(f64::from(step) * 30.0, f64::from(step + 1) * 30.0);
-        }
-        let s_end = model.enzymatic_substrate_at(600.0);
-        let exact = progress::substrate_time_integral_exact(30.0, 40.0, 0.1, s_end);
-        assert_relative_eq!(integral, exact, max_relative = 1e-9);
+    fn pipetting_error_moves_the_true_substrate_and_the_truth_records_it() {
+        let plain = simulate(&small_spec()).unwrap();
+        let a1 = &plain.truth.wells[0];
+        assert_eq!(a1.substrate_true_um, Some(20.0));
+        let mut spec = small_spec();
+        spec.substrate_pipetting_cv = 0.03;
+        let pipetted = simulate(&spec).unwrap();
+        let a1 = &pipetted.truth.wells[0];
+        let a2 = &pipetted.truth.wells[1];
+        assert_eq!(a1.substrate_um, Some(20.0));
+        let (s1, s2) = (a1.substrate_true_um.unwrap(), a2.substrate_true_um.unwrap());
+        assert!(s1 != 20.0 && s2 != 20.0 && s1 != s2, "{s1} {s2}");
+        assert!((s1 / 20.0 - 1.0).abs() < 0.15 && (s2 / 20.0 - 1.0).abs() < 0.15);
     }
 
     #[test]
@@ -1229,10 +1229,11 @@ mod tests {
         let without = simulate(&spec).unwrap();
         let extra = with.wells[0].readings[10].as_number().unwrap()
             - without.wells[0].readings[10].as_number().unwrap();
-        // About k S0 t scaled by epsilon l, a bit less because the enzyme depletes S.
+        // At most k S0 t scaled by epsilon l; less because the enzyme depletes S (most of it is
+        // gone by 600 s here) and the two reactions compete for what is left.
         let upper = 1e-5 * 20.0 * 600.0 * 10_000.0 * 0.5 * 1e-6;
         assert!(
-            extra > 0.5 * upper && extra < upper,
+            extra > 0.3 * upper && extra < upper,
             "extra {extra} upper {upper}"
         );
     }

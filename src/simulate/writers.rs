@@ -508,6 +508,10 @@ mod tests {
             noise_sd_au: 0.002,
             baseline_drift_au_per_s: 0.0,
             spontaneous_hydrolysis_per_s: 1e-6,
+            dead_time_s: 0.0,
+            substrate_pipetting_cv: 0.0,
+            noise_growth_per_au: 0.0,
+            well_drift_sd_au_per_s: 0.0,
             reading_decimals: 4,
             seed: 3,
         };
