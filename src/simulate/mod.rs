@@ -14,8 +14,8 @@
 //! - no-enzyme: `P(t) = S0 (1 - exp(-k_spont t))` (first order, exact);
 //! - blank (buffer only) and empty wells: no product;
 //! - read species: product (signal rises) or substrate `S0 - P` (signal falls);
-//! - absorbance: `A(t) = offset_well + background_extra + epsilon l c(t) + (drift + drift_well) t
-//!   + noise`, with c in M (`c_uM 1e-6`), epsilon in M^-1 cm^-1 and l in cm (Beer-Lambert),
+//! - absorbance: `A(t) = offset_well + background_extra + epsilon l c(t) + (drift + drift_well) t +
+//!   noise`, with c in M (`c_uM 1e-6`), epsilon in M^-1 cm^-1 and l in cm (Beer-Lambert),
 //!   `drift_well` drawn per well (`well_drift_sd_au_per_s`), noise `N(0, sd_well 10^(g A_clean))`
 //!   (`noise_growth_per_au` = g: photometric noise grows with absorbance as less light reaches the
 //!   detector) from a ChaCha8 generator seeded by the spec seed with one stream per well, and the
