@@ -161,10 +161,16 @@ pub struct RunArgs {
     /// rates are suspect), `always` or `never`.
     #[arg(long, value_name = "auto|always|never")]
     pub progress: Option<String>,
-    /// Seconds from the start of the reaction (mixing) to the reads' time zero; added to every
-    /// read time in the progress-curve fits.
+    /// Seconds from the start of the reaction (mixing) to the reads' time zero: counted in the
+    /// conversion limit, in the extrapolation of initial rates to mixing time, and in every read
+    /// time of the progress-curve fits.
     #[arg(long, value_name = "SECONDS")]
     pub dead_time: Option<f64>,
+    /// How each well's initial rate (at mixing time) is estimated: integrated (default: the
+    /// window's slope corrected for depletion by the group's rate law), tangent (of a quadratic
+    /// over the window) or chord (the window's slope, uncorrected).
+    #[arg(long, value_name = "integrated|tangent|chord")]
+    pub initial_rate: Option<String>,
     /// Estimate one shared dead time in each progress-curve fit.
     #[arg(long)]
     pub fit_dead_time: bool,
@@ -228,6 +234,7 @@ impl RunArgs {
             report: self.report.clone(),
             progress: self.progress.clone(),
             dead_time: self.dead_time,
+            initial_rate: self.initial_rate.clone(),
             fit_dead_time: self.fit_dead_time.then_some(true),
             s0_from_signal: self.s0_from_signal.then_some(true),
             ..self.models.layer().over(self.read.layer())

@@ -82,13 +82,52 @@ impl ProgressMode {
     }
 }
 
+/// How a well's initial rate (the rate at mixing) is estimated from its window.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum InitialRateEstimator {
+    /// The window's straight-line slope (a chord: it runs low by about half the fraction the
+    /// window converts when S0 is well below Km).
+    Chord,
+    /// The tangent at mixing time of a quadratic over the window.
+    Tangent,
+    /// The window's slope corrected for depletion by the group's integrated rate law (iterated
+    /// with the group's fit).
+    #[default]
+    Integrated,
+}
+
+impl InitialRateEstimator {
+    /// The word the settings write.
+    pub fn word(self) -> &'static str {
+        match self {
+            InitialRateEstimator::Chord => "chord",
+            InitialRateEstimator::Tangent => "tangent",
+            InitialRateEstimator::Integrated => "integrated",
+        }
+    }
+}
+
+impl std::str::FromStr for InitialRateEstimator {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "chord" => Ok(InitialRateEstimator::Chord),
+            "tangent" => Ok(InitialRateEstimator::Tangent),
+            "integrated" => Ok(InitialRateEstimator::Integrated),
+            other => Err(format!(
+                "unknown estimator '{other}' (expected integrated, tangent or chord)"
+            )),
+        }
+    }
+}
+
 /// Settings of the progress-curve analysis.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct ProgressSettings {
     /// When it runs.
     pub mode: ProgressMode,
-    /// Time from the start of the reaction to the reads' time zero, s.
-    pub dead_time_s: f64,
     /// Estimate one shared dead time per group.
     pub fit_dead_time: bool,
     /// Take each well's S0 from its own first signal (substrate readout) instead of the layout.
@@ -99,7 +138,6 @@ impl Default for ProgressSettings {
     fn default() -> Self {
         ProgressSettings {
             mode: ProgressMode::Auto,
-            dead_time_s: 0.0,
             fit_dead_time: false,
             s0_from_signal: false,
         }
@@ -359,6 +397,9 @@ pub struct RateSettings {
     pub alpha: f64,
     /// Raw absorbance above which reads are not used.
     pub max_absorbance: f64,
+    /// Time from mixing (the reaction's start) to the export's time zero, s: counted in the
+    /// conversion limit and in the extrapolation of initial rates to mixing time.
+    pub dead_time_s: f64,
 }
 
 impl Default for RateSettings {
@@ -370,6 +411,7 @@ impl Default for RateSettings {
             fixed_window_s: None,
             alpha: 0.01,
             max_absorbance: 3.0,
+            dead_time_s: 0.0,
         }
     }
 }

@@ -76,6 +76,8 @@ pub struct SettingLayer {
     pub dead_time: Option<f64>,
     /// Estimate a shared dead time in the progress-curve fits.
     pub fit_dead_time: Option<bool>,
+    /// Initial-rate estimator: `integrated`, `tangent` or `chord`.
+    pub initial_rate: Option<String>,
     /// Take S0 from each well's first signal (substrate readout) in the progress-curve fits.
     pub s0_from_signal: Option<bool>,
 }
@@ -113,6 +115,7 @@ impl SettingLayer {
             progress: self.progress.or(below.progress),
             dead_time: self.dead_time.or(below.dead_time),
             fit_dead_time: self.fit_dead_time.or(below.fit_dead_time),
+            initial_rate: self.initial_rate.or(below.initial_rate),
             s0_from_signal: self.s0_from_signal.or(below.s0_from_signal),
         }
     }
@@ -179,8 +182,10 @@ pub struct AnalysisSettings {
     pub extinction_per_molar_cm: Option<f64>,
     /// cm, when known.
     pub pathlength_cm: Option<f64>,
-    /// Window rules.
+    /// Window rules (with the dead time).
     pub rates: RateSettings,
+    /// How each well's initial rate is estimated.
+    pub initial_rate: InitialRateEstimator,
     /// Keep flagged wells in means and fits.
     pub keep_flagged: bool,
     /// Layout wells absent from the data only warn.
@@ -196,6 +201,7 @@ impl Default for AnalysisSettings {
             extinction_per_molar_cm: None,
             pathlength_cm: None,
             rates: RateSettings::default(),
+            initial_rate: InitialRateEstimator::default(),
             keep_flagged: false,
             allow_missing: false,
             progress: ProgressSettings::default(),
@@ -357,7 +363,6 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
     }
     let progress = ProgressSettings {
         mode: parse_field::<ProgressMode>("progress", &layer.progress)?.unwrap_or(ProgressMode::Auto),
-        dead_time_s,
         fit_dead_time: layer.fit_dead_time.unwrap_or(false),
         s0_from_signal: layer.s0_from_signal.unwrap_or(false),
     };
@@ -378,7 +383,10 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
             fixed_window_s,
             alpha,
             max_absorbance,
+            dead_time_s,
         },
+        initial_rate: parse_field::<InitialRateEstimator>("initial-rate", &layer.initial_rate)?
+            .unwrap_or_default(),
         keep_flagged: layer.keep_flagged.unwrap_or(false),
         allow_missing: layer.allow_missing.unwrap_or(false),
         progress,
@@ -447,7 +455,8 @@ pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLa
         keep_flagged: Some(analysis.keep_flagged),
         allow_missing: Some(analysis.allow_missing),
         progress: Some(analysis.progress.mode.word().into()),
-        dead_time: Some(analysis.progress.dead_time_s),
+        dead_time: Some(analysis.rates.dead_time_s),
+        initial_rate: Some(analysis.initial_rate.word().into()),
         fit_dead_time: Some(analysis.progress.fit_dead_time),
         s0_from_signal: Some(analysis.progress.s0_from_signal),
         short_rows: Some(
@@ -529,7 +538,7 @@ mod tests {
             toml::from_str("progress = \"always\"\ndead-time = 12.5\nfit-dead-time = true\n").unwrap();
         let analysis = resolve_analysis(&layer).unwrap();
         assert_eq!(analysis.progress.mode, ProgressMode::Always);
-        assert_eq!(analysis.progress.dead_time_s, 12.5);
+        assert_eq!(analysis.rates.dead_time_s, 12.5);
         assert!(analysis.progress.fit_dead_time);
         let bad = SettingLayer {
             progress: Some("sometimes".into()),

@@ -12,7 +12,7 @@ pub mod models;
 pub mod selection;
 
 pub use least_squares::{
-    asymptotic_covariance, check_jacobian, check_jacobian_scaled, confidence_interval_95, f_quantile,
+    asymptotic_covariance, check_jacobian, cluster_robust_covariance, check_jacobian_scaled, confidence_interval_95, f_quantile,
     finite_difference_jacobian, finite_difference_jacobian_scaled, fit_least_squares, t_quantile,
     t_quantile_975, ConvergenceTest, CovarianceSummary, FitError, JacobianDiscrepancy, LeastSquaresFit,
     LeastSquaresOptions, LevenbergMarquardt, LevenbergMarquardtState, ResidualModel, ResidualProblem,

@@ -9,11 +9,12 @@
 //! once by the general rate-law fit, and its Michaelis-Menten description (design warnings, Vmax/Km
 //! by the reparametrised Jacobian, linearised diagnostics) is made from that same fit.
 
+pub mod initial_rate;
 pub mod rate_table;
 
 use std::collections::BTreeMap;
 
-use crate::config::{FitSettings, ModelRequest, RateModelKind, RobustLoss, Weighting};
+use crate::config::{FitSettings, InitialRateEstimator, ModelRequest, RateModelKind, RobustLoss, Weighting};
 use crate::core::plate::WellId;
 use crate::core::stats::{summary, t_quantile_975};
 use crate::core::units::ConcentrationUnit;
@@ -27,6 +28,7 @@ use crate::fit::{
 use crate::fit::{ParameterEstimate, StartMethod};
 use crate::layout::{Layout, Role};
 use crate::rates::{Flag, PlateAnalysis, WellResult};
+use initial_rate::{corrected_initial_rate, rate_shape, WindowChord};
 
 /// One value of a group's key: a factor's text or a concentration.
 #[derive(Debug, Clone, PartialEq)]
@@ -108,6 +110,9 @@ pub struct ParameterReport {
     pub ci95_profile: Option<ProfileInterval>,
     /// Bootstrap percentile 95% interval (`--bootstrap N`).
     pub ci95_bootstrap: Option<[f64; 2]>,
+    /// Where `se` and `ci95` allow for errors shared by the reads of a well (progress-curve fits):
+    /// the standard error and interval that treat every read as independent evidence.
+    pub asymptotic: Option<(Option<f64>, Option<[f64; 2]>)>,
 }
 
 impl ParameterReport {
@@ -120,6 +125,7 @@ impl ParameterReport {
             determined: estimate.determined,
             ci95_profile: None,
             ci95_bootstrap: None,
+            asymptotic: None,
         }
     }
 
@@ -134,6 +140,7 @@ impl ParameterReport {
                 .ci95_profile
                 .map(|[lo, hi]| [lo.map(|x| x * scale), hi.map(|x| x * scale)]),
             ci95_bootstrap: constant.ci95_bootstrap.map(|[lo, hi]| [lo * scale, hi * scale]),
+            asymptotic: None,
         }
     }
 }
@@ -192,6 +199,49 @@ pub struct GroupFit {
     pub robust_loss: RobustLoss,
     /// The bootstrap behind the percentile intervals, when one ran.
     pub bootstrap: Option<BootstrapSummary>,
+    /// How the points' initial rates were estimated (`integrated` falls back to `chord` where the
+    /// rate law gives no S dependence or no fit was made).
+    pub estimator: InitialRateEstimator,
+    /// The wells' initial rates (and standard errors) the fit used, when the estimator made new ones
+    /// from the windows (`integrated`); wells left out get one too, for the tables.
+    pub initial_rates: Vec<(WellId, f64, f64)>,
+    /// The reported rate law as fitted (its parametrisation), for predictions.
+    pub law: Option<FittedLaw>,
+}
+
+/// A fitted rate law in its own parametrisation (inverse constants as `1/K`), for predictions.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FittedLaw {
+    /// The law.
+    pub kind: RateModelKind,
+    /// Its fitted parameters.
+    pub parameters: Vec<f64>,
+    /// The enzyme concentration in the inhibitor's unit (Morrison), 0 when unknown.
+    pub enzyme: f64,
+}
+
+/// Rounds of correction and refit before the integrated estimator gives up converging.
+const CORRECTION_ROUNDS: usize = 8;
+
+/// Corrected rates are taken as converged when no rate moves by more than this fraction.
+const CORRECTION_TOLERANCE: f64 = 1e-7;
+
+/// How initial rates are estimated for the group fits.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct InitialRateOptions {
+    /// The estimator.
+    pub estimator: InitialRateEstimator,
+    /// Time from mixing to the export's time zero, s.
+    pub dead_time_s: f64,
+}
+
+impl Default for InitialRateOptions {
+    fn default() -> Self {
+        InitialRateOptions {
+            estimator: InitialRateEstimator::Chord,
+            dead_time_s: 0.0,
+        }
+    }
 }
 
 /// Whether a request fits an inhibitor-dependent model (so the inhibitor must not split groups).
@@ -249,7 +299,13 @@ pub fn sample_groups<'a>(
 
 /// Fits every group of sample wells with the default settings.
 pub fn fit_groups(analysis: &PlateAnalysis, layout: &Layout) -> Vec<GroupFit> {
-    fit_groups_with(analysis, layout, &FitSettings::default(), &mut |_, _| {})
+    fit_groups_with(
+        analysis,
+        layout,
+        &FitSettings::default(),
+        &InitialRateOptions::default(),
+        &mut |_, _| {},
+    )
 }
 
 /// Fits every group of sample wells. `progress(done, total)` reports bootstrap replicates.
@@ -257,6 +313,7 @@ pub fn fit_groups_with(
     analysis: &PlateAnalysis,
     layout: &Layout,
     settings: &FitSettings,
+    initial: &InitialRateOptions,
     progress: &mut dyn FnMut(usize, usize),
 ) -> Vec<GroupFit> {
     let groups = group_by(
@@ -289,7 +346,7 @@ pub fn fit_groups_with(
     }
     split
         .into_iter()
-        .map(|(key, wells)| fit_one_group(key, &wells, analysis, layout, settings, progress))
+        .map(|(key, wells)| fit_one_group(key, &wells, analysis, layout, settings, initial, progress))
         .collect()
 }
 
@@ -298,6 +355,10 @@ pub fn fit_groups_with(
 pub struct FitPoint {
     /// The well or row it came from.
     pub label: String,
+    /// The well, for a plate's point.
+    pub well: Option<WellId>,
+    /// The window behind the rate, for a plate's point (the integrated estimator corrects it).
+    pub window: Option<WindowChord>,
     pub substrate: f64,
     /// 0 where there is no inhibitor.
     pub inhibitor: f64,
@@ -330,25 +391,45 @@ pub fn left_out_reason(well: &WellResult) -> Option<LeftOutReason> {
     }
 }
 
+/// A well's window as a chord counted from mixing.
+fn window_chord(well: &WellResult, dead_time_s: f64) -> Option<WindowChord> {
+    let (start, end) = well.rate.window_s?;
+    Some(WindowChord {
+        slope: well.window_slope?,
+        se: well.window_slope_se?,
+        start_s: start + dead_time_s,
+        end_s: end + dead_time_s,
+    })
+}
+
 fn fit_one_group(
     group: GroupKey,
     wells: &[&WellResult],
     analysis: &PlateAnalysis,
     layout: &Layout,
     settings: &FitSettings,
+    initial: &InitialRateOptions,
     progress: &mut dyn FnMut(usize, usize),
 ) -> GroupFit {
     let mut points = Vec::new();
     let mut left_out = Vec::new();
+    let mut left_out_points = Vec::new();
     for well in wells {
-        match (left_out_reason(well), well.setup.substrate, well.rate_value) {
-            (None, Some(substrate), Some(rate)) => points.push(FitPoint {
-                label: well.well.to_string(),
-                substrate,
-                inhibitor: well.setup.inhibitor.unwrap_or(0.0),
-                rate,
-                sd: None,
-            }),
+        let point = |rate: f64, substrate: f64| FitPoint {
+            label: well.well.to_string(),
+            well: Some(well.well),
+            window: window_chord(well, initial.dead_time_s),
+            substrate,
+            inhibitor: well.setup.inhibitor.unwrap_or(0.0),
+            rate,
+            sd: None,
+        };
+        let reason = left_out_reason(well);
+        if let (Some(_), Some(substrate), Some(rate)) = (&reason, well.setup.substrate, well.rate_value) {
+            left_out_points.push(point(rate, substrate));
+        }
+        match (reason, well.setup.substrate, well.rate_value) {
+            (None, Some(substrate), Some(rate)) => points.push(point(rate, substrate)),
             (reason, ..) => left_out.push(LeftOut {
                 place: LeftOutPlace::Well(well.well),
                 reason: reason.unwrap_or(LeftOutReason::NoRate),
@@ -370,6 +451,11 @@ fn fit_one_group(
     };
     let n_wells = wells.len();
     let mut report = fit_points(group, &points, left_out, &units, settings, progress);
+    if initial.estimator == InitialRateEstimator::Integrated {
+        correct_for_depletion(&mut report, &points, &left_out_points, &units, settings, progress);
+    } else {
+        report.estimator = initial.estimator;
+    }
     if !report.wells_left_out.is_empty() {
         report.warnings.insert(
             0,
@@ -426,7 +512,108 @@ fn empty_report(
         weighting: settings.weighting,
         robust_loss: settings.loss,
         bootstrap: None,
+        estimator: InitialRateEstimator::Chord,
+        initial_rates: Vec::new(),
+        law: None,
     }
+}
+
+/// Each point's initial rate corrected by `law` from its window (module docs of
+/// [`initial_rate`]); `None` where it cannot be.
+fn corrected_rates(points: &[FitPoint], law: &FittedLaw) -> Vec<Option<(f64, f64)>> {
+    points
+        .iter()
+        .map(|point| {
+            let window = point.window.as_ref()?;
+            let shape = rate_shape(law.kind, &law.parameters, point.substrate, point.inhibitor, law.enzyme);
+            corrected_initial_rate(window, point.substrate, shape)
+        })
+        .collect()
+}
+
+/// The integrated estimator: corrects each point's window for depletion by the group's fitted
+/// law and refits, until the rates settle; the last fit has the full intervals.
+fn correct_for_depletion(
+    report: &mut GroupFit,
+    points: &[FitPoint],
+    left_out_points: &[FitPoint],
+    units: &GroupUnits,
+    settings: &FitSettings,
+    progress: &mut dyn FnMut(usize, usize),
+) {
+    let quick = FitSettings {
+        profile: false,
+        bootstrap: None,
+        ..settings.clone()
+    };
+    let mut current_points = points.to_vec();
+    let mut law = report.law.clone();
+    let mut any_corrected = false;
+    for _ in 0..CORRECTION_ROUNDS {
+        let Some(fitted) = law.as_ref() else { break };
+        let corrected = corrected_rates(points, fitted);
+        let mut next = points.to_vec();
+        let mut largest_change = 0.0f64;
+        for ((point, original), new) in next.iter_mut().zip(points).zip(&corrected) {
+            if let Some((rate, _)) = new {
+                any_corrected = true;
+                point.rate = *rate;
+            } else {
+                point.rate = original.rate;
+            }
+            // A plate point's SD is its replicates' spread: recomputed from the corrected rates.
+            if original.window.is_some() {
+                point.sd = None;
+            }
+        }
+        replicate_sds(&mut next);
+        for (old, new) in current_points.iter().zip(&next) {
+            let scale = old.rate.abs().max(f64::MIN_POSITIVE);
+            largest_change = largest_change.max((new.rate - old.rate).abs() / scale);
+        }
+        current_points = next;
+        if !any_corrected || largest_change <= CORRECTION_TOLERANCE {
+            break;
+        }
+        let refit = fit_points(
+            report.group.clone(),
+            &current_points,
+            report.wells_left_out.clone(),
+            units,
+            &quick,
+            &mut |_, _| {},
+        );
+        law = refit.law.clone();
+    }
+    if !any_corrected {
+        report.estimator = InitialRateEstimator::Chord;
+        return;
+    }
+    let left_out = report.wells_left_out.clone();
+    let mut final_report = fit_points(report.group.clone(), &current_points, left_out, units, settings, progress);
+    final_report.warnings = report
+        .warnings
+        .iter()
+        .filter(|warning| !final_report.warnings.contains(warning))
+        .cloned()
+        .chain(final_report.warnings.iter().cloned())
+        .collect();
+    final_report.estimator = InitialRateEstimator::Integrated;
+    let mut initial_rates: Vec<(WellId, f64, f64)> = Vec::new();
+    if let Some(fitted) = final_report.law.clone() {
+        for (point, rate) in points.iter().zip(corrected_rates(points, &fitted)) {
+            if let (Some(well), Some((value, se))) = (point.well, rate) {
+                initial_rates.push((well, value, se));
+            }
+        }
+        for (point, rate) in left_out_points.iter().zip(corrected_rates(left_out_points, &fitted)) {
+            if let (Some(well), Some((value, se))) = (point.well, rate) {
+                initial_rates.push((well, value, se));
+            }
+        }
+    }
+    final_report.initial_rates = initial_rates;
+    *report = final_report;
 }
 
 /// Fits one group's points and builds its report (shared by runs and `platekin fit`).
@@ -513,6 +700,11 @@ pub fn fit_points(
         replicates: b.replicates,
         converged: b.converged,
         seed: b.seed,
+    });
+    report.law = analysis.fit.as_ref().map(|fit| FittedLaw {
+        kind: fit.kind,
+        parameters: fit.fit.parameters.clone(),
+        enzyme: enzyme_in_inhibitor_unit.unwrap_or(0.0),
     });
     let plain_michaelis_menten = analysis.model == RateModelKind::MichaelisMenten
         && settings.weighting == Weighting::None
@@ -704,6 +896,7 @@ fn general_report(
                         determined: fit.converged() && se <= 0.5 * value.abs(),
                         ci95_profile: None,
                         ci95_bootstrap: None,
+                        asymptotic: None,
                     },
                 );
             }

@@ -296,6 +296,8 @@ pub fn read_rate_table(
                 any_row = true;
                 group.points.push(FitPoint {
                     label,
+                    well: None,
+                    window: None,
                     substrate,
                     inhibitor: inhibitor_value.unwrap_or(0.0),
                     rate,

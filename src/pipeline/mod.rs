@@ -8,7 +8,7 @@ use std::collections::BTreeSet;
 use crate::config::{AnalysisSettings, FitSettings, ImportOptions};
 use crate::core::plate::WellId;
 use crate::files::input::InputFile;
-use crate::groups::{fit_groups_with, GroupFit};
+use crate::groups::{fit_groups_with, GroupFit, InitialRateOptions};
 use crate::import::{import_data, ImportError, KineticData};
 use crate::layout::{check_against_data, read_layout, Layout, LayoutError};
 use crate::progress::analysis::{analyse_progress, ProgressAnalysis};
@@ -90,9 +90,19 @@ pub fn analyse_inputs(
         &wells_in_data(&data),
         settings.allow_missing,
     )?);
-    let analysis = analyse_plate(&data, &layout, settings);
+    let mut analysis = analyse_plate(&data, &layout, settings);
+    let initial = InitialRateOptions {
+        estimator: settings.initial_rate,
+        dead_time_s: settings.rates.dead_time_s,
+    };
+    let fits = fit_groups_with(&analysis, &layout, fit_settings, &initial, progress);
+    // The group fits' depletion-corrected initial rates become the wells' rates, once.
+    let corrected: std::collections::BTreeMap<WellId, (f64, f64)> = fits
+        .iter()
+        .flat_map(|fit| fit.initial_rates.iter().map(|(well, rate, se)| (*well, (*rate, *se))))
+        .collect();
+    analysis.apply_initial_rates(&corrected);
     let conditions = condition_table(&analysis, &layout)?;
-    let fits = fit_groups_with(&analysis, &layout, fit_settings, progress);
     let progress_curves = analyse_progress(&data, &layout, &analysis, &fits, settings);
     Ok(RunResults {
         data,

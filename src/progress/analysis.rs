@@ -385,7 +385,7 @@ fn well_curves(
         let s0_signal = (settings.readout == Readout::Substrate)
             .then(|| {
                 let n = times_s.len().min(6);
-                straight_line(&times_s[..n], &values[..n]).map(|line| line.at(-settings.progress.dead_time_s))
+                straight_line(&times_s[..n], &values[..n]).map(|line| line.at(-settings.rates.dead_time_s))
             })
             .flatten()
             .map(|intercept| intercept / signal_per_substrate)
@@ -431,17 +431,21 @@ fn well_curves(
     Ok(curves)
 }
 
+/// A fitted parameter as reported: its standard error and interval allow for errors shared by
+/// the reads of a well (clustered by well), with the read-level ones beside them.
 fn parameter(fit: &GlobalFit, name: &str, unit: &str) -> Option<ParameterReport> {
     let p = fit.parameter(name)?;
-    let determined = p.se.is_some_and(|se| se.is_finite() && se <= 0.5 * p.value.abs());
+    let se = p.se_by_well.or(p.se);
+    let determined = se.is_some_and(|se| se.is_finite() && se <= 0.5 * p.value.abs());
     Some(ParameterReport {
         value: p.value,
-        se: p.se,
-        ci95: p.ci95,
+        se,
+        ci95: p.ci95_by_well.or(p.ci95),
         unit: unit.to_string(),
         determined,
         ci95_profile: None,
         ci95_bootstrap: None,
+        asymptotic: Some((p.se, p.ci95)),
     })
 }
 
@@ -458,7 +462,7 @@ fn analyse_group(input: GroupInput, run: RunReason) -> ProgressGroupReport {
         Err(message) => return failed(report, message),
     };
     let base = GlobalFitOptions {
-        dead_time_s: input.settings.progress.dead_time_s,
+        dead_time_s: input.settings.rates.dead_time_s,
         fit_dead_time: input.settings.progress.fit_dead_time,
         ..GlobalFitOptions::default()
     };
@@ -518,7 +522,7 @@ fn fill_from_fit(
     report.n_wells = fit.n_wells;
     report.dead_time_s = Some(
         fit.parameter("dead_time")
-            .map_or(input.settings.progress.dead_time_s, |p| p.value),
+            .map_or(input.settings.rates.dead_time_s, |p| p.value),
     );
     if let Some(kcat) = parameter(fit, "kcat", "1/s") {
         report.parameters.insert("kcat".into(), kcat);
@@ -549,23 +553,45 @@ fn fill_from_fit(
         input.layout.substrate_unit,
     ) {
         let ratio = kcat.value / km.value;
-        let correlation = fit.correlation.as_ref().map_or(0.0, |c| c[0][1]);
-        let se = kcat.se.zip(km.se).map(|(sk, sm)| {
-            let (rk, rm) = (sk / kcat.value, sm / km.value);
-            ratio * (rk * rk + rm * rm - 2.0 * correlation * rk * rm).max(0.0).sqrt()
-        });
         let scale = 1.0 / unit.in_molar();
-        let quantile = t_quantile_975(fit.degrees_of_freedom.max(1)).ok();
+        // Delta method: var(k/K) = (k/K)^2 (var k/k^2 + var K/K^2 - 2 cov(k, K)/(k K)).
+        let delta = |var_k: f64, var_km: f64, cov: f64| {
+            let (k, km_value) = (kcat.value, km.value);
+            ratio * (var_k / (k * k) + var_km / (km_value * km_value) - 2.0 * cov / (k * km_value)).max(0.0).sqrt()
+        };
+        let correlation = fit.correlation.as_ref().map_or(0.0, |c| c[0][1]);
+        let se_asymptotic = kcat
+            .se
+            .zip(km.se)
+            .map(|(sk, sm)| delta(sk * sk, sm * sm, correlation * sk * sm));
+        let se_by_well = fit
+            .covariance_by_well
+            .as_ref()
+            .map(|c| delta(c[0][0], c[1][1], c[0][1]))
+            .filter(|s| s.is_finite());
+        let interval = |se: Option<f64>, quantile: Option<f64>| {
+            se.zip(quantile)
+                .map(|(s, q)| [(ratio - q * s) * scale, (ratio + q * s) * scale])
+        };
+        let read_quantile = t_quantile_975(fit.degrees_of_freedom.max(1)).ok();
+        let well_quantile = t_quantile_975(fit.n_wells.saturating_sub(1).max(1)).ok();
+        let se = se_by_well.or(se_asymptotic);
         report.parameters.insert(
             "kcat_over_Km".into(),
             ParameterReport {
                 value: ratio * scale,
                 se: se.map(|s| s * scale),
-                ci95: se
-                    .zip(quantile)
-                    .map(|(s, q)| [(ratio - q * s) * scale, (ratio + q * s) * scale]),
+                ci95: if se_by_well.is_some() {
+                    interval(se_by_well, well_quantile)
+                } else {
+                    interval(se_asymptotic, read_quantile)
+                },
                 ci95_profile: None,
                 ci95_bootstrap: None,
+                asymptotic: Some((
+                    se_asymptotic.map(|s| s * scale),
+                    interval(se_asymptotic, read_quantile),
+                )),
                 unit: "1/(M*s)".into(),
                 determined: se.is_some_and(|s| s <= 0.5 * ratio),
             },
@@ -590,6 +616,7 @@ fn fill_from_fit(
                         ci95: kp_ci,
                         ci95_profile: None,
                         ci95_bootstrap: None,
+                        asymptotic: None,
                         unit: s_unit.clone(),
                         determined: p.determined,
                     },

@@ -46,7 +46,9 @@ use crate::core::stats::{
     aicc, extra_sum_of_squares, f_quantile, mean, median, straight_line, t_quantile_975,
 };
 use crate::fit::integrated::michaelis_menten_point;
-use crate::fit::{asymptotic_covariance, fit_least_squares, LeastSquaresOptions, ResidualModel};
+use crate::fit::{
+    asymptotic_covariance, cluster_robust_covariance, fit_least_squares, LeastSquaresOptions, ResidualModel,
+};
 
 /// One well's curve, ready to fit.
 #[derive(Debug, Clone, PartialEq)]
@@ -202,10 +204,14 @@ pub struct FittedParameter {
     pub name: String,
     /// Estimate.
     pub value: f64,
-    /// Asymptotic standard error.
+    /// Asymptotic standard error (every read independent evidence).
     pub se: Option<f64>,
     /// Asymptotic 95% interval.
     pub ci95: Option<[f64; 2]>,
+    /// Standard error robust to errors shared by the reads of a well (clustered by well).
+    pub se_by_well: Option<f64>,
+    /// 95% interval from it, with t(wells - 1).
+    pub ci95_by_well: Option<[f64; 2]>,
 }
 
 /// A group's global fit.
@@ -219,6 +225,9 @@ pub struct GlobalFit {
     pub km_profile_ci95: Option<[Option<f64>; 2]>,
     /// Correlation matrix of the shared parameters.
     pub correlation: Option<Vec<Vec<f64>>>,
+    /// Covariance of the shared parameters clustered by well (see
+    /// [`crate::fit::cluster_robust_covariance`]).
+    pub covariance_by_well: Option<Vec<Vec<f64>>>,
     /// Residual sum of squares, AU^2.
     pub rss: f64,
     /// Reads fitted.
@@ -699,18 +708,30 @@ fn summarise(
     };
     let covariance = asymptotic_covariance(&jacobian, scaled_rss);
     let quantile = if dof > 0 { t_quantile_975(dof).ok() } else { None };
+    // Reads of one well share its errors: the covariance clustered by well, with t(wells - 1).
+    let mut residuals = vec![0.0; n];
+    problem.residuals(&parameters, &mut residuals);
+    let clusters: Vec<std::ops::Range<usize>> = problem.offsets.windows(2).map(|w| w[0]..w[1]).collect();
+    let by_well = cluster_robust_covariance(&jacobian, &residuals, &clusters);
+    let well_quantile = (m >= 2).then(|| t_quantile_975(m - 1).ok()).flatten();
     let names = problem.parameter_names();
     let fitted: Vec<FittedParameter> = names
         .iter()
         .enumerate()
         .map(|(index, name)| {
             let se = covariance.standard_errors.as_ref().map(|s| s[index]);
+            let se_by_well = by_well
+                .as_ref()
+                .map(|c| c[(index, index)].max(0.0).sqrt())
+                .filter(|s| s.is_finite());
             let value = parameters[index];
             FittedParameter {
                 name: name.clone(),
                 value,
                 se,
                 ci95: se.zip(quantile).map(|(se, q)| [value - q * se, value + q * se]),
+                se_by_well,
+                ci95_by_well: se_by_well.zip(well_quantile).map(|(se, q)| [value - q * se, value + q * se]),
             }
         })
         .collect();
@@ -734,6 +755,7 @@ fn summarise(
         parameters: fitted,
         km_profile_ci95,
         correlation,
+        covariance_by_well: by_well.map(|c| c.row_iter().map(|row| row.iter().copied().collect()).collect()),
         rss,
         n_observations: n,
         n_wells: m,

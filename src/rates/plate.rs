@@ -1,41 +1,59 @@
 //! From traces and layout to per-well rates: each well's product formed (from the plate's
-//! [`PlateSignal`], computed once), the window search of every well (in parallel), plate-level
-//! flags, and the subtraction of the matching no-enzyme background.
+//! [`PlateSignal`], computed once), the window search of every well (in parallel), the plate's
+//! noise model and the `noisy` flag, the no-enzyme background of each sample
+//! ([`super::background`]), the `weak` flag, and whether each well is used.
 //!
-//! Background: v = v_well - mean(v_no-enzyme) with se = sqrt(se_well^2 + sem_background^2).
+//! Each well keeps its window's slope (a chord) and, when the window allows, the tangent at mixing
+//! time; `rate_value` is the initial rate by the chosen estimator: the tangent for `tangent`, else
+//! the window's slope (the integrated-rate-law correction of `integrated` needs the group's fit and
+//! is applied by [`PlateAnalysis::apply_initial_rates`]).
 
 use std::collections::BTreeMap;
 
 use rayon::prelude::*;
 
+use super::background::{background_for, Background, Control};
 use super::well::{
-    apply_plate_flags, flag_words, well_rate, CriticalValues, Flag, PlateNoise, TraceInput, WellRate,
+    apply_noise_flag, apply_weak_flag, flag_words, well_rate, CriticalValues, Flag, PlateNoise, TraceInput,
+    WellRate,
 };
-use crate::config::AnalysisSettings;
+use crate::config::{AnalysisSettings, InitialRateEstimator};
 use crate::core::plate::WellId;
-use crate::core::stats::{median, summary};
+use crate::core::stats::summary;
 use crate::import::KineticData;
 use crate::layout::{Layout, Role, WellSetup};
 use crate::signal::PlateSignal;
 
+/// How a well's rate was corrected.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Correction {
+    /// The blank wells averaged at each read (0: no blank correction); `None` for a blank itself.
+    pub blank_wells: Option<usize>,
+    /// The no-enzyme background (samples only).
+    pub background: Option<Background>,
+}
+
 /// One analysed well.
-#[derive(Debug, Clone, serde::Serialize)]
+#[derive(Debug, Clone)]
 pub struct WellResult {
     /// The well.
     pub well: WellId,
     /// What the layout says of it.
-    #[serde(skip)]
     pub setup: WellSetup,
-    /// The window, fit and flags.
+    /// The window, fits and flags.
     pub rate: WellRate,
-    /// The rate after background subtraction, positive turnover, in [`PlateAnalysis::rate_unit`].
+    /// The window's slope after background subtraction (the chord), in the plate's rate unit.
+    pub window_slope: Option<f64>,
+    /// Its standard error (the window fit's and the background's).
+    pub window_slope_se: Option<f64>,
+    /// The initial rate at mixing after background subtraction, by the run's estimator.
     pub rate_value: Option<f64>,
     /// Its standard error.
     pub rate_se: Option<f64>,
     /// The no-enzyme background subtracted, if any.
     pub background: Option<f64>,
-    /// Which corrections the well got, in words.
-    pub correction: String,
+    /// Which corrections the well got.
+    pub correction: Correction,
     /// Whether the rate enters condition means and fits.
     pub used: bool,
 }
@@ -44,6 +62,11 @@ impl WellResult {
     /// The flags as the outputs write them.
     pub fn flag_text(&self) -> String {
         flag_words(&self.rate.flags)
+    }
+
+    /// Whether the well's flags leave it out (before `--keep-flagged`).
+    pub fn excluded_by_flags(&self) -> bool {
+        self.rate.flags.iter().any(|flag| flag.excludes())
     }
 }
 
@@ -54,9 +77,11 @@ pub struct PlateAnalysis {
     pub wells: Vec<WellResult>,
     /// How raw readings became product formed (blank, sign, conversion).
     pub signal: PlateSignal,
-    /// Blank noise used for the flags.
+    /// The noise model used for the flags.
     pub noise: PlateNoise,
-    /// Plate-level remarks (no blanks, no extinction...).
+    /// The estimator behind `rate_value`.
+    pub estimator: InitialRateEstimator,
+    /// Plate-level remarks (no blanks, no extinction, samples without a background...).
     pub warnings: Vec<String>,
 }
 
@@ -75,36 +100,24 @@ impl PlateAnalysis {
                 (well, reason)
             })
     }
-}
 
-/// Whether a no-enzyme control serves a sample: same substrate concentration, and every factor
-/// (and the inhibitor) either equal or left empty on the control.
-fn control_matches(control: &WellSetup, sample: &WellSetup) -> bool {
-    let same_substrate = match (control.substrate, sample.substrate) {
-        (Some(a), Some(b)) => (a - b).abs() <= 1e-9 * a.abs().max(b.abs()),
-        _ => false,
-    };
-    let inhibitor_ok = match (control.inhibitor, sample.inhibitor) {
-        (None, _) => true,
-        (Some(a), Some(b)) => (a - b).abs() <= 1e-9 * a.abs().max(b.abs()),
-        (Some(a), None) => a == 0.0,
-    };
-    let factors_ok = control.factors.iter().all(|(name, value)| {
-        value.is_empty()
-            || sample
-                .factors
-                .get(name)
-                .is_some_and(|sample_value| sample_value == value)
-    });
-    same_substrate && inhibitor_ok && factors_ok
+    /// Replaces wells' initial rates (and standard errors) by better estimates made upstream of
+    /// the plate (the group fits' depletion-corrected rates); wells not named keep theirs.
+    pub fn apply_initial_rates(&mut self, rates: &BTreeMap<WellId, (f64, f64)>) {
+        for well in &mut self.wells {
+            if let Some(&(rate, se)) = rates.get(&well.well) {
+                well.rate_value = Some(rate);
+                well.rate_se = Some(se);
+            }
+        }
+    }
 }
 
 /// Analyses a plate: every layout well present in the data gets a rate, flags and corrections.
 pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSettings) -> PlateAnalysis {
     let n_reads = data.times_s.len();
     let signal = PlateSignal::new(data, layout, settings);
-    let warnings = signal.warnings.clone();
-    let rate_unit = signal.rate_unit();
+    let mut warnings = signal.warnings.clone();
     let traces: BTreeMap<WellId, &[Option<f64>]> = data
         .wells
         .iter()
@@ -133,88 +146,99 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
         })
         .collect();
 
-    // Plate noise from the blanks' own straight lines.
-    let blank_fits: Vec<_> = wells_in_play
+    // The plate's noise: every well's read noise by absorbance, the blanks' slopes.
+    let is_blank = |index: usize| wells_in_play[index].1.role == Role::Blank;
+    let blank_slopes: Vec<f64> = rates
         .iter()
-        .zip(&rates)
-        .filter(|((_, setup, _), _)| setup.role == Role::Blank)
-        .filter_map(|(_, rate)| rate.fit)
+        .enumerate()
+        .filter(|(index, _)| is_blank(*index))
+        .filter_map(|(_, rate)| rate.fit.map(|fit| fit.slope))
         .collect();
-    let blank_slopes: Vec<f64> = blank_fits.iter().map(|f| f.slope).collect();
     let blank_slope_sd = (blank_slopes.len() >= 3)
         .then(|| summary(&blank_slopes).and_then(|s| s.sd))
         .flatten();
-    let noise = PlateNoise {
-        blank_residual_sd: median(blank_fits.iter().map(|f| f.residual_sd)),
+    let blank_read_sds: Vec<f64> = rates
+        .iter()
+        .enumerate()
+        .filter(|(index, _)| is_blank(*index))
+        .filter_map(|(_, rate)| rate.noise.map(|noise| noise.sd))
+        .collect();
+    let noise = PlateNoise::new(
+        rates.iter().filter_map(|rate| rate.noise).collect(),
+        &blank_read_sds,
         blank_slope_sd,
-    };
+    );
+    // `noisy` first, so that the background sees the controls' full flags.
+    for rate in &mut rates {
+        apply_noise_flag(rate, &noise);
+    }
 
-    // No-enzyme backgrounds: the unflagged controls' slopes.
-    let controls: Vec<(&WellSetup, f64, f64)> = wells_in_play
+    let controls: Vec<Control> = wells_in_play
         .iter()
         .zip(&rates)
-        .filter(|((_, setup, _), rate)| setup.role == Role::NoEnzyme && rate.flags.is_empty())
-        .filter_map(|((_, setup, _), rate)| rate.fit.map(|fit| (*setup, fit.slope, fit.slope_se)))
+        .filter(|((_, setup, _), _)| setup.role == Role::NoEnzyme)
+        .map(|((well, setup, _), rate)| Control {
+            well: *well,
+            setup,
+            slope: rate.fit.map(|fit| (fit.slope, fit.slope_se)),
+            flags: rate.flags.clone(),
+        })
         .collect();
 
-    let blank_note = if signal.n_blank_wells == 0 {
-        "no blank correction".to_string()
-    } else {
-        format!("blank: mean of {} blank wells at each read", signal.n_blank_wells)
-    };
+    let mut without_background = Vec::new();
     let mut wells = Vec::with_capacity(wells_in_play.len());
     for ((well, setup, _), rate) in wells_in_play.iter().zip(rates.iter_mut()) {
-        let mut correction = if setup.role == Role::Blank {
-            "none (blank)".to_string()
-        } else {
-            blank_note.clone()
-        };
-        let mut background = None;
-        let (mut value, mut se) = (rate.fit.map(|f| f.slope), rate.fit.map(|f| f.slope_se));
-        if setup.role == Role::Sample {
-            let matching: Vec<(f64, f64)> = controls
-                .iter()
-                .filter(|(control, _, _)| control_matches(control, setup))
-                .map(|c| (c.1, c.2))
-                .collect();
-            let slopes: Vec<f64> = matching.iter().map(|m| m.0).collect();
-            match summary(&slopes) {
-                None => correction.push_str("; no background (no matching no-enzyme wells)"),
-                Some(stats) => {
-                    let mean = stats.mean;
-                    // One control: its own slope's standard error stands for the background's.
-                    let sem = stats.sem().unwrap_or(matching[0].1);
-                    background = Some(mean);
-                    value = value.map(|v| v - mean);
-                    se = se.map(|s| (s * s + sem * sem).sqrt());
-                    correction.push_str(&format!(
-                        "; background {:.4e} {} from {} no-enzyme well{}",
-                        mean,
-                        rate_unit,
-                        matching.len(),
-                        if matching.len() == 1 { "" } else { "s" }
-                    ));
-                }
-            }
+        let blank_wells = (setup.role != Role::Blank).then_some(signal.n_blank_wells);
+        let background = (setup.role == Role::Sample).then(|| background_for(setup, &controls));
+        if let Some(Background::None(_)) = &background {
+            without_background.push(*well);
         }
-        let corrected = value.zip(se);
-        apply_plate_flags(rate, corrected, &noise, setup.role == Role::Sample);
-        let used = value.is_some() && (rate.flags.is_empty() || settings.keep_flagged);
+        let (bg_rate, bg_se) = background.as_ref().and_then(Background::rate).unzip();
+        let subtract = |(value, se): (f64, f64)| {
+            (
+                value - bg_rate.unwrap_or(0.0),
+                (se * se + bg_se.map_or(0.0, |s| s * s)).sqrt(),
+            )
+        };
+        let chord = rate.fit.map(|fit| subtract((fit.slope, fit.slope_se)));
+        let initial = match settings.initial_rate {
+            InitialRateEstimator::Tangent => rate.tangent.map(subtract),
+            InitialRateEstimator::Chord | InitialRateEstimator::Integrated => chord,
+        };
+        if setup.role == Role::Sample {
+            apply_weak_flag(rate, chord, &noise);
+        }
+        let excluded = rate.flags.iter().any(|flag| flag.excludes());
+        let used = initial.is_some() && (!excluded || settings.keep_flagged);
         wells.push(WellResult {
             well: *well,
             setup: (*setup).clone(),
             rate: rate.clone(),
-            rate_value: value,
-            rate_se: se,
-            background,
-            correction,
+            window_slope: chord.map(|(value, _)| value),
+            window_slope_se: chord.map(|(_, se)| se),
+            rate_value: initial.map(|(value, _)| value),
+            rate_se: initial.map(|(_, se)| se),
+            background: bg_rate,
+            correction: Correction {
+                blank_wells,
+                background,
+            },
             used,
         });
+    }
+    if !without_background.is_empty() && !controls.is_empty() {
+        let names: Vec<String> = without_background.iter().map(WellId::to_string).collect();
+        warnings.push(format!(
+            "{} sample well(s) have no no-enzyme background (no usable control serves them): {}",
+            names.len(),
+            names.join(", ")
+        ));
     }
     PlateAnalysis {
         wells,
         signal,
         noise,
+        estimator: settings.initial_rate,
         warnings,
     }
 }

@@ -7,8 +7,8 @@
 //! remaining readable points, the window is the longest run starting at the first of them that
 //! - holds at least `min_points` reads,
 //! - converts at most `max_conversion` of the well's substrate by its last read, estimated as
-//!   `slope * t_end / S0` (the rate times the time since the reaction started, as a fraction of the
-//!   starting substrate), and
+//!   `slope * (t_end + dead time) / S0` (the rate times the time since mixing, as a fraction of
+//!   the starting substrate), and
 //! - is straight: (1) the quadratic term of y = a + b t + c t^2 over the window is not
 //!   significant by a two-sided t test at level `alpha` (default 0.01), and (2) the slopes of the
 //!   window's first and second halves agree by a two-sided t test at the same level.
@@ -24,8 +24,25 @@
 //!   significantly upward.
 //! - `depleted`: even the shortest window converts more than `max_conversion`.
 //! - `saturated`: some read exceeds `max_absorbance` (the window uses only the reads before it).
-//! - `noisy` and `weak` need the whole plate (blank noise, blank slope scatter) and are set by
-//!   [`apply_plate_flags`].
+//! - `noisy` and `weak` need the whole plate (the plate's noise at each absorbance, the blank slope
+//!   scatter) and are set by [`apply_plate_flags`].
+//!
+//! # Which flags leave a well out
+//! [`Flag::excludes`]: `nonlinear`, `lag`, `unreadable`, `depleted`, `noisy` and `saturated` leave a
+//! well out of means and initial-rate fits (its rate is not a trustworthy initial rate); `weak`
+//! only informs: a rate indistinguishable from zero is still a measurement (fully inhibited wells,
+//! a slow variant at low [S]) and leaving it out would bias a fit upward.
+//!
+//! # The initial rate at mixing
+//! Besides the window's slope (a chord), the window's quadratic fit gives the tangent at mixing
+//! time, `b + 2 c t_mix` with `t_mix = -dead time` (the reads' clock starts after mixing), with its
+//! standard error from the covariance of (b, c).
+//!
+//! # The read noise
+//! Each well's read-to-read noise is estimated from third differences of consecutive, evenly
+//! spaced usable reads, `d = y[i+2] - 3 y[i+1] + 3 y[i] - y[i-1]` (variance 20 sigma^2 for
+//! independent noise, and exactly 0 for any quadratic trend, so the curvature of depletion does
+//! not count as noise), robustly: `sigma = 1.4826 MAD(d) / sqrt(20)` (common practice).
 //!
 //! References: initial-rate conditions and the 10% rule are common practice (see the project's
 //! DOMAIN notes); the t tests are standard regression tests (Draper and Smith 1998, ch. 2).
@@ -35,7 +52,7 @@ use std::fmt;
 use super::window_fit::{LineFit, WindowSums};
 pub use crate::config::RateSettings;
 use crate::core::format::format_seconds;
-use crate::core::stats::t_critical;
+use crate::core::stats::{median, t_critical};
 
 /// A reason not to trust a well's rate.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, serde::Serialize)]
@@ -57,7 +74,36 @@ pub enum Flag {
     Saturated,
 }
 
+/// Every flag, in order.
+pub const ALL_FLAGS: [Flag; 7] = [
+    Flag::Nonlinear,
+    Flag::Lag,
+    Flag::Unreadable,
+    Flag::Depleted,
+    Flag::Noisy,
+    Flag::Weak,
+    Flag::Saturated,
+];
+
 impl Flag {
+    /// Whether the flag leaves a well out of means and initial-rate fits (module docs).
+    pub fn excludes(self) -> bool {
+        !matches!(self, Flag::Weak)
+    }
+
+    /// Why the flag leaves a well out, or why it does not (the table in README and the report).
+    pub fn exclusion_reason(self) -> &'static str {
+        match self {
+            Flag::Nonlinear => "no straight window: the slope is no initial rate",
+            Flag::Lag => "the rate rises at the start: the enzyme is not yet at steady state",
+            Flag::Unreadable => "reads are missing: the window may not be what the well did",
+            Flag::Depleted => "even the shortest window converts too much substrate",
+            Flag::Noisy => "scatter far above the plate's noise at that absorbance",
+            Flag::Weak => "kept: a rate indistinguishable from zero is still a measurement",
+            Flag::Saturated => "reads beyond the photometric range",
+        }
+    }
+
     /// The word written in the outputs.
     pub fn word(self) -> &'static str {
         match self {
@@ -97,11 +143,25 @@ pub struct TraceInput<'a> {
     pub substrate_start: Option<f64>,
 }
 
+/// A well's read-to-read noise and where on the absorbance scale it was measured.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct ReadNoise {
+    /// Noise SD of one read, in the units of the well's values.
+    pub sd: f64,
+    /// Median raw absorbance of the reads it came from, AU.
+    pub absorbance: f64,
+}
+
 /// A well's rate and the evidence for it.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct WellRate {
     /// The window's straight-line fit; None when too few readable points exist.
     pub fit: Option<LineFit>,
+    /// The tangent at mixing time of the window's quadratic and its standard error (at least 5
+    /// reads in the window).
+    pub tangent: Option<(f64, f64)>,
+    /// The well's read noise (at least 6 usable reads).
+    pub noise: Option<ReadNoise>,
     /// Window start and end (s).
     pub window_s: Option<(f64, f64)>,
     /// Fraction of substrate converted by the window's end, when S0 and units allow.
@@ -175,6 +235,8 @@ fn is_straight(sums: &WindowSums, last: usize, critical: &CriticalValues) -> boo
 pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &CriticalValues) -> WellRate {
     let mut result = WellRate {
         fit: None,
+        tangent: None,
+        noise: None,
         window_s: None,
         conversion: None,
         flags: Vec::new(),
@@ -220,6 +282,7 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
         ));
     }
     let (mut times, mut values) = (Vec::with_capacity(end), Vec::with_capacity(end));
+    let mut absorbances = Vec::with_capacity(end);
     for i in 0..end {
         let t = input.times_s[i];
         let in_fixed = settings
@@ -228,11 +291,13 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
         if t < settings.skip_s || !in_fixed {
             continue;
         }
-        if let Some(value) = input.values[i] {
+        if let (Some(value), Some(raw)) = (input.values[i], input.raw_absorbance[i]) {
             times.push(t);
             values.push(value);
+            absorbances.push(raw);
         }
     }
+    result.noise = read_noise(&times, &values, &absorbances);
     let min_points = settings.min_points.max(3);
     if times.len() < min_points {
         // Too few reads: when the absorbance limit is not to blame (already flagged), the data is.
@@ -257,7 +322,7 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
         input
             .substrate_start
             .filter(|&s0| s0 > 0.0)
-            .map(|s0| fit.slope * times[last] / s0)
+            .map(|s0| fit.slope * (times[last] + settings.dead_time_s) / s0)
     };
 
     let chosen = if settings.fixed_window_s.is_some() {
@@ -310,54 +375,137 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
         result.fit = sums.line(0, last);
         result.window_s = Some((times[0], times[last]));
         result.conversion = result.fit.as_ref().and_then(|fit| conversion_at(last, fit));
+        // A tangent needs a quadratic with residual freedom to spare: at least 5 reads.
+        if last >= 4 {
+            result.tangent = sums
+                .quadratic(0, last)
+                .map(|quadratic| quadratic.slope_at(-settings.dead_time_s));
+        }
     }
     result
 }
 
-/// Plate-level reference values for the `noisy` and `weak` flags.
-#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+/// Consecutive reads count as evenly spaced when their steps differ by less than this fraction.
+const EVEN_SPACING_TOLERANCE: f64 = 0.01;
+
+/// The well's read noise from third differences (module docs); `None` below 4 differences.
+pub fn read_noise(times: &[f64], values: &[f64], absorbances: &[f64]) -> Option<ReadNoise> {
+    let mut differences = Vec::new();
+    for i in 0..times.len().saturating_sub(3) {
+        let steps = [
+            times[i + 1] - times[i],
+            times[i + 2] - times[i + 1],
+            times[i + 3] - times[i + 2],
+        ];
+        let even = steps
+            .iter()
+            .all(|step| (step - steps[0]).abs() <= EVEN_SPACING_TOLERANCE * steps[0].abs());
+        if even {
+            differences.push(values[i + 3] - 3.0 * values[i + 2] + 3.0 * values[i + 1] - values[i]);
+        }
+    }
+    if differences.len() < 4 {
+        return None;
+    }
+    let centre = median(differences.iter().copied())?;
+    let mad = median(differences.iter().map(|d| (d - centre).abs()))?;
+    Some(ReadNoise {
+        sd: MAD_TO_SD * mad / 20f64.sqrt(),
+        absorbance: median(absorbances.iter().copied())?,
+    })
+}
+
+/// MAD to standard deviation at the normal distribution.
+const MAD_TO_SD: f64 = 1.4826;
+
+/// Plate-level reference values for the `noisy` and `weak` flags: the read noise of every well
+/// that has one, by absorbance, and the scatter of the blank wells' slopes.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct PlateNoise {
-    /// Median residual SD of the blank wells' straight lines (signal units of `values`).
-    pub blank_residual_sd: Option<f64>,
+    /// Every well's read noise, by ascending absorbance.
+    pub wells: Vec<ReadNoise>,
+    /// Median read noise of the blank wells (signal units of `values`).
+    pub blank_read_sd: Option<f64>,
     /// SD of the blank wells' slopes (needs at least 3 blanks).
     pub blank_slope_sd: Option<f64>,
 }
 
-/// How far above the blank scatter a well's residual SD may go before it is `noisy`.
+/// How far above the plate's noise at the same absorbance a well's read noise may go before it is
+/// `noisy`.
 pub const NOISY_FACTOR: f64 = 5.0;
 /// How many standard errors (or blank slope SDs) a rate needs to be distinguishable from zero.
 pub const WEAK_FACTOR: f64 = 3.0;
 
-/// Sets `noisy` (residual SD above [`NOISY_FACTOR`] x the blank wells' median residual SD) and,
-/// for rates that should be non-zero, `weak` (|rate| below [`WEAK_FACTOR`] x its standard error
-/// or x the blank slope SD).
-pub fn apply_plate_flags(
-    rate: &mut WellRate,
-    corrected_slope: Option<(f64, f64)>,
-    noise: &PlateNoise,
-    check_weak: bool,
-) {
-    let Some(fit) = rate.fit else { return };
-    if let Some(blank_sd) = noise.blank_residual_sd.filter(|sd| *sd > 0.0) {
-        if fit.residual_sd > NOISY_FACTOR * blank_sd {
-            rate.flag(Flag::Noisy);
-            rate.notes.push(format!(
-                "scatter {:.3e} is {:.0}x the blanks' {:.3e}",
-                fit.residual_sd,
-                fit.residual_sd / blank_sd,
-                blank_sd
-            ));
+impl PlateNoise {
+    /// The plate's noise model from the wells' read noise, the blanks' and the blanks' slopes.
+    pub fn new(mut wells: Vec<ReadNoise>, blank_read_sds: &[f64], blank_slope_sd: Option<f64>) -> PlateNoise {
+        wells.sort_by(|a, b| a.absorbance.total_cmp(&b.absorbance));
+        PlateNoise {
+            wells,
+            blank_read_sd: median(blank_read_sds.iter().copied()),
+            blank_slope_sd,
         }
     }
-    if check_weak {
-        let (slope, se) = corrected_slope.unwrap_or((fit.slope, fit.slope_se));
-        let by_se = se.is_finite() && slope.abs() < WEAK_FACTOR * se;
-        let by_blanks = noise
-            .blank_slope_sd
-            .is_some_and(|sd| slope.abs() < WEAK_FACTOR * sd);
-        if by_se || by_blanks {
-            rate.flag(Flag::Weak);
+
+    /// The read noise expected at `absorbance`: the median read noise of the wells nearest in
+    /// absorbance (`clamp(n / 6, 8, 24)` of them), so that the noise model follows the photometric
+    /// noise's growth with absorbance without assuming its form. `None` with fewer than 3 wells.
+    pub fn expected_at(&self, absorbance: f64) -> Option<f64> {
+        let n = self.wells.len();
+        if n < 3 {
+            return None;
         }
+        let k = (n / 6).clamp(8, 24).min(n);
+        // The k nearest by absorbance form a contiguous run of the sorted list.
+        let position = self.wells.partition_point(|w| w.absorbance < absorbance);
+        let (mut low, mut high) = (position, position);
+        while high - low < k {
+            let take_low = match (low.checked_sub(1), (high < n).then_some(high)) {
+                (Some(below), Some(above)) => {
+                    absorbance - self.wells[below].absorbance <= self.wells[above].absorbance - absorbance
+                }
+                (Some(_), None) => true,
+                (None, _) => false,
+            };
+            if take_low {
+                low -= 1;
+            } else {
+                high += 1;
+            }
+        }
+        median(self.wells[low..high].iter().map(|w| w.sd))
+    }
+}
+
+/// Sets `noisy`: read noise above [`NOISY_FACTOR`] x the plate's at the same absorbance.
+pub fn apply_noise_flag(rate: &mut WellRate, noise: &PlateNoise) {
+    if let Some(own) = rate.noise {
+        if let Some(expected) = noise.expected_at(own.absorbance).filter(|sd| *sd > 0.0) {
+            if own.sd > NOISY_FACTOR * expected {
+                rate.flag(Flag::Noisy);
+                rate.notes.push(format!(
+                    "read noise {:.3e} is {:.0}x the plate's {:.3e} at {:.2} AU",
+                    own.sd,
+                    own.sd / expected,
+                    expected,
+                    own.absorbance
+                ));
+            }
+        }
+    }
+}
+
+/// Sets `weak` on a rate that should be non-zero: |rate| below [`WEAK_FACTOR`] x its standard
+/// error or x the blank slope SD. `corrected_slope` is the slope after background subtraction.
+pub fn apply_weak_flag(rate: &mut WellRate, corrected_slope: Option<(f64, f64)>, noise: &PlateNoise) {
+    let Some(fit) = rate.fit else { return };
+    let (slope, se) = corrected_slope.unwrap_or((fit.slope, fit.slope_se));
+    let by_se = se.is_finite() && slope.abs() < WEAK_FACTOR * se;
+    let by_blanks = noise
+        .blank_slope_sd
+        .is_some_and(|sd| slope.abs() < WEAK_FACTOR * sd);
+    if by_se || by_blanks {
+        rate.flag(Flag::Weak);
     }
 }
 
@@ -527,12 +675,61 @@ mod tests {
             .map(|(i, t)| 1e-5 * t + wiggle(i, 0.05))
             .collect();
         let mut rate = rate_of(&times, &values, None, &RateSettings::default());
-        let noise = PlateNoise {
-            blank_residual_sd: Some(0.001),
-            blank_slope_sd: None,
-        };
-        apply_plate_flags(&mut rate, None, &noise, true);
-        assert!(rate.flags.contains(&Flag::Noisy));
+        // The plate's other wells read with noise 0.001 at the same absorbance (0.1 AU).
+        let quiet: Vec<ReadNoise> = (0..20)
+            .map(|_| ReadNoise {
+                sd: 0.001,
+                absorbance: 0.1,
+            })
+            .collect();
+        let noise = PlateNoise::new(quiet, &[0.001], None);
+        apply_noise_flag(&mut rate, &noise);
+        apply_weak_flag(&mut rate, None, &noise);
+        assert!(rate.flags.contains(&Flag::Noisy), "{:?}", rate);
         assert!(rate.flags.contains(&Flag::Weak));
+    }
+
+    /// Curvature is not noise: a depleting curve (a tenth of what is left converted per read, as
+    /// at S0 well below Km) reads as nearly noise-free, and the same curve with Gaussian noise of
+    /// SD 0.002 reads about 0.002; the straight-line residual SD the flag used before is several
+    /// times the noise on the same curve.
+    #[test]
+    fn read_noise_ignores_curvature_and_measures_scatter() {
+        use rand::SeedableRng;
+        use rand_distr::{Distribution, Normal};
+        let times = reads(40, 20.0);
+        let depleting: Vec<f64> = times.iter().map(|t| 0.3 * (1.0 - (-t / 200.0).exp())).collect();
+        let absorbance = vec![0.5; times.len()];
+        let clean = read_noise(&times, &depleting, &absorbance).unwrap();
+        // Third differences of 0.3 (1 - exp(-t/200)) at step 20 s are at most 0.3 (0.1)^3.
+        assert!(clean.sd < 1e-4, "{clean:?}");
+        let mut generator = rand_chacha::ChaCha8Rng::seed_from_u64(5);
+        let normal = Normal::new(0.0, 0.002).unwrap();
+        let noisy: Vec<f64> = depleting.iter().map(|v| v + normal.sample(&mut generator)).collect();
+        let estimated = read_noise(&times, &noisy, &absorbance).unwrap().sd;
+        assert!(estimated > 0.0014 && estimated < 0.0028, "{estimated}");
+        let line = WindowSums::new(&times, &noisy).line(0, times.len() - 1).unwrap();
+        assert!(line.residual_sd > 3.0 * estimated, "{} vs {estimated}", line.residual_sd);
+    }
+
+    /// The noise expected at an absorbance follows the wells near it, so a well at 2 AU is judged
+    /// against the (larger) photometric noise there, not against the blanks.
+    #[test]
+    fn the_noise_model_follows_absorbance() {
+        let mut wells = Vec::new();
+        for i in 0..30 {
+            wells.push(ReadNoise {
+                sd: 0.001,
+                absorbance: 0.1 + 0.001 * f64::from(i),
+            });
+            wells.push(ReadNoise {
+                sd: 0.008,
+                absorbance: 2.0 + 0.001 * f64::from(i),
+            });
+        }
+        let model = PlateNoise::new(wells, &[0.001], None);
+        assert_eq!(model.expected_at(0.12), Some(0.001));
+        assert_eq!(model.expected_at(2.01), Some(0.008));
+        assert!(PlateNoise::new(Vec::new(), &[], None).expected_at(1.0).is_none());
     }
 }

@@ -46,6 +46,31 @@ impl CurvatureTest {
     }
 }
 
+/// A quadratic y = a + b t + c t^2 over a window, in the caller's time, with the covariance of
+/// (b, c) for the slope at any time: `dy/dt (t) = b + 2 c t`,
+/// `var = var(b) + 4 t cov(b, c) + 4 t^2 var(c)`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct QuadraticFit {
+    /// Coefficient of t.
+    pub linear: f64,
+    /// Coefficient of t^2.
+    pub quadratic: f64,
+    /// Covariance matrix of (linear, quadratic): `[var b, cov bc, var c]`.
+    pub covariance: [f64; 3],
+    /// Residual degrees of freedom, n - 3.
+    pub degrees_of_freedom: usize,
+}
+
+impl QuadraticFit {
+    /// The slope at time `t` and its standard error.
+    pub fn slope_at(&self, t: f64) -> (f64, f64) {
+        let [var_b, cov_bc, var_c] = self.covariance;
+        let slope = self.linear + 2.0 * self.quadratic * t;
+        let variance = var_b + 4.0 * t * cov_bc + 4.0 * t * t * var_c;
+        (slope, variance.max(0.0).sqrt())
+    }
+}
+
 /// Running sums of a series, for O(1) least-squares fits over any prefix window `[0, k]`
 /// of points starting at index `start`.
 #[derive(Debug, Clone)]
@@ -152,6 +177,47 @@ impl WindowSums {
         })
     }
 
+    /// The quadratic fit over points `first..=last` (at least 4 points), in the caller's time.
+    pub fn quadratic(&self, first: usize, last: usize) -> Option<QuadraticFit> {
+        let s = self.window(first, last);
+        let n = s[N];
+        if n < 4.0 {
+            return None;
+        }
+        let gram = nalgebra::Matrix3::new(
+            n, s[U], s[U2], //
+            s[U], s[U2], s[U3], //
+            s[U2], s[U3], s[U4],
+        );
+        let moments = nalgebra::Vector3::new(s[Y], s[UY], s[U2Y]);
+        let inverse = gram.try_inverse()?;
+        let beta = inverse * moments;
+        let rss = (s[YY] - beta.dot(&moments)).max(0.0);
+        let variance = rss / (n - 3.0);
+        // In scaled time u = (t - t0)/h: y = a + b_u u + c_u u^2. In the caller's time t:
+        // c = c_u / h^2 and b = b_u / h - 2 c t0; cov follows from the same linear map.
+        let h = self.t_scale;
+        let t0 = self.t_origin;
+        let (var_bu, cov_bcu, var_cu) = (
+            variance * inverse[(1, 1)],
+            variance * inverse[(1, 2)],
+            variance * inverse[(2, 2)],
+        );
+        let c = beta[2] / (h * h);
+        let b = beta[1] / h - 2.0 * c * t0;
+        // b = b_u/h - 2 t0 c_u/h^2, c = c_u/h^2.
+        let (g_b, g_c) = (1.0 / h, -2.0 * t0 / (h * h));
+        let var_b = g_b * g_b * var_bu + 2.0 * g_b * g_c * cov_bcu + g_c * g_c * var_cu;
+        let cov_bc = (g_b * cov_bcu + g_c * var_cu) / (h * h);
+        let var_c = var_cu / (h * h * h * h);
+        Some(QuadraticFit {
+            linear: b,
+            quadratic: c,
+            covariance: [var_b, cov_bc, var_c],
+            degrees_of_freedom: n as usize - 3,
+        })
+    }
+
     /// The quadratic term's t test over points `first..=last` (at least 4 points).
     pub fn curvature(&self, first: usize, last: usize) -> Option<CurvatureTest> {
         let s = self.window(first, last);
@@ -249,5 +315,46 @@ mod tests {
         let up = WindowSums::new(&times, &rising).curvature(0, 19).unwrap();
         assert!(down.curvature < 0.0 && down.t_statistic < -10.0);
         assert!(up.curvature > 0.0 && up.t_statistic > 10.0);
+    }
+
+    #[test]
+    fn quadratic_recovers_an_exact_parabola_and_its_tangent() {
+        // y = 2 + 0.5 t - 0.001 t^2 at t = 100..190: the slope at t = -30 is 0.5 + 0.06 = 0.56.
+        let times: Vec<f64> = (0..10).map(|i| 100.0 + 10.0 * f64::from(i)).collect();
+        let values: Vec<f64> = times.iter().map(|t| 2.0 + 0.5 * t - 0.001 * t * t).collect();
+        let fit = WindowSums::new(&times, &values).quadratic(0, 9).unwrap();
+        assert_relative_eq!(fit.linear, 0.5, max_relative = 1e-9);
+        assert_relative_eq!(fit.quadratic, -0.001, max_relative = 1e-9);
+        let (slope, se) = fit.slope_at(-30.0);
+        assert_relative_eq!(slope, 0.56, max_relative = 1e-9);
+        // Exact data: only rounding remains (the RSS of the normal equations cancels to ~1e-12).
+        assert!(se < 1e-5 * slope, "{se}");
+    }
+
+    /// The slope's standard error at any time, against a direct least-squares fit in the caller's
+    /// time by nalgebra (a general-purpose reference).
+    #[test]
+    fn quadratic_slope_standard_error_matches_a_direct_fit() {
+        let times: Vec<f64> = (0..12).map(|i| 30.0 + 15.0 * f64::from(i)).collect();
+        let values: Vec<f64> = times
+            .iter()
+            .enumerate()
+            .map(|(i, t)| 0.1 + 0.002 * t - 1e-6 * t * t + 1e-3 * ((i as f64 * 2.3).sin()))
+            .collect();
+        let fit = WindowSums::new(&times, &values).quadratic(0, 11).unwrap();
+        let x = nalgebra::DMatrix::from_fn(12, 3, |r, c| times[r].powi(c as i32));
+        let y = nalgebra::DVector::from_vec(values.clone());
+        let xtx_inv = (x.transpose() * &x).try_inverse().unwrap();
+        let beta = &xtx_inv * x.transpose() * &y;
+        let residuals = &y - &x * &beta;
+        let s2 = residuals.dot(&residuals) / 9.0;
+        for t in [-60.0, 0.0, 100.0] {
+            let g = nalgebra::DVector::from_vec(vec![0.0, 1.0, 2.0 * t]);
+            let expected_se = (s2 * (g.transpose() * &xtx_inv * &g)[(0, 0)]).sqrt();
+            let expected_slope = beta[1] + 2.0 * beta[2] * t;
+            let (slope, se) = fit.slope_at(t);
+            assert_relative_eq!(slope, expected_slope, max_relative = 1e-7);
+            assert_relative_eq!(se, expected_se, max_relative = 1e-6);
+        }
     }
 }

@@ -57,6 +57,10 @@ pub fn parameter_json(parameter: &ParameterReport) -> Value {
     if let Some(bootstrap) = parameter.ci95_bootstrap {
         object.insert("ci95_bootstrap".into(), json!(bootstrap));
     }
+    if let Some((se, ci95)) = parameter.asymptotic {
+        object.insert("se_asymptotic".into(), json!(se));
+        object.insert("ci95_asymptotic".into(), json!(ci95));
+    }
     Value::Object(object)
 }
 
@@ -100,6 +104,7 @@ pub fn group_fit_json(fit: &GroupFit) -> Result<Value, RenderError> {
         "models_tried": to_json("fit.json", &fit.models_tried)?,
         "f_tests": to_json("fit.json", &fit.f_tests)?,
         "model_choice": fit.model_choice,
+        "initial_rate_estimator": fit.estimator.word(),
         "weighting": fit.weighting.name(),
         "robust_loss": fit.robust_loss.name(),
         "bootstrap": fit.bootstrap.map(|b| json!({

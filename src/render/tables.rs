@@ -8,7 +8,7 @@ use crate::rates::conditions::Condition;
 pub use crate::rates::conditions::TableError;
 use crate::rates::window_fit::LineFit;
 use crate::rates::PlateAnalysis;
-use crate::render::words::flag_count_words;
+use crate::render::words::{correction_words, flag_count_words};
 
 /// The quantity columns the layout has, with their headers: (header, which quantity).
 fn quantity_headers(layout: &Layout) -> Vec<(String, Quantity)> {
@@ -117,6 +117,10 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
             wells.iter().map(|w| w.rate_se).collect::<Vec<_>>(),
         ),
         Column::new(
+            format!("window_slope [{unit}]").into(),
+            wells.iter().map(|w| w.window_slope).collect::<Vec<_>>(),
+        ),
+        Column::new(
             format!("background [{unit}]").into(),
             wells.iter().map(|w| w.background).collect::<Vec<_>>(),
         ),
@@ -157,7 +161,10 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
         Column::new("used".into(), wells.iter().map(|w| w.used).collect::<Vec<_>>()),
         Column::new(
             "correction".into(),
-            wells.iter().map(|w| w.correction.clone()).collect::<Vec<_>>(),
+            wells
+                .iter()
+                .map(|w| correction_words(&w.correction, analysis.signal.blank_model, &unit))
+                .collect::<Vec<_>>(),
         ),
         Column::new(
             "notes".into(),

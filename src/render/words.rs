@@ -7,7 +7,9 @@ use crate::groups::{GroupKey, GroupValue, LeftOutPlace, LeftOutReason};
 use crate::progress::analysis::ProgressLeftOutReason;
 use crate::progress::choice::{ModelTried, ModelVerdict};
 use crate::progress::trust::{KmPair, RunReason, Suspicion, Trust, TrustReason};
-use crate::rates::{flag_words, Flag};
+use crate::rates::background::{Background, NoBackground};
+use crate::rates::{flag_words, Correction, Flag};
+use crate::signal::BlankModel;
 
 /// A group key's value as JSON writes it (numbers as serde_json prints an f64).
 pub fn group_value_json(value: &GroupValue) -> serde_json::Value {
@@ -227,6 +229,53 @@ pub fn flag_count_words(counts: &std::collections::BTreeMap<Flag, usize>) -> Str
         .map(|(word, count)| format!("{word} x{count}"))
         .collect::<Vec<_>>()
         .join("; ")
+}
+
+/// The corrections a well got, as `wells.csv`'s `correction` column writes them.
+pub fn correction_words(correction: &Correction, blank_model: BlankModel, rate_unit: &str) -> String {
+    let mut text = match (correction.blank_wells, blank_model) {
+        (None, _) => "none (blank)".to_string(),
+        (Some(0), _) | (_, BlankModel::None) => "no blank correction".to_string(),
+        (Some(n), BlankModel::PerRead) => format!("blank: mean of {n} blank wells at each read"),
+        (Some(n), BlankModel::Smooth { degree }) => format!(
+            "blank: {} in time through the mean of {n} blank wells",
+            if degree == 1 { "straight line" } else { "quadratic" }
+        ),
+    };
+    match &correction.background {
+        None => {}
+        Some(Background::Matched { rate, controls, .. }) => text.push_str(&format!(
+            "; background {rate:.4e} {rate_unit} from {controls} no-enzyme well{}",
+            if *controls == 1 { "" } else { "s" }
+        )),
+        Some(Background::Modelled {
+            rate,
+            controls,
+            levels,
+            with_intercept,
+            ..
+        }) => text.push_str(&format!(
+            "; background {rate:.4e} {rate_unit} from a first-order fit in [S]{} to {controls} no-enzyme wells at {levels} [S] levels",
+            if *with_intercept { " with an intercept" } else { "" }
+        )),
+        Some(Background::None(NoBackground::NoControls)) => {
+            text.push_str("; no background (no matching no-enzyme wells)")
+        }
+        Some(Background::None(NoBackground::NoControlAtLevel)) => {
+            text.push_str("; no background (no matching no-enzyme well at this [S], and the others give no first-order model)")
+        }
+        Some(Background::None(NoBackground::ControlsFlagged(wells))) => {
+            let named: Vec<String> = wells
+                .iter()
+                .map(|(well, flags)| format!("{well} ({})", flag_words(flags).replace(';', ", ")))
+                .collect();
+            text.push_str(&format!(
+                "; no background (the matching no-enzyme wells are flagged: {})",
+                named.join(", ")
+            ));
+        }
+    }
+    text
 }
 
 #[cfg(test)]

@@ -3,15 +3,48 @@
 //! read falls, so its signal is negated to give product formed) and the Beer-Lambert conversion
 //! `c = A / (epsilon l)` (c in M, epsilon in M^-1 cm^-1, l in cm) into the layout's substrate unit.
 //! The rates, the progress-curve fits and the plots all read the signal through this one value.
+//!
+//! The blank subtracted at each read is a smooth curve through the blank wells' mean (a straight
+//! line in time, or a quadratic when its t^2 term is significant at the 1% level), not the mean
+//! itself: the mean's own read-to-read noise would otherwise be subtracted from every well at once,
+//! an error all wells share that no fit could average away. Only when the blank wells move
+//! together from read to read (a lamp flicker or a plate-wide shift: the variance of their mean
+//! around the smooth curve exceeds what their independent scatter allows, F test at the 1% level)
+//! is the mean at each read subtracted instead, since then it removes what every well shares.
+//! With one blank well the test cannot be made and the smooth curve is used.
+//!
+//! A read at which no blank is readable is never corrected with 0: its blank comes from the smooth
+//! curve, or for a per-read blank is interpolated linearly between the nearest reads that have one,
+//! and the plate's warnings name those reads. A blank well with no readable read at all does not
+//! count as a blank, and the warnings say so.
 
 use crate::config::{AnalysisSettings, Readout};
 use crate::core::units::ConcentrationUnit;
 use crate::import::KineticData;
 use crate::layout::{Layout, Role};
 
+/// How the blank at each read was made.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum BlankModel {
+    /// No blank wells: nothing subtracted.
+    None,
+    /// A straight line (degree 1) or quadratic (degree 2) in time through the blank wells' mean.
+    Smooth {
+        /// Degree of the polynomial.
+        degree: usize,
+    },
+    /// The blank wells' mean at each read (they move together from read to read).
+    PerRead,
+}
+
+/// Level of the tests that choose the blank model.
+pub const BLANK_MODEL_ALPHA: f64 = 0.01;
+
 /// How a plate's raw readings become product formed.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PlateSignal {
+    /// How the blank was made.
+    pub blank_model: BlankModel,
     /// The blank at each read, AU: the mean of the readable blank wells (0 where none is readable).
     pub blank_per_read: Vec<f64>,
     /// How many blank wells the layout has in the data.
@@ -26,11 +59,108 @@ pub struct PlateSignal {
     pub warnings: Vec<String>,
 }
 
+/// The smooth blank (module docs): the degree and the curve at every read, or `None` when the blank
+/// wells move together from read to read (or there are too few reads for a smooth curve).
+fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&[Option<f64>]]) -> Option<(usize, Vec<f64>)> {
+    let points: Vec<(f64, f64)> = times
+        .iter()
+        .zip(measured)
+        .filter_map(|(t, m)| m.map(|m| (*t, m)))
+        .collect();
+    let n = points.len();
+    if traces.is_empty() || n < 6 {
+        return None;
+    }
+    let polynomial_fit = |degree: usize| -> Option<(nalgebra::DVector<f64>, f64, f64)> {
+        let t_scale = points.iter().map(|(t, _)| t.abs()).fold(0.0, f64::max).max(1.0);
+        let x = nalgebra::DMatrix::from_fn(n, degree + 1, |row, column| (points[row].0 / t_scale).powi(column as i32));
+        let y = nalgebra::DVector::from_iterator(n, points.iter().map(|(_, m)| *m));
+        let xtx = x.transpose() * &x;
+        let inverse = xtx.try_inverse()?;
+        let beta = &inverse * x.transpose() * &y;
+        let residuals = &y - &x * &beta;
+        let rss = residuals.dot(&residuals);
+        let variance = rss / (n - degree - 1) as f64;
+        let last = beta[degree] / inverse[(degree, degree)].max(0.0).sqrt().max(f64::MIN_POSITIVE) / variance.sqrt().max(f64::MIN_POSITIVE);
+        Some((beta, rss, last))
+    };
+    let (line, line_rss, _) = polynomial_fit(1)?;
+    let (quadratic, quadratic_rss, quadratic_t) = polynomial_fit(2)?;
+    let use_quadratic = quadratic_t.abs() > crate::core::stats::t_critical(BLANK_MODEL_ALPHA, n - 3);
+    let (degree, beta, rss) = if use_quadratic {
+        (2, quadratic, quadratic_rss)
+    } else {
+        (1, line, line_rss)
+    };
+    // Do the blank wells move together? The mean's variance around the curve against the wells'
+    // own scatter around their mean, divided by the number of wells (one well cannot tell).
+    if traces.len() >= 2 {
+        let mut within = 0.0;
+        let mut within_dof = 0usize;
+        for (read, mean) in measured.iter().enumerate() {
+            let Some(mean) = mean else { continue };
+            let values: Vec<f64> = traces.iter().filter_map(|trace| trace[read]).collect();
+            if values.len() >= 2 {
+                within += values.iter().map(|v| (v - mean).powi(2)).sum::<f64>();
+                within_dof += values.len() - 1;
+            }
+        }
+        if within_dof > 0 && within > 0.0 {
+            let per_well_variance = within / within_dof as f64;
+            let wells_per_read = (within_dof as f64 / n as f64) + 1.0;
+            let expected = per_well_variance / wells_per_read;
+            let observed = rss / (n - degree - 1) as f64;
+            let f = observed / expected;
+            let shared = crate::core::stats::f_quantile(1.0 - BLANK_MODEL_ALPHA, (n - degree - 1) as f64, within_dof as f64)
+                .is_ok_and(|critical| f > critical);
+            if shared {
+                return None;
+            }
+        }
+    }
+    let t_scale = points.iter().map(|(t, _)| t.abs()).fold(0.0, f64::max).max(1.0);
+    let curve = times
+        .iter()
+        .map(|t| (0..=degree).map(|k| beta[k] * (t / t_scale).powi(k as i32)).sum())
+        .collect();
+    Some((degree, curve))
+}
+
+/// Fills the reads without a value by linear interpolation in time between the nearest reads
+/// with one (the nearest value at either end); returns the filled series and the filled reads.
+fn fill_gaps(times: &[f64], values: &[Option<f64>]) -> (Vec<f64>, Vec<usize>) {
+    let known: Vec<(f64, f64)> = times
+        .iter()
+        .zip(values)
+        .filter_map(|(t, v)| v.map(|v| (*t, v)))
+        .collect();
+    let mut gaps = Vec::new();
+    let filled = times
+        .iter()
+        .zip(values)
+        .enumerate()
+        .map(|(read, (&t, value))| {
+            if let Some(v) = value {
+                return *v;
+            }
+            gaps.push(read);
+            let after = known.partition_point(|(time, _)| *time < t);
+            match (after.checked_sub(1).map(|i| known[i]), known.get(after)) {
+                (Some((t0, v0)), Some(&(t1, v1))) => v0 + (v1 - v0) * (t - t0) / (t1 - t0),
+                (Some((_, v0)), None) => v0,
+                (None, Some(&(_, v1))) => v1,
+                (None, None) => 0.0,
+            }
+        })
+        .collect();
+    (filled, gaps)
+}
+
 impl PlateSignal {
     /// Works out the plate's blank, sign and conversion from the data, the layout and the settings.
     pub fn new(data: &KineticData, layout: &Layout, settings: &AnalysisSettings) -> PlateSignal {
         let mut warnings = Vec::new();
-        let blank_wells: Vec<&[Option<f64>]> = data
+        let all_blanks: Vec<&crate::import::WellTrace> = data
             .wells
             .iter()
             .filter(|trace| {
@@ -39,14 +169,66 @@ impl PlateSignal {
                     .get(&trace.well)
                     .is_some_and(|setup| setup.role == Role::Blank)
             })
-            .map(|trace| trace.values.as_slice())
             .collect();
-        let blank_per_read = (0..data.times_s.len())
+        let (blank_wells, unreadable): (Vec<_>, Vec<_>) = all_blanks
+            .into_iter()
+            .partition(|trace| trace.values.iter().any(Option::is_some));
+        if !unreadable.is_empty() {
+            let names: Vec<String> = unreadable.iter().map(|t| t.well.to_string()).collect();
+            warnings.push(format!(
+                "blank well(s) {} hold no readable read and are not used as blanks",
+                names.join(", ")
+            ));
+        }
+        let measured: Vec<Option<f64>> = (0..data.times_s.len())
             .map(|read| {
-                let readable: Vec<f64> = blank_wells.iter().filter_map(|trace| trace[read]).collect();
-                crate::core::stats::mean(&readable).unwrap_or(0.0)
+                let readable: Vec<f64> = blank_wells
+                    .iter()
+                    .filter_map(|trace| trace.values[read])
+                    .collect();
+                crate::core::stats::mean(&readable)
             })
             .collect();
+        let traces: Vec<&[Option<f64>]> = blank_wells.iter().map(|t| t.values.as_slice()).collect();
+        let smooth = smooth_blank(&data.times_s, &measured, &traces);
+        let blank_model = match (&smooth, blank_wells.is_empty()) {
+            (_, true) => BlankModel::None,
+            (Some((degree, _)), false) => BlankModel::Smooth { degree: *degree },
+            (None, false) => BlankModel::PerRead,
+        };
+        let blank_per_read = if let Some((_, curve)) = smooth {
+            let gaps: Vec<usize> = measured.iter().enumerate().filter(|(_, m)| m.is_none()).map(|(i, _)| i).collect();
+            if !gaps.is_empty() {
+                warnings.push(format!(
+                    "no blank well is readable at {} read(s): the blank there comes from the smooth blank curve",
+                    gaps.len()
+                ));
+            }
+            curve
+        } else if blank_wells.is_empty() {
+            vec![0.0; data.times_s.len()]
+        } else {
+            let (filled, gaps) = fill_gaps(&data.times_s, &measured);
+            if !gaps.is_empty() {
+                let named: Vec<String> = gaps
+                    .iter()
+                    .take(8)
+                    .map(|&read| {
+                        format!(
+                            "{} (t = {} s)",
+                            read + 1,
+                            crate::core::format::format_seconds(data.times_s[read])
+                        )
+                    })
+                    .collect();
+                warnings.push(format!(
+                    "no blank well is readable at read(s) {}{}: the blank there is interpolated from the neighbouring reads",
+                    named.join(", "),
+                    if gaps.len() > 8 { format!(" and {} more", gaps.len() - 8) } else { String::new() }
+                ));
+            }
+            filled
+        };
         if blank_wells.is_empty() {
             warnings.push("no blank wells: absorbance is not blank-corrected".to_string());
         }
@@ -67,6 +249,7 @@ impl PlateSignal {
             }
         };
         PlateSignal {
+            blank_model,
             blank_per_read,
             n_blank_wells: blank_wells.len(),
             sign: match settings.readout {
@@ -143,5 +326,53 @@ mod tests {
         assert_eq!(formed[1], None);
         assert_eq!(signal.rate_unit(), "uM/s");
         assert_eq!(signal.value_label(), "product formed [uM]");
+    }
+
+    /// Issue class: every blank unreadable at one read must not blank-correct that read with 0.
+    #[test]
+    fn a_read_with_no_readable_blank_is_interpolated_not_zeroed() {
+        let data = "Time [s],A1,A2,B1\n0,0.10,0.10,1.0\n10,OVER,OVER,1.1\n20,0.12,0.12,1.2\n";
+        let layout = "well,role,substrate [uM]\nA1,blank,\nA2,blank,\nB1,sample,10\n";
+        let data = import_cells(
+            &read_text_cells(data.as_bytes(), "d.csv").unwrap(),
+            &ImportOptions::default(),
+        )
+        .unwrap();
+        let layout = parse_layout(&read_text_cells(layout.as_bytes(), "l.csv").unwrap(), data.plate).unwrap();
+        let signal = PlateSignal::new(&data, &layout, &AnalysisSettings::default());
+        assert!(
+            (signal.blank_per_read[1] - 0.11).abs() < 1e-12,
+            "{:?}",
+            signal.blank_per_read
+        );
+        assert!(
+            signal
+                .warnings
+                .iter()
+                .any(|w| w.contains("read(s) 2 (t = 10 s)") && w.contains("interpolated")),
+            "{:?}",
+            signal.warnings
+        );
+        // The sample's product formed rises evenly: 0.9, 0.99, 1.08.
+        let formed = signal.product_formed(&[Some(1.0), Some(1.1), Some(1.2)]);
+        assert!((formed[1].unwrap() - 0.99).abs() < 1e-12, "{formed:?}");
+    }
+
+    #[test]
+    fn a_blank_unreadable_throughout_is_not_a_blank() {
+        let data = "Time [s],A1,A2,B1\n0,OVER,0.10,1.0\n10,OVER,0.10,1.1\n";
+        let layout = "well,role,substrate [uM]\nA1,blank,\nA2,blank,\nB1,sample,10\n";
+        let data = import_cells(
+            &read_text_cells(data.as_bytes(), "d.csv").unwrap(),
+            &ImportOptions::default(),
+        )
+        .unwrap();
+        let layout = parse_layout(&read_text_cells(layout.as_bytes(), "l.csv").unwrap(), data.plate).unwrap();
+        let signal = PlateSignal::new(&data, &layout, &AnalysisSettings::default());
+        assert_eq!(signal.n_blank_wells, 1);
+        assert!(signal
+            .warnings
+            .iter()
+            .any(|w| w.contains("A1") && w.contains("not used as blanks")));
     }
 }

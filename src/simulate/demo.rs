@@ -154,11 +154,13 @@ fn demo_variants() -> Vec<VariantKinetics> {
             name: DEMO_WILD_TYPE.to_string(),
             kcat_per_s: 12.0,
             km_um: 80.0,
+            ki_um: None,
         },
         VariantKinetics {
             name: DEMO_VARIANT_S112T.to_string(),
             kcat_per_s: 4.0,
             km_um: 250.0,
+            ki_um: None,
         },
     ]
 }

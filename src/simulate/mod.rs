@@ -31,6 +31,7 @@
 
 pub mod demo;
 pub mod kinetics;
+pub mod study;
 pub mod writers;
 
 use std::collections::BTreeMap;
@@ -87,6 +88,8 @@ pub struct WellCondition {
     pub substrate_um: Option<f64>,
     /// Enzyme, nM (samples).
     pub enzyme_nm: Option<f64>,
+    /// Inhibitor, uM (`None`: none added).
+    pub inhibitor_um: Option<f64>,
     /// Enzyme variant (samples); `None` on controls so that they serve every variant.
     pub variant: Option<String>,
 }
@@ -98,7 +101,16 @@ impl WellCondition {
             role: WellRole::Sample,
             substrate_um: Some(substrate_um),
             enzyme_nm: Some(enzyme_nm),
+            inhibitor_um: None,
             variant: Some(variant.to_string()),
+        }
+    }
+
+    /// The same well with an inhibitor added.
+    pub fn with_inhibitor(self, inhibitor_um: f64) -> Self {
+        Self {
+            inhibitor_um: Some(inhibitor_um),
+            ..self
         }
     }
 
@@ -108,6 +120,7 @@ impl WellCondition {
             role: WellRole::NoEnzyme,
             substrate_um: Some(substrate_um),
             enzyme_nm: None,
+            inhibitor_um: None,
             variant: None,
         }
     }
@@ -118,6 +131,7 @@ impl WellCondition {
             role: WellRole::Blank,
             substrate_um: None,
             enzyme_nm: None,
+            inhibitor_um: None,
             variant: None,
         }
     }
@@ -128,6 +142,7 @@ impl WellCondition {
             role: WellRole::Empty,
             substrate_um: None,
             enzyme_nm: None,
+            inhibitor_um: None,
             variant: None,
         }
     }
@@ -152,6 +167,8 @@ pub struct VariantKinetics {
     pub kcat_per_s: f64,
     /// Michaelis constant, uM.
     pub km_um: f64,
+    /// Competitive inhibition constant of the plate's inhibitor, uM (`None`: not inhibited).
+    pub ki_um: Option<f64>,
 }
 
 /// Which species the absorbance follows.
@@ -727,9 +744,14 @@ fn well_kinetics(
         WellRole::Blank | WellRole::Empty => 0.0,
     };
     let (km_um, vmax_um_per_s) = match (condition.role, kinetics) {
-        // kcat [1/s] times [E] in nM converted to uM gives Vmax in uM/s.
+        // kcat [1/s] times [E] in nM converted to uM gives Vmax in uM/s; a competitive inhibitor
+        // raises the apparent Km to Km (1 + I/Ki).
         (WellRole::Sample, Some(kinetics)) => (
-            kinetics.km_um,
+            kinetics.km_um
+                * match (kinetics.ki_um, condition.inhibitor_um) {
+                    (Some(ki), Some(inhibitor)) => 1.0 + inhibitor / ki,
+                    _ => 1.0,
+                },
             kinetics.kcat_per_s * condition.enzyme_nm.unwrap_or(0.0) * 1e-3,
         ),
         // Without enzyme the Michaelis-Menten part is idle; any positive Km will do.
@@ -1139,6 +1161,7 @@ mod tests {
                 name: "X".to_string(),
                 kcat_per_s: 10.0,
                 km_um: 50.0,
+                ki_um: None,
             }],
             layout: vec![
                 LayoutGroup {

@@ -221,12 +221,23 @@ pub fn long_csv(plate: &SimulatedPlate) -> String {
 /// Tidy layout CSV: `well,role,substrate [uM],enzyme [nM],variant`, one line per layout group,
 /// the well selection written as given (`B3`, `B1:B3`, `B1 B3 B5`); absent values are empty.
 pub fn layout_tidy_csv(plate: &SimulatedPlate) -> String {
-    let mut text = String::from("well,role,substrate [uM],enzyme [nM],variant\n");
+    // The inhibitor column only where some well holds an inhibitor.
+    let with_inhibitor = plate.layout.iter().any(|group| group.condition.inhibitor_um.is_some());
+    let mut text = String::from(if with_inhibitor {
+        "well,role,substrate [uM],enzyme [nM],inhibitor [uM],variant\n"
+    } else {
+        "well,role,substrate [uM],enzyme [nM],variant\n"
+    });
     for group in &plate.layout {
         let condition = &group.condition;
+        let inhibitor = if with_inhibitor {
+            format!("{},", optional_number(condition.inhibitor_um))
+        } else {
+            String::new()
+        };
         let _ = writeln!(
             text,
-            "{},{},{},{},{}",
+            "{},{},{},{},{inhibitor}{}",
             csv_field(&group.selection),
             condition.role.label(),
             optional_number(condition.substrate_um),
@@ -477,6 +488,7 @@ mod tests {
                 name: "V, one".to_string(),
                 kcat_per_s: 5.0,
                 km_um: 30.0,
+                ki_um: None,
             }],
             layout: vec![
                 LayoutGroup {

@@ -1,0 +1,385 @@
+//! The no-enzyme background of each sample: the rate the substrate shows without enzyme
+//! (spontaneous hydrolysis, a contaminating activity, drift the blanks do not share), subtracted from
+//! the sample's rate.
+//!
+//! Rule (a rule of this program; first-order spontaneous turnover is common practice):
+//! 1. Controls serve a sample when every factor (and the inhibitor) they state matches the
+//!    sample's (an empty factor on a control matches every value). Controls whose rate is not to be
+//!    trusted (any flag that leaves a well out, see `Flag::excludes`) are not used, and a sample left
+//!    without a background because of them is told which controls and why.
+//! 2. Where serving controls cover two or more [S] levels, the background is modelled as first order
+//!    in S for every level: `v_bg = k S` by least squares through the origin, or `a + k S` when the
+//!    intercept differs from 0 by a two-sided t test at the 1% level; the prediction at the sample's
+//!    [S] carries its standard error from the fit. Pooling every control into one or two constants
+//!    keeps the background's own noise out of each sample's rate (a single control's slope is as
+//!    noisy as the sample's, and subtracted from every replicate and every read of a progress
+//!    curve it would add an error they all share).
+//! 3. When the controls' rates do not follow the first-order law (lack of fit against their own
+//!    slopes' standard errors, chi-square test at the 1% level), or they stand at one [S] only, the
+//!    background at a level with controls is their mean, with its standard error (the SEM of two or
+//!    more, the slope's SE of one).
+//! 4. Otherwise the sample gets no background, and the plate's warnings name it.
+//!
+//! Subtraction: `v = v_well - v_bg`, `se = sqrt(se_well^2 + se_bg^2)`.
+
+use super::well::Flag;
+use crate::core::plate::WellId;
+use crate::core::stats::{summary, t_critical};
+use crate::layout::WellSetup;
+
+/// Level of the t test that keeps an intercept in the background model.
+pub const INTERCEPT_ALPHA: f64 = 0.01;
+
+/// One no-enzyme control as the background model sees it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Control<'a> {
+    /// The well.
+    pub well: WellId,
+    /// What the layout says of it.
+    pub setup: &'a WellSetup,
+    /// Its slope and the slope's standard error, when it has a window.
+    pub slope: Option<(f64, f64)>,
+    /// Its flags.
+    pub flags: Vec<Flag>,
+}
+
+/// The background a sample gets.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Background {
+    /// Controls at the sample's own [S]: their mean.
+    Matched {
+        /// The background rate.
+        rate: f64,
+        /// Its standard error.
+        se: f64,
+        /// Controls averaged.
+        controls: usize,
+    },
+    /// No control at the sample's [S]: the first-order model over the controls' [S] levels.
+    Modelled {
+        /// The background rate at the sample's [S].
+        rate: f64,
+        /// Its standard error.
+        se: f64,
+        /// Controls in the model.
+        controls: usize,
+        /// Distinct [S] levels they cover.
+        levels: usize,
+        /// Whether the model kept an intercept.
+        with_intercept: bool,
+    },
+    /// No background.
+    None(NoBackground),
+}
+
+/// Why a sample has no background.
+#[derive(Debug, Clone, PartialEq)]
+pub enum NoBackground {
+    /// No control serves the sample.
+    NoControls,
+    /// Controls serve it, but every one is flagged.
+    ControlsFlagged(Vec<(WellId, Vec<Flag>)>),
+    /// No first-order model can be made (controls at one other [S] only, or rates that do not follow
+    /// the law) and no control stands at the sample's [S].
+    NoControlAtLevel,
+}
+
+impl Background {
+    /// The rate and its standard error, when there is a background.
+    pub fn rate(&self) -> Option<(f64, f64)> {
+        match self {
+            Background::Matched { rate, se, .. } | Background::Modelled { rate, se, .. } => {
+                Some((*rate, *se))
+            }
+            Background::None(_) => None,
+        }
+    }
+}
+
+fn same_amount(a: f64, b: f64) -> bool {
+    (a - b).abs() <= 1e-9 * a.abs().max(b.abs())
+}
+
+/// Whether a control serves a sample regardless of [S]: every factor (and the inhibitor) either
+/// equal or left empty on the control.
+fn serves(control: &WellSetup, sample: &WellSetup) -> bool {
+    let inhibitor_ok = match (control.inhibitor, sample.inhibitor) {
+        (None, _) => true,
+        (Some(a), Some(b)) => same_amount(a, b),
+        (Some(a), None) => a == 0.0,
+    };
+    let factors_ok = control.factors.iter().all(|(name, value)| {
+        value.is_empty()
+            || sample
+                .factors
+                .get(name)
+                .is_some_and(|sample_value| sample_value == value)
+    });
+    inhibitor_ok && factors_ok
+}
+
+/// The background of one sample from the plate's no-enzyme controls (module docs).
+pub fn background_for(sample: &WellSetup, controls: &[Control]) -> Background {
+    let serving: Vec<&Control> = controls
+        .iter()
+        .filter(|control| serves(control.setup, sample))
+        .collect();
+    if serving.is_empty() {
+        return Background::None(NoBackground::NoControls);
+    }
+    let usable: Vec<(f64, f64, f64)> = serving
+        .iter()
+        .filter(|control| !control.flags.iter().any(|flag| flag.excludes()))
+        .filter_map(|control| {
+            let (slope, se) = control.slope?;
+            Some((control.setup.substrate?, slope, se))
+        })
+        .collect();
+    if usable.is_empty() {
+        return Background::None(NoBackground::ControlsFlagged(
+            serving
+                .iter()
+                .map(|control| (control.well, control.flags.clone()))
+                .collect(),
+        ));
+    }
+    let Some(substrate) = sample.substrate else {
+        return Background::None(NoBackground::NoControls);
+    };
+    if let Some(modelled) = first_order_model(&usable, substrate) {
+        return modelled;
+    }
+    let at_level: Vec<(f64, f64)> = usable
+        .iter()
+        .filter(|(s, _, _)| same_amount(*s, substrate))
+        .map(|(_, slope, se)| (*slope, *se))
+        .collect();
+    if !at_level.is_empty() {
+        let slopes: Vec<f64> = at_level.iter().map(|(slope, _)| *slope).collect();
+        if let Some(stats) = summary(&slopes) {
+            // One control: its own slope's standard error stands for the background's.
+            let se = stats.sem().unwrap_or(at_level[0].1);
+            return Background::Matched {
+                rate: stats.mean,
+                se,
+                controls: at_level.len(),
+            };
+        }
+    }
+    Background::None(NoBackground::NoControlAtLevel)
+}
+
+/// Level of the lack-of-fit test that rejects the first-order background model.
+pub const LACK_OF_FIT_ALPHA: f64 = 0.01;
+
+/// Whether the controls' rates scatter around a fitted line more than their own standard errors
+/// allow: `sum ((v - fitted) / se)^2` against chi-square on `n - p` degrees of freedom.
+fn lacks_fit(controls: &[(f64, f64, f64)], predict: impl Fn(f64) -> f64, parameters: usize) -> bool {
+    let dof = controls.len().saturating_sub(parameters);
+    if dof == 0 || controls.iter().any(|(_, _, se)| !(*se > 0.0)) {
+        return false;
+    }
+    let statistic: f64 = controls
+        .iter()
+        .map(|(s, v, se)| ((v - predict(*s)) / se).powi(2))
+        .sum();
+    statrs::distribution::ChiSquared::new(dof as f64)
+        .map(|distribution| {
+            use statrs::distribution::ContinuousCDF;
+            1.0 - distribution.cdf(statistic) < LACK_OF_FIT_ALPHA
+        })
+        .unwrap_or(false)
+}
+
+/// The first-order background model at `substrate` (module docs, rule 3); `None` with fewer than
+/// two [S] levels or too few controls for a standard error.
+fn first_order_model(controls: &[(f64, f64, f64)], substrate: f64) -> Option<Background> {
+    let mut levels: Vec<f64> = controls.iter().map(|(s, _, _)| *s).collect();
+    levels.sort_by(f64::total_cmp);
+    levels.dedup_by(|a, b| same_amount(*a, *b));
+    let n = controls.len();
+    if levels.len() < 2 || n < 2 {
+        return None;
+    }
+    let (s, v): (Vec<f64>, Vec<f64>) = controls.iter().map(|(s, v, _)| (*s, *v)).unzip();
+    // Through the origin: k = sum(S v) / sum(S^2), var(k) = s^2 / sum(S^2), s^2 on n - 1.
+    let sum_ss: f64 = s.iter().map(|x| x * x).sum();
+    let sum_sv: f64 = s.iter().zip(&v).map(|(x, y)| x * y).sum();
+    if sum_ss <= 0.0 {
+        return None;
+    }
+    let k = sum_sv / sum_ss;
+    let rss_origin: f64 = s.iter().zip(&v).map(|(x, y)| (y - k * x).powi(2)).sum();
+    let origin_variance = if n > 1 { rss_origin / (n - 1) as f64 } else { 0.0 };
+    // With an intercept (needs three controls for a residual variance): keep it only when the data
+    // demand it.
+    if n >= 3 {
+        let mean_s = s.iter().sum::<f64>() / n as f64;
+        let mean_v = v.iter().sum::<f64>() / n as f64;
+        let sxx: f64 = s.iter().map(|x| (x - mean_s).powi(2)).sum();
+        if sxx > 0.0 {
+            let slope = s
+                .iter()
+                .zip(&v)
+                .map(|(x, y)| (x - mean_s) * (y - mean_v))
+                .sum::<f64>()
+                / sxx;
+            let intercept = mean_v - slope * mean_s;
+            let rss: f64 = s
+                .iter()
+                .zip(&v)
+                .map(|(x, y)| (y - intercept - slope * x).powi(2))
+                .sum();
+            let variance = rss / (n - 2) as f64;
+            let var_intercept = variance * (1.0 / n as f64 + mean_s * mean_s / sxx);
+            let significant = var_intercept > 0.0
+                && (intercept / var_intercept.sqrt()).abs() > t_critical(INTERCEPT_ALPHA, n - 2);
+            if significant {
+                if lacks_fit(controls, |x| intercept + slope * x, 2) {
+                    return None;
+                }
+                let rate = intercept + slope * substrate;
+                let se = (variance * (1.0 / n as f64 + (substrate - mean_s).powi(2) / sxx)).sqrt();
+                return Some(Background::Modelled {
+                    rate,
+                    se,
+                    controls: n,
+                    levels: levels.len(),
+                    with_intercept: true,
+                });
+            }
+        }
+    }
+    if lacks_fit(controls, |x| k * x, 1) {
+        return None;
+    }
+    Some(Background::Modelled {
+        rate: k * substrate,
+        se: substrate * (origin_variance / sum_ss).sqrt(),
+        controls: n,
+        levels: levels.len(),
+        with_intercept: false,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::core::cells::{Position, Source};
+    use std::collections::BTreeMap;
+
+    fn setup(substrate: f64, variant: &str) -> WellSetup {
+        let mut factors = BTreeMap::new();
+        factors.insert("variant".to_string(), variant.to_string());
+        WellSetup {
+            role: crate::layout::Role::NoEnzyme,
+            substrate: Some(substrate),
+            enzyme: None,
+            inhibitor: None,
+            factors,
+            position: Position {
+                source: Source {
+                    file: "l.csv".into(),
+                    sheet: None,
+                },
+                row: 1,
+                column: None,
+            },
+        }
+    }
+
+    fn control<'a>(well: &str, setup: &'a WellSetup, slope: f64, flags: Vec<Flag>) -> Control<'a> {
+        Control {
+            well: WellId::parse(well).unwrap(),
+            setup,
+            slope: Some((slope, 1e-5)),
+            flags,
+        }
+    }
+
+    #[test]
+    fn matched_controls_are_averaged() {
+        let (a, b) = (setup(100.0, ""), setup(100.0, ""));
+        let controls = [control("A1", &a, 2e-3, vec![]), control("A2", &b, 4e-3, vec![])];
+        let sample = setup(100.0, "wt");
+        match background_for(&sample, &controls) {
+            Background::Matched { rate, se, controls } => {
+                assert!((rate - 3e-3).abs() < 1e-15);
+                // SEM of 2e-3 and 4e-3: SD sqrt(2) 1e-3 over sqrt(2).
+                assert!((se - 1e-3).abs() < 1e-15);
+                assert_eq!(controls, 2);
+            }
+            other => panic!("{other:?}"),
+        }
+    }
+
+    #[test]
+    fn controls_at_other_levels_give_a_first_order_model() {
+        // Truth: v_bg = 2e-5 S exactly, controls at the three highest of eight levels only.
+        let setups: Vec<WellSetup> = [400.0, 800.0, 1600.0].iter().map(|s| setup(*s, "")).collect();
+        let controls: Vec<Control> = setups
+            .iter()
+            .enumerate()
+            .map(|(i, s)| control(["H6", "H7", "H8"][i], s, 2e-5 * s.substrate.unwrap(), vec![]))
+            .collect();
+        let sample = setup(50.0, "wt");
+        match background_for(&sample, &controls) {
+            Background::Modelled {
+                rate,
+                levels,
+                with_intercept,
+                ..
+            } => {
+                assert!((rate - 1e-3).abs() < 1e-12, "{rate}");
+                assert_eq!(levels, 3);
+                assert!(!with_intercept);
+            }
+            other => panic!("{other:?}"),
+        }
+    }
+
+    #[test]
+    fn a_clear_intercept_is_kept() {
+        // v_bg = 1e-3 + 1e-5 S with small scatter: the intercept is 100 standard errors from 0.
+        let levels = [100.0, 200.0, 400.0, 800.0];
+        let setups: Vec<WellSetup> = levels.iter().map(|s| setup(*s, "")).collect();
+        let wiggle = [1e-6, -1e-6, -1e-6, 1e-6];
+        let controls: Vec<Control> = setups
+            .iter()
+            .enumerate()
+            .map(|(i, s)| control("H1", s, 1e-3 + 1e-5 * levels[i] + wiggle[i], vec![]))
+            .collect();
+        match background_for(&setup(50.0, "wt"), &controls) {
+            Background::Modelled {
+                rate, with_intercept, ..
+            } => {
+                assert!(with_intercept);
+                assert!((rate - 1.5e-3).abs() < 1e-5, "{rate}");
+            }
+            other => panic!("{other:?}"),
+        }
+    }
+
+    #[test]
+    fn flagged_controls_are_named_and_weak_ones_still_serve() {
+        let a = setup(100.0, "");
+        let noisy = [control("B7", &a, 2e-3, vec![Flag::Noisy])];
+        match background_for(&setup(100.0, "wt"), &noisy) {
+            Background::None(NoBackground::ControlsFlagged(wells)) => {
+                assert_eq!(wells[0].0.to_string(), "B7");
+            }
+            other => panic!("{other:?}"),
+        }
+        let weak = [control("B7", &a, 1e-7, vec![Flag::Weak])];
+        assert!(matches!(
+            background_for(&setup(100.0, "wt"), &weak),
+            Background::Matched { .. }
+        ));
+        let other_variant = setup(100.0, "mutant");
+        let unmatched = [control("B7", &other_variant, 1e-7, vec![])];
+        assert_eq!(
+            background_for(&setup(100.0, "wt"), &unmatched),
+            Background::None(NoBackground::NoControls)
+        );
+    }
+}
