@@ -26,7 +26,9 @@ fn main() -> ExitCode {
         InitialRateEstimatorKey::Chord,
         InitialRateEstimatorKey::Tangent,
     ];
-    println!("| design | analysis | variant | parameter | plates | covered | coverage | bias | RMSE | width |");
+    println!(
+        "| design | analysis | variant | parameter | plates | covered | coverage | bias | RMSE | width |"
+    );
     println!("| --- | --- | --- | --- | ---: | ---: | ---: | ---: | ---: | ---: |");
     for design in designs {
         let start = std::time::Instant::now();
@@ -52,7 +54,11 @@ fn main() -> ExitCode {
                 100.0 * row.relative_width
             );
         }
-        eprintln!("{}: {plates} plates in {:.1} s", design.name(), start.elapsed().as_secs_f64());
+        eprintln!(
+            "{}: {plates} plates in {:.1} s",
+            design.name(),
+            start.elapsed().as_secs_f64()
+        );
     }
     ExitCode::SUCCESS
 }

@@ -18,12 +18,10 @@ const INHIBITOR_UM: [f64; 4] = [0.0, 2.5, 5.0, 10.0];
 /// Absorbance per uM of product: 18300 M^-1 cm^-1 x 0.5 cm x 1e-6 M/uM.
 const AU_PER_UM: f64 = 18300.0 * 0.5 * 1e-6;
 
-/// Deterministic noise in [-1, 1] (a linear congruential generator; no shared state).
+/// Deterministic noise in [-1, 1): one draw of a ChaCha8 generator seeded with `seed`.
 fn noise(seed: u64) -> f64 {
-    let mixed = seed
-        .wrapping_mul(6364136223846793005)
-        .wrapping_add(1442695040888963407);
-    ((mixed >> 11) as f64 / (1u64 << 53) as f64) * 2.0 - 1.0
+    use rand::{Rng, SeedableRng};
+    rand_chacha::ChaCha8Rng::seed_from_u64(seed).random_range(-1.0..1.0)
 }
 
 /// Writes an invented wide export and a tidy layout: rows A-G hold the substrate levels, columns

@@ -1108,7 +1108,8 @@ pub fn cluster_robust_covariance(
         return None;
     }
     // (J^T J)^-1 from the asymptotic covariance at unit residual variance.
-    let bread = asymptotic_covariance(jacobian, (n_observations.saturating_sub(n_parameters)) as f64).covariance?;
+    let bread =
+        asymptotic_covariance(jacobian, (n_observations.saturating_sub(n_parameters)) as f64).covariance?;
     let mut meat = DMatrix::<f64>::zeros(n_parameters, n_parameters);
     for cluster in clusters {
         let mut score = nalgebra::DVector::<f64>::zeros(n_parameters);

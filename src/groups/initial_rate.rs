@@ -62,13 +62,21 @@ pub enum RateShape {
 
 /// The shape of a fitted rate law (`parameters` in the fitted parametrisation, inverse constants
 /// as `1/K`) at a well's S0 and [I].
-pub fn rate_shape(kind: RateModelKind, parameters: &[f64], s0: f64, inhibitor: f64, enzyme: f64) -> RateShape {
+pub fn rate_shape(
+    kind: RateModelKind,
+    parameters: &[f64],
+    s0: f64,
+    inhibitor: f64,
+    enzyme: f64,
+) -> RateShape {
     let km = || parameters.get(1).copied().unwrap_or(f64::NAN);
     let k_app = match kind {
         RateModelKind::MichaelisMenten | RateModelKind::Noncompetitive => Some(km()),
         RateModelKind::Competitive => Some(km() * (1.0 + parameters[2] * inhibitor)),
         RateModelKind::Uncompetitive => Some(km() / (1.0 + parameters[2] * inhibitor)),
-        RateModelKind::Mixed => Some(km() * (1.0 + parameters[2] * inhibitor) / (1.0 + parameters[3] * inhibitor)),
+        RateModelKind::Mixed => {
+            Some(km() * (1.0 + parameters[2] * inhibitor) / (1.0 + parameters[3] * inhibitor))
+        }
         RateModelKind::SubstrateInhibition | RateModelKind::Hill => None,
         RateModelKind::Morrison | RateModelKind::Ic50 => return RateShape::Unknown,
     };
@@ -168,7 +176,11 @@ mod tests {
     /// closed form used here) is corrected back to the true initial rate.
     #[test]
     fn a_depleting_window_is_corrected_to_the_true_initial_rate() {
-        for (s0, km, vmax, dead) in [(10.0, 80.0, 0.05, 0.0), (10.0, 80.0, 0.05, 30.0), (400.0, 80.0, 0.05, 30.0)] {
+        for (s0, km, vmax, dead) in [
+            (10.0, 80.0, 0.05, 0.0),
+            (10.0, 80.0, 0.05, 30.0),
+            (400.0, 80.0, 0.05, 30.0),
+        ] {
             let kinetics = WellKinetics {
                 substrate_initial_um: s0,
                 km_um: km,
@@ -186,9 +198,14 @@ mod tests {
                 start_s: times[0],
                 end_s: times[9],
             };
-            let (v0, se) = corrected_initial_rate(&chord, s0, RateShape::MichaelisMenten { k_app: km }).unwrap();
-            assert!((v0 / truth - 1.0).abs() < 2e-4, "S0 {s0} dead {dead}: {v0} vs {truth} (chord {})", line.slope);
-            assert!(se >= 1e-6 && se < 1.2e-6, "{se}");
+            let (v0, se) =
+                corrected_initial_rate(&chord, s0, RateShape::MichaelisMenten { k_app: km }).unwrap();
+            assert!(
+                (v0 / truth - 1.0).abs() < 2e-4,
+                "S0 {s0} dead {dead}: {v0} vs {truth} (chord {})",
+                line.slope
+            );
+            assert!((1e-6..1.2e-6).contains(&se), "{se}");
             // The expansion form agrees closely for a Michaelis-Menten law.
             let log_slope = km / (s0 * (km + s0));
             let (local, _) = corrected_initial_rate(&chord, s0, RateShape::Local { log_slope }).unwrap();

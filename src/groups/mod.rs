@@ -525,7 +525,13 @@ fn corrected_rates(points: &[FitPoint], law: &FittedLaw) -> Vec<Option<(f64, f64
         .iter()
         .map(|point| {
             let window = point.window.as_ref()?;
-            let shape = rate_shape(law.kind, &law.parameters, point.substrate, point.inhibitor, law.enzyme);
+            let shape = rate_shape(
+                law.kind,
+                &law.parameters,
+                point.substrate,
+                point.inhibitor,
+                law.enzyme,
+            );
             corrected_initial_rate(window, point.substrate, shape)
         })
         .collect()
@@ -590,7 +596,14 @@ fn correct_for_depletion(
         return;
     }
     let left_out = report.wells_left_out.clone();
-    let mut final_report = fit_points(report.group.clone(), &current_points, left_out, units, settings, progress);
+    let mut final_report = fit_points(
+        report.group.clone(),
+        &current_points,
+        left_out,
+        units,
+        settings,
+        progress,
+    );
     final_report.warnings = report
         .warnings
         .iter()
@@ -606,7 +619,10 @@ fn correct_for_depletion(
                 initial_rates.push((well, value, se));
             }
         }
-        for (point, rate) in left_out_points.iter().zip(corrected_rates(left_out_points, &fitted)) {
+        for (point, rate) in left_out_points
+            .iter()
+            .zip(corrected_rates(left_out_points, &fitted))
+        {
             if let (Some(well), Some((value, se))) = (point.well, rate) {
                 initial_rates.push((well, value, se));
             }

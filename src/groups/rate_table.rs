@@ -75,9 +75,10 @@ impl TableKind {
 }
 
 /// A run's bookkeeping columns: never factors.
-const NOT_FACTORS: [&str; 18] = [
+const NOT_FACTORS: [&str; 19] = [
     "well",
     "rate_se",
+    "window_slope",
     "background",
     "intercept",
     "r2",

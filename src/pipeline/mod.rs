@@ -99,7 +99,11 @@ pub fn analyse_inputs(
     // The group fits' depletion-corrected initial rates become the wells' rates, once.
     let corrected: std::collections::BTreeMap<WellId, (f64, f64)> = fits
         .iter()
-        .flat_map(|fit| fit.initial_rates.iter().map(|(well, rate, se)| (*well, (*rate, *se))))
+        .flat_map(|fit| {
+            fit.initial_rates
+                .iter()
+                .map(|(well, rate, se)| (*well, (*rate, *se)))
+        })
         .collect();
     analysis.apply_initial_rates(&corrected);
     let conditions = condition_table(&analysis, &layout)?;

@@ -557,7 +557,10 @@ fn fill_from_fit(
         // Delta method: var(k/K) = (k/K)^2 (var k/k^2 + var K/K^2 - 2 cov(k, K)/(k K)).
         let delta = |var_k: f64, var_km: f64, cov: f64| {
             let (k, km_value) = (kcat.value, km.value);
-            ratio * (var_k / (k * k) + var_km / (km_value * km_value) - 2.0 * cov / (k * km_value)).max(0.0).sqrt()
+            ratio
+                * (var_k / (k * k) + var_km / (km_value * km_value) - 2.0 * cov / (k * km_value))
+                    .max(0.0)
+                    .sqrt()
         };
         let correlation = fit.correlation.as_ref().map_or(0.0, |c| c[0][1]);
         let se_asymptotic = kcat
@@ -674,7 +677,9 @@ fn fill_from_fit(
             .wells
             .iter()
             .find(|w| w.well.to_string() == diagnostics.well);
-        let window_rate = well.and_then(|w| w.rate_value);
+        // The window's own slope (the chord), not the corrected initial rate: its shortfall is the
+        // signature of depletion within the window.
+        let window_rate = well.and_then(|w| w.window_slope);
         let ratio = window_rate.map(|r| r / diagnostics.implied_initial_rate);
         if diagnostics.systematic_misfit {
             misfits.push(diagnostics.well.clone());

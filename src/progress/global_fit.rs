@@ -731,7 +731,9 @@ fn summarise(
                 se,
                 ci95: se.zip(quantile).map(|(se, q)| [value - q * se, value + q * se]),
                 se_by_well,
-                ci95_by_well: se_by_well.zip(well_quantile).map(|(se, q)| [value - q * se, value + q * se]),
+                ci95_by_well: se_by_well
+                    .zip(well_quantile)
+                    .map(|(se, q)| [value - q * se, value + q * se]),
             }
         })
         .collect();

@@ -176,7 +176,7 @@ pub const LACK_OF_FIT_ALPHA: f64 = 0.01;
 /// allow: `sum ((v - fitted) / se)^2` against chi-square on `n - p` degrees of freedom.
 fn lacks_fit(controls: &[(f64, f64, f64)], predict: impl Fn(f64) -> f64, parameters: usize) -> bool {
     let dof = controls.len().saturating_sub(parameters);
-    if dof == 0 || controls.iter().any(|(_, _, se)| !(*se > 0.0)) {
+    if dof == 0 || controls.iter().any(|(_, _, se)| se.is_nan() || *se <= 0.0) {
         return false;
     }
     let statistic: f64 = controls

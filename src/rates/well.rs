@@ -150,6 +150,9 @@ pub struct ReadNoise {
     pub sd: f64,
     /// Median raw absorbance of the reads it came from, AU.
     pub absorbance: f64,
+    /// The smallest step between two consecutive reads that differ, in the units of the values:
+    /// the reader's resolution or finer.
+    pub resolution: f64,
 }
 
 /// A well's rate and the evidence for it.
@@ -409,9 +412,15 @@ pub fn read_noise(times: &[f64], values: &[f64], absorbances: &[f64]) -> Option<
     }
     let centre = median(differences.iter().copied())?;
     let mad = median(differences.iter().map(|d| (d - centre).abs()))?;
+    let resolution = values
+        .windows(2)
+        .map(|pair| (pair[1] - pair[0]).abs())
+        .filter(|step| *step > 0.0)
+        .fold(f64::INFINITY, f64::min);
     Some(ReadNoise {
         sd: MAD_TO_SD * mad / 20f64.sqrt(),
         absorbance: median(absorbances.iter().copied())?,
+        resolution,
     })
 }
 
@@ -426,6 +435,10 @@ pub struct PlateNoise {
     pub wells: Vec<ReadNoise>,
     /// Median read noise of the blank wells (signal units of `values`).
     pub blank_read_sd: Option<f64>,
+    /// The smallest noise the data can show: the wells' median resolution over sqrt(12) (the SD of
+    /// rounding to that step), so that wells read flat to the last printed digit do not make every
+    /// other well look noisy.
+    pub floor_sd: f64,
     /// SD of the blank wells' slopes (needs at least 3 blanks).
     pub blank_slope_sd: Option<f64>,
 }
@@ -440,7 +453,10 @@ impl PlateNoise {
     /// The plate's noise model from the wells' read noise, the blanks' and the blanks' slopes.
     pub fn new(mut wells: Vec<ReadNoise>, blank_read_sds: &[f64], blank_slope_sd: Option<f64>) -> PlateNoise {
         wells.sort_by(|a, b| a.absorbance.total_cmp(&b.absorbance));
+        let floor_sd = median(wells.iter().map(|w| w.resolution).filter(|r| r.is_finite()))
+            .map_or(0.0, |resolution| resolution / 12f64.sqrt());
         PlateNoise {
+            floor_sd,
             wells,
             blank_read_sd: median(blank_read_sds.iter().copied()),
             blank_slope_sd,
@@ -473,7 +489,7 @@ impl PlateNoise {
                 high += 1;
             }
         }
-        median(self.wells[low..high].iter().map(|w| w.sd))
+        median(self.wells[low..high].iter().map(|w| w.sd)).map(|sd| sd.max(self.floor_sd))
     }
 }
 
@@ -680,6 +696,7 @@ mod tests {
             .map(|_| ReadNoise {
                 sd: 0.001,
                 absorbance: 0.1,
+                resolution: 1e-6,
             })
             .collect();
         let noise = PlateNoise::new(quiet, &[0.001], None);
@@ -705,11 +722,18 @@ mod tests {
         assert!(clean.sd < 1e-4, "{clean:?}");
         let mut generator = rand_chacha::ChaCha8Rng::seed_from_u64(5);
         let normal = Normal::new(0.0, 0.002).unwrap();
-        let noisy: Vec<f64> = depleting.iter().map(|v| v + normal.sample(&mut generator)).collect();
+        let noisy: Vec<f64> = depleting
+            .iter()
+            .map(|v| v + normal.sample(&mut generator))
+            .collect();
         let estimated = read_noise(&times, &noisy, &absorbance).unwrap().sd;
         assert!(estimated > 0.0014 && estimated < 0.0028, "{estimated}");
         let line = WindowSums::new(&times, &noisy).line(0, times.len() - 1).unwrap();
-        assert!(line.residual_sd > 3.0 * estimated, "{} vs {estimated}", line.residual_sd);
+        assert!(
+            line.residual_sd > 3.0 * estimated,
+            "{} vs {estimated}",
+            line.residual_sd
+        );
     }
 
     /// The noise expected at an absorbance follows the wells near it, so a well at 2 AU is judged
@@ -721,10 +745,12 @@ mod tests {
             wells.push(ReadNoise {
                 sd: 0.001,
                 absorbance: 0.1 + 0.001 * f64::from(i),
+                resolution: 1e-4,
             });
             wells.push(ReadNoise {
                 sd: 0.008,
                 absorbance: 2.0 + 0.001 * f64::from(i),
+                resolution: 1e-4,
             });
         }
         let model = PlateNoise::new(wells, &[0.001], None);

@@ -11,7 +11,8 @@
 //! together from read to read (a lamp flicker or a plate-wide shift: the variance of their mean
 //! around the smooth curve exceeds what their independent scatter allows, F test at the 1% level)
 //! is the mean at each read subtracted instead, since then it removes what every well shares.
-//! With one blank well the test cannot be made and the smooth curve is used.
+//! With one blank well the test cannot be made and the mean at each read is used (common
+//! practice).
 //!
 //! A read at which no blank is readable is never corrected with 0: its blank comes from the smooth
 //! curve, or for a per-read blank is interpolated linearly between the nearest reads that have one,
@@ -61,19 +62,25 @@ pub struct PlateSignal {
 
 /// The smooth blank (module docs): the degree and the curve at every read, or `None` when the blank
 /// wells move together from read to read (or there are too few reads for a smooth curve).
-fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&[Option<f64>]]) -> Option<(usize, Vec<f64>)> {
+fn smooth_blank(
+    times: &[f64],
+    measured: &[Option<f64>],
+    traces: &[&[Option<f64>]],
+) -> Option<(usize, Vec<f64>)> {
     let points: Vec<(f64, f64)> = times
         .iter()
         .zip(measured)
         .filter_map(|(t, m)| m.map(|m| (*t, m)))
         .collect();
     let n = points.len();
-    if traces.is_empty() || n < 6 {
+    if traces.len() < 2 || n < 6 {
         return None;
     }
     let polynomial_fit = |degree: usize| -> Option<(nalgebra::DVector<f64>, f64, f64)> {
         let t_scale = points.iter().map(|(t, _)| t.abs()).fold(0.0, f64::max).max(1.0);
-        let x = nalgebra::DMatrix::from_fn(n, degree + 1, |row, column| (points[row].0 / t_scale).powi(column as i32));
+        let x = nalgebra::DMatrix::from_fn(n, degree + 1, |row, column| {
+            (points[row].0 / t_scale).powi(column as i32)
+        });
         let y = nalgebra::DVector::from_iterator(n, points.iter().map(|(_, m)| *m));
         let xtx = x.transpose() * &x;
         let inverse = xtx.try_inverse()?;
@@ -81,7 +88,9 @@ fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&[Option<f64>
         let residuals = &y - &x * &beta;
         let rss = residuals.dot(&residuals);
         let variance = rss / (n - degree - 1) as f64;
-        let last = beta[degree] / inverse[(degree, degree)].max(0.0).sqrt().max(f64::MIN_POSITIVE) / variance.sqrt().max(f64::MIN_POSITIVE);
+        let last = beta[degree]
+            / inverse[(degree, degree)].max(0.0).sqrt().max(f64::MIN_POSITIVE)
+            / variance.sqrt().max(f64::MIN_POSITIVE);
         Some((beta, rss, last))
     };
     let (line, line_rss, _) = polynomial_fit(1)?;
@@ -93,8 +102,8 @@ fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&[Option<f64>
         (1, line, line_rss)
     };
     // Do the blank wells move together? The mean's variance around the curve against the wells'
-    // own scatter around their mean, divided by the number of wells (one well cannot tell).
-    if traces.len() >= 2 {
+    // own scatter around their mean, divided by the number of wells.
+    {
         let mut within = 0.0;
         let mut within_dof = 0usize;
         for (read, mean) in measured.iter().enumerate() {
@@ -111,8 +120,12 @@ fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&[Option<f64>
             let expected = per_well_variance / wells_per_read;
             let observed = rss / (n - degree - 1) as f64;
             let f = observed / expected;
-            let shared = crate::core::stats::f_quantile(1.0 - BLANK_MODEL_ALPHA, (n - degree - 1) as f64, within_dof as f64)
-                .is_ok_and(|critical| f > critical);
+            let shared = crate::core::stats::f_quantile(
+                1.0 - BLANK_MODEL_ALPHA,
+                (n - degree - 1) as f64,
+                within_dof as f64,
+            )
+            .is_ok_and(|critical| f > critical);
             if shared {
                 return None;
             }
@@ -197,7 +210,12 @@ impl PlateSignal {
             (None, false) => BlankModel::PerRead,
         };
         let blank_per_read = if let Some((_, curve)) = smooth {
-            let gaps: Vec<usize> = measured.iter().enumerate().filter(|(_, m)| m.is_none()).map(|(i, _)| i).collect();
+            let gaps: Vec<usize> = measured
+                .iter()
+                .enumerate()
+                .filter(|(_, m)| m.is_none())
+                .map(|(i, _)| i)
+                .collect();
             if !gaps.is_empty() {
                 warnings.push(format!(
                     "no blank well is readable at {} read(s): the blank there comes from the smooth blank curve",

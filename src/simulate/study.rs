@@ -265,7 +265,14 @@ fn design_spec(design: StudyDesign, seed: u64) -> (SimulationSpec, Vec<Truth>) {
 /// One analysed plate's intervals: (analysis, variant, parameter) to (estimate, interval).
 type PlateIntervals = Vec<(StudyAnalysis, String, String, f64, Option<[f64; 2]>)>;
 
-fn analysis_settings(design: StudyDesign, estimator: InitialRateEstimator, progress: ProgressMode) -> AnalysisSettings {
+/// Estimates and intervals by (analysis, variant, parameter), over every plate.
+type StudyCells = BTreeMap<(StudyAnalysis, String, String), Vec<(f64, Option<[f64; 2]>)>>;
+
+fn analysis_settings(
+    design: StudyDesign,
+    estimator: InitialRateEstimator,
+    progress: ProgressMode,
+) -> AnalysisSettings {
     let mut settings = AnalysisSettings {
         extinction_per_molar_cm: Some(EXTINCTION),
         pathlength_cm: Some(PATHLENGTH),
@@ -282,13 +289,18 @@ fn analysis_settings(design: StudyDesign, estimator: InitialRateEstimator, progr
     settings
 }
 
-fn analyse_plate(design: StudyDesign, seed: u64, estimators: &[InitialRateEstimatorKey]) -> Result<PlateIntervals, String> {
+fn analyse_plate(
+    design: StudyDesign,
+    seed: u64,
+    estimators: &[InitialRateEstimatorKey],
+) -> Result<PlateIntervals, String> {
     let (spec, truths) = design_spec(design, seed);
     let plate = simulate(&spec).map_err(|error| error.to_string())?;
     let data_csv = wide_csv(&plate, &WideCsvOptions::default());
     let layout_csv = layout_tidy_csv(&plate);
     let grid = read_text_cells(data_csv.as_bytes(), "study.csv").map_err(|e| e.to_string())?;
-    let layout_grid = read_text_cells(layout_csv.as_bytes(), "study-layout.csv").map_err(|e| e.to_string())?;
+    let layout_grid =
+        read_text_cells(layout_csv.as_bytes(), "study-layout.csv").map_err(|e| e.to_string())?;
     let fit_settings = FitSettings {
         model: (design == StudyDesign::Inhibition).then_some(ModelRequest::Fixed(RateModelKind::Competitive)),
         profile: false,
@@ -305,20 +317,31 @@ fn analyse_plate(design: StudyDesign, seed: u64, estimators: &[InitialRateEstima
             ProgressMode::Never
         };
         let settings = analysis_settings(design, key.estimator(), progress);
-        let results = analyse_inputs(data, layout, &settings, &fit_settings, &mut |_, _| {}).map_err(|e| e.to_string())?;
-        collect(&results, StudyAnalysis::InitialRate(*key), &truths, &mut intervals);
+        let results = analyse_inputs(data, layout, &settings, &fit_settings, &mut |_, _| {})
+            .map_err(|e| e.to_string())?;
+        collect(
+            &results,
+            StudyAnalysis::InitialRate(*key),
+            &truths,
+            &mut intervals,
+        );
     }
     Ok(intervals)
 }
 
 fn collect(results: &RunResults, analysis: StudyAnalysis, truths: &[Truth], intervals: &mut PlateIntervals) {
-    let mut push = |analysis: StudyAnalysis, variant: &str, name: &str, parameter: Option<&ParameterReport>| {
-        if let Some(p) = parameter {
-            intervals.push((analysis, variant.to_string(), name.to_string(), p.value, p.ci95));
-        }
-    };
+    let mut push =
+        |analysis: StudyAnalysis, variant: &str, name: &str, parameter: Option<&ParameterReport>| {
+            if let Some(p) = parameter {
+                intervals.push((analysis, variant.to_string(), name.to_string(), p.value, p.ci95));
+            }
+        };
     for truth in truths {
-        for fit in results.fits.iter().filter(|f| f.group.text("variant") == Some(truth.name)) {
+        for fit in results
+            .fits
+            .iter()
+            .filter(|f| f.group.text("variant") == Some(truth.name))
+        {
             for name in ["kcat", "Km", "kcat_over_Km", "Ki"] {
                 push(analysis, truth.name, name, fit.parameters.get(name));
             }
@@ -339,7 +362,12 @@ fn collect(results: &RunResults, analysis: StudyAnalysis, truths: &[Truth], inte
                         ..p.clone()
                     })
                 });
-                push(StudyAnalysis::ProgressCurveReadLevel, truth.name, name, read_level.as_ref());
+                push(
+                    StudyAnalysis::ProgressCurveReadLevel,
+                    truth.name,
+                    name,
+                    read_level.as_ref(),
+                );
             }
         }
     }
@@ -370,15 +398,20 @@ pub fn coverage_study(
         .into_par_iter()
         .map(|offset| analyse_plate(design, first_seed + offset, estimators))
         .collect::<Result<_, _>>()?;
-    let mut cells: BTreeMap<(StudyAnalysis, String, String), Vec<(f64, Option<[f64; 2]>)>> = BTreeMap::new();
+    let mut cells = StudyCells::new();
     for outcome in outcomes {
         for (analysis, variant, parameter, value, interval) in outcome {
-            cells.entry((analysis, variant, parameter)).or_default().push((value, interval));
+            cells
+                .entry((analysis, variant, parameter))
+                .or_default()
+                .push((value, interval));
         }
     }
     let mut rows = Vec::new();
     for ((analysis, variant, parameter), values) in cells {
-        let Some(truth) = true_value(&truths, &variant, &parameter) else { continue };
+        let Some(truth) = true_value(&truths, &variant, &parameter) else {
+            continue;
+        };
         let with_interval: Vec<(f64, [f64; 2])> =
             values.iter().filter_map(|(v, i)| i.map(|i| (*v, i))).collect();
         let n = with_interval.len();
@@ -392,7 +425,11 @@ pub fn coverage_study(
         let errors: Vec<f64> = with_interval.iter().map(|(v, _)| v / truth - 1.0).collect();
         let relative_bias = errors.iter().sum::<f64>() / n as f64;
         let relative_rmse = (errors.iter().map(|e| e * e).sum::<f64>() / n as f64).sqrt();
-        let relative_width = with_interval.iter().map(|(_, [lo, hi])| (hi - lo) / truth).sum::<f64>() / n as f64;
+        let relative_width = with_interval
+            .iter()
+            .map(|(_, [lo, hi])| (hi - lo) / truth)
+            .sum::<f64>()
+            / n as f64;
         rows.push(CoverageRow {
             design,
             analysis,

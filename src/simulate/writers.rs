@@ -222,7 +222,10 @@ pub fn long_csv(plate: &SimulatedPlate) -> String {
 /// the well selection written as given (`B3`, `B1:B3`, `B1 B3 B5`); absent values are empty.
 pub fn layout_tidy_csv(plate: &SimulatedPlate) -> String {
     // The inhibitor column only where some well holds an inhibitor.
-    let with_inhibitor = plate.layout.iter().any(|group| group.condition.inhibitor_um.is_some());
+    let with_inhibitor = plate
+        .layout
+        .iter()
+        .any(|group| group.condition.inhibitor_um.is_some());
     let mut text = String::from(if with_inhibitor {
         "well,role,substrate [uM],enzyme [nM],inhibitor [uM],variant\n"
     } else {

@@ -411,12 +411,10 @@ fn large_plates_give_a_legible_overview_with_every_well() {
     }
 }
 
-/// Deterministic noise in [-1, 1] (a linear congruential generator, Knuth's MMIX constants).
+/// Deterministic noise in [-1, 1): one draw of a ChaCha8 generator seeded with `seed`.
 fn lcg_noise(seed: u64) -> f64 {
-    let mixed = seed
-        .wrapping_mul(6364136223846793005)
-        .wrapping_add(1442695040888963407);
-    ((mixed >> 11) as f64 / (1u64 << 53) as f64) * 2.0 - 1.0
+    use rand::{Rng, SeedableRng};
+    rand_chacha::ChaCha8Rng::seed_from_u64(seed).random_range(-1.0..1.0)
 }
 
 /// An invented 56-well [S] x [I] plate (as `tests/fit_command.rs` builds one): competitive
