@@ -308,6 +308,8 @@ pub enum Weighting {
     Relative,
     /// `1 / sd^2` from each point's replicate standard deviation.
     ReplicateSd,
+    /// `1 / se^2` from each point's own standard error (a well's rate from its window fit).
+    RateSe,
 }
 
 impl Weighting {
@@ -316,12 +318,18 @@ impl Weighting {
             Weighting::None => "none",
             Weighting::Relative => "relative",
             Weighting::ReplicateSd => "replicate-sd",
+            Weighting::RateSe => "rate-se",
         }
     }
     pub fn from_name(name: &str) -> Option<Weighting> {
-        [Weighting::None, Weighting::Relative, Weighting::ReplicateSd]
-            .into_iter()
-            .find(|weighting| weighting.name() == name)
+        [
+            Weighting::None,
+            Weighting::Relative,
+            Weighting::ReplicateSd,
+            Weighting::RateSe,
+        ]
+        .into_iter()
+        .find(|weighting| weighting.name() == name)
     }
 }
 

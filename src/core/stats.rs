@@ -212,6 +212,39 @@ pub fn extra_sum_of_squares(
     })
 }
 
+/// Consecutive reads count as evenly spaced when their steps differ by less than this fraction.
+const EVEN_SPACING_TOLERANCE: f64 = 0.01;
+
+/// MAD to standard deviation at the normal distribution.
+const MAD_TO_SD: f64 = 1.4826;
+
+/// The noise SD of a series read at `times` from its third differences over runs of four evenly
+/// spaced points, `d = y[i+3] - 3 y[i+2] + 3 y[i+1] - y[i]` (variance 20 sigma^2 for independent
+/// noise, exactly 0 for any quadratic trend), robustly: `1.4826 MAD(d) / sqrt(20)`; `None` below
+/// four differences (common practice for difference-based noise estimates).
+pub fn third_difference_noise(times: &[f64], values: &[f64]) -> Option<f64> {
+    let mut differences = Vec::new();
+    for i in 0..times.len().min(values.len()).saturating_sub(3) {
+        let steps = [
+            times[i + 1] - times[i],
+            times[i + 2] - times[i + 1],
+            times[i + 3] - times[i + 2],
+        ];
+        let even = steps
+            .iter()
+            .all(|step| (step - steps[0]).abs() <= EVEN_SPACING_TOLERANCE * steps[0].abs());
+        if even {
+            differences.push(values[i + 3] - 3.0 * values[i + 2] + 3.0 * values[i + 1] - values[i]);
+        }
+    }
+    if differences.len() < 4 {
+        return None;
+    }
+    let centre = median(differences.iter().copied())?;
+    let mad = median(differences.iter().map(|d| (d - centre).abs()))?;
+    Some(MAD_TO_SD * mad / 20f64.sqrt())
+}
+
 /// The `fraction` percentile of an ascending sample by linear interpolation between order
 /// statistics (position `fraction (n - 1)`); NaN for an empty sample.
 pub fn percentile(sorted: &[f64], fraction: f64) -> f64 {

@@ -313,6 +313,10 @@ pub struct LeastSquaresFit {
     pub correlation: Option<DMatrix<f64>>,
     /// Condition number of the column-equilibrated Jacobian at `parameters` (infinite if singular).
     pub jacobian_condition_number: f64,
+    /// The part of `covariance` that errors shared by many observations contribute (see
+    /// [`shared_error_covariance`]); `None` when none was added.
+    #[serde(serialize_with = "serialize_optional_matrix")]
+    pub shared_covariance: Option<DMatrix<f64>>,
 }
 
 impl LeastSquaresFit {
@@ -331,6 +335,35 @@ impl LeastSquaresFit {
             return Err(FitError::SingularJacobianAtOptimum);
         }
         Ok(self)
+    }
+
+    /// Adds the covariance that errors shared by many observations contribute to the estimates'
+    /// (their standard errors and correlations follow), and keeps it apart in `shared_covariance`.
+    pub fn add_shared_covariance(&mut self, shared: DMatrix<f64>) {
+        let Some(covariance) = self.covariance.as_mut() else {
+            return;
+        };
+        if shared.shape() != covariance.shape() || !all_finite_matrix(&shared) {
+            return;
+        }
+        *covariance += &shared;
+        let standard_errors: Vec<f64> = (0..covariance.nrows())
+            .map(|i| covariance[(i, i)].max(0.0).sqrt())
+            .collect();
+        self.correlation = Some(DMatrix::from_fn(
+            covariance.nrows(),
+            covariance.ncols(),
+            |i, j| {
+                let scale = standard_errors[i] * standard_errors[j];
+                if scale > 0.0 {
+                    covariance[(i, j)] / scale
+                } else {
+                    0.0
+                }
+            },
+        ));
+        self.standard_errors = Some(standard_errors);
+        self.shared_covariance = Some(shared);
     }
 
     /// Asymptotic 95% intervals `value +- t(0.975, n - p) se`, when standard errors exist.
@@ -1082,7 +1115,35 @@ pub fn fit_least_squares<M: ResidualModel>(
         standard_errors: summary.standard_errors,
         correlation: summary.correlation,
         jacobian_condition_number: summary.jacobian_condition_number,
+        shared_covariance: None,
     })
+}
+
+/// What errors shared by many observations do to least-squares estimates: a correction estimated
+/// once and subtracted from many observations (a blank, a background) moves them together, so its
+/// uncertainty is not averaged away by their number. With `J` the (weighted) Jacobian at the optimum,
+/// `L` the (equally weighted) loadings of each observation on each shared error and `C` the errors'
+/// covariance, the estimates move by `A e` for errors e, `A = (J^T J)^-1 J^T L`, and gain the
+/// covariance `A C A^T` (first order in the errors). `None` when `J^T J` is singular.
+///
+/// References: the first-order propagation of a linear perturbation through least squares (common
+/// practice; e.g. Bates and Watts 1988, ch. 2, for the linear approximation at the optimum).
+pub fn shared_error_covariance(
+    jacobian: &DMatrix<f64>,
+    loadings: &DMatrix<f64>,
+    covariance: &DMatrix<f64>,
+) -> Option<DMatrix<f64>> {
+    let (n, p) = jacobian.shape();
+    if loadings.nrows() != n
+        || loadings.ncols() != covariance.nrows()
+        || covariance.nrows() != covariance.ncols()
+    {
+        return None;
+    }
+    let bread = asymptotic_covariance(jacobian, n.saturating_sub(p) as f64).covariance?;
+    let a = bread * jacobian.transpose() * loadings;
+    let result = &a * covariance * a.transpose();
+    all_finite_matrix(&result).then_some(result)
 }
 
 /// The cluster-robust ("sandwich") covariance of least-squares estimates whose observations fall

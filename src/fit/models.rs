@@ -222,18 +222,7 @@ pub const REPLICATE_SD_FLOOR_FRACTION: f64 = 0.25;
 /// far more often than their true spread suggests, and `1/sd^2` would then let one condition
 /// dominate the fit (common practice: guard weights from few replicates).
 pub fn replicate_sd_floor(sd: &[f64]) -> f64 {
-    let mut sorted: Vec<f64> = sd.iter().copied().filter(|v| v.is_finite()).collect();
-    sorted.sort_by(f64::total_cmp);
-    if sorted.is_empty() {
-        return 0.0;
-    }
-    let middle = sorted.len() / 2;
-    let median = if sorted.len().is_multiple_of(2) {
-        0.5 * (sorted[middle - 1] + sorted[middle])
-    } else {
-        sorted[middle]
-    };
-    REPLICATE_SD_FLOOR_FRACTION * median
+    crate::core::stats::median(sd.iter().copied()).map_or(0.0, |median| REPLICATE_SD_FLOOR_FRACTION * median)
 }
 
 /// Rates with their conditions. All vectors have one entry per point.
@@ -247,6 +236,25 @@ pub struct RateData {
     pub weights: Vec<f64>,
     /// Total enzyme concentration in the inhibitor's unit (Morrison only).
     pub enzyme: Option<f64>,
+    /// Errors the rates share (corrections estimated once and subtracted from many rates).
+    pub shared: SharedRateErrors,
+}
+
+/// Errors several rates share: each rate's loading on each error (a row per rate, a column per
+/// error) and the errors' covariance. A rate moves by `sum_k loading_k e_k` when the errors are e.
+#[derive(Debug, Clone, PartialEq, Default, Serialize)]
+pub struct SharedRateErrors {
+    /// Per rate, its loading on each error.
+    pub loadings: Vec<Vec<f64>>,
+    /// The errors' covariance.
+    pub covariance: Vec<Vec<f64>>,
+}
+
+impl SharedRateErrors {
+    /// Whether there is any shared error.
+    pub fn is_empty(&self) -> bool {
+        self.covariance.is_empty()
+    }
 }
 
 /// Errors of building weighted rate data.
@@ -341,7 +349,7 @@ impl RateData {
                     }
                 })
                 .collect::<Result<Vec<f64>, _>>()?,
-            Weighting::ReplicateSd => {
+            Weighting::ReplicateSd | Weighting::RateSe => {
                 let sd = sd.ok_or(RateDataError::ReplicateSdMissing)?;
                 if sd.len() != n {
                     return Err(RateDataError::Length {
@@ -373,6 +381,7 @@ impl RateData {
             rate,
             weights,
             enzyme,
+            shared: SharedRateErrors::default(),
         })
     }
 
@@ -408,6 +417,31 @@ pub struct RateModel<'data> {
 }
 
 impl RateModel<'_> {
+    /// The covariance the data's shared errors add to the fitted parameters (see
+    /// [`super::least_squares::shared_error_covariance`]), at `parameters`.
+    pub fn shared_covariance(&self, parameters: &[f64]) -> Option<DMatrix<f64>> {
+        let shared = &self.data.shared;
+        if shared.is_empty() {
+            return None;
+        }
+        let n = self.data.len();
+        let k = shared.covariance.len();
+        let mut jacobian = DMatrix::zeros(n, self.kind.n_parameters());
+        self.jacobian(parameters, &mut jacobian);
+        // The Jacobian is of the weighted residuals: weigh the loadings alike.
+        let loadings = DMatrix::from_fn(n, k, |i, j| {
+            self.root_weight(i)
+                * shared
+                    .loadings
+                    .get(i)
+                    .and_then(|row| row.get(j))
+                    .copied()
+                    .unwrap_or(0.0)
+        });
+        let covariance = DMatrix::from_fn(k, k, |i, j| shared.covariance[i].get(j).copied().unwrap_or(0.0));
+        super::least_squares::shared_error_covariance(&jacobian, &loadings, &covariance)
+    }
+
     fn root_weight(&self, index: usize) -> f64 {
         let extra = self.extra_weights.map_or(1.0, |weights| weights[index]);
         (self.data.weights[index] * extra).sqrt()

@@ -398,7 +398,18 @@ pub fn analyse_rates(
     let choice = choice_text(settings.request, &reports, chosen_index, &f_tests);
     let chosen = candidates.swap_remove(chosen_index);
     let robust = chosen.outcome?;
-    let fit = robust.fit;
+    let mut fit = robust.fit;
+    // Corrections subtracted from many rates at once (a blank, a background) move them together:
+    // their uncertainty joins the fit's.
+    let shared = super::models::RateModel {
+        kind: fit.kind,
+        data,
+        extra_weights: robust.robust_weights.as_deref(),
+    }
+    .shared_covariance(&fit.fit.parameters);
+    if let Some(shared) = shared {
+        fit.fit.add_shared_covariance(shared);
+    }
     if !fit.converged() {
         warnings.push(format!(
             "The {} fit did not converge ({}); its constants are where the solver stopped and must not \

@@ -20,6 +20,7 @@ use crate::core::stats::{summary, t_quantile_975};
 use crate::core::units::ConcentrationUnit;
 use crate::fit::inference::{ConstantEstimate, Dimension, ProfileInterval};
 use crate::fit::models::RateData;
+use crate::fit::models::SharedRateErrors;
 use crate::fit::selection::{analyse_rates, CandidateReport, FTest, ModelAnalysis, ModelSettings};
 use crate::fit::{
     describe_michaelis_menten, linearised_estimates, turnover_estimates, vmax_over_km_delta_method,
@@ -27,7 +28,9 @@ use crate::fit::{
 };
 use crate::fit::{ParameterEstimate, StartMethod};
 use crate::layout::{Layout, Role};
+use crate::rates::background::{Background, BackgroundLaw};
 use crate::rates::{Flag, PlateAnalysis, WellResult};
+use crate::signal::BlankUncertainty;
 use initial_rate::{corrected_initial_rate, rate_shape, WindowChord};
 
 /// One value of a group's key: a factor's text or a concentration.
@@ -365,6 +368,175 @@ pub struct FitPoint {
     pub rate: f64,
     /// Replicate standard deviation, where known.
     pub sd: Option<f64>,
+    /// The rate's own standard error (a well's, from its window), where known.
+    pub se: Option<f64>,
+    /// The no-enzyme background subtracted from a plate's point, if any.
+    pub background: Option<Background>,
+    /// How the rate moves with its window's slope (1 for the slope itself; the integrated
+    /// estimator's derivative for a corrected rate).
+    pub rate_per_chord: f64,
+}
+
+/// What a plate's points share: the blank subtracted from every read and the conversion to
+/// concentration, for the errors they carry into every rate (see [`shared_rate_errors`]).
+#[derive(Debug, Clone, PartialEq)]
+pub struct PlateCorrections {
+    /// The blank's uncertainty.
+    pub blank: BlankUncertainty,
+    /// The export's read times, s.
+    pub read_times_s: Vec<f64>,
+    /// +1 product read, -1 substrate read.
+    pub sign: f64,
+    /// Concentration per AU (1 when rates stay in AU).
+    pub per_absorbance: f64,
+    /// Time from mixing to the export's time zero, s.
+    pub dead_time_s: f64,
+}
+
+/// The errors a plate's points share, as loadings on each rate (module docs of
+/// [`crate::fit::models::SharedRateErrors`]): the blank's (a rate is minus the blank's slope over
+/// its window, converted) and each background model's (a rate is minus its background). Points
+/// without a window (rate tables) share none.
+pub fn shared_rate_errors(points: &[FitPoint], corrections: &PlateCorrections) -> SharedRateErrors {
+    let n = points.len();
+    let mut columns: Vec<Vec<f64>> = Vec::new();
+    let mut blocks: Vec<Vec<Vec<f64>>> = Vec::new();
+    let to_rate = -corrections.sign * corrections.per_absorbance;
+    // The window in the export's clock.
+    let window = |point: &FitPoint| {
+        point.window.map(|w| {
+            (
+                w.start_s - corrections.dead_time_s,
+                w.end_s - corrections.dead_time_s,
+            )
+        })
+    };
+    match &corrections.blank {
+        BlankUncertainty::None => {}
+        BlankUncertainty::Smooth { t_scale, covariance } => {
+            for power in 0..covariance.len() {
+                columns.push(
+                    points
+                        .iter()
+                        .map(|point| {
+                            // The least-squares slope of (t/T)^k over an even window: 0, 1/T, (t1 + t2)/T^2.
+                            let slope = window(point).map_or(0.0, |(t1, t2)| match power {
+                                0 => 0.0,
+                                1 => 1.0 / t_scale,
+                                _ => (t1 + t2) / (t_scale * t_scale),
+                            });
+                            to_rate * slope * point.rate_per_chord
+                        })
+                        .collect(),
+                );
+            }
+            blocks.push(covariance.clone());
+        }
+        BlankUncertainty::PerRead { variances } => {
+            // Each read's blank error enters a window's slope with weight (t - mean t) / Sxx.
+            let weights: Vec<Vec<(usize, f64)>> = points
+                .iter()
+                .map(|point| {
+                    let Some((t1, t2)) = window(point) else {
+                        return Vec::new();
+                    };
+                    let reads: Vec<(usize, f64)> = corrections
+                        .read_times_s
+                        .iter()
+                        .enumerate()
+                        .filter(|(_, t)| **t >= t1 - 1e-9 && **t <= t2 + 1e-9)
+                        .map(|(i, t)| (i, *t))
+                        .collect();
+                    let mean = reads.iter().map(|(_, t)| t).sum::<f64>() / reads.len().max(1) as f64;
+                    let sxx: f64 = reads.iter().map(|(_, t)| (t - mean).powi(2)).sum();
+                    if sxx <= 0.0 {
+                        return Vec::new();
+                    }
+                    reads.iter().map(|(i, t)| (*i, (t - mean) / sxx)).collect()
+                })
+                .collect();
+            for (read, variance) in variances.iter().enumerate() {
+                let column: Vec<f64> = points
+                    .iter()
+                    .zip(&weights)
+                    .map(|(point, w)| {
+                        w.iter()
+                            .find(|(i, _)| *i == read)
+                            .map_or(0.0, |(_, weight)| to_rate * weight * point.rate_per_chord)
+                    })
+                    .collect();
+                if column.iter().any(|v| *v != 0.0) {
+                    columns.push(column);
+                    blocks.push(vec![vec![*variance]]);
+                }
+            }
+        }
+    }
+    // Background models: a rate moves by minus its background's error.
+    let mut laws: Vec<BackgroundLaw> = Vec::new();
+    let mut matched: Vec<(f64, f64)> = Vec::new();
+    for point in points {
+        match &point.background {
+            Some(Background::Modelled { law, .. }) if !laws.contains(law) => laws.push(*law),
+            Some(Background::Matched { rate, se, .. }) if !matched.contains(&(*rate, *se)) => {
+                matched.push((*rate, *se))
+            }
+            _ => {}
+        }
+    }
+    for law in laws {
+        let serves = |point: &FitPoint| matches!(&point.background, Some(Background::Modelled { law: l, .. }) if *l == law);
+        columns.push(
+            points
+                .iter()
+                .map(|p| {
+                    if serves(p) {
+                        -p.substrate * p.rate_per_chord
+                    } else {
+                        0.0
+                    }
+                })
+                .collect(),
+        );
+        columns.push(
+            points
+                .iter()
+                .map(|p| if serves(p) { -p.rate_per_chord } else { 0.0 })
+                .collect(),
+        );
+        blocks.push(law.covariance.iter().map(|row| row.to_vec()).collect());
+    }
+    for (rate, se) in matched {
+        columns.push(
+            points
+                .iter()
+                .map(|p| match &p.background {
+                    Some(Background::Matched { rate: r, se: s, .. }) if (*r, *s) == (rate, se) => {
+                        -p.rate_per_chord
+                    }
+                    _ => 0.0,
+                })
+                .collect(),
+        );
+        blocks.push(vec![vec![se * se]]);
+    }
+    let size: usize = blocks.iter().map(Vec::len).sum();
+    let mut covariance = vec![vec![0.0; size]; size];
+    let mut at = 0;
+    for block in &blocks {
+        for (i, row) in block.iter().enumerate() {
+            for (j, value) in row.iter().enumerate() {
+                covariance[at + i][at + j] = *value;
+            }
+        }
+        at += block.len();
+    }
+    SharedRateErrors {
+        loadings: (0..n)
+            .map(|i| columns.iter().map(|column| column[i]).collect())
+            .collect(),
+        covariance,
+    }
 }
 
 /// Units and enzyme of a group, for the reports.
@@ -423,6 +595,9 @@ fn fit_one_group(
             inhibitor: well.setup.inhibitor.unwrap_or(0.0),
             rate,
             sd: None,
+            se: well.rate_se,
+            background: well.correction.background.clone(),
+            rate_per_chord: 1.0,
         };
         let reason = left_out_reason(well);
         if let (Some(_), Some(substrate), Some(rate)) = (&reason, well.setup.substrate, well.rate_value) {
@@ -450,9 +625,32 @@ fn fit_one_group(
         enzyme,
     };
     let n_wells = wells.len();
-    let mut report = fit_points(group, &points, left_out, &units, settings, progress);
+    let corrections = PlateCorrections {
+        blank: analysis.signal.blank_uncertainty.clone(),
+        read_times_s: analysis.signal.read_times_s.clone(),
+        sign: analysis.signal.sign,
+        per_absorbance: analysis.signal.per_absorbance.unwrap_or(1.0),
+        dead_time_s: initial.dead_time_s,
+    };
+    let mut report = fit_points(
+        group,
+        &points,
+        left_out,
+        &units,
+        settings,
+        Some(&corrections),
+        progress,
+    );
     if initial.estimator == InitialRateEstimator::Integrated {
-        correct_for_depletion(&mut report, &points, &left_out_points, &units, settings, progress);
+        correct_for_depletion(
+            &mut report,
+            &points,
+            &left_out_points,
+            &units,
+            settings,
+            &corrections,
+            progress,
+        );
     } else {
         report.estimator = initial.estimator;
     }
@@ -545,6 +743,7 @@ fn correct_for_depletion(
     left_out_points: &[FitPoint],
     units: &GroupUnits,
     settings: &FitSettings,
+    corrections: &PlateCorrections,
     progress: &mut dyn FnMut(usize, usize),
 ) {
     let quick = FitSettings {
@@ -561,11 +760,15 @@ fn correct_for_depletion(
         let mut next = points.to_vec();
         let mut largest_change = 0.0f64;
         for ((point, original), new) in next.iter_mut().zip(points).zip(&corrected) {
-            if let Some((rate, _)) = new {
+            if let Some((rate, se)) = new {
                 any_corrected = true;
                 point.rate = *rate;
+                point.se = Some(*se);
+                point.rate_per_chord = original.window.map_or(1.0, |w| se / w.se);
             } else {
                 point.rate = original.rate;
+                point.se = original.se;
+                point.rate_per_chord = 1.0;
             }
             // A plate point's SD is its replicates' spread: recomputed from the corrected rates.
             if original.window.is_some() {
@@ -587,6 +790,7 @@ fn correct_for_depletion(
             report.wells_left_out.clone(),
             units,
             &quick,
+            None,
             &mut |_, _| {},
         );
         law = refit.law.clone();
@@ -602,6 +806,7 @@ fn correct_for_depletion(
         left_out,
         units,
         settings,
+        Some(corrections),
         progress,
     );
     final_report.warnings = report
@@ -639,13 +844,30 @@ pub fn fit_points(
     left_out: Vec<LeftOut>,
     units: &GroupUnits,
     settings: &FitSettings,
+    corrections: Option<&PlateCorrections>,
     progress: &mut dyn FnMut(usize, usize),
 ) -> GroupFit {
     let mut report = empty_report(group, points, left_out, settings);
     let substrate: Vec<f64> = points.iter().map(|p| p.substrate).collect();
     let inhibitor: Vec<f64> = points.iter().map(|p| p.inhibitor).collect();
     let rates: Vec<f64> = points.iter().map(|p| p.rate).collect();
-    let sds: Option<Vec<f64>> = points.iter().map(|p| p.sd).collect();
+    let sds: Option<Vec<f64>> = if settings.weighting == Weighting::RateSe {
+        points.iter().map(|p| p.se).collect()
+    } else {
+        points.iter().map(|p| p.sd).collect()
+    };
+    if settings.weighting == Weighting::RateSe && sds.is_none() {
+        let lacking: Vec<&str> = points
+            .iter()
+            .filter(|p| p.se.is_none())
+            .map(|p| p.label.as_str())
+            .collect();
+        report.error = Some(format!(
+            "no fit: rate-se weighting needs a standard error at every point (a rate_se column, or a plate's wells); none for {}",
+            lacking.join(", ")
+        ));
+        return report;
+    }
     if settings.weighting == Weighting::ReplicateSd && sds.is_none() {
         let lacking: Vec<&str> = points
             .iter()
@@ -678,7 +900,12 @@ pub fn fit_points(
         settings.weighting,
         enzyme_in_inhibitor_unit,
     ) {
-        Ok(data) => data,
+        Ok(mut data) => {
+            if let Some(corrections) = corrections {
+                data.shared = shared_rate_errors(points, corrections);
+            }
+            data
+        }
         Err(error) => {
             report.error = Some(format!("no fit: {error}"));
             return report;

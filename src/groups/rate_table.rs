@@ -123,6 +123,7 @@ struct Columns {
     inhibitor: Option<usize>,
     enzyme: Option<usize>,
     sd: Option<usize>,
+    se: Option<usize>,
     role: Option<usize>,
     used: Option<usize>,
     factors: Vec<(usize, String)>,
@@ -205,6 +206,7 @@ pub fn read_rate_table(
         } else {
             find(&["sd", "rate_sd"])
         },
+        se: find(&["rate_se", "se"]),
         role: find(&["role"]),
         used: find(&["used"]),
         factors: Vec::new(),
@@ -215,6 +217,7 @@ pub fn read_rate_table(
         columns.inhibitor,
         columns.enzyme,
         columns.sd,
+        columns.se,
         // Never a factor, even when the mean's standard error is the weight.
         find(&["rate_sd", "sd"]),
     ]
@@ -275,6 +278,10 @@ pub fn read_rate_table(
             Some(column) => number(&grid, row, column, &headers[column])?,
             None => None,
         };
+        let se_value = match columns.se {
+            Some(column) => number(&grid, row, column, &headers[column])?,
+            None => None,
+        };
         let used = columns
             .used
             .is_none_or(|column| !grid.cell(row, column).as_text().eq_ignore_ascii_case("false"));
@@ -303,6 +310,9 @@ pub fn read_rate_table(
                     inhibitor: inhibitor_value.unwrap_or(0.0),
                     rate,
                     sd: sd_value,
+                    se: se_value,
+                    background: None,
+                    rate_per_chord: 1.0,
                 });
             }
             (false, ..) => group.left_out.push(LeftOut {
@@ -390,6 +400,7 @@ pub fn fit_table(
                 group.left_out.clone(),
                 &units,
                 settings,
+                None,
                 progress,
             )
         })

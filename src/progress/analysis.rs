@@ -19,7 +19,9 @@
 use std::collections::BTreeMap;
 
 use super::choice::{compare_models, ModelTried};
-use super::global_fit::{GlobalFit, GlobalFitOptions, ProgressModel, WellCurve};
+use super::global_fit::{
+    ErrorShape, GlobalFit, GlobalFitOptions, ProgressModel, SharedSignalError, SharedSignalErrors, WellCurve,
+};
 use super::trust::{
     decide_trust, RunReason, Suspicion, Trust, TrustDecision, TrustEvidence, TrustReason, WellEvidence,
 };
@@ -30,7 +32,9 @@ use crate::core::stats::{straight_line, t_quantile_975};
 use crate::groups::{sample_groups, GroupFit, GroupKey, ParameterReport};
 use crate::import::KineticData;
 use crate::layout::Layout;
+use crate::rates::background::{Background, BackgroundLaw};
 use crate::rates::{Flag, PlateAnalysis, WellResult};
+use crate::signal::{BlankUncertainty, PlateSignal};
 
 /// Relative difference between the layout's S0 and the S0 read from the first signal above which
 /// the report names the well (a rule of this program: beyond pipetting precision).
@@ -293,10 +297,112 @@ struct GroupInput<'a> {
     initial: Option<&'a GroupFit>,
 }
 
-/// A fitted well's S0 as the layout gives it and as the first signal gives it.
+/// A fitted well's S0 as the layout gives it and as the first signal gives it, and its background.
 struct SubstrateStart {
     layout: f64,
     from_signal: Option<f64>,
+    background: Option<Background>,
+}
+
+/// The errors the group's signals share, from the plate's estimated corrections (the blank and the
+/// no-enzyme background), with their covariance: a block per correction.
+fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSignalErrors {
+    let n = starts.len();
+    let mut errors = Vec::new();
+    let mut blocks: Vec<Vec<Vec<f64>>> = Vec::new();
+    // The blank is subtracted from every well alike: the signal moves by minus its error.
+    match &signal.blank_uncertainty {
+        BlankUncertainty::None => {}
+        BlankUncertainty::Smooth { t_scale, covariance } => {
+            for power in 0..covariance.len() {
+                errors.push(SharedSignalError {
+                    well_weights: vec![-1.0; n],
+                    shape: ErrorShape::Power {
+                        power: power as i32,
+                        t_scale: *t_scale,
+                    },
+                });
+            }
+            blocks.push(covariance.clone());
+        }
+        BlankUncertainty::PerRead { variances } => {
+            for (time, variance) in signal.read_times_s.iter().zip(variances) {
+                errors.push(SharedSignalError {
+                    well_weights: vec![-1.0; n],
+                    shape: ErrorShape::AtTime(*time),
+                });
+                blocks.push(vec![vec![*variance]]);
+            }
+        }
+    }
+    // The background drift (rate x t, in AU) is subtracted from each well it serves.
+    let Some(per_absorbance) = signal.per_absorbance else {
+        return assemble(errors, &blocks);
+    };
+    let to_au = -signal.sign / per_absorbance;
+    let linear = ErrorShape::Power {
+        power: 1,
+        t_scale: 1.0,
+    };
+    let mut laws: Vec<BackgroundLaw> = Vec::new();
+    let mut matched: Vec<(f64, f64)> = Vec::new();
+    for start in starts {
+        match &start.background {
+            Some(Background::Modelled { law, .. }) if !laws.contains(law) => laws.push(*law),
+            Some(Background::Matched { rate, se, .. }) if !matched.contains(&(*rate, *se)) => {
+                matched.push((*rate, *se));
+            }
+            _ => {}
+        }
+    }
+    for law in laws {
+        let serves = |start: &SubstrateStart| matches!(&start.background, Some(Background::Modelled { law: l, .. }) if *l == law);
+        errors.push(SharedSignalError {
+            well_weights: starts
+                .iter()
+                .map(|start| if serves(start) { to_au * start.layout } else { 0.0 })
+                .collect(),
+            shape: linear,
+        });
+        errors.push(SharedSignalError {
+            well_weights: starts
+                .iter()
+                .map(|start| if serves(start) { to_au } else { 0.0 })
+                .collect(),
+            shape: linear,
+        });
+        blocks.push(law.covariance.iter().map(|row| row.to_vec()).collect());
+    }
+    for (rate, se) in matched {
+        errors.push(SharedSignalError {
+            well_weights: starts
+                .iter()
+                .map(|start| match &start.background {
+                    Some(Background::Matched { rate: r, se: s, .. }) if (*r, *s) == (rate, se) => to_au,
+                    _ => 0.0,
+                })
+                .collect(),
+            shape: linear,
+        });
+        blocks.push(vec![vec![se * se]]);
+    }
+    assemble(errors, &blocks)
+}
+
+/// The errors with their block-diagonal covariance.
+fn assemble(errors: Vec<SharedSignalError>, blocks: &[Vec<Vec<f64>>]) -> SharedSignalErrors {
+    let size: usize = blocks.iter().map(Vec::len).sum();
+    let mut covariance = vec![vec![0.0; size]; size];
+    let mut at = 0;
+    for block in blocks {
+        for (i, row) in block.iter().enumerate() {
+            for (j, value) in row.iter().enumerate() {
+                covariance[at + i][at + j] = *value;
+            }
+        }
+        at += block.len();
+    }
+    SharedSignalErrors { errors, covariance }
 }
 
 /// The wells' curves, or why none can be built for the group.
@@ -403,6 +509,7 @@ fn well_curves(
         starts.push(SubstrateStart {
             layout: s0,
             from_signal: s0_signal,
+            background: well.correction.background.clone(),
         });
         let s0_used = match (settings.progress.s0_from_signal, s0_signal) {
             (true, Some(from_signal)) => from_signal,
@@ -464,6 +571,7 @@ fn analyse_group(input: GroupInput, run: RunReason) -> ProgressGroupReport {
     let base = GlobalFitOptions {
         dead_time_s: input.settings.rates.dead_time_s,
         fit_dead_time: input.settings.progress.fit_dead_time,
+        shared_errors: shared_errors(&input.analysis.signal, &starts),
         ..GlobalFitOptions::default()
     };
     let (chosen, models_tried) = match compare_models(&curves, &base) {

@@ -98,6 +98,57 @@ impl ProgressModel {
     }
 }
 
+/// The shape in time of an error shared by wells' signals.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum ErrorShape {
+    /// `(t / t_scale)^power`, t the read time.
+    Power {
+        /// The power.
+        power: i32,
+        /// The time scale, s.
+        t_scale: f64,
+    },
+    /// 1 at this read time, 0 elsewhere.
+    AtTime(f64),
+}
+
+impl ErrorShape {
+    fn at(self, t: f64) -> f64 {
+        match self {
+            ErrorShape::Power { power, t_scale } => (t / t_scale).powi(power),
+            ErrorShape::AtTime(time) => {
+                if (t - time).abs() <= 1e-9 * time.abs().max(1.0) {
+                    1.0
+                } else {
+                    0.0
+                }
+            }
+        }
+    }
+}
+
+/// An error that several wells' signals share: a correction subtracted from them that was itself
+/// estimated (the blank, the no-enzyme background). Its effect on well w's signal at read time t is
+/// `well_weights[w] x shape(t)` per unit of the error.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SharedSignalError {
+    /// The error's weight on each well's signal, in the order of the fit's wells.
+    pub well_weights: Vec<f64>,
+    /// Its shape in time.
+    pub shape: ErrorShape,
+}
+
+/// The shared errors of a group and their covariance; the fit adds what they do to its estimates,
+/// `A C A^T` with `A = (J^T J)^-1 J^T L` (L the errors' loadings on the observations), to the
+/// covariance clustered by well.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct SharedSignalErrors {
+    /// The errors.
+    pub errors: Vec<SharedSignalError>,
+    /// Their covariance, one row and column per error.
+    pub covariance: Vec<Vec<f64>>,
+}
+
 /// How to fit.
 #[derive(Debug, Clone, PartialEq)]
 pub struct GlobalFitOptions {
@@ -111,6 +162,8 @@ pub struct GlobalFitOptions {
     pub ode: OdeTolerances,
     /// Compute the profile-likelihood interval of Km.
     pub profile_km: bool,
+    /// Errors the wells' signals share (estimated corrections), propagated into the covariance.
+    pub shared_errors: SharedSignalErrors,
 }
 
 impl Default for GlobalFitOptions {
@@ -121,6 +174,7 @@ impl Default for GlobalFitOptions {
             fit_dead_time: false,
             ode: OdeTolerances::default(),
             profile_km: true,
+            shared_errors: SharedSignalErrors::default(),
         }
     }
 }
@@ -712,7 +766,12 @@ fn summarise(
     let mut residuals = vec![0.0; n];
     problem.residuals(&parameters, &mut residuals);
     let clusters: Vec<std::ops::Range<usize>> = problem.offsets.windows(2).map(|w| w[0]..w[1]).collect();
-    let by_well = cluster_robust_covariance(&jacobian, &residuals, &clusters);
+    let by_well = cluster_robust_covariance(&jacobian, &residuals, &clusters).map(|clustered| {
+        match shared_error_covariance(&jacobian, problem, wells, &options.shared_errors) {
+            Some(shared) => clustered + shared,
+            None => clustered,
+        }
+    });
     let well_quantile = (m >= 2).then(|| t_quantile_975(m - 1).ok()).flatten();
     let names = problem.parameter_names();
     let fitted: Vec<FittedParameter> = names
@@ -767,6 +826,52 @@ fn summarise(
         iterations,
         wells: well_diagnostics,
     }
+}
+
+/// What the shared errors do to the estimates: `A C A^T`, `A = (J^T J)^-1 J^T L` (module docs of
+/// [`SharedSignalErrors`]); `None` without errors or when `J^T J` is singular.
+fn shared_error_covariance(
+    jacobian: &DMatrix<f64>,
+    problem: &ProgressProblem,
+    wells: &[WellCurve],
+    shared: &SharedSignalErrors,
+) -> Option<DMatrix<f64>> {
+    let k = shared.errors.len();
+    if k == 0 {
+        return None;
+    }
+    let (n, p) = jacobian.shape();
+    let bread = asymptotic_covariance(jacobian, n.saturating_sub(p) as f64).covariance?;
+    // J^T L, without forming L (n x k): each error touches the reads of the wells it weighs.
+    let mut jt_l = DMatrix::<f64>::zeros(p, k);
+    for (column, error) in shared.errors.iter().enumerate() {
+        for (index, well) in wells.iter().enumerate() {
+            let weight = error.well_weights.get(index).copied().unwrap_or(0.0);
+            if weight == 0.0 {
+                continue;
+            }
+            let start = problem.offsets[index];
+            for (read, &t) in well.times_s.iter().enumerate() {
+                let loading = weight * error.shape.at(t);
+                if loading != 0.0 {
+                    for row in 0..p {
+                        jt_l[(row, column)] += jacobian[(start + read, row)] * loading;
+                    }
+                }
+            }
+        }
+    }
+    let covariance = DMatrix::from_fn(k, k, |i, j| {
+        shared
+            .covariance
+            .get(i)
+            .and_then(|row| row.get(j))
+            .copied()
+            .unwrap_or(0.0)
+    });
+    let a = bread * jt_l;
+    let result = &a * covariance * a.transpose();
+    result.iter().all(|v| v.is_finite()).then_some(result)
 }
 
 fn well_diagnostics(

@@ -55,8 +55,10 @@ pub enum Background {
         /// Controls averaged.
         controls: usize,
     },
-    /// No control at the sample's [S]: the first-order model over the controls' [S] levels.
+    /// The first-order model over the controls' [S] levels.
     Modelled {
+        /// The model itself (shared by every sample its controls serve).
+        law: BackgroundLaw,
         /// The background rate at the sample's [S].
         rate: f64,
         /// Its standard error.
@@ -70,6 +72,18 @@ pub enum Background {
     },
     /// No background.
     None(NoBackground),
+}
+
+/// A first-order background model: `v_bg = intercept + slope S`, with the covariance of
+/// (slope, intercept) (the intercept and its variances are 0 for a model through the origin).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct BackgroundLaw {
+    /// Rate per unit S, 1/s.
+    pub slope: f64,
+    /// Rate at S = 0.
+    pub intercept: f64,
+    /// Covariance `[[var slope, cov], [cov, var intercept]]`.
+    pub covariance: [[f64; 2]; 2],
 }
 
 /// Why a sample has no background.
@@ -240,7 +254,17 @@ fn first_order_model(controls: &[(f64, f64, f64)], substrate: f64) -> Option<Bac
                 }
                 let rate = intercept + slope * substrate;
                 let se = (variance * (1.0 / n as f64 + (substrate - mean_s).powi(2) / sxx)).sqrt();
+                let var_slope = variance / sxx;
+                let law = BackgroundLaw {
+                    slope,
+                    intercept,
+                    covariance: [
+                        [var_slope, -mean_s * var_slope],
+                        [-mean_s * var_slope, var_intercept],
+                    ],
+                };
                 return Some(Background::Modelled {
+                    law,
                     rate,
                     se,
                     controls: n,
@@ -253,7 +277,13 @@ fn first_order_model(controls: &[(f64, f64, f64)], substrate: f64) -> Option<Bac
     if lacks_fit(controls, |x| k * x, 1) {
         return None;
     }
+    let var_k = origin_variance / sum_ss;
     Some(Background::Modelled {
+        law: BackgroundLaw {
+            slope: k,
+            intercept: 0.0,
+            covariance: [[var_k, 0.0], [0.0, 0.0]],
+        },
         rate: k * substrate,
         se: substrate * (origin_variance / sum_ss).sqrt(),
         controls: n,

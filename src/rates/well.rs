@@ -52,7 +52,7 @@ use std::fmt;
 use super::window_fit::{LineFit, WindowSums};
 pub use crate::config::RateSettings;
 use crate::core::format::format_seconds;
-use crate::core::stats::{median, t_critical};
+use crate::core::stats::{median, t_critical, third_difference_noise};
 
 /// A reason not to trust a well's rate.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, serde::Serialize)]
@@ -388,44 +388,20 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
     result
 }
 
-/// Consecutive reads count as evenly spaced when their steps differ by less than this fraction.
-const EVEN_SPACING_TOLERANCE: f64 = 0.01;
-
 /// The well's read noise from third differences (module docs); `None` below 4 differences.
 pub fn read_noise(times: &[f64], values: &[f64], absorbances: &[f64]) -> Option<ReadNoise> {
-    let mut differences = Vec::new();
-    for i in 0..times.len().saturating_sub(3) {
-        let steps = [
-            times[i + 1] - times[i],
-            times[i + 2] - times[i + 1],
-            times[i + 3] - times[i + 2],
-        ];
-        let even = steps
-            .iter()
-            .all(|step| (step - steps[0]).abs() <= EVEN_SPACING_TOLERANCE * steps[0].abs());
-        if even {
-            differences.push(values[i + 3] - 3.0 * values[i + 2] + 3.0 * values[i + 1] - values[i]);
-        }
-    }
-    if differences.len() < 4 {
-        return None;
-    }
-    let centre = median(differences.iter().copied())?;
-    let mad = median(differences.iter().map(|d| (d - centre).abs()))?;
+    let sd = third_difference_noise(times, values)?;
     let resolution = values
         .windows(2)
         .map(|pair| (pair[1] - pair[0]).abs())
         .filter(|step| *step > 0.0)
         .fold(f64::INFINITY, f64::min);
     Some(ReadNoise {
-        sd: MAD_TO_SD * mad / 20f64.sqrt(),
+        sd,
         absorbance: median(absorbances.iter().copied())?,
         resolution,
     })
 }
-
-/// MAD to standard deviation at the normal distribution.
-const MAD_TO_SD: f64 = 1.4826;
 
 /// Plate-level reference values for the `noisy` and `weak` flags: the read noise of every well
 /// that has one, by absorbance, and the scatter of the blank wells' slopes.

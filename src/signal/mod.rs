@@ -38,14 +38,37 @@ pub enum BlankModel {
     PerRead,
 }
 
+/// The uncertainty of the blank subtracted, an error every well shares (the fits propagate it).
+#[derive(Debug, Clone, PartialEq)]
+pub enum BlankUncertainty {
+    /// No blank subtracted.
+    None,
+    /// A polynomial `sum_k beta_k (t / t_scale)^k` whose coefficients have this covariance.
+    Smooth {
+        /// The time scale of the polynomial's argument, s.
+        t_scale: f64,
+        /// Covariance of the coefficients, AU^2.
+        covariance: Vec<Vec<f64>>,
+    },
+    /// The blank wells' mean at each read, each with this variance (independent between reads).
+    PerRead {
+        /// Variance of the blank at each read, AU^2.
+        variances: Vec<f64>,
+    },
+}
+
 /// Level of the tests that choose the blank model.
 pub const BLANK_MODEL_ALPHA: f64 = 0.01;
 
 /// How a plate's raw readings become product formed.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PlateSignal {
+    /// The export's read times, s.
+    pub read_times_s: Vec<f64>,
     /// How the blank was made.
     pub blank_model: BlankModel,
+    /// How uncertain the blank is.
+    pub blank_uncertainty: BlankUncertainty,
     /// The blank at each read, AU: the mean of the readable blank wells (0 where none is readable).
     pub blank_per_read: Vec<f64>,
     /// How many blank wells the layout has in the data.
@@ -62,11 +85,7 @@ pub struct PlateSignal {
 
 /// The smooth blank (module docs): the degree and the curve at every read, or `None` when the blank
 /// wells move together from read to read (or there are too few reads for a smooth curve).
-fn smooth_blank(
-    times: &[f64],
-    measured: &[Option<f64>],
-    traces: &[&[Option<f64>]],
-) -> Option<(usize, Vec<f64>)> {
+fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&[Option<f64>]]) -> Option<SmoothBlank> {
     let points: Vec<(f64, f64)> = times
         .iter()
         .zip(measured)
@@ -76,67 +95,117 @@ fn smooth_blank(
     if traces.len() < 2 || n < 6 {
         return None;
     }
-    let polynomial_fit = |degree: usize| -> Option<(nalgebra::DVector<f64>, f64, f64)> {
-        let t_scale = points.iter().map(|(t, _)| t.abs()).fold(0.0, f64::max).max(1.0);
+    let t_scale = points.iter().map(|(t, _)| t.abs()).fold(0.0, f64::max).max(1.0);
+    // Least squares of the mean on (t/T)^k, k <= degree: coefficients, their (X'X)^-1, RSS.
+    let polynomial_fit = |degree: usize| -> Option<(nalgebra::DVector<f64>, nalgebra::DMatrix<f64>, f64)> {
         let x = nalgebra::DMatrix::from_fn(n, degree + 1, |row, column| {
             (points[row].0 / t_scale).powi(column as i32)
         });
         let y = nalgebra::DVector::from_iterator(n, points.iter().map(|(_, m)| *m));
-        let xtx = x.transpose() * &x;
-        let inverse = xtx.try_inverse()?;
+        let inverse = (x.transpose() * &x).try_inverse()?;
         let beta = &inverse * x.transpose() * &y;
         let residuals = &y - &x * &beta;
-        let rss = residuals.dot(&residuals);
-        let variance = rss / (n - degree - 1) as f64;
-        let last = beta[degree]
-            / inverse[(degree, degree)].max(0.0).sqrt().max(f64::MIN_POSITIVE)
-            / variance.sqrt().max(f64::MIN_POSITIVE);
-        Some((beta, rss, last))
+        Some((beta, inverse, residuals.dot(&residuals)))
     };
-    let (line, line_rss, _) = polynomial_fit(1)?;
-    let (quadratic, quadratic_rss, quadratic_t) = polynomial_fit(2)?;
+    let line = polynomial_fit(1)?;
+    let quadratic = polynomial_fit(2)?;
+    let quadratic_variance = quadratic.2 / (n - 3) as f64;
+    let quadratic_t = quadratic.0[2]
+        / (quadratic_variance * quadratic.1[(2, 2)])
+            .max(f64::MIN_POSITIVE)
+            .sqrt();
     let use_quadratic = quadratic_t.abs() > crate::core::stats::t_critical(BLANK_MODEL_ALPHA, n - 3);
-    let (degree, beta, rss) = if use_quadratic {
-        (2, quadratic, quadratic_rss)
-    } else {
-        (1, line, line_rss)
-    };
+    let (degree, (beta, inverse, rss)) = if use_quadratic { (2, quadratic) } else { (1, line) };
+    let residual_variance = rss / (n - degree - 1) as f64;
     // Do the blank wells move together? The mean's variance around the curve against the wells'
     // own scatter around their mean, divided by the number of wells.
-    {
-        let mut within = 0.0;
-        let mut within_dof = 0usize;
-        for (read, mean) in measured.iter().enumerate() {
-            let Some(mean) = mean else { continue };
-            let values: Vec<f64> = traces.iter().filter_map(|trace| trace[read]).collect();
-            if values.len() >= 2 {
-                within += values.iter().map(|v| (v - mean).powi(2)).sum::<f64>();
-                within_dof += values.len() - 1;
-            }
-        }
-        if within_dof > 0 && within > 0.0 {
-            let per_well_variance = within / within_dof as f64;
-            let wells_per_read = (within_dof as f64 / n as f64) + 1.0;
-            let expected = per_well_variance / wells_per_read;
-            let observed = rss / (n - degree - 1) as f64;
-            let f = observed / expected;
-            let shared = crate::core::stats::f_quantile(
-                1.0 - BLANK_MODEL_ALPHA,
-                (n - degree - 1) as f64,
-                within_dof as f64,
-            )
-            .is_ok_and(|critical| f > critical);
-            if shared {
-                return None;
-            }
+    let mut within = 0.0;
+    let mut within_dof = 0usize;
+    for (read, mean) in measured.iter().enumerate() {
+        let Some(mean) = mean else { continue };
+        let values: Vec<f64> = traces.iter().filter_map(|trace| trace[read]).collect();
+        if values.len() >= 2 {
+            within += values.iter().map(|v| (v - mean).powi(2)).sum::<f64>();
+            within_dof += values.len() - 1;
         }
     }
-    let t_scale = points.iter().map(|(t, _)| t.abs()).fold(0.0, f64::max).max(1.0);
+    if within_dof > 0 && within > 0.0 {
+        let per_well_variance = within / within_dof as f64;
+        let wells_per_read = (within_dof as f64 / n as f64) + 1.0;
+        let expected = per_well_variance / wells_per_read;
+        let f = residual_variance / expected;
+        let shared = crate::core::stats::f_quantile(
+            1.0 - BLANK_MODEL_ALPHA,
+            (n - degree - 1) as f64,
+            within_dof as f64,
+        )
+        .is_ok_and(|critical| f > critical);
+        if shared {
+            return None;
+        }
+    }
     let curve = times
         .iter()
         .map(|t| (0..=degree).map(|k| beta[k] * (t / t_scale).powi(k as i32)).sum())
         .collect();
-    Some((degree, curve))
+    let covariance = (inverse * residual_variance)
+        .row_iter()
+        .map(|row| row.iter().copied().collect())
+        .collect();
+    Some(SmoothBlank {
+        degree,
+        curve,
+        uncertainty: BlankUncertainty::Smooth { t_scale, covariance },
+    })
+}
+
+/// The per-read blank's variance at each read: one well's read variance (from the blank wells'
+/// scatter around their mean, or with one well from its third differences) over the wells read.
+fn per_read_uncertainty(
+    times: &[f64],
+    measured: &[Option<f64>],
+    traces: &[&[Option<f64>]],
+) -> BlankUncertainty {
+    let mut within = 0.0;
+    let mut within_dof = 0usize;
+    for (read, mean) in measured.iter().enumerate() {
+        let Some(mean) = mean else { continue };
+        let values: Vec<f64> = traces.iter().filter_map(|trace| trace[read]).collect();
+        if values.len() >= 2 {
+            within += values.iter().map(|v| (v - mean).powi(2)).sum::<f64>();
+            within_dof += values.len() - 1;
+        }
+    }
+    let one_read_variance = if within_dof > 0 {
+        within / within_dof as f64
+    } else {
+        let (t, v): (Vec<f64>, Vec<f64>) = traces
+            .first()
+            .map(|trace| {
+                times
+                    .iter()
+                    .zip(trace.iter())
+                    .filter_map(|(t, v)| v.map(|v| (*t, v)))
+                    .unzip()
+            })
+            .unwrap_or_default();
+        crate::core::stats::third_difference_noise(&t, &v).map_or(0.0, |sd| sd * sd)
+    };
+    BlankUncertainty::PerRead {
+        variances: (0..times.len())
+            .map(|read| {
+                let readable = traces.iter().filter(|trace| trace[read].is_some()).count().max(1);
+                one_read_variance / readable as f64
+            })
+            .collect(),
+    }
+}
+
+/// A smooth blank: its degree, its value at every read, and its coefficients' uncertainty.
+struct SmoothBlank {
+    degree: usize,
+    curve: Vec<f64>,
+    uncertainty: BlankUncertainty,
 }
 
 /// Fills the reads without a value by linear interpolation in time between the nearest reads
@@ -206,10 +275,17 @@ impl PlateSignal {
         let smooth = smooth_blank(&data.times_s, &measured, &traces);
         let blank_model = match (&smooth, blank_wells.is_empty()) {
             (_, true) => BlankModel::None,
-            (Some((degree, _)), false) => BlankModel::Smooth { degree: *degree },
+            (Some(smooth), false) => BlankModel::Smooth {
+                degree: smooth.degree,
+            },
             (None, false) => BlankModel::PerRead,
         };
-        let blank_per_read = if let Some((_, curve)) = smooth {
+        let blank_uncertainty = match &smooth {
+            _ if blank_wells.is_empty() => BlankUncertainty::None,
+            Some(smooth) => smooth.uncertainty.clone(),
+            None => per_read_uncertainty(&data.times_s, &measured, &traces),
+        };
+        let blank_per_read = if let Some(SmoothBlank { curve, .. }) = smooth {
             let gaps: Vec<usize> = measured
                 .iter()
                 .enumerate()
@@ -267,7 +343,9 @@ impl PlateSignal {
             }
         };
         PlateSignal {
+            read_times_s: data.times_s.clone(),
             blank_model,
+            blank_uncertainty,
             blank_per_read,
             n_blank_wells: blank_wells.len(),
             sign: match settings.readout {

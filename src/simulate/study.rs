@@ -304,6 +304,11 @@ fn analyse_plate(
     let fit_settings = FitSettings {
         model: (design == StudyDesign::Inhibition).then_some(ModelRequest::Fixed(RateModelKind::Competitive)),
         profile: false,
+        weighting: if std::env::var_os("STUDY_WEIGHTED").is_some() {
+            crate::config::Weighting::RateSe
+        } else {
+            crate::config::Weighting::None
+        },
         ..FitSettings::default()
     };
     let mut intervals = Vec::new();
