@@ -28,7 +28,7 @@ use super::trust::{
 use crate::config::{AnalysisSettings, ProgressMode, Readout};
 use crate::core::format::significant;
 use crate::core::plate::WellId;
-use crate::core::stats::{straight_line, t_quantile_975};
+use crate::core::stats::{median, straight_line, t_quantile_975};
 use crate::groups::{sample_groups, GroupFit, GroupKey, ParameterReport};
 use crate::import::KineticData;
 use crate::layout::Layout;
@@ -198,9 +198,18 @@ pub struct ProgressAnalysis {
     pub groups: Vec<ProgressGroupReport>,
 }
 
-/// The signs of suspicion in a group's initial rates.
+/// The signs of suspicion in a group's initial rates ([`super::trust`] module docs).
 fn suspicion(wells: &[&WellResult], max_conversion: f64) -> Option<Suspicion> {
     let count = |flag: Flag| wells.iter().filter(|w| w.rate.flags.contains(&flag)).count();
+    let median_s0 = median(wells.iter().filter_map(|w| w.setup.substrate));
+    let low_substrate_conversion = median_s0.and_then(|m| {
+        median(
+            wells
+                .iter()
+                .filter(|w| w.setup.substrate.is_some_and(|s| s <= m))
+                .filter_map(|w| w.rate.conversion),
+        )
+    });
     Suspicion {
         depleted: count(Flag::Depleted),
         nonlinear: count(Flag::Nonlinear),
@@ -209,6 +218,7 @@ fn suspicion(wells: &[&WellResult], max_conversion: f64) -> Option<Suspicion> {
             .filter(|w| w.rate.conversion.is_some_and(|c| c > max_conversion))
             .count(),
         max_conversion,
+        low_substrate_conversion,
     }
     .found()
 }

@@ -1,11 +1,31 @@
-//! Which analysis of a group to trust, as a typed decision with its reasons as data: the
-//! progress-curve fit is preferred when the group's initial rates are suspect (depleted or
-//! nonlinear wells, or conversion above the limit) and the fit shows no systematic misfit in more
-//! than a third of the wells; when initial rates are clean and the two analyses' Km agree (their
-//! 95% intervals overlap) either will do; when they disagree and the window slopes of the
-//! lower-S0 wells fall short of the fitted initial rates (median below [`CHORD_SHORTFALL`],
-//! depletion within the windows) the progress-curve fit is preferred; otherwise neither is
-//! trusted without checking. Sentences are made from these values only when rendering.
+//! When to run the progress-curve analysis, and which analysis of a group to trust, as typed
+//! decisions with their reasons as data (sentences are made from them only when rendering).
+//!
+//! # When `--progress auto` runs the fit (rules of this program)
+//! A group's initial rates are suspect, and the progress-curve fit runs, when any of its wells is
+//! flagged `depleted` or `nonlinear`, when any window converted more than the conversion limit
+//! (a fixed window), or when the wells at or below the group's median S0 convert a median of more
+//! than [`LOW_SUBSTRATE_CONVERSION`] of their substrate over their windows: at [S] << Km a chord
+//! then reads at least 2% below the initial rate, enough to move Km by more than its usual
+//! standard error, so the whole curves are worth fitting as a check even though the integrated
+//! estimator corrects the chords.
+//!
+//! # Which analysis to trust
+//! The two analyses are compared, instead of letting one flagged well decide:
+//! 1. The whole curves misfit systematically (runs test) in more than a third of the wells: the
+//!    rate law fitted to whole curves does not hold over the read. The initial rates, which only
+//!    assume it near mixing, are trusted if they are not suspect (`initial-rate`); otherwise
+//!    `neither`.
+//! 2. No initial-rate Km to compare (its fit failed or has no interval): `progress-curve`.
+//! 3. The two 95% intervals of Km overlap: `either` (they agree; the progress-curve fit uses every
+//!    read and is usually the narrower).
+//! 4. They disagree and the initial rates are suspect, or the window slopes of the lower-S0 wells
+//!    fall short of the fitted initial rates (median below [`CHORD_SHORTFALL`]: depletion within
+//!    the windows): `progress-curve`.
+//! 5. They disagree with clean initial rates: `neither` without checking the rate law, the dead
+//!    time, the calibration and the substrate concentrations.
+//!
+//! A progress-curve fit that could not be made leaves the initial rates (`initial-rate`).
 
 use super::global_fit::ProgressModel;
 use crate::core::stats::median;
@@ -41,6 +61,10 @@ impl Trust {
     }
 }
 
+/// The median conversion over their windows of the wells at or below a group's median S0 above
+/// which its initial rates are suspect (module docs).
+pub const LOW_SUBSTRATE_CONVERSION: f64 = 0.04;
+
 /// Why a group's initial rates are suspect: how many wells show each sign.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Suspicion {
@@ -52,12 +76,17 @@ pub struct Suspicion {
     pub over_limit: usize,
     /// The conversion limit, as a fraction.
     pub max_conversion: f64,
+    /// Median conversion over their windows of the wells at or below the median S0, if known.
+    pub low_substrate_conversion: Option<f64>,
 }
 
 impl Suspicion {
-    /// The suspicion, if any well shows a sign.
+    /// The suspicion, if any well shows a sign (module docs).
     pub fn found(self) -> Option<Suspicion> {
-        (self.depleted + self.nonlinear + self.over_limit > 0).then_some(self)
+        let converting = self
+            .low_substrate_conversion
+            .is_some_and(|c| c > LOW_SUBSTRATE_CONVERSION);
+        (self.depleted + self.nonlinear + self.over_limit > 0 || converting).then_some(self)
     }
 }
 
@@ -106,7 +135,7 @@ pub enum TrustReason {
     NotRun(RunReason),
     /// The progress-curve fit could not be made.
     FitFailed(String),
-    /// The fitted model misfits many wells.
+    /// The fitted model misfits many wells (trust the initial rates if they are not suspect).
     ManyMisfits {
         /// The model.
         model: ProgressModel,
@@ -117,7 +146,9 @@ pub enum TrustReason {
         /// Whether the initial rates are suspect too.
         suspect: bool,
     },
-    /// The initial rates are suspect and the curves fit.
+    /// No initial-rate Km with an interval to compare with.
+    NoInitialRateKm,
+    /// The initial rates are suspect, the curves fit and the analyses disagree.
     SuspectInitialRates {
         /// Why the fit ran (it carries the signs of suspicion).
         run: RunReason,
@@ -133,10 +164,12 @@ pub enum TrustReason {
         /// Median window slope over the fitted initial rate in the lower-S0 wells.
         shortfall: f64,
     },
-    /// Clean initial rates and agreeing Km.
+    /// The two analyses' Km agree (their 95% intervals overlap).
     Agree {
         /// Both Km.
         km: Option<KmPair>,
+        /// The signs of suspicion the initial rates showed, if any.
+        suspicion: Option<Suspicion>,
     },
     /// Clean initial rates but disagreeing Km.
     Disagree {
@@ -180,14 +213,15 @@ pub struct TrustEvidence {
     pub initial_km: Option<(f64, Option<[f64; 2]>)>,
 }
 
-/// Decides which analysis to trust (module notes).
+/// Decides which analysis to trust (module docs).
 pub fn decide_trust(evidence: &TrustEvidence) -> TrustDecision {
     let misfits = evidence.wells.iter().filter(|w| w.systematic_misfit).count();
     let n_wells = evidence.wells.len();
     let suspicion = evidence.run.suspicion();
+    let initial_interval = evidence.initial_km.and_then(|(_, interval)| interval);
     // Agreement: the two 95% intervals of Km overlap.
-    let agree = match (evidence.progress_km, evidence.initial_km) {
-        (Some((_, Some([plo, phi]))), Some((_, Some([ilo, ihi])))) => plo <= ihi && ilo <= phi,
+    let agree = match (evidence.progress_km, initial_interval) {
+        (Some((_, Some([plo, phi]))), Some([ilo, ihi])) => plo <= ihi && ilo <= phi,
         _ => false,
     };
     let km = match (evidence.progress_km, evidence.initial_km) {
@@ -206,41 +240,39 @@ pub fn decide_trust(evidence: &TrustEvidence) -> TrustDecision {
                 .filter_map(|w| w.window_over_implied),
         )
     });
-    if 3 * misfits > n_wells {
-        TrustDecision {
-            trust: Trust::Neither,
-            reason: TrustReason::ManyMisfits {
-                model: evidence.model,
-                misfits,
-                wells: n_wells,
-                suspect: suspicion.is_some(),
-            },
-        }
-    } else if suspicion.is_some() {
-        TrustDecision {
-            trust: Trust::ProgressCurve,
-            reason: TrustReason::SuspectInitialRates {
-                run: evidence.run,
-                window_ratio,
-                km,
-            },
-        }
-    } else if let Some(shortfall) = low_substrate_shortfall.filter(|r| !agree && *r < CHORD_SHORTFALL) {
-        TrustDecision {
-            trust: Trust::ProgressCurve,
-            reason: TrustReason::DepletionWithinWindows { km, shortfall },
-        }
+    let (trust, reason) = if 3 * misfits > n_wells {
+        let trust = if suspicion.is_none() && evidence.initial_km.is_some() {
+            Trust::InitialRate
+        } else {
+            Trust::Neither
+        };
+        let reason = TrustReason::ManyMisfits {
+            model: evidence.model,
+            misfits,
+            wells: n_wells,
+            suspect: suspicion.is_some(),
+        };
+        (trust, reason)
+    } else if initial_interval.is_none() {
+        (Trust::ProgressCurve, TrustReason::NoInitialRateKm)
     } else if agree {
-        TrustDecision {
-            trust: Trust::Either,
-            reason: TrustReason::Agree { km },
-        }
+        (Trust::Either, TrustReason::Agree { km, suspicion })
+    } else if suspicion.is_some() {
+        let reason = TrustReason::SuspectInitialRates {
+            run: evidence.run,
+            window_ratio,
+            km,
+        };
+        (Trust::ProgressCurve, reason)
+    } else if let Some(shortfall) = low_substrate_shortfall.filter(|r| *r < CHORD_SHORTFALL) {
+        (
+            Trust::ProgressCurve,
+            TrustReason::DepletionWithinWindows { km, shortfall },
+        )
     } else {
-        TrustDecision {
-            trust: Trust::Neither,
-            reason: TrustReason::Disagree { km },
-        }
-    }
+        (Trust::Neither, TrustReason::Disagree { km })
+    };
+    TrustDecision { trust, reason }
 }
 
 #[cfg(test)]
@@ -282,7 +314,7 @@ mod tests {
         assert_eq!(agree.trust, Trust::Either);
         let disagree = decide_trust(&evidence(
             RunReason::Always(None),
-            clean,
+            clean.clone(),
             [9.0, 11.0],
             [12.0, 14.0],
         ));
@@ -291,7 +323,7 @@ mod tests {
         let short = vec![well(10.0, 0.95), well(20.0, 0.96), well(40.0, 1.0)];
         let depletion = decide_trust(&evidence(
             RunReason::Always(None),
-            short,
+            short.clone(),
             [9.0, 11.0],
             [12.0, 14.0],
         ));
@@ -300,22 +332,55 @@ mod tests {
             depletion.reason,
             TrustReason::DepletionWithinWindows { .. }
         ));
+        // The same shortfall with agreeing analyses: either.
+        let short_agreeing = decide_trust(&evidence(
+            RunReason::Always(None),
+            short,
+            [9.0, 11.0],
+            [10.5, 12.0],
+        ));
+        assert_eq!(short_agreeing.trust, Trust::Either);
         let suspicion = Suspicion {
             depleted: 2,
             nonlinear: 0,
             over_limit: 0,
             max_conversion: 0.1,
+            low_substrate_conversion: None,
         };
-        let suspect = decide_trust(&evidence(
+        // One flagged well does not decide: suspect initial rates that agree are still either.
+        let suspect_agreeing = decide_trust(&evidence(
             RunReason::Suspect(suspicion),
             vec![well(10.0, 1.0), well(20.0, 1.0)],
             [9.0, 11.0],
             [9.0, 11.0],
         ));
+        assert_eq!(suspect_agreeing.trust, Trust::Either);
+        assert!(matches!(
+            suspect_agreeing.reason,
+            TrustReason::Agree {
+                suspicion: Some(_),
+                ..
+            }
+        ));
+        let suspect = decide_trust(&evidence(
+            RunReason::Suspect(suspicion),
+            vec![well(10.0, 1.0), well(20.0, 1.0)],
+            [9.0, 11.0],
+            [12.0, 14.0],
+        ));
         assert_eq!(suspect.trust, Trust::ProgressCurve);
-        let mut misfitting = vec![well(10.0, 1.0), well(20.0, 1.0), well(40.0, 1.0)];
+        assert!(matches!(suspect.reason, TrustReason::SuspectInitialRates { .. }));
+        // Whole curves that misfit: the initial rates if they are sound, else neither.
+        let mut misfitting = clean;
         misfitting[0].systematic_misfit = true;
         misfitting[1].systematic_misfit = true;
+        let sound = decide_trust(&evidence(
+            RunReason::Always(None),
+            misfitting.clone(),
+            [9.0, 11.0],
+            [12.0, 14.0],
+        ));
+        assert_eq!(sound.trust, Trust::InitialRate);
         let neither = decide_trust(&evidence(
             RunReason::Suspect(suspicion),
             misfitting,
@@ -328,8 +393,35 @@ mod tests {
             TrustReason::ManyMisfits {
                 misfits: 2,
                 wells: 3,
+                suspect: true,
                 ..
             }
         ));
+        // No initial-rate interval to compare with: the curves.
+        let mut lonely = evidence(
+            RunReason::Always(None),
+            vec![well(10.0, 1.0), well(20.0, 1.0)],
+            [9.0, 11.0],
+            [9.0, 11.0],
+        );
+        lonely.initial_km = Some((10.0, None));
+        assert_eq!(decide_trust(&lonely).trust, Trust::ProgressCurve);
+    }
+
+    #[test]
+    fn low_substrate_conversion_alone_makes_the_rates_suspect() {
+        let quiet = Suspicion {
+            depleted: 0,
+            nonlinear: 0,
+            over_limit: 0,
+            max_conversion: 0.1,
+            low_substrate_conversion: Some(0.03),
+        };
+        assert_eq!(quiet.found(), None);
+        let converting = Suspicion {
+            low_substrate_conversion: Some(0.06),
+            ..quiet
+        };
+        assert_eq!(converting.found(), Some(converting));
     }
 }

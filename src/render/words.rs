@@ -6,7 +6,7 @@ use crate::core::format::significant;
 use crate::groups::{GroupKey, GroupValue, LeftOutPlace, LeftOutReason};
 use crate::progress::analysis::ProgressLeftOutReason;
 use crate::progress::choice::{ModelTried, ModelVerdict};
-use crate::progress::trust::{KmPair, RunReason, Suspicion, Trust, TrustReason};
+use crate::progress::trust::{KmPair, RunReason, Suspicion, Trust, TrustReason, LOW_SUBSTRATE_CONVERSION};
 use crate::rates::background::{Background, NoBackground};
 use crate::rates::{flag_words, Correction, Flag};
 use crate::signal::BlankModel;
@@ -95,6 +95,16 @@ pub fn suspicion_words(suspicion: &Suspicion) -> String {
             100.0 * suspicion.max_conversion
         ));
     }
+    if let Some(conversion) = suspicion
+        .low_substrate_conversion
+        .filter(|c| *c > LOW_SUBSTRATE_CONVERSION)
+    {
+        parts.push(format!(
+            "the lower-S0 wells converted a median {:.1}% of their substrate in their windows (over {:.0}%)",
+            100.0 * conversion,
+            100.0 * LOW_SUBSTRATE_CONVERSION
+        ));
+    }
     parts.join(", ")
 }
 
@@ -179,15 +189,22 @@ pub fn trust_reason_words(reason: &TrustReason) -> String {
             misfits,
             wells,
             suspect,
-        } => format!(
-            "neither without checking: the {} model misfits {misfits} of {wells} wells systematically, and {}",
-            model.name(),
+        } => {
             if *suspect {
-                "the initial rates are suspect"
+                format!(
+                    "neither without checking: the {} model misfits {misfits} of {wells} wells systematically over the whole read, and the initial rates are suspect",
+                    model.name()
+                )
             } else {
-                "the initial rates may be the safer summary"
+                format!(
+                    "the initial rates: the {} model misfits {misfits} of {wells} wells systematically over the whole read, while the initial rates, which assume the rate law only near mixing, look sound",
+                    model.name()
+                )
             }
-        ),
+        }
+        TrustReason::NoInitialRateKm => {
+            "the progress-curve fit: the initial rates give no Km with an interval to compare with".to_string()
+        }
         TrustReason::SuspectInitialRates { run, window_ratio, km } => {
             let ratio_text = window_ratio.map_or(String::new(), |r| {
                 format!(
@@ -200,7 +217,7 @@ pub fn trust_reason_words(reason: &TrustReason) -> String {
                 other => run_reason_words(other),
             };
             format!(
-                "the progress-curve fit: the initial rates are suspect ({why}) and the whole curves fit without systematic misfit{ratio_text}{}",
+                "the progress-curve fit: the initial rates are suspect ({why}), the two analyses disagree{} and the whole curves fit without systematic misfit{ratio_text}",
                 km_text(km)
             )
         }
@@ -209,12 +226,19 @@ pub fn trust_reason_words(reason: &TrustReason) -> String {
             km_text(km),
             100.0 * shortfall
         ),
-        TrustReason::Agree { km } => format!(
-            "either: the initial rates are clean and both analyses agree{}; the progress-curve fit uses every read and gives the narrower interval",
-            km_text(km)
-        ),
+        TrustReason::Agree { km, suspicion } => match suspicion {
+            None => format!(
+                "either: the initial rates are clean and both analyses agree{}; the progress-curve fit uses every read and usually gives the narrower interval",
+                km_text(km)
+            ),
+            Some(suspicion) => format!(
+                "either: the initial rates showed signs of depletion ({}) but both analyses agree{}; the progress-curve fit uses every read and usually gives the narrower interval",
+                suspicion_words(suspicion),
+                km_text(km)
+            ),
+        },
         TrustReason::Disagree { km } => format!(
-            "neither without checking: the initial rates look clean but the two analyses disagree{}; check the rate law, the dead time and the substrate concentrations",
+            "neither without checking: the initial rates look clean but the two analyses disagree{}; check the rate law, the dead time, the calibration (extinction x pathlength) and the substrate concentrations",
             km_text(km)
         ),
     }
@@ -300,6 +324,7 @@ mod tests {
             nonlinear: 0,
             over_limit: 1,
             max_conversion: 0.1,
+            low_substrate_conversion: None,
         };
         assert_eq!(
             run_reason_words(&RunReason::Suspect(suspicion)),

@@ -283,7 +283,9 @@ fn full_report_pngs_decode_and_are_not_blank() {
     };
     let files = crate::render::render_run_outputs(&results, &record(&layer)).unwrap();
     let pngs: Vec<&OutputFile> = files.iter().filter(|f| f.name.ends_with(".png")).collect();
-    let expected = 1 + 3 * results.fits.len() + results.analysis.wells.len();
+    // One plate map, three figures per group fit, two per progress-curve fit, one per well.
+    let progress_fits = results.progress.groups.iter().filter(|g| g.analysed).count();
+    let expected = 1 + 3 * results.fits.len() + 2 * progress_fits + results.analysis.wells.len();
     assert_eq!(pngs.len(), expected);
     for file in pngs.iter().filter(|f| !f.name.starts_with("plots/well-")).take(8) {
         let (width, height) = png_is_not_blank(&file.bytes);
