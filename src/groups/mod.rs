@@ -16,7 +16,7 @@ use std::collections::BTreeMap;
 
 use crate::config::{FitSettings, InitialRateEstimator, ModelRequest, RateModelKind, RobustLoss, Weighting};
 use crate::core::plate::WellId;
-use crate::core::stats::{summary, t_quantile_975};
+use crate::core::stats::{extra_replicate_variance, summary, t_quantile_975};
 use crate::core::units::ConcentrationUnit;
 use crate::fit::inference::{ConstantEstimate, Dimension, ProfileInterval};
 use crate::fit::models::RateData;
@@ -210,6 +210,9 @@ pub struct GroupFit {
     pub initial_rates: Vec<(WellId, f64, f64)>,
     /// The reported rate law as fitted (its parametrisation), for predictions.
     pub law: Option<FittedLaw>,
+    /// With `rate-se` weighting: the variance between replicates beyond their standard errors
+    /// (rate units squared) and its degrees of freedom, added to every point's.
+    pub extra_replicate_variance: Option<(f64, usize)>,
 }
 
 /// A fitted rate law in its own parametrisation (inverse constants as `1/K`), for predictions.
@@ -713,6 +716,7 @@ fn empty_report(
         estimator: InitialRateEstimator::Chord,
         initial_rates: Vec::new(),
         law: None,
+        extra_replicate_variance: None,
     }
 }
 
@@ -837,6 +841,28 @@ fn correct_for_depletion(
     *report = final_report;
 }
 
+/// Pure-error degrees of freedom below which the replicates' extra variance is not estimated.
+const MIN_REPLICATE_DEGREES_OF_FREEDOM: usize = 3;
+
+/// The variance between replicate points (same [S] and [I]) beyond their standard errors
+/// ([`crate::core::stats::extra_replicate_variance`]), with its degrees of freedom; `None` with
+/// fewer than [`MIN_REPLICATE_DEGREES_OF_FREEDOM`].
+fn replicate_extra_variance(points: &[FitPoint], ses: &[f64]) -> Option<(f64, usize)> {
+    let mut levels: Vec<(f64, f64)> = Vec::new();
+    let mut groups: Vec<Vec<(f64, f64)>> = Vec::new();
+    for (point, se) in points.iter().zip(ses) {
+        let level = (point.substrate, point.inhibitor);
+        match levels.iter().position(|known| *known == level) {
+            Some(index) => groups[index].push((point.rate, *se)),
+            None => {
+                levels.push(level);
+                groups.push(vec![(point.rate, *se)]);
+            }
+        }
+    }
+    extra_replicate_variance(&groups).filter(|(_, df)| *df >= MIN_REPLICATE_DEGREES_OF_FREEDOM)
+}
+
 /// Fits one group's points and builds its report (shared by runs and `platekin fit`).
 pub fn fit_points(
     group: GroupKey,
@@ -852,7 +878,12 @@ pub fn fit_points(
     let inhibitor: Vec<f64> = points.iter().map(|p| p.inhibitor).collect();
     let rates: Vec<f64> = points.iter().map(|p| p.rate).collect();
     let sds: Option<Vec<f64>> = if settings.weighting == Weighting::RateSe {
-        points.iter().map(|p| p.se).collect()
+        let ses: Option<Vec<f64>> = points.iter().map(|p| p.se).collect();
+        // Wells scatter beyond their own standard errors (pipetting, per-well drift): the extra
+        // component, from the replicates, joins every point's variance.
+        report.extra_replicate_variance = ses.as_ref().and_then(|ses| replicate_extra_variance(points, ses));
+        let extra = report.extra_replicate_variance.map_or(0.0, |(tau2, _)| tau2);
+        ses.map(|ses| ses.iter().map(|se| (se * se + extra).sqrt()).collect())
     } else {
         points.iter().map(|p| p.sd).collect()
     };

@@ -17,8 +17,6 @@
 
 use std::collections::BTreeMap;
 
-use rayon::prelude::*;
-
 use super::writers::{layout_tidy_csv, wide_csv, WideCsvOptions};
 use super::{simulate, LayoutGroup, SimulationSpec, VariantKinetics, WellCondition};
 use crate::config::{
@@ -390,6 +388,45 @@ fn true_value(truths: &[Truth], variant: &str, parameter: &str) -> Option<f64> {
     }
 }
 
+/// Runs `analyse(0..plates)` on plain threads (one per core), results in plate order.
+///
+/// Not a rayon parallel iterator: the pipeline calls polars, whose own thread pool, entered from
+/// a rayon worker, lets the waiting worker steal further plates onto the same stack, nesting
+/// hundreds of plates deep until the stack overflows (seen at 400 plates). Plain threads wait
+/// without stealing.
+fn analyse_plates_on_threads<T: Send>(plates: usize, analyse: impl Fn(u64) -> T + Sync) -> Vec<T> {
+    let next_plate = std::sync::atomic::AtomicUsize::new(0);
+    let workers = std::thread::available_parallelism()
+        .map_or(1, |n| n.get())
+        .min(plates.max(1));
+    let mut done: Vec<(usize, T)> = std::thread::scope(|scope| {
+        let handles: Vec<_> = (0..workers)
+            .map(|_| {
+                scope.spawn(|| {
+                    let mut mine = Vec::new();
+                    loop {
+                        let index = next_plate.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+                        if index >= plates {
+                            return mine;
+                        }
+                        mine.push((index, analyse(index as u64)));
+                    }
+                })
+            })
+            .collect();
+        handles
+            .into_iter()
+            .flat_map(|handle| {
+                handle
+                    .join()
+                    .unwrap_or_else(|panic| std::panic::resume_unwind(panic))
+            })
+            .collect()
+    });
+    done.sort_by_key(|(index, _)| *index);
+    done.into_iter().map(|(_, outcome)| outcome).collect()
+}
+
 /// Runs `plates` plates of `design` (seeds `first_seed..`), analysing each by `estimators` (the
 /// first also with the progress-curve fit), and tabulates coverage, bias and RMSE.
 pub fn coverage_study(
@@ -399,10 +436,11 @@ pub fn coverage_study(
     estimators: &[InitialRateEstimatorKey],
 ) -> Result<Vec<CoverageRow>, String> {
     let (_, truths) = design_spec(design, first_seed);
-    let outcomes: Vec<PlateIntervals> = (0..plates as u64)
-        .into_par_iter()
-        .map(|offset| analyse_plate(design, first_seed + offset, estimators))
-        .collect::<Result<_, _>>()?;
+    let outcomes: Vec<PlateIntervals> = analyse_plates_on_threads(plates, |offset| {
+        analyse_plate(design, first_seed + offset, estimators)
+    })
+    .into_iter()
+    .collect::<Result<_, _>>()?;
     let mut cells = StudyCells::new();
     for outcome in outcomes {
         for (analysis, variant, parameter, value, interval) in outcome {
