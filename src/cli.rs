@@ -39,8 +39,9 @@ pub struct ModelArgs {
     /// inhibitor, else michaelis-menten).
     #[arg(long, value_name = "MODEL")]
     pub model: Option<String>,
-    /// Point weights: none (default), relative (1/v^2) or replicate-sd (1/SD^2).
-    #[arg(long, value_name = "none|relative|replicate-sd")]
+    /// Point weights: auto (default: rate-se where every point has its own SE, else none), none,
+    /// relative (1/v^2), replicate-sd (1/SD^2) or rate-se (1/(SE^2 + replicates' extra variance)).
+    #[arg(long, value_name = "auto|none|relative|replicate-sd|rate-se")]
     pub weighting: Option<String>,
     /// Robust loss against outliers: none (default) or huber.
     #[arg(long, value_name = "none|huber")]

@@ -301,8 +301,12 @@ impl fmt::Display for RateModelKind {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Default)]
 #[serde(rename_all = "kebab-case")]
 pub enum Weighting {
-    /// Every point weight 1 (constant absolute error).
+    /// `rate-se` where every point carries its own standard error (a plate's wells, a rate table
+    /// with a `rate_se` column), else `none`: resolved per group by [`Weighting::resolve`]. The
+    /// default, chosen by the coverage study (DEVELOPERS.md, "Initial-rate estimators").
     #[default]
+    Auto,
+    /// Every point weight 1 (constant absolute error).
     None,
     /// `1 / v^2` from the observed rate (constant relative error).
     Relative,
@@ -313,8 +317,18 @@ pub enum Weighting {
 }
 
 impl Weighting {
+    /// The weighting used for points where `every_point_has_se` says whether each carries its
+    /// own standard error: `auto` becomes `rate-se` or `none`, the others stay.
+    pub fn resolve(self, every_point_has_se: bool) -> Weighting {
+        match self {
+            Weighting::Auto if every_point_has_se => Weighting::RateSe,
+            Weighting::Auto => Weighting::None,
+            chosen => chosen,
+        }
+    }
     pub fn name(self) -> &'static str {
         match self {
+            Weighting::Auto => "auto",
             Weighting::None => "none",
             Weighting::Relative => "relative",
             Weighting::ReplicateSd => "replicate-sd",
@@ -323,6 +337,7 @@ impl Weighting {
     }
     pub fn from_name(name: &str) -> Option<Weighting> {
         [
+            Weighting::Auto,
             Weighting::None,
             Weighting::Relative,
             Weighting::ReplicateSd,

@@ -406,10 +406,10 @@ pub fn resolve_fit(layer: &SettingLayer) -> Result<FitSettings, SettingsError> {
         })?),
     };
     let weighting = match &layer.weighting {
-        None => Weighting::None,
+        None => Weighting::Auto,
         Some(name) => Weighting::from_name(name).ok_or_else(|| {
             SettingsError::new(format!(
-                "unknown --weighting '{name}' (choose none, relative or replicate-sd)"
+                "unknown --weighting '{name}' (choose auto, none, relative, replicate-sd or rate-se)"
             ))
         })?,
     };

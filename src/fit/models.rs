@@ -337,7 +337,9 @@ impl RateData {
             }
         }
         let weights = match weighting {
-            Weighting::None => vec![1.0; n],
+            // `auto` is resolved per group before the data are built; unresolved it weighs
+            // every point alike.
+            Weighting::None | Weighting::Auto => vec![1.0; n],
             Weighting::Relative => rate
                 .iter()
                 .enumerate()

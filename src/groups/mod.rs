@@ -873,6 +873,14 @@ pub fn fit_points(
     corrections: Option<&PlateCorrections>,
     progress: &mut dyn FnMut(usize, usize),
 ) -> GroupFit {
+    let every_point_has_se = points
+        .iter()
+        .all(|p| p.se.is_some_and(|se| se.is_finite() && se > 0.0));
+    let resolved = FitSettings {
+        weighting: settings.weighting.resolve(every_point_has_se),
+        ..settings.clone()
+    };
+    let settings = &resolved;
     let mut report = empty_report(group, points, left_out, settings);
     let substrate: Vec<f64> = points.iter().map(|p| p.substrate).collect();
     let inhibitor: Vec<f64> = points.iter().map(|p| p.inhibitor).collect();

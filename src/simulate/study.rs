@@ -301,12 +301,7 @@ fn analyse_plate(
         read_text_cells(layout_csv.as_bytes(), "study-layout.csv").map_err(|e| e.to_string())?;
     let fit_settings = FitSettings {
         model: (design == StudyDesign::Inhibition).then_some(ModelRequest::Fixed(RateModelKind::Competitive)),
-        profile: false,
-        weighting: if std::env::var_os("STUDY_WEIGHTED").is_some() {
-            crate::config::Weighting::RateSe
-        } else {
-            crate::config::Weighting::None
-        },
+        profile: std::env::var_os("STUDY_PROFILE").is_some(),
         ..FitSettings::default()
     };
     let mut intervals = Vec::new();
