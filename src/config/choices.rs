@@ -494,7 +494,7 @@ impl Default for FitSettings {
     fn default() -> Self {
         FitSettings {
             model: None,
-            weighting: Weighting::None,
+            weighting: Weighting::Auto,
             loss: RobustLoss::None,
             profile: true,
             bootstrap: None,
