@@ -183,20 +183,16 @@ fn design_spec(design: StudyDesign, seed: u64) -> (SimulationSpec, Vec<Truth>) {
                         selection: format!("{letter}{first}:{letter}{}", first + 2),
                         condition: WellCondition::sample(substrate, variant.enzyme_nm, variant.name),
                     });
-                    if std::env::var_os("STUDY_NO_CONTROLS").is_none() {
-                        layout.push(LayoutGroup {
-                            selection: format!("{letter}{}", 7 + index),
-                            condition: WellCondition::no_enzyme(substrate),
-                        });
-                    }
+                    layout.push(LayoutGroup {
+                        selection: format!("{letter}{}", 7 + index),
+                        condition: WellCondition::no_enzyme(substrate),
+                    });
                 }
             }
-            if std::env::var_os("STUDY_NO_BLANKS").is_none() {
-                layout.push(LayoutGroup {
-                    selection: "A9:H9".to_string(),
-                    condition: WellCondition::blank(),
-                });
-            }
+            layout.push(LayoutGroup {
+                selection: "A9:H9".to_string(),
+                condition: WellCondition::blank(),
+            });
         }
         StudyDesign::Inhibition => {
             let substrates = [10.0, 20.0, 40.0, 80.0, 160.0, 320.0, 640.0];
@@ -301,7 +297,8 @@ fn analyse_plate(
         read_text_cells(layout_csv.as_bytes(), "study-layout.csv").map_err(|e| e.to_string())?;
     let fit_settings = FitSettings {
         model: (design == StudyDesign::Inhibition).then_some(ModelRequest::Fixed(RateModelKind::Competitive)),
-        profile: std::env::var_os("STUDY_PROFILE").is_some(),
+        // The reported ci95 is the covariance interval; the profile does not change it.
+        profile: false,
         ..FitSettings::default()
     };
     let mut intervals = Vec::new();

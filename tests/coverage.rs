@@ -1,0 +1,157 @@
+//! The coverage study in small (the full study is `examples/coverage_study.rs`, 400 plates per
+//! design, figures in DEVELOPERS.md): plates simulated by numerical integration of the rate law
+//! (the simulator's own Dopri5 system, independent of the closed form the fitter uses), analysed
+//! by the library, and the 95% intervals checked against the truth. With 40 plates a count of
+//! 34 or more is what a 95% interval gives 95% of the time (binomial, common practice); the
+//! seeds are fixed, so the counts are reproducible and a regression shows as a drop.
+
+use platekin::simulate::study::{
+    coverage_study, CoverageRow, InitialRateEstimatorKey, StudyAnalysis, StudyDesign,
+};
+
+const PLATES: usize = 40;
+const FIRST_SEED: u64 = 1_000;
+
+fn row<'a>(
+    rows: &'a [CoverageRow],
+    analysis: StudyAnalysis,
+    variant: &str,
+    parameter: &str,
+) -> &'a CoverageRow {
+    rows.iter()
+        .find(|r| r.analysis == analysis && r.variant == variant && r.parameter == parameter)
+        .unwrap_or_else(|| panic!("no row for {analysis:?} {variant} {parameter}"))
+}
+
+#[test]
+fn clean_plates_intervals_cover_the_truth_and_the_chord_does_not() {
+    let rows = coverage_study(
+        StudyDesign::Clean,
+        PLATES,
+        FIRST_SEED,
+        &[
+            InitialRateEstimatorKey::Integrated,
+            InitialRateEstimatorKey::Chord,
+        ],
+    )
+    .expect("the study runs");
+    for r in &rows {
+        eprintln!(
+            "{:?} {} {} {}/{} bias {:+.2}%",
+            r.analysis,
+            r.variant,
+            r.parameter,
+            r.covered,
+            r.plates,
+            100.0 * r.relative_bias
+        );
+    }
+    let integrated = StudyAnalysis::InitialRate(InitialRateEstimatorKey::Integrated);
+    let chord = StudyAnalysis::InitialRate(InitialRateEstimatorKey::Chord);
+    for variant in ["fast", "slow"] {
+        for parameter in ["kcat", "Km", "kcat_over_Km"] {
+            for analysis in [integrated, StudyAnalysis::ProgressCurve] {
+                let r = row(&rows, analysis, variant, parameter);
+                assert_eq!(
+                    r.plates, PLATES,
+                    "{analysis:?} {variant} {parameter}: every plate fitted"
+                );
+                assert!(
+                    r.covered >= 34,
+                    "{analysis:?} {variant} {parameter}: covered {}/{}",
+                    r.covered,
+                    r.plates
+                );
+            }
+        }
+        let km = row(&rows, integrated, variant, "Km");
+        assert!(
+            km.relative_bias.abs() < 0.015,
+            "{variant} Km bias {:+.3}",
+            km.relative_bias
+        );
+        // The window's chord reads low at low [S] (DOMAIN.md, "Initial-rate estimators"): its
+        // Km is several percent high and its intervals miss; the check above can fail.
+        let chord_km = row(&rows, chord, variant, "Km");
+        assert!(
+            chord_km.relative_bias > 0.03,
+            "{variant} chord Km bias {:+.3}",
+            chord_km.relative_bias
+        );
+        assert!(
+            chord_km.covered < 20,
+            "{variant} chord Km covered {}",
+            chord_km.covered
+        );
+    }
+}
+
+#[test]
+fn competitive_inhibition_intervals_cover_the_truth() {
+    let rows = coverage_study(
+        StudyDesign::Inhibition,
+        PLATES,
+        FIRST_SEED,
+        &[InitialRateEstimatorKey::Integrated],
+    )
+    .expect("the study runs");
+    let integrated = StudyAnalysis::InitialRate(InitialRateEstimatorKey::Integrated);
+    for parameter in ["kcat", "Km", "Ki", "kcat_over_Km"] {
+        let r = row(&rows, integrated, "wt", parameter);
+        eprintln!(
+            "{parameter}: {}/{} bias {:+.2}%",
+            r.covered,
+            r.plates,
+            100.0 * r.relative_bias
+        );
+        assert_eq!(r.plates, PLATES);
+        // The full study covers 87-91% here (DEVELOPERS.md): 32 of 40 is the floor that holds
+        // today; raise it when the gap closes.
+        assert!(r.covered >= 32, "{parameter}: covered {}/{}", r.covered, r.plates);
+        assert!(
+            r.relative_bias.abs() < 0.03,
+            "{parameter} bias {:+.3}",
+            r.relative_bias
+        );
+    }
+}
+
+#[test]
+fn realistic_plates_intervals_cover_the_truth() {
+    // Dead time 30 s (given to the analysis), 3% S0 pipetting, noise growing with absorbance,
+    // per-well drift and spontaneous substrate turnover (src/simulate/study.rs).
+    let rows = coverage_study(
+        StudyDesign::Realistic,
+        PLATES,
+        FIRST_SEED,
+        &[InitialRateEstimatorKey::Integrated],
+    )
+    .expect("the study runs");
+    let integrated = StudyAnalysis::InitialRate(InitialRateEstimatorKey::Integrated);
+    for variant in ["fast", "slow"] {
+        for parameter in ["kcat", "Km", "kcat_over_Km"] {
+            for analysis in [integrated, StudyAnalysis::ProgressCurve] {
+                let r = row(&rows, analysis, variant, parameter);
+                eprintln!(
+                    "{analysis:?} {variant} {parameter}: {}/{} bias {:+.2}%",
+                    r.covered,
+                    r.plates,
+                    100.0 * r.relative_bias
+                );
+                assert_eq!(r.plates, PLATES);
+                // The full study covers 91-95% here (DEVELOPERS.md).
+                assert!(
+                    r.covered >= 33,
+                    "{analysis:?} {variant} {parameter}: covered {}/{}",
+                    r.covered,
+                    r.plates
+                );
+                assert!(
+                    r.relative_bias.abs() < 0.025,
+                    "{analysis:?} {variant} {parameter} bias {:+.3}",
+                    r.relative_bias
+                );
+            }
+        }
+    }
+}
