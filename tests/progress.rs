@@ -100,8 +100,8 @@ fn run_spec(
     let layout_grid = read_text_cells(layout_csv.as_bytes(), "depletion-layout.csv").unwrap();
     let layout = parse_layout(&layout_grid, data.plate).unwrap();
     let layer = SettingLayer {
-        extinction: Some(10_000.0),
-        pathlength: Some(0.55),
+        extinction: extra.extinction.or(Some(10_000.0)),
+        pathlength: extra.pathlength.or(Some(0.55)),
         ..extra
     };
     analyse_inputs(
@@ -360,4 +360,63 @@ fn substrate_readout_s0_from_signal_names_a_pipetting_error() {
         (km / KM_UM - 1.0).abs() < 0.05 && (kcat / KCAT - 1.0).abs() < 0.05,
         "Km {km} kcat {kcat}"
     );
+}
+
+#[test]
+fn progress_constants_report_their_sensitivity_to_calibration_and_substrate() {
+    use platekin::progress::analysis::CalibrationInput;
+    let results = run(SettingLayer::default());
+    let progress = group_of(&results.progress.groups, "fast", |g| &g.group);
+    assert!(progress.analysed);
+    assert_eq!(progress.sensitivity.len(), 4, "{:?}", progress.sensitivity);
+    let reported_km = progress.parameters["Km"].value;
+    let reported_kcat = progress.parameters["kcat"].value;
+    let mut compared = 0;
+    for case in &progress.sensitivity {
+        match case.input {
+            // The same change made by the user: a whole run with extinction x pathlength off by
+            // the factor gives the progress constants the sensitivity predicts.
+            CalibrationInput::ExtinctionPathlength => {
+                let rerun = run(SettingLayer {
+                    extinction: Some(10_000.0 * case.factor),
+                    ..SettingLayer::default()
+                });
+                let rerun_fit = group_of(&rerun.progress.groups, "fast", |g| &g.group);
+                // The sensitivity keeps the chosen model; a rerun may choose another (at +5%
+                // the plateaus fall short of S0 and read as inactivation): compare like with like.
+                if rerun_fit.model != progress.model {
+                    continue;
+                }
+                compared += 1;
+                for (name, reported) in [("Km", reported_km), ("kcat", reported_kcat)] {
+                    let observed = rerun_fit.parameters[name].value / reported - 1.0;
+                    let predicted = case.relative_change[name];
+                    assert!(
+                        (observed - predicted).abs() < 0.005,
+                        "{name} at factor {}: rerun {observed:+.4}, sensitivity {predicted:+.4}",
+                        case.factor
+                    );
+                }
+            }
+            // Every S0 off by f: Km follows in proportion or more (the curves' plateaus also
+            // read S0; here up to four times the 5%).
+            CalibrationInput::SubstrateStart => {
+                let km = case.relative_change["Km"];
+                let expected = case.factor - 1.0;
+                assert!(km / expected > 0.9, "Km {km} for factor {}", case.factor);
+            }
+        }
+    }
+    assert!(compared >= 1, "no rerun kept the model");
+    // On this plate the curves run to completion, so their plateaus pin S0 x extinction x
+    // pathlength: a 5% calibration error moves Km by several percent (initial-rate Km would not
+    // move at all).
+    let low = progress
+        .sensitivity
+        .iter()
+        .find(|c| c.input == CalibrationInput::ExtinctionPathlength && c.factor < 1.0)
+        .expect("the -5% case");
+    assert!(low.relative_change["Km"].abs() > 0.05, "{low:?}");
+    let text = summary(&results);
+    assert!(text.contains("extinction x pathlength -5%/+5%: kcat"), "{text}");
 }

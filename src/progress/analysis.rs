@@ -18,9 +18,12 @@
 
 use std::collections::BTreeMap;
 
+use rayon::prelude::*;
+
 use super::choice::{compare_models, ModelTried};
 use super::global_fit::{
-    ErrorShape, GlobalFit, GlobalFitOptions, ProgressModel, SharedSignalError, SharedSignalErrors, WellCurve,
+    fit_group, ErrorShape, GlobalFit, GlobalFitOptions, ProgressModel, SharedSignalError, SharedSignalErrors,
+    WellCurve,
 };
 use super::trust::{
     decide_trust, RunReason, Suspicion, Trust, TrustDecision, TrustEvidence, TrustReason, WellEvidence,
@@ -167,6 +170,99 @@ pub struct ProgressGroupReport {
     pub error: Option<String>,
     /// Each fitted well's reads and fitted curve, for the report's plots.
     pub curves: Vec<ProgressCurve>,
+    /// How the constants move when the calibration or the substrate is off by 5%.
+    pub sensitivity: Vec<CalibrationSensitivity>,
+}
+
+/// An input the progress-curve constants depend on (initial-rate Km does not depend on either:
+/// a scale error in the rates cancels in Km).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum CalibrationInput {
+    /// Extinction coefficient times pathlength (the signal per concentration).
+    ExtinctionPathlength,
+    /// Every well's starting substrate concentration.
+    SubstrateStart,
+}
+
+/// The relative change of each constant when one input is multiplied by `factor` and the chosen
+/// model refitted.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CalibrationSensitivity {
+    /// The input changed.
+    pub input: CalibrationInput,
+    /// The factor it was multiplied by (0.95 or 1.05).
+    pub factor: f64,
+    /// Constant name -> refitted value / reported value - 1 (`kcat`, `Km`, `kcat_over_Km`).
+    pub relative_change: BTreeMap<String, f64>,
+}
+
+/// The factors the sensitivity is computed at: +-5%, a common uncertainty of a plate's
+/// extinction x pathlength (meniscus, volume) and of a pipetted substrate stock (common practice).
+pub const SENSITIVITY_FACTORS: [f64; 2] = [0.95, 1.05];
+
+/// Refits the chosen model with each input of [`CalibrationInput`] off by each of
+/// [`SENSITIVITY_FACTORS`] and reports how kcat, Km and kcat/Km move. A refit that fails is left
+/// out (its absence is the message).
+fn calibration_sensitivity(
+    curves: &[WellCurve],
+    chosen: &GlobalFit,
+    base: &GlobalFitOptions,
+) -> Vec<CalibrationSensitivity> {
+    let options = GlobalFitOptions {
+        model: chosen.model,
+        profile_km: false,
+        shared_errors: Default::default(),
+        ..base.clone()
+    };
+    let constants = |fit: &GlobalFit| -> Option<(f64, f64)> {
+        Some((fit.parameter("kcat")?.value, fit.parameter("Km")?.value))
+    };
+    let Some((kcat, km)) = constants(chosen) else {
+        return Vec::new();
+    };
+    let cases: Vec<(CalibrationInput, f64)> = [
+        CalibrationInput::ExtinctionPathlength,
+        CalibrationInput::SubstrateStart,
+    ]
+    .into_iter()
+    .flat_map(|input| SENSITIVITY_FACTORS.map(|factor| (input, factor)))
+    .collect();
+    // Four independent refits: in parallel.
+    cases
+        .into_par_iter()
+        .filter_map(|(input, factor)| {
+            let perturbed: Vec<WellCurve> = curves
+                .iter()
+                .map(|curve| match input {
+                    CalibrationInput::ExtinctionPathlength => WellCurve {
+                        signal_per_substrate: curve.signal_per_substrate * factor,
+                        ..curve.clone()
+                    },
+                    CalibrationInput::SubstrateStart => WellCurve {
+                        s0: curve.s0 * factor,
+                        ..curve.clone()
+                    },
+                })
+                .collect();
+            let (new_kcat, new_km) = fit_group(&perturbed, &options)
+                .ok()
+                .as_ref()
+                .and_then(constants)?;
+            let relative_change = BTreeMap::from([
+                ("kcat".to_string(), new_kcat / kcat - 1.0),
+                ("Km".to_string(), new_km / km - 1.0),
+                (
+                    "kcat_over_Km".to_string(),
+                    (new_kcat / new_km) / (kcat / km) - 1.0,
+                ),
+            ]);
+            Some(CalibrationSensitivity {
+                input,
+                factor,
+                relative_change,
+            })
+        })
+        .collect()
 }
 
 /// One well's observed and fitted progress curve, in the signal units the fit used (AU, blank- and
@@ -294,6 +390,7 @@ fn empty_report(group: GroupKey, run: RunReason, initial: Option<&GroupFit>) -> 
         warnings: Vec::new(),
         error: None,
         curves: Vec::new(),
+        sensitivity: Vec::new(),
     }
 }
 
@@ -590,6 +687,7 @@ fn analyse_group(input: GroupInput, run: RunReason) -> ProgressGroupReport {
     };
     report.models_tried = models_tried;
     fill_from_fit(&mut report, &chosen, &curves, &starts, &input);
+    report.sensitivity = calibration_sensitivity(&curves, &chosen, &base);
     let evidence = TrustEvidence {
         model: chosen.model,
         run,

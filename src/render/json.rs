@@ -12,7 +12,7 @@ use crate::config::{FitSettings, SettingLayer};
 use crate::core::format::CAUTION;
 use crate::files::output::OutputFile;
 use crate::groups::{GroupFit, LeftOutPlace, ParameterReport};
-use crate::progress::analysis::{ProgressAnalysis, ProgressGroupReport, ProgressWell};
+use crate::progress::analysis::{CalibrationInput, ProgressAnalysis, ProgressGroupReport, ProgressWell};
 use crate::progress::choice::ModelTried;
 use crate::rates::flag_words;
 
@@ -222,6 +222,14 @@ pub fn progress_group_json(report: &ProgressGroupReport) -> Value {
             "Km": initial.km.as_ref().map(parameter_json),
             "error": initial.error,
         })),
+        "sensitivity": report.sensitivity.iter().map(|case| json!({
+            "input": match case.input {
+                CalibrationInput::ExtinctionPathlength => "extinction_x_pathlength",
+                CalibrationInput::SubstrateStart => "S0",
+            },
+            "factor": case.factor,
+            "relative_change": case.relative_change,
+        })).collect::<Vec<_>>(),
         "trust": report.decision.trust.word(),
         "trust_reason": trust_reason_words(&report.decision.reason),
         "warnings": report.warnings,

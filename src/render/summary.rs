@@ -10,7 +10,7 @@ use crate::core::format::{significant, CAUTION};
 use crate::groups::{GroupFit, ParameterReport};
 use crate::layout::Role;
 use crate::pipeline::RunResults;
-use crate::progress::analysis::ProgressAnalysis;
+use crate::progress::analysis::{CalibrationInput, CalibrationSensitivity, ProgressAnalysis};
 use crate::rates::flag_counts;
 
 /// Formats a value with its 95% interval: `12.1 [11.6, 12.6]`.
@@ -83,10 +83,44 @@ fn progress_summary(progress: &ProgressAnalysis) -> Vec<String> {
                 lines.push(format!("    {extra:<7} {}", progress_value(Some(p))));
             }
         }
+        lines.extend(sensitivity_lines(&group.sensitivity));
         for warning in &group.warnings {
             lines.push(format!("    warning: {warning}"));
         }
         lines.push(format!("    trust: {trust}"));
+    }
+    lines
+}
+
+/// One line per calibration input: how far kcat and Km move when it is 5% low and 5% high
+/// (the progress-curve constants depend on the calibration; initial-rate Km does not).
+fn sensitivity_lines(sensitivity: &[CalibrationSensitivity]) -> Vec<String> {
+    let mut lines = Vec::new();
+    for (input, words) in [
+        (CalibrationInput::ExtinctionPathlength, "extinction x pathlength"),
+        (CalibrationInput::SubstrateStart, "S0"),
+    ] {
+        let cases: Vec<&CalibrationSensitivity> = sensitivity.iter().filter(|c| c.input == input).collect();
+        if cases.is_empty() {
+            continue;
+        }
+        let moves = |name: &str| {
+            cases
+                .iter()
+                .filter_map(|c| c.relative_change.get(name).map(|r| format!("{:+.1}%", 100.0 * r)))
+                .collect::<Vec<_>>()
+                .join("/")
+        };
+        let factors = cases
+            .iter()
+            .map(|c| format!("{:+.0}%", 100.0 * (c.factor - 1.0)))
+            .collect::<Vec<_>>()
+            .join("/");
+        lines.push(format!(
+            "    {words} {factors}: kcat {}, Km {}",
+            moves("kcat"),
+            moves("Km")
+        ));
     }
     lines
 }
