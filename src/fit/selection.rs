@@ -216,6 +216,60 @@ struct Candidate {
     kind: RateModelKind,
     outcome: Result<super::inference::RobustFit, ModelFitError>,
     collapsed_to: Option<RateModelKind>,
+    /// Why `auto` may not prefer it although it fitted (tight binding the data do not demand).
+    not_preferred: Option<String>,
+}
+
+/// `Ki_app` at or above this multiple of [E] is no tight binding: the enzyme then binds too little
+/// of the inhibitor to bend the curve away from the classical hyperbola (the Morrison equation's
+/// correction is of order [E]/Ki_app; common practice), so `auto` does not call a series tight
+/// binding on the strength of its fewer parameters alone.
+pub const TIGHT_BINDING_KI_OVER_ENZYME: f64 = 10.0;
+
+/// Tight binding (Morrison) is preferred by `auto` only when the data demand it: its fitted
+/// Ki_app below [`TIGHT_BINDING_KI_OVER_ENZYME`] x [E] and its AICc lower than the dose-response
+/// curve's by at least [`PARSIMONY_DELTA_AICC`]. Marks the Morrison candidate otherwise.
+fn require_tight_binding_evidence(candidates: &mut [Candidate], data: &RateData) {
+    let aicc_of = |candidate: &Candidate| {
+        let fit = &candidate.outcome.as_ref().ok()?.fit.fit;
+        aicc(data.len(), candidate.kind.n_parameters(), fit.rss)
+    };
+    let Some(curve_aicc) = candidates
+        .iter()
+        .find(|c| c.kind == RateModelKind::Ic50)
+        .and_then(aicc_of)
+    else {
+        return;
+    };
+    let Some(enzyme) = data.enzyme else { return };
+    for candidate in candidates
+        .iter_mut()
+        .filter(|c| c.kind == RateModelKind::Morrison)
+    {
+        let Some(morrison_aicc) = aicc_of(candidate) else {
+            continue;
+        };
+        let Some(ki_app) = candidate
+            .outcome
+            .as_ref()
+            .ok()
+            .and_then(|r| r.fit.fit.parameters.get(1).copied())
+        else {
+            continue;
+        };
+        if ki_app >= TIGHT_BINDING_KI_OVER_ENZYME * enzyme {
+            candidate.not_preferred = Some(format!(
+                "not tight binding: Ki_app {} is {} or more times [E] {}",
+                crate::core::format::significant(ki_app),
+                TIGHT_BINDING_KI_OVER_ENZYME,
+                crate::core::format::significant(enzyme)
+            ));
+        } else if morrison_aicc > curve_aicc - PARSIMONY_DELTA_AICC {
+            candidate.not_preferred = Some(format!(
+                "tight binding not demanded: AICc not {PARSIMONY_DELTA_AICC} below the dose-response curve's"
+            ));
+        }
+    }
 }
 
 fn candidate_reports(candidates: &[Candidate], n: usize) -> Vec<CandidateReport> {
@@ -240,6 +294,9 @@ fn candidate_reports(candidates: &[Candidate], n: usize) -> Vec<CandidateReport>
                             "collapsed to {limit} (a constant ran off beyond the data)"
                         ));
                     }
+                    if let Some(reason) = &candidate.not_preferred {
+                        notes.push(reason.clone());
+                    }
                     CandidateReport {
                         model: candidate.kind,
                         n_parameters: k,
@@ -251,7 +308,8 @@ fn candidate_reports(candidates: &[Candidate], n: usize) -> Vec<CandidateReport>
                         eligible: fit.converged()
                             && enough_points
                             && value.is_some()
-                            && candidate.collapsed_to.is_none(),
+                            && candidate.collapsed_to.is_none()
+                            && candidate.not_preferred.is_none(),
                         note: (!notes.is_empty()).then(|| notes.join("; ")),
                     }
                 }
@@ -302,6 +360,7 @@ fn fit_candidate(kind: RateModelKind, data: &RateData, settings: &ModelSettings)
         kind,
         outcome,
         collapsed_to,
+        not_preferred: None,
     }
 }
 
@@ -330,6 +389,9 @@ pub fn analyse_rates(
             ));
             candidates.push(fit_candidate(limit, data, settings));
         }
+    }
+    if settings.request == ModelRequest::Auto {
+        require_tight_binding_evidence(&mut candidates, data);
     }
     let reports = candidate_reports(&candidates, n);
     let chosen_index = match settings.request {
@@ -825,6 +887,44 @@ mod tests {
         let tried: Vec<RateModelKind> = auto.models_tried.iter().map(|m| m.model).collect();
         assert_eq!(tried, vec![RateModelKind::Ic50, RateModelKind::Morrison]);
         assert_eq!(auto.model, RateModelKind::Morrison, "{}", auto.choice);
+    }
+
+    #[test]
+    fn an_ordinary_micromolar_inhibitor_is_not_called_tight_binding() {
+        // Invented series: [E] = 0.01 uM, a classical inhibitor with IC50 = 5 uM (Hill slope 1,
+        // full inhibition), 2% noise. Morrison has fewer parameters than the logistic and fits
+        // as well (it reduces to the hyperbola when Ki_app >> [E]); auto must still report the
+        // dose-response curve.
+        let inhibitor: Vec<f64> = [0.0, 0.3, 1.0, 2.0, 4.0, 8.0, 16.0, 32.0, 64.0, 128.0]
+            .iter()
+            .flat_map(|&i| [i, i, i])
+            .collect();
+        let mut generator = ChaCha8Rng::seed_from_u64(5);
+        let noise = Normal::new(0.0, 0.02).unwrap();
+        let rate: Vec<f64> = inhibitor
+            .iter()
+            .map(|i| 1.0 / (1.0 + i / 5.0) + noise.sample(&mut generator))
+            .collect();
+        let n = inhibitor.len();
+        let data = RateData::new(vec![100.0; n], inhibitor, rate, None, Weighting::None, Some(0.01)).unwrap();
+        let auto = analyse_rates(&data, &quick_settings(), &mut |_, _| {}).unwrap();
+        assert_eq!(auto.model, RateModelKind::Ic50, "{}", auto.choice);
+        let morrison = auto
+            .models_tried
+            .iter()
+            .find(|m| m.model == RateModelKind::Morrison)
+            .expect("Morrison tried");
+        assert!(!morrison.eligible, "{morrison:?}");
+        assert!(
+            morrison
+                .note
+                .as_deref()
+                .unwrap_or("")
+                .contains("not tight binding"),
+            "{morrison:?}"
+        );
+        let ic50 = constant(&auto, "IC50");
+        assert!((ic50.value / 5.0 - 1.0).abs() < 0.15, "{ic50:?}");
     }
 
     /// Coverage of the profile-likelihood and asymptotic 95% intervals of Ki for a competitive
