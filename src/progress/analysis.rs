@@ -328,8 +328,9 @@ pub fn analyse_progress(
     settings: &AnalysisSettings,
 ) -> ProgressAnalysis {
     let mode = settings.progress.mode;
+    // Groups are independent: fitted in parallel (order kept).
     let groups = sample_groups(analysis, layout)
-        .into_iter()
+        .into_par_iter()
         .map(|(group, wells)| {
             let initial = initial_fits.iter().find(|fit| fit.group == group);
             let suspect = suspicion(&wells, settings.rates.max_conversion);

@@ -979,31 +979,75 @@ fn profile_interval(
     let centre = optimum[index];
     let side = |direction: f64| -> Option<f64> {
         let factor: f64 = 1.25;
-        let mut inside = (centre.ln(), optimum.to_vec());
+        let mut inside = (centre.ln(), rss_min, optimum.to_vec());
         for _ in 0..42 {
             let candidate = inside.0 + direction * factor.ln();
-            let (rss, at) = profile_at(candidate.exp(), &inside.1)?;
+            let (rss, at) = profile_at(candidate.exp(), &inside.2)?;
             if rss > threshold {
-                // Bisect in log space between `inside` and `candidate`.
-                let (mut lo, mut hi) = (inside.0, candidate);
-                let mut warm = inside.1.clone();
-                for _ in 0..14 {
-                    let mid = 0.5 * (lo + hi);
-                    let (rss_mid, at_mid) = profile_at(mid.exp(), &warm)?;
-                    if rss_mid > threshold {
-                        hi = mid;
-                    } else {
-                        lo = mid;
-                        warm = at_mid;
-                    }
-                }
-                return Some((0.5 * (lo + hi)).exp());
+                return Some(crossing(&profile_at, threshold, inside, (candidate, rss)).exp());
             }
-            inside = (candidate, at);
+            inside = (candidate, rss, at);
         }
         None
     };
-    Some([side(-1.0), side(1.0)])
+    // The two sides are independent searches.
+    let (lower, upper) = rayon::join(|| side(-1.0), || side(1.0));
+    Some([lower, upper])
+}
+
+/// The profile's RSS at a value of the profiled parameter, re-optimised from warm parameters,
+/// with the parameters it ended at.
+type ProfileAt<'a> = dyn Fn(f64, &[f64]) -> Option<(f64, Vec<f64>)> + 'a;
+
+/// Where the profile's RSS crosses `threshold` between `inside` (log value, RSS below, the
+/// parameters there) and `outside` (log value, RSS above): the Illinois variant of regula falsi
+/// in log space (the profile is close to a parabola there, so a few steps reach a relative
+/// precision of 1e-5, where bisection took 14), bisection as the fallback when a step stalls.
+/// References: Dowell and Jarratt 1971, BIT 11:168 (the Illinois method; from memory).
+fn crossing(
+    profile_at: &ProfileAt,
+    threshold: f64,
+    inside: (f64, f64, Vec<f64>),
+    outside: (f64, f64),
+) -> f64 {
+    const TOLERANCE: f64 = 1e-5;
+    let (mut in_x, mut in_g, mut warm) = (inside.0, inside.1 - threshold, inside.2);
+    let (mut out_x, mut out_g) = (outside.0, outside.1 - threshold);
+    let mut last_side_kept: Option<bool> = None;
+    for _ in 0..20 {
+        if (out_x - in_x).abs() < TOLERANCE {
+            break;
+        }
+        let mut x = in_x - in_g * (out_x - in_x) / (out_g - in_g);
+        if !x.is_finite() || (x - in_x) * (x - out_x) >= 0.0 {
+            x = 0.5 * (in_x + out_x);
+        }
+        let Some((rss, at)) = profile_at(x.exp(), &warm) else {
+            break;
+        };
+        let g = rss - threshold;
+        if g > 0.0 {
+            out_x = x;
+            out_g = g;
+            // The inside end kept twice running: halve its value so the next step moves it.
+            if last_side_kept == Some(true) {
+                in_g *= 0.5;
+            }
+            last_side_kept = Some(true);
+        } else {
+            in_x = x;
+            in_g = g;
+            warm = at;
+            if last_side_kept == Some(false) {
+                out_g *= 0.5;
+            }
+            last_side_kept = Some(false);
+        }
+        if g.abs() <= 1e-9 * threshold {
+            return x;
+        }
+    }
+    0.5 * (in_x + out_x)
 }
 
 /// The extra-sum-of-squares F test of a model with one more parameter against a nested one:
