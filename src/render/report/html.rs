@@ -778,6 +778,56 @@ fn trust_section(parts: &ReportParts) -> String {
     html
 }
 
+/// The checklist's "equation fitted and fitting method": the equations of the fits actually
+/// reported, their weighting and the initial-rate estimator, and the progress-curve law where it ran.
+fn fitting_method_text(results: &RunResults) -> String {
+    let mut equations: Vec<&str> = Vec::new();
+    let mut weightings: Vec<&str> = Vec::new();
+    let mut estimators: Vec<&str> = Vec::new();
+    for fit in results.fits.iter().filter(|f| f.error.is_none()) {
+        let push = |list: &mut Vec<&'static str>, word: &'static str| {
+            if !list.contains(&word) {
+                list.push(word);
+            }
+        };
+        if let Some(equation) = fit.equation {
+            if !equations.contains(&equation) {
+                equations.push(equation);
+            }
+        }
+        push(&mut weightings, fit.weighting.name());
+        push(&mut estimators, fit.estimator.word());
+    }
+    let mut text = if equations.is_empty() {
+        "No rate law was fitted.".to_string()
+    } else {
+        format!(
+            "{} by nonlinear least squares (Levenberg-Marquardt) on the replicate wells, weighting {}; initial rates by the {} estimator; standard errors from the Jacobian with the blank's and background's shared errors; linearisations shown as diagnostics only.",
+            equations.join("; "),
+            weightings.join(", "),
+            estimators.join(", ")
+        )
+    };
+    let progress_laws: Vec<&str> = results
+        .progress
+        .groups
+        .iter()
+        .filter_map(|g| g.model.map(|m| m.name()))
+        .fold(Vec::new(), |mut laws, law| {
+            if !laws.contains(&law) {
+                laws.push(law);
+            }
+            laws
+        });
+    if !progress_laws.is_empty() {
+        text.push_str(&format!(
+            " Progress curves: the integrated {} rate law fitted globally to every read, intervals clustered by well.",
+            progress_laws.join(", ")
+        ));
+    }
+    text
+}
+
 fn checklist_section(parts: &ReportParts) -> String {
     let results = parts.results;
     let mut html = heading("checklist");
@@ -820,7 +870,7 @@ fn checklist_section(parts: &ReportParts) -> String {
         (
             "Equation fitted and fitting method",
             supplied.into(),
-            "v = Vmax [S] / (Km + [S]) by nonlinear least squares on the replicate wells; standard errors from the Jacobian; linearisations shown as diagnostics only.".into(),
+            fitting_method_text(results),
         ),
         (
             "Replicates and precision",

@@ -511,6 +511,13 @@ fn inhibitor_plate_report_has_the_inhibition_plots_and_model_choice() {
     assert!(fits.contains("<table class=\"models\">"));
     assert!(fits.contains("AICc"));
     assert!(fits.contains(fit.equation.unwrap()));
+    // The checklist names the model actually reported, not a fixed Michaelis-Menten line.
+    let checklist = section(&page, "checklist");
+    assert!(
+        checklist.contains(&html::escape(fit.equation.unwrap())),
+        "{checklist}"
+    );
+    assert!(!checklist.contains("v = Vmax [S] / (Km + [S]) by"), "{checklist}");
     for candidate in &fit.models_tried {
         assert!(fits.contains(candidate.model.name()), "{}", candidate.model);
     }
