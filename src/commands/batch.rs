@@ -23,7 +23,7 @@ use crate::config::{
 };
 use crate::core::format::CAUTION;
 use crate::files::input::{InputFile, InputRole};
-use crate::files::output::{check_output_folder, write_outputs};
+use crate::files::output::{check_output_folder, write_outputs, OutputError, OutputFile};
 use crate::pipeline::PlateInputs;
 use crate::render::campaign::store::{
     kept_digest, kept_files, kept_tables, run_record_matches, ResultKey, DIGEST_FILE, STORE_FOLDER,
@@ -282,6 +282,31 @@ fn batch_summary(
     text
 }
 
+/// Writes what a plate keeps for the next run. These files are a cache, not results: each is
+/// written beside its place and renamed into it, without the flush to disk that outputs get (a
+/// plate's outputs are flushed by `run`'s writer). The digest goes first out and last in, so a run
+/// stopped part way leaves no digest, and the plate is analysed again next time.
+fn keep_results(store_folder: &Path, files: &[OutputFile]) -> Result<(), OutputError> {
+    let io_error = |path: &Path| {
+        let path = path.display().to_string();
+        move |source| OutputError::Io { path, source }
+    };
+    std::fs::create_dir_all(store_folder).map_err(io_error(store_folder))?;
+    let digest_path = store_folder.join(DIGEST_FILE);
+    if digest_path.exists() {
+        std::fs::remove_file(&digest_path).map_err(io_error(&digest_path))?;
+    }
+    let (digest, tables): (Vec<&OutputFile>, Vec<&OutputFile>) =
+        files.iter().partition(|f| f.name == DIGEST_FILE);
+    for file in tables.into_iter().chain(digest) {
+        let path = store_folder.join(&file.name);
+        let staged = store_folder.join(format!("{}.partial", file.name));
+        std::fs::write(&staged, &file.bytes).map_err(io_error(&staged))?;
+        std::fs::rename(&staged, &path).map_err(io_error(&path))?;
+    }
+    Ok(())
+}
+
 /// Reads the kept results of a plate whose `run.json` and kept key match `key`.
 fn kept_results(
     plate_folder: &Path,
@@ -352,8 +377,7 @@ fn run_one_plate(
         let plate_digest = digest(&run.results);
         let tables = plate_tables(&run.results).map_err(crate::render::RenderError::from)?;
         drop(run);
-        let kept = kept_files(&key, &plate_digest, &tables)?;
-        write_outputs(&store_folder, false, &[], &kept)?;
+        keep_results(&store_folder, &kept_files(&key, &plate_digest, &tables)?)?;
         Ok((
             PlateStatus::Ok {
                 digest: plate_digest,

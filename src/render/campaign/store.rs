@@ -1,7 +1,9 @@
 //! What a campaign keeps of each plate between runs, so that a plate whose inputs and settings did
 //! not change is not analysed again: beside the plate's own outputs, in the campaign's
 //! `.platekin-batch/PLATE/` folder, its digest with the key it was made under (`digest.json`) and
-//! its rows of the three campaign tables (Parquet, which keeps every column's type). A plate is
+//! its rows of the three campaign tables (Parquet, which keeps every column's type). The digest
+//! and tables are typed values stored for the next run, read back only under an equal key: no
+//! decision is made from a text made for people. A plate is
 //! reused only when its `run.json` and the kept key both match the inputs' SHA-256, the settings
 //! and the platekin version of this run; anything missing, unreadable or different means the
 //! plate is analysed again.
