@@ -11,8 +11,6 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicUsize, Ordering};
 
-use rayon::prelude::*;
-
 use super::run::run_plate_inputs;
 use super::CommandError;
 use crate::campaign::manifest::{folder_manifest, read_manifest};
@@ -28,12 +26,18 @@ use crate::pipeline::PlateInputs;
 use crate::render::campaign::store::{
     kept_digest, kept_files, kept_tables, run_record_matches, ResultKey, DIGEST_FILE, STORE_FOLDER,
 };
-use crate::render::campaign::tables::{plate_tables, PlateTables, TABLE_NAMES};
+use crate::render::campaign::tables::{plate_tables, read_parquet_bytes, PlateTables, TABLE_NAMES};
 use crate::render::campaign::{campaign_outputs, CampaignRecord};
+use crate::render::tables::TableError;
+use polars::prelude::{PolarsError, Schema};
 
 /// The most plates analysed at once: beyond the cores of any workstation, and each plate in
 /// flight holds its reads in memory.
 pub const MAX_JOBS: usize = 64;
+
+/// The stack of each worker thread: the 8 MiB a program's main thread gets, where `run` analyses
+/// its plate.
+const WORKER_STACK_BYTES: usize = 8 * 1024 * 1024;
 
 /// The folder of the plates' own outputs inside the campaign folder.
 pub const PLATES_FOLDER: &str = "plates";
@@ -72,6 +76,10 @@ pub struct PlateFinished<'a> {
     /// Plates in the campaign.
     pub total: usize,
 }
+
+/// A plate as a worker hands it back: its place in the manifest, how it ended, and its tables'
+/// schemas when it ended well.
+type FinishedPlate = (usize, PlateOutcome, Option<[Schema; 3]>);
 
 /// What a completed campaign hands back.
 #[derive(Debug, Clone)]
@@ -144,42 +152,53 @@ pub fn run_batch(
         read_manifest(&request.source)?
     };
     check_output_folder(&request.out, request.force)?;
+    // One worker loop per thread of the pool takes the next plate until none is left, so exactly
+    // `jobs` plates are in flight. (A parallel iterator over the plates would let a thread waiting
+    // inside one plate's own parallel steps steal a whole other plate and run it on top of its
+    // stack: more plates in memory than `jobs`, and a stack overflow on a long campaign.) The
+    // plates' own parallel steps run in the same pool.
     let pool = rayon::ThreadPoolBuilder::new()
         .num_threads(request.jobs)
+        .stack_size(WORKER_STACK_BYTES)
         .build()
         .map_err(|error| campaign_error(format!("cannot start {} worker threads: {error}", request.jobs)))?;
+    let next = AtomicUsize::new(0);
     let done = AtomicUsize::new(0);
     let failed = AtomicUsize::new(0);
     let total = manifest.plates.len();
-    let results: Vec<(PlateOutcome, Option<PlateTables>)> = pool.install(|| {
-        manifest
-            .plates
-            .par_iter()
-            .map(|entry| {
-                let result = run_one_plate(entry, &manifest, request);
-                let error = match &result.0.status {
-                    PlateStatus::Failed { error } => Some(error.as_str()),
-                    PlateStatus::Ok { .. } => None,
-                };
-                let failed_now = failed.fetch_add(usize::from(error.is_some()), Ordering::SeqCst)
-                    + usize::from(error.is_some());
-                finished(PlateFinished {
-                    plate: &entry.plate,
-                    error,
-                    reused: matches!(result.0.status, PlateStatus::Ok { reused: true, .. }),
-                    done: done.fetch_add(1, Ordering::SeqCst) + 1,
-                    failed: failed_now,
-                    total,
-                });
-                result
-            })
-            .collect()
+    let per_worker: Vec<Vec<FinishedPlate>> = pool.broadcast(|_| {
+        let mut finished_here = Vec::new();
+        loop {
+            let index = next.fetch_add(1, Ordering::SeqCst);
+            let Some(entry) = manifest.plates.get(index) else {
+                break;
+            };
+            let (outcome, plate_tables) = run_one_plate(entry, &manifest, request);
+            let error = match &outcome.status {
+                PlateStatus::Failed { error } => Some(error.as_str()),
+                PlateStatus::Ok { .. } => None,
+            };
+            let failed_now = failed.fetch_add(usize::from(error.is_some()), Ordering::SeqCst)
+                + usize::from(error.is_some());
+            finished(PlateFinished {
+                plate: &entry.plate,
+                error,
+                reused: matches!(outcome.status, PlateStatus::Ok { reused: true, .. }),
+                done: done.fetch_add(1, Ordering::SeqCst) + 1,
+                failed: failed_now,
+                total,
+            });
+            finished_here.push((index, outcome, plate_tables));
+        }
+        finished_here
     });
+    let mut results: Vec<FinishedPlate> = per_worker.into_iter().flatten().collect();
+    results.sort_by_key(|(index, _, _)| *index);
     let mut plates = Vec::with_capacity(results.len());
-    let mut tables = Vec::new();
-    for (index, (outcome, plate_tables)) in results.into_iter().enumerate() {
-        if let Some(plate_tables) = plate_tables {
-            tables.push((index, plate_tables));
+    let mut schemas = Vec::new();
+    for (index, outcome, plate_schemas) in results {
+        if let Some(plate_schemas) = plate_schemas {
+            schemas.push((index, plate_schemas));
         }
         plates.push(outcome);
     }
@@ -195,8 +214,16 @@ pub fn run_batch(
         settings: &request.settings,
         report,
     };
-    let files = campaign_outputs(&record, &tables)?;
-    drop(tables);
+    // Each plate's rows come from what it keeps for the next run (written or checked above).
+    let load = |index: usize, kind: usize| -> Result<polars::prelude::DataFrame, TableError> {
+        let path = request
+            .out
+            .join(STORE_FOLDER)
+            .join(&plates[index].plate)
+            .join(format!("{}.parquet", TABLE_NAMES[kind]));
+        read_parquet_bytes(std::fs::read(&path).map_err(PolarsError::from)?)
+    };
+    let files = campaign_outputs(&record, &schemas, &load)?;
     // The ownership of the folder was checked before the plates were written into it.
     let written = write_outputs(&request.out, true, &[], &files)?;
     let n_failed = plates
@@ -325,13 +352,13 @@ fn kept_results(
     Some((digest, kept_tables([wells, conditions, fits])?))
 }
 
-/// One plate from its files to its outputs, digest and table rows; any error becomes the plate's
+/// One plate from its files to its outputs, digest and kept rows (their schemas returned); any error becomes the plate's
 /// `failed` status with the message `run` would give.
 fn run_one_plate(
     entry: &PlateEntry,
     manifest: &Manifest,
     request: &BatchRequest,
-) -> (PlateOutcome, Option<PlateTables>) {
+) -> (PlateOutcome, Option<[Schema; 3]>) {
     let factors: BTreeMap<String, String> = manifest
         .factors_of(entry)
         .map(|(name, value)| (name.to_string(), value.to_string()))
@@ -389,7 +416,8 @@ fn run_one_plate(
     match result {
         Ok((status, tables)) => {
             outcome.status = status;
-            (outcome, Some(tables))
+            let schemas = tables.frames().map(|frame| frame.schema().as_ref().clone());
+            (outcome, Some(schemas))
         }
         Err(error) => {
             outcome.status = PlateStatus::Failed {

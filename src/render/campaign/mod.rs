@@ -10,12 +10,17 @@ pub mod tables;
 use serde_json::{json, Value};
 
 use super::json::{json_file, to_json, tool_line};
+use super::tables::TableError;
 use super::RenderError;
 use crate::campaign::{PlateOutcome, PlateStatus, PooledFit};
 use crate::config::{ReportMode, SettingLayer};
 use crate::core::format::CAUTION;
 use crate::files::output::OutputFile;
-use tables::{plates_table, stack_tables, table_files, with_plate_columns, PlateTables, TABLE_NAMES};
+use polars::prelude::{DataFrame, Schema};
+use tables::{
+    plates_table, schema_with_plate_columns, stacked_table_files, with_plate_columns, StackedColumns,
+    TABLE_NAMES,
+};
 
 /// Everything the campaign's outputs are made from.
 #[derive(Debug, Clone, Copy)]
@@ -84,11 +89,14 @@ fn batch_document(record: &CampaignRecord<'_>) -> Result<Value, RenderError> {
     }))
 }
 
-/// Every campaign-level output, rendered in memory. `tables` holds the rows of each plate that
-/// ended well, in run order, with the plate's index in `record.plates`.
+/// Every campaign-level output, rendered in memory. `schemas` holds the three tables' schemas of
+/// each plate that ended well, in run order, with the plate's index in `record.plates`; `load`
+/// gives a plate's table (by that index and the table's place in [`TABLE_NAMES`]) when it is
+/// written, so that the campaign's tables pass through memory one row group at a time.
 pub fn campaign_outputs(
     record: &CampaignRecord<'_>,
-    tables: &[(usize, PlateTables)],
+    schemas: &[(usize, [Schema; 3])],
+    load: &dyn Fn(usize, usize) -> Result<DataFrame, TableError>,
 ) -> Result<Vec<OutputFile>, RenderError> {
     let mut files = Vec::new();
     let mut plates = plates_table(record.plates, record.factor_names)?;
@@ -96,26 +104,32 @@ pub fn campaign_outputs(
         name: "plates.csv".into(),
         bytes: super::tables::csv_bytes(&mut plates)?,
     });
-    for (kind, name) in TABLE_NAMES.iter().enumerate() {
-        let frames = tables
+    let factors_of = |index: usize| -> Vec<(&str, &str)> {
+        let outcome = &record.plates[index];
+        record
+            .factor_names
             .iter()
-            .map(|(index, plate_tables)| {
-                let outcome = &record.plates[*index];
-                let factors: Vec<(&str, &str)> = record
-                    .factor_names
-                    .iter()
-                    .map(|f| {
-                        (
-                            f.as_str(),
-                            outcome.factors.get(f).map(String::as_str).unwrap_or(""),
-                        )
-                    })
-                    .collect();
-                with_plate_columns(plate_tables.frames()[kind], &outcome.plate, &factors)
+            .map(|f| {
+                (
+                    f.as_str(),
+                    outcome.factors.get(f).map(String::as_str).unwrap_or(""),
+                )
             })
-            .collect::<Result<Vec<_>, _>>()?;
-        let mut stacked = stack_tables(&frames)?;
-        files.extend(table_files(name, &mut stacked)?);
+            .collect()
+    };
+    for (kind, name) in TABLE_NAMES.iter().enumerate() {
+        let mut columns = StackedColumns::default();
+        for (index, plate_schemas) in schemas {
+            columns.add(&schema_with_plate_columns(
+                &plate_schemas[kind],
+                &factors_of(*index),
+            )?);
+        }
+        let frames = schemas.iter().map(|(index, _)| {
+            let frame = load(*index, kind)?;
+            with_plate_columns(&frame, &record.plates[*index].plate, &factors_of(*index))
+        });
+        files.extend(stacked_table_files(name, &columns, frames)?);
     }
     if !record.pool_by.is_empty() {
         files.push(json_file("pooled.json", &pooled_document(record)?)?);

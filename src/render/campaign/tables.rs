@@ -5,9 +5,10 @@
 
 use polars::prelude::*;
 
-use super::super::tables::{conditions_table, csv_bytes, wells_table, TableError};
+use super::super::tables::{conditions_table, wells_table, TableError};
 use super::super::words::group_label;
 use crate::campaign::{PlateOutcome, PlateStatus};
+use crate::files::output::OutputFile;
 use crate::groups::ParameterReport;
 use crate::pipeline::RunResults;
 
@@ -157,55 +158,112 @@ pub fn with_plate_columns(
     Ok(DataFrame::new(height, columns)?)
 }
 
-/// Stacks tables whose columns differ (plates with other layouts, units or factors): the columns
-/// in first-seen order, missing cells empty; a column whose type differs between tables is
-/// written as text in all of them.
-pub fn stack_tables(frames: &[DataFrame]) -> Result<DataFrame, TableError> {
-    let mut names: Vec<PlSmallStr> = Vec::new();
-    let mut types: Vec<DataType> = Vec::new();
-    for frame in frames {
-        for column in frame.columns() {
-            match names.iter().position(|name| name == column.name()) {
-                Some(index) => {
-                    if types[index] != *column.dtype() && types[index] == DataType::Null {
-                        types[index] = column.dtype().clone();
-                    } else if types[index] != *column.dtype() && *column.dtype() != DataType::Null {
-                        types[index] = DataType::String;
-                    }
-                }
-                None => {
-                    names.push(column.name().clone());
-                    types.push(column.dtype().clone());
-                }
+/// The columns of a stacked table, over plates whose tables differ (other layouts, units or
+/// factors): names in first-seen order; a column whose type differs between plates is text.
+#[derive(Debug, Clone, Default)]
+pub struct StackedColumns {
+    columns: Vec<(PlSmallStr, DataType)>,
+}
+
+impl StackedColumns {
+    /// Adds one plate's columns.
+    pub fn add(&mut self, schema: &Schema) {
+        for (name, dtype) in schema.iter() {
+            match self.columns.iter_mut().find(|(existing, _)| existing == name) {
+                Some((_, known)) if *known == DataType::Null => *known = dtype.clone(),
+                Some((_, known)) if known != dtype && *dtype != DataType::Null => *known = DataType::String,
+                Some(_) => {}
+                None => self.columns.push((name.clone(), dtype.clone())),
             }
         }
     }
-    let mut stacked: Option<DataFrame> = None;
-    for frame in frames {
+
+    /// The stacked table's schema.
+    pub fn schema(&self) -> Schema {
+        self.columns.iter().cloned().collect()
+    }
+
+    /// A plate's table with every stacked column, in order: missing ones empty, others cast.
+    pub fn align(&self, frame: &DataFrame) -> Result<DataFrame, TableError> {
         let height = frame.height();
-        let columns = names
+        let columns = self
+            .columns
             .iter()
-            .zip(&types)
             .map(|(name, dtype)| match frame.column(name.as_str()) {
                 Ok(column) if column.dtype() == dtype => Ok(column.clone()),
                 Ok(column) => column.cast(dtype),
                 Err(_) => Ok(Column::full_null(name.clone(), height, dtype)),
             })
             .collect::<PolarsResult<Vec<Column>>>()?;
-        let frame = DataFrame::new(height, columns)?;
-        match stacked.as_mut() {
-            Some(all) => {
-                all.vstack_mut(&frame)?;
-            }
-            None => stacked = Some(frame),
-        }
+        Ok(DataFrame::new(height, columns)?)
     }
-    let mut all = match stacked {
-        Some(all) => all,
-        None => DataFrame::new(0, vec![Column::new_empty("plate".into(), &DataType::String)])?,
-    };
-    all.rechunk_mut();
-    Ok(all)
+}
+
+/// The schema a plate's table has once `plate` and the plate's factors are put in front.
+pub fn schema_with_plate_columns(schema: &Schema, factors: &[(&str, &str)]) -> Result<Schema, TableError> {
+    let empty = DataFrame::empty_with_schema(schema);
+    Ok(with_plate_columns(&empty, "", factors)?.schema().as_ref().clone())
+}
+
+/// Rows per Parquet row group (and per CSV write): a few hundred plates of 96 wells.
+const ROWS_PER_GROUP: usize = 32_768;
+
+/// A stacked table's Parquet file and CSV twin, written plate by plate from `frames` (each with
+/// the plate's columns), so that only a row group of the campaign is in memory at once besides
+/// the files' bytes.
+pub fn stacked_table_files(
+    name: &str,
+    columns: &StackedColumns,
+    frames: impl Iterator<Item = Result<DataFrame, TableError>>,
+) -> Result<[OutputFile; 2], TableError> {
+    let schema = columns.schema();
+    let mut parquet_bytes = Vec::new();
+    let mut csv_bytes = Vec::new();
+    {
+        let mut parquet = ParquetWriter::new(&mut parquet_bytes)
+            .with_compression(ParquetCompression::Snappy)
+            .batched(&schema)?;
+        let mut csv = CsvWriter::new(&mut csv_bytes)
+            .include_header(true)
+            .batched(&schema)?;
+        let mut pending: Option<DataFrame> = None;
+        let mut flush = |pending: &mut Option<DataFrame>| -> Result<(), TableError> {
+            if let Some(mut group) = pending.take() {
+                group.rechunk_mut();
+                parquet.write_batch(&group)?;
+                csv.write_batch(&group)?;
+            }
+            Ok(())
+        };
+        for frame in frames {
+            let frame = columns.align(&frame?)?;
+            match pending.as_mut() {
+                Some(group) => {
+                    group.vstack_mut(&frame)?;
+                }
+                None => pending = Some(frame),
+            }
+            if pending
+                .as_ref()
+                .is_some_and(|group| group.height() >= ROWS_PER_GROUP)
+            {
+                flush(&mut pending)?;
+            }
+        }
+        flush(&mut pending)?;
+        parquet.finish()?;
+        csv.finish()?;
+    }
+    Ok([
+        OutputFile {
+            name: format!("{name}.parquet"),
+            bytes: parquet_bytes,
+        },
+        OutputFile {
+            name: format!("{name}.csv"),
+            bytes: csv_bytes,
+        },
+    ])
 }
 
 /// Parquet bytes of a table (snappy pages, statistics on), read back by DuckDB, Spark, polars and
@@ -221,23 +279,6 @@ pub fn parquet_bytes(frame: &mut DataFrame) -> Result<Vec<u8>, TableError> {
 /// A table from Parquet bytes.
 pub fn read_parquet_bytes(bytes: Vec<u8>) -> Result<DataFrame, TableError> {
     Ok(ParquetReader::new(std::io::Cursor::new(bytes)).finish()?)
-}
-
-/// Both files of a combined table: `NAME.parquet` and its twin `NAME.csv`.
-pub fn table_files(
-    name: &str,
-    frame: &mut DataFrame,
-) -> Result<[crate::files::output::OutputFile; 2], TableError> {
-    Ok([
-        crate::files::output::OutputFile {
-            name: format!("{name}.parquet"),
-            bytes: parquet_bytes(frame)?,
-        },
-        crate::files::output::OutputFile {
-            name: format!("{name}.csv"),
-            bytes: csv_bytes(frame)?,
-        },
-    ])
 }
 
 /// `plates.csv`: one row per plate in run order: `plate`, `status` (`ok` or `failed`), `error`,
@@ -333,17 +374,29 @@ mod tests {
     fn stacking_unions_columns_and_keeps_types() {
         let first = df!("plate" => ["a", "a"], "rate" => [1.0, 2.0], "variant" => ["x", "y"]).unwrap();
         let second = df!("plate" => ["b"], "rate" => [3.0], "lot" => ["L1"]).unwrap();
-        let stacked = stack_tables(&[first, second]).unwrap();
+        let mut columns = StackedColumns::default();
+        columns.add(first.schema());
+        columns.add(second.schema());
+        let [parquet, csv] =
+            stacked_table_files("wells", &columns, [first, second].into_iter().map(Ok)).unwrap();
+        let stacked = read_parquet_bytes(parquet.bytes).unwrap();
         assert_eq!(stacked.height(), 3);
         let names: Vec<&str> = stacked.get_column_names().iter().map(|n| n.as_str()).collect();
         assert_eq!(names, vec!["plate", "rate", "variant", "lot"]);
         assert_eq!(stacked.column("rate").unwrap().dtype(), &DataType::Float64);
         assert_eq!(stacked.column("lot").unwrap().null_count(), 2);
+        assert_eq!(
+            String::from_utf8(csv.bytes).unwrap(),
+            "plate,rate,variant,lot\na,1.0,x,\na,2.0,y,\nb,3.0,,L1\n"
+        );
         // A column that is a number on one plate and text on another is text everywhere.
-        let numbers = df!("day" => [1.0]).unwrap();
-        let words = df!("day" => ["Monday"]).unwrap();
-        let mixed = stack_tables(&[numbers, words]).unwrap();
-        assert_eq!(mixed.column("day").unwrap().dtype(), &DataType::String);
+        let mut mixed = StackedColumns::default();
+        mixed.add(df!("day" => [1.0]).unwrap().schema());
+        mixed.add(df!("day" => ["Monday"]).unwrap().schema());
+        assert_eq!(mixed.schema().get("day"), Some(&DataType::String));
+        // No plate at all: a table with its header only.
+        let [_, csv] = stacked_table_files("wells", &columns, std::iter::empty()).unwrap();
+        assert_eq!(String::from_utf8(csv.bytes).unwrap(), "plate,rate,variant,lot\n");
     }
 
     #[test]
