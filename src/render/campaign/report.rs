@@ -27,11 +27,13 @@ pub fn label_text(label: &GroupLabel) -> String {
     if label.is_empty() {
         return "all samples".to_string();
     }
+    // A factor left empty on these wells says nothing about them.
     label
         .iter()
-        .map(|(name, value)| match value {
-            KeyValue::Text(text) => format!("{name}={text}"),
-            KeyValue::Number(number) => format!("{name}={number}"),
+        .filter_map(|(name, value)| match value {
+            KeyValue::Text(text) if text.is_empty() => None,
+            KeyValue::Text(text) => Some(format!("{name}={text}")),
+            KeyValue::Number(number) => Some(format!("{name}={number}")),
         })
         .collect::<Vec<_>>()
         .join(", ")
@@ -214,7 +216,7 @@ fn plates_section(record: &CampaignRecord<'_>, html: &mut String) {
     for (index, plate) in record.plates.iter().enumerate() {
         let _ = write!(
             html,
-            "<tr><td class=\"num\">{}</td><td>{}</td>",
+            "<tr><td class=\"num\">{}</td><td class=\"num\">{}</td>",
             index + 1,
             escape(&plate.plate)
         );
@@ -247,6 +249,7 @@ fn plates_section(record: &CampaignRecord<'_>, html: &mut String) {
                 let constants: Vec<String> = digest
                     .constants
                     .iter()
+                    .filter(|c| c.km.is_some() || c.vmax.is_some())
                     .map(|c| {
                         let scale = c.kcat.as_ref().map_or_else(
                             || format!("Vmax {}", estimate_text(c.vmax.as_ref())),
