@@ -8,7 +8,7 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
 use crate::core::cells::{CellGrid, Position};
-use crate::files::input::{is_spreadsheet_name, InputError, InputFile, InputRole};
+use crate::files::input::{InputError, InputFile, InputRole};
 use crate::files::sheet::{read_input_cells, SheetReadError};
 
 /// The most plates one campaign may hold: far beyond a week of screening, and small enough that
@@ -407,11 +407,6 @@ pub fn folder_manifest(folder: &Path, layout: Option<&Path>) -> Result<Manifest,
         })
         .collect::<Result<Vec<_>, ManifestError>>()?;
     finish(source_name, Vec::new(), plates)
-}
-
-/// Whether a path names a spreadsheet or text manifest rather than a folder.
-pub fn is_manifest_file(path: &Path) -> bool {
-    path.is_file() || is_spreadsheet_name(&path.display().to_string())
 }
 
 #[cfg(test)]

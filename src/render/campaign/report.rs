@@ -367,3 +367,166 @@ pub fn campaign_report_html(record: &CampaignRecord<'_>) -> Result<String, PlotE
     html.push_str("</body>\n</html>\n");
     Ok(html)
 }
+
+#[cfg(test)]
+mod tests {
+    use std::collections::BTreeMap;
+
+    use super::*;
+    use crate::campaign::digest::{FlaggedWell, GroupConstants, PlateDigest, PoolPoint};
+    use crate::campaign::screening::z_prime;
+    use crate::campaign::{campaign_pooled_fits, PlateOutcome};
+    use crate::config::SettingLayer;
+
+    fn estimate(value: f64, unit: &str) -> Option<Estimate> {
+        Some(Estimate {
+            value,
+            se: Some(value / 50.0),
+            ci95: Some([value * 0.96, value * 1.04]),
+            unit: unit.to_string(),
+        })
+    }
+
+    /// A plate of invented numbers: one wild-type group, its pool points at an activity.
+    fn plate(plate: &str, day: &str, activity: f64, controls: bool, reused: bool) -> PlateOutcome {
+        let pool_points = [15.0, 30.0, 60.0, 120.0, 240.0, 480.0, 960.0]
+            .iter()
+            .enumerate()
+            .map(|(index, s)| PoolPoint {
+                well: format!("A{}", index + 1),
+                factors: BTreeMap::from([("variant".to_string(), "wt".to_string())]),
+                substrate: *s,
+                rate: 0.045 * activity * s / (120.0 + s),
+                turnover: Some(9.0 * activity * s / (120.0 + s) * (1.0 + 0.01 * (index as f64 - 3.0))),
+            })
+            .collect();
+        let digest = PlateDigest {
+            wells: 76,
+            flagged: vec![FlaggedWell {
+                well: "F9".into(),
+                flags: "lag".into(),
+            }],
+            groups: 1,
+            groups_fitted: 1,
+            constants: vec![GroupConstants {
+                group: vec![("variant".into(), KeyValue::Text("wt".into()))],
+                model: "michaelis-menten".into(),
+                kcat: estimate(9.0 * activity, "1/s"),
+                km: estimate(120.0, "uM"),
+                vmax: estimate(0.045 * activity, "uM/s"),
+            }],
+            z_prime: controls
+                .then(|| z_prime(&[0.040, 0.041, 0.042], &[0.001, 0.0012, 0.0008]))
+                .flatten(),
+            pool_points,
+            rate_unit: "uM/s".into(),
+            substrate_unit: Some("uM".into()),
+        };
+        PlateOutcome {
+            plate: plate.into(),
+            factors: BTreeMap::from([("day".to_string(), day.to_string())]),
+            data_sha256: Some("ab".into()),
+            layout_sha256: Some("cd".into()),
+            status: PlateStatus::Ok { digest, reused },
+        }
+    }
+
+    fn page() -> String {
+        let mut plates = vec![
+            plate("d1-p01", "1", 1.0, true, false),
+            plate("d2-p01", "2", 0.9, false, true),
+        ];
+        plates.push(PlateOutcome {
+            plate: "d2-p02".into(),
+            factors: BTreeMap::from([("day".to_string(), "2".to_string())]),
+            data_sha256: None,
+            layout_sha256: None,
+            status: PlateStatus::Failed {
+                error: "exports/d2-p02.csv, row 9: <cut short>".into(),
+            },
+        });
+        let pool_by = vec!["variant".to_string()];
+        let (pooled, unknown) = campaign_pooled_fits(&plates, &pool_by);
+        let factor_names = vec!["day".to_string()];
+        let settings = SettingLayer::default();
+        let record = CampaignRecord {
+            source: "manifest.csv",
+            factor_names: &factor_names,
+            plates: &plates,
+            pool_by: &pool_by,
+            pooled: &pooled,
+            unknown_pool_factors: &unknown,
+            settings: &settings,
+            report: ReportMode::Html,
+        };
+        campaign_report_html(&record).unwrap()
+    }
+
+    fn between<'a>(text: &'a str, start: &str, end: &str) -> Vec<&'a str> {
+        text.split(start)
+            .skip(1)
+            .filter_map(|part| part.split(end).next())
+            .collect()
+    }
+
+    /// What harmless changes (wording, styling, plot details) leave alone: headings, each plates
+    /// row's plate, status and Z', the links, the plot's presence and the pooled rows.
+    fn structure(page: &str) -> String {
+        let mut lines: Vec<String> = between(page, "<h2 id=\"", "\"")
+            .iter()
+            .map(|id| format!("h2 {id}"))
+            .collect();
+        for row in between(page, "<tr><td class=\"num\">", "</tr>") {
+            let cells = between(row, "<td", "</td>");
+            // A cell's text without its tags.
+            let text = |index: usize| {
+                let cell = cells
+                    .get(index)
+                    .map_or("", |cell| cell.split_once('>').map_or("", |(_, rest)| rest));
+                let mut plain = String::new();
+                let mut in_tag = false;
+                for c in cell.chars() {
+                    match c {
+                        '<' => in_tag = true,
+                        '>' => in_tag = false,
+                        c if !in_tag => plain.push(c),
+                        _ => {}
+                    }
+                }
+                plain
+            };
+            lines.push(format!("plate {} {} z {}", text(0), text(2), text(3)));
+        }
+        lines.push(format!("links {}", page.matches("<a href=\"plates/").count()));
+        lines.push(format!("svg {}", page.matches("<svg").count()));
+        lines.push(format!(
+            "pooled rows {}",
+            page.split("id=\"pooled\"")
+                .nth(1)
+                .map_or(0, |p| p.matches("<tr>").count())
+        ));
+        lines.join("\n") + "\n"
+    }
+
+    /// Golden file: `fixtures/golden/campaign-report-structure.txt`. After an intended change,
+    /// rewrite it with `PLATEKIN_UPDATE_GOLDEN=1 cargo test --release render::campaign` and review
+    /// the diff.
+    #[test]
+    fn campaign_report_structure_matches_the_golden_file() {
+        crate::render::report::tests::assert_matches_golden(
+            "campaign-report-structure.txt",
+            &structure(&page()),
+        );
+    }
+
+    #[test]
+    fn the_page_is_self_contained_and_escapes_what_it_shows() {
+        let page = page();
+        assert!(!page.contains("<script"));
+        // No resource is fetched (the SVG namespace is a name, not a fetch).
+        assert!(!page.contains("src=\"http") && !page.contains("href=\"http") && !page.contains("url(http"));
+        assert!(page.contains("&lt;cut short&gt;"), "an error's text is escaped");
+        assert!(page.contains("1 F9 (lag)"));
+        assert!(page.contains("ok (kept)"));
+    }
+}
