@@ -321,3 +321,56 @@ fn an_unusable_manifest_stops_before_anything_is_written() {
     assert_eq!(output.status.code(), Some(0));
     assert_eq!(text(&output.stderr), "");
 }
+
+#[test]
+fn a_plates_own_assay_file_overrides_the_commands_flags() {
+    let root = tempfile::tempdir().unwrap();
+    campaign(root.path(), 2);
+    std::fs::write(root.path().join("slow.toml"), "max-conversion = 0.05\n").unwrap();
+    std::fs::write(
+        root.path().join("own.csv"),
+        "data,layout,plate,assay,day\nexports/d1-p01.csv,layout.csv,first,,1\nexports/d2-p01.csv,layout.csv,second,slow.toml,2\n",
+    )
+    .unwrap();
+    let output = platekin(
+        &[
+            "batch",
+            "own.csv",
+            "--assay",
+            "assay.toml",
+            "--max-conversion",
+            "0.08",
+            "--out",
+            "results",
+            "--report",
+            "none",
+        ],
+        root.path(),
+    );
+    assert_eq!(output.status.code(), Some(0), "{}", text(&output.stderr));
+    let settings = |plate: &str| {
+        std::fs::read_to_string(
+            root.path()
+                .join("results/plates")
+                .join(plate)
+                .join("settings.toml"),
+        )
+        .unwrap()
+    };
+    assert!(
+        settings("first").contains("max-conversion = 0.08"),
+        "{}",
+        settings("first")
+    );
+    assert!(
+        settings("second").contains("max-conversion = 0.05"),
+        "{}",
+        settings("second")
+    );
+    // The command's --assay still gives what neither overrides.
+    assert!(
+        settings("second").contains("extinction = 16800"),
+        "{}",
+        settings("second")
+    );
+}

@@ -480,6 +480,44 @@ mod tests {
     }
 
     #[test]
+    fn a_spreadsheet_manifest_reads_like_a_csv_one_with_numbers_as_factors() {
+        let mut workbook = rust_xlsxwriter::Workbook::new();
+        let sheet = workbook.add_worksheet();
+        for (column, header) in ["data", "layout", "plate", "day"].iter().enumerate() {
+            sheet.write_string(0, column as u16, *header).unwrap();
+        }
+        sheet.write_string(1, 0, "d1.csv").unwrap();
+        sheet.write_string(1, 1, "l.csv").unwrap();
+        sheet.write_string(1, 2, "P1").unwrap();
+        sheet.write_number(1, 3, 2.0).unwrap();
+        sheet.write_string(3, 0, "d2.csv").unwrap();
+        let bytes = workbook.save_to_buffer().unwrap();
+        let grid = crate::files::sheet::read_spreadsheet_cells(&bytes, "plates.xlsx", None).unwrap();
+        let error = parse_manifest(&grid, Path::new("runs")).unwrap_err();
+        // Row 3 is blank and skipped; row 4 lacks its layout.
+        assert!(
+            error
+                .to_string()
+                .starts_with("plates.xlsx, sheet 'Sheet1', row 4, column 2 (B): the `layout` cell is empty"),
+            "{error}"
+        );
+        let mut workbook = rust_xlsxwriter::Workbook::new();
+        let sheet = workbook.add_worksheet();
+        for (column, text) in ["data", "layout", "plate", "day"].iter().enumerate() {
+            sheet.write_string(0, column as u16, *text).unwrap();
+        }
+        for (column, text) in ["d1.csv", "l.csv", "P1"].iter().enumerate() {
+            sheet.write_string(1, column as u16, *text).unwrap();
+        }
+        sheet.write_number(1, 3, 2.0).unwrap();
+        let bytes = workbook.save_to_buffer().unwrap();
+        let grid = crate::files::sheet::read_spreadsheet_cells(&bytes, "plates.xlsx", None).unwrap();
+        let parsed = parse_manifest(&grid, Path::new("runs")).unwrap();
+        assert_eq!(parsed.plates[0].plate, "P1");
+        assert_eq!(parsed.plates[0].factors, vec!["2"]);
+    }
+
+    #[test]
     fn stems_become_folder_safe_ids() {
         assert_eq!(
             plate_id_from_stem(Path::new("a/day 1 (plate 3).csv")),
