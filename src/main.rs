@@ -149,7 +149,9 @@ impl BatchProgress {
         if quiet {
             BatchProgress::Quiet
         } else if std::io::stderr().is_terminal() {
-            let bar = indicatif::ProgressBar::new(0);
+            // Hidden until the first plate ends and the campaign's size is known.
+            let bar =
+                indicatif::ProgressBar::with_draw_target(Some(0), indicatif::ProgressDrawTarget::hidden());
             let style = indicatif::ProgressStyle::with_template(
                 "{bar:30} {pos}/{len} plates, {msg}, {per_sec}, ETA {eta}",
             );
@@ -171,6 +173,9 @@ impl BatchProgress {
         };
         match self {
             BatchProgress::Bar(bar) => {
+                if bar.is_hidden() {
+                    bar.set_draw_target(indicatif::ProgressDrawTarget::stderr());
+                }
                 bar.set_length(finished.total as u64);
                 bar.set_position(finished.done as u64);
                 bar.set_message(format!("{} failed", finished.failed));
