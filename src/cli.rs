@@ -29,6 +29,33 @@ pub enum Command {
     /// Fit a rate table (a run's conditions.csv or wells.csv, or a CSV/XLSX with `substrate` and
     /// `rate` columns) and write fit.json and a summary.
     Fit(Box<FitArgs>),
+    /// Run many plates: every plate of a manifest (or every export in a folder, with --layout) in
+    /// parallel, each as `run` would, then combined tables (Parquet and CSV), cross-plate fits and
+    /// a campaign report.
+    Batch(Box<BatchArgs>),
+}
+
+/// `platekin batch`: the run flags (applied to every plate) and the campaign's own.
+#[derive(Debug, Args)]
+#[command(mut_arg("data", |arg| arg
+    .value_name("MANIFEST")
+    .help("The manifest (CSV or spreadsheet: columns data and layout, optional plate and assay, any other column a plate factor) or a folder of exports (with --layout)")))]
+#[command(mut_arg("force", |arg| arg
+    .help("Analyse every plate again (by default a plate whose inputs and settings did not change keeps its results); also write into a non-empty folder platekin did not make")))]
+pub struct BatchArgs {
+    /// The run flags, for every plate; a plate's own assay file overrides them.
+    #[command(flatten)]
+    pub run: RunArgs,
+    /// Plates analysed at once (default: the number of cores; at most 64).
+    #[arg(long, value_name = "N")]
+    pub jobs: Option<usize>,
+    /// Fit the plates sharing these factors' values together (one Km, one kcat per plate); a
+    /// factor is a manifest column or a layout factor.
+    #[arg(long, value_name = "FACTOR[,FACTOR]", value_delimiter = ',')]
+    pub pool_by: Vec<String>,
+    /// No progress on stderr (failed plates are still named there).
+    #[arg(long)]
+    pub quiet: bool,
 }
 
 /// How rates are fitted (shared by `run` and `fit`).

@@ -4,10 +4,11 @@
 //! The crate is layered; each layer uses only the layers above it in this list (see
 //! DEVELOPERS.md and the test `tests/layers.rs`):
 //! [`core`] -> [`config`] -> [`files`] -> [`import`], [`layout`] -> [`signal`] -> [`rates`] ->
-//! [`fit`] -> [`groups`] -> [`progress`] -> [`pipeline`] -> [`render`] -> [`commands`];
+//! [`fit`] -> [`groups`] -> [`progress`] -> [`pipeline`], [`campaign`] -> [`render`] -> [`commands`];
 //! [`simulate`] sits apart at the top and serves the demo data, tests and benchmarks.
 //! The library never prints and never exits.
 
+pub mod campaign;
 pub mod commands;
 pub mod config;
 pub mod core;

@@ -20,6 +20,8 @@ const LAYERS: &[(&str, usize)] = &[
     ("groups", 7),
     ("progress", 8),
     ("pipeline", 9),
+    // A campaign of plates: digests of pipeline results, Z', cross-plate fits.
+    ("campaign", 9),
     ("render", 10),
     ("commands", 11),
     // The simulator serves the demo data, tests and benchmarks, never a run: it sits on top.

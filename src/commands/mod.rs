@@ -1,7 +1,8 @@
-//! The commands (`run`, `inspect`, `demo`, `fit`): each takes resolved settings, reads its inputs
+//! The commands (`run`, `inspect`, `demo`, `fit`, `batch`): each takes resolved settings, reads its inputs
 //! once, runs the pipeline, renders every output in memory and writes them as one unit, and
 //! returns the summary text for the binary to print. Nothing here prints or exits.
 
+pub mod batch;
 pub mod demo;
 pub mod fit;
 pub mod inspect;
@@ -40,4 +41,13 @@ pub enum CommandError {
     /// The outputs could not be written.
     #[error(transparent)]
     Output(#[from] OutputError),
+    /// A campaign's manifest (or folder) cannot be used (`batch`).
+    #[error(transparent)]
+    Manifest(#[from] crate::campaign::ManifestError),
+    /// A campaign's own option cannot be used (`batch`).
+    #[error("{message}")]
+    Campaign {
+        /// What is wrong, naming the option.
+        message: String,
+    },
 }

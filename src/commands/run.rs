@@ -34,8 +34,22 @@ pub fn run_plate(
         data: InputFile::read(InputRole::Data, &settings.data)?,
         layout: InputFile::read(InputRole::Layout, &settings.layout)?,
     };
+    run_plate_inputs(settings, &inputs, out, force, progress)
+}
+
+/// Runs a plate whose inputs were already read (from `settings.data` and `settings.layout`) and
+/// writes the outputs into `out`, exactly as [`run_plate`] does (`platekin batch` reads the inputs
+/// first to compare their checksums with the previous run's).
+pub fn run_plate_inputs(
+    settings: &RunSettings,
+    inputs: &PlateInputs,
+    out: &Path,
+    force: bool,
+    progress: &mut dyn FnMut(usize, usize),
+) -> Result<RunOutcome, CommandError> {
+    check_output_folder(out, force)?;
     let results = run_pipeline(
-        &inputs,
+        inputs,
         &settings.import,
         settings.layout_sheet.as_deref(),
         &settings.analysis,

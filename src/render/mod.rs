@@ -6,6 +6,7 @@
 //! ([`tables`]), `fit.json`, `progress.json` ([`json`]), `settings.toml`, the report
 //! ([`report`], [`plots`]) and last `run.json`, which lists the others with their checksums.
 
+pub mod campaign;
 pub mod inspect;
 pub mod json;
 pub mod plots;

@@ -29,6 +29,7 @@
 //! Goudar, Sonnad and Duggleby 1999, Biochim Biophys Acta 1429:377; Simpson's rule (common
 //! practice).
 
+pub mod campaign;
 pub mod demo;
 pub mod kinetics;
 pub mod study;

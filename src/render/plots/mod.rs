@@ -26,6 +26,7 @@ use plotters::prelude::*;
 use plotters::style::FontStyle;
 
 pub use groups::{group_plots, mean_band, GroupPlot, GroupPlotKind, GroupPoint, GroupView};
+pub(crate) use inhibition::draw_markers;
 pub use inhibition::{
     inhibition_plots, level_style, model_parameters, InhibitionPlot, InhibitionPlotKind, InhibitionPoint,
     InhibitionView, MarkerShape, LEVEL_COLOURS, LEVEL_SHAPES,

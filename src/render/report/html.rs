@@ -190,7 +190,8 @@ pub fn escape(text: &str) -> String {
     out
 }
 
-const STYLE: &str = "
+/// The report's CSS (the campaign page shares it).
+pub(crate) const STYLE: &str = "
 body{font-family:'DejaVu Sans',Verdana,Arial,sans-serif;margin:1.5em auto;max-width:72em;padding:0 1em;color:#111;line-height:1.4}
 h1{font-size:1.6em;margin-bottom:.2em}h2{border-bottom:2px solid #0072B2;padding-bottom:.15em;margin-top:2em}
 table{border-collapse:collapse;margin:.6em 0;font-size:.92em}th,td{border:1px solid #bbb;padding:.2em .5em;text-align:left;vertical-align:top}

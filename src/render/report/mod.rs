@@ -7,7 +7,7 @@
 //! later add their own sections and their own candidates in [`trust_verdicts`] without changing
 //! the others. `run.json` itself is made in [`super::json`].
 
-mod html;
+pub(crate) mod html;
 
 use super::plots::WellState;
 use super::words::{group_label, trust_analysis_words, trust_reason_words};

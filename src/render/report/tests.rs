@@ -183,17 +183,23 @@ fn demo_page() -> (RunResults, String) {
 #[test]
 fn demo_report_structure_matches_the_golden_file() {
     let (_, page) = demo_page();
-    let actual = structure(&page);
-    let path =
-        std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("fixtures/golden/demo-report-structure.txt");
+    assert_matches_golden("demo-report-structure.txt", &structure(&page));
+}
+
+/// Compares a page's structure with `fixtures/golden/NAME`, or rewrites that file when
+/// `PLATEKIN_UPDATE_GOLDEN` is set (then review the diff).
+pub(crate) fn assert_matches_golden(name: &str, actual: &str) {
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("fixtures/golden")
+        .join(name);
     if std::env::var_os("PLATEKIN_UPDATE_GOLDEN").is_some() {
         std::fs::create_dir_all(path.parent().unwrap()).unwrap();
-        std::fs::write(&path, &actual).unwrap();
+        std::fs::write(&path, actual).unwrap();
     }
     let expected = std::fs::read_to_string(&path).unwrap();
     assert_eq!(
         actual, expected,
-        "report structure changed; see the test's doc comment"
+        "{name}: the report's structure changed; see the test's doc comment"
     );
 }
 
@@ -208,16 +214,9 @@ fn demo_progress_report_structure_matches_the_golden_file() {
     let results = demo_results_with(&layer);
     let record = demo_record(&layer);
     let parts = ReportParts::build(&results, &record).unwrap();
-    let actual = structure(&report_html(&parts));
-    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("fixtures/golden/demo-progress-report-structure.txt");
-    if std::env::var_os("PLATEKIN_UPDATE_GOLDEN").is_some() {
-        std::fs::write(&path, &actual).unwrap();
-    }
-    let expected = std::fs::read_to_string(&path).unwrap();
-    assert_eq!(
-        actual, expected,
-        "report structure changed; see the test's doc comment"
+    assert_matches_golden(
+        "demo-progress-report-structure.txt",
+        &structure(&report_html(&parts)),
     );
 }
 

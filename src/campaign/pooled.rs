@@ -1,0 +1,456 @@
+//! Cross-plate fits (`--pool-by FACTOR[,FACTOR]`): the wells of every plate that share the pool
+//! factors' values (a variant, a substrate lot) fitted together to Michaelis-Menten with one Km
+//! shared by all plates and one kcat per plate.
+//!
+//! Model: y_pi = k_p S_pi / (Km + S_pi) for well i of plate p, with y the rate per enzyme
+//! (rate / [E], 1/s, so k_p is the plate's kcat) where every well's rate is a concentration per
+//! second and its enzyme is known, else the rate itself (k_p is the plate's Vmax). Unweighted least
+//! squares (Levenberg-Marquardt, [`crate::fit::least_squares`]), all parameters kept positive;
+//! standard errors from s^2 (J'J)^-1 and intervals value +- t(0.975, n - P - 1) SE (Bates and
+//! Watts 1988, "Nonlinear Regression Analysis and Its Applications", Wiley).
+//!
+//! Why a kcat per plate and a shared Km: the active enzyme in a well differs from day to day
+//! (dilution, storage, a new aliquot), which scales every rate of a plate by one factor; that
+//! moves Vmax, and kcat computed from the nominal enzyme, but not Km, a property of the enzyme and
+//! substrate under the assay's conditions. One scale per plate absorbs the plate-to-plate activity
+//! so that it neither inflates the residuals nor leans on Km, and every plate's substrate series
+//! informs the one Km. The between-plate CV of the per-plate kcat (sample SD over mean) then
+//! measures the activity's reproducibility. Assumptions: Km truly the same on every plate (check
+//! the per-plate Km in the report), independent rate errors of equal variance, S known exactly.
+
+use std::collections::BTreeMap;
+
+use nalgebra::DMatrix;
+use serde::{Deserialize, Serialize};
+
+use super::digest::{Estimate, PlateDigest, PoolPoint};
+use crate::core::stats::{median, summary, t_quantile_975};
+use crate::fit::least_squares::{fit_least_squares, LeastSquaresOptions, ResidualModel};
+
+/// The most pool factors `--pool-by` takes.
+pub const MAX_POOL_FACTORS: usize = 8;
+
+/// One plate of a campaign as the pooled fits see it.
+#[derive(Debug, Clone, Copy)]
+pub struct PoolPlate<'a> {
+    /// The plate's id.
+    pub plate: &'a str,
+    /// The plate's manifest factors by name.
+    pub factors: &'a BTreeMap<String, String>,
+    /// Its digest.
+    pub digest: &'a PlateDigest,
+}
+
+/// One plate's part of a pooled fit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PooledPlate {
+    /// The plate.
+    pub plate: String,
+    /// Its kcat (or Vmax) from the pooled fit.
+    pub scale: Estimate,
+    /// Wells used.
+    pub n: usize,
+}
+
+/// A pooled fit over the plates sharing the pool factors' values.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PooledFit {
+    /// The pool factors' values, by factor name.
+    pub key: Vec<(String, String)>,
+    /// `kcat` (rates per enzyme) or `Vmax` (rates alone): what each plate's scale is.
+    pub scale_name: String,
+    /// The plates fitted, in run order.
+    pub plates: Vec<PooledPlate>,
+    /// The shared Km.
+    pub km: Option<Estimate>,
+    /// Mean of the per-plate scales.
+    pub scale_mean: Option<f64>,
+    /// Between-plate CV of the per-plate scales (sample SD / mean); `None` below two plates.
+    pub scale_cv: Option<f64>,
+    /// Points fitted.
+    pub n: usize,
+    /// Residual SD.
+    pub residual_sd: Option<f64>,
+    /// What to keep in mind (plates left out, a substrate range that cannot pin Km down).
+    pub warnings: Vec<String>,
+    /// Why there is no fit, when there is none.
+    pub error: Option<String>,
+}
+
+/// The shared-Km model in residual form: parameters `[k_1, ..., k_P, Km]`.
+struct SharedKmModel<'a> {
+    plate_of_point: &'a [usize],
+    substrate: &'a [f64],
+    observed: &'a [f64],
+    n_plates: usize,
+}
+
+impl ResidualModel for SharedKmModel<'_> {
+    fn n_parameters(&self) -> usize {
+        self.n_plates + 1
+    }
+    fn n_observations(&self) -> usize {
+        self.observed.len()
+    }
+    fn residuals(&self, parameters: &[f64], residuals: &mut [f64]) {
+        let km = parameters[self.n_plates];
+        for (i, residual) in residuals.iter_mut().enumerate() {
+            let s = self.substrate[i];
+            *residual = parameters[self.plate_of_point[i]] * s / (km + s) - self.observed[i];
+        }
+    }
+    fn jacobian(&self, parameters: &[f64], jacobian: &mut DMatrix<f64>) {
+        let km = parameters[self.n_plates];
+        jacobian.fill(0.0);
+        for i in 0..self.observed.len() {
+            let s = self.substrate[i];
+            let plate = self.plate_of_point[i];
+            jacobian[(i, plate)] = s / (km + s);
+            jacobian[(i, self.n_plates)] = -parameters[plate] * s / ((km + s) * (km + s));
+        }
+    }
+}
+
+/// The points of one plate in one pool.
+#[derive(Debug, Clone)]
+pub struct PlateSeries {
+    /// The plate.
+    pub plate: String,
+    /// Substrate of each point.
+    pub substrate: Vec<f64>,
+    /// Rate (or rate per enzyme) of each point.
+    pub value: Vec<f64>,
+}
+
+/// Fits one Km shared by every series and one scale per series. Series with fewer than three
+/// points or two distinct substrate concentrations are left out with a warning.
+pub fn fit_shared_km(
+    series: &[PlateSeries],
+    scale_name: &str,
+    scale_unit: &str,
+    substrate_unit: &str,
+) -> PooledFit {
+    let mut warnings = Vec::new();
+    let mut kept: Vec<&PlateSeries> = Vec::new();
+    for plate in series {
+        let mut distinct = plate.substrate.clone();
+        distinct.sort_by(f64::total_cmp);
+        distinct.dedup();
+        if plate.substrate.len() < 3 || distinct.len() < 2 {
+            warnings.push(format!(
+                "plate {} left out: {} usable well(s) at {} substrate concentration(s); a plate needs 3 wells at 2 or more",
+                plate.plate,
+                plate.substrate.len(),
+                distinct.len()
+            ));
+        } else {
+            kept.push(plate);
+        }
+    }
+    let mut fit = PooledFit {
+        key: Vec::new(),
+        scale_name: scale_name.to_string(),
+        plates: Vec::new(),
+        km: None,
+        scale_mean: None,
+        scale_cv: None,
+        n: kept.iter().map(|p| p.substrate.len()).sum(),
+        residual_sd: None,
+        warnings,
+        error: None,
+    };
+    let n_plates = kept.len();
+    if n_plates == 0 {
+        fit.error = Some("no plate has enough usable wells".to_string());
+        return fit;
+    }
+    if fit.n < n_plates + 2 {
+        fit.error = Some(format!(
+            "{} points are too few for {} parameters and an error estimate",
+            fit.n,
+            n_plates + 1
+        ));
+        return fit;
+    }
+    let mut plate_of_point = Vec::with_capacity(fit.n);
+    let mut substrate = Vec::with_capacity(fit.n);
+    let mut observed = Vec::with_capacity(fit.n);
+    for (index, plate) in kept.iter().enumerate() {
+        plate_of_point.extend(std::iter::repeat_n(index, plate.substrate.len()));
+        substrate.extend(&plate.substrate);
+        observed.extend(&plate.value);
+    }
+    // Start: Km at the median substrate; each plate's scale from its highest value, corrected for
+    // the saturation at its highest substrate.
+    let km_start = median(substrate.iter().copied())
+        .unwrap_or(1.0)
+        .max(f64::MIN_POSITIVE);
+    let mut start: Vec<f64> = kept
+        .iter()
+        .map(|plate| {
+            let top = plate.value.iter().copied().fold(f64::MIN, f64::max);
+            let s_top = plate.substrate.iter().copied().fold(f64::MIN, f64::max);
+            (top.max(f64::MIN_POSITIVE)) * (km_start + s_top) / s_top
+        })
+        .collect();
+    start.push(km_start);
+    let model = SharedKmModel {
+        plate_of_point: &plate_of_point,
+        substrate: &substrate,
+        observed: &observed,
+        n_plates,
+    };
+    let options = LeastSquaresOptions {
+        positive_parameters: (0..=n_plates).collect(),
+        ..LeastSquaresOptions::default()
+    };
+    let result = match fit_least_squares(&model, &start, &options).and_then(|r| r.require_converged()) {
+        Ok(result) => result,
+        Err(error) => {
+            fit.error = Some(format!("the pooled fit failed: {error}"));
+            return fit;
+        }
+    };
+    let quantile = t_quantile_975(result.degrees_of_freedom).ok();
+    let estimate = |index: usize, unit: &str| {
+        let se = result.standard_errors.as_ref().map(|errors| errors[index]);
+        Estimate {
+            value: result.parameters[index],
+            se,
+            ci95: se.zip(quantile).map(|(se, q)| {
+                [
+                    result.parameters[index] - q * se,
+                    result.parameters[index] + q * se,
+                ]
+            }),
+            unit: unit.to_string(),
+        }
+    };
+    fit.plates = kept
+        .iter()
+        .enumerate()
+        .map(|(index, plate)| PooledPlate {
+            plate: plate.plate.clone(),
+            scale: estimate(index, scale_unit),
+            n: plate.substrate.len(),
+        })
+        .collect();
+    let km = estimate(n_plates, substrate_unit);
+    let highest = substrate.iter().copied().fold(f64::MIN, f64::max);
+    if km.value > highest {
+        fit.warnings.push(format!(
+            "the pooled Km lies above the highest substrate concentration ({highest} {substrate_unit}): the data do not reach saturation, so Km and the scales are poorly determined"
+        ));
+    }
+    fit.km = Some(km);
+    let scales: Vec<f64> = result.parameters[..n_plates].to_vec();
+    let scale_summary = summary(&scales);
+    fit.scale_mean = scale_summary.map(|s| s.mean);
+    fit.scale_cv = scale_summary.and_then(|s| s.sd.map(|sd| sd / s.mean));
+    fit.residual_sd = result.residual_standard_deviation;
+    fit
+}
+
+/// The pool key of a point: each pool factor's value from the well's layout factors, else from the
+/// plate's manifest factors; `None` when a factor is on neither.
+fn pool_key(
+    point: &PoolPoint,
+    plate_factors: &BTreeMap<String, String>,
+    pool_by: &[String],
+) -> Option<Vec<String>> {
+    pool_by
+        .iter()
+        .map(|name| {
+            point
+                .factors
+                .get(name)
+                .or_else(|| plate_factors.get(name))
+                .cloned()
+        })
+        .collect()
+}
+
+/// Every pooled fit of a campaign: one per combination of the pool factors' values, over the
+/// plates (in run order) that hold wells of it. Returns the fits and the pool factors no plate
+/// knows.
+pub fn pooled_fits(plates: &[PoolPlate<'_>], pool_by: &[String]) -> (Vec<PooledFit>, Vec<String>) {
+    let unknown: Vec<String> = pool_by
+        .iter()
+        .filter(|name| {
+            !plates.iter().any(|plate| {
+                plate.factors.contains_key(*name)
+                    || plate
+                        .digest
+                        .pool_points
+                        .iter()
+                        .any(|point| point.factors.contains_key(*name))
+            })
+        })
+        .cloned()
+        .collect();
+    if !unknown.is_empty() || pool_by.is_empty() {
+        return (Vec::new(), unknown);
+    }
+    // Pool key -> plate index -> points.
+    let mut pools: BTreeMap<Vec<String>, BTreeMap<usize, Vec<&PoolPoint>>> = BTreeMap::new();
+    for (index, plate) in plates.iter().enumerate() {
+        for point in &plate.digest.pool_points {
+            if let Some(key) = pool_key(point, plate.factors, pool_by) {
+                pools
+                    .entry(key)
+                    .or_default()
+                    .entry(index)
+                    .or_default()
+                    .push(point);
+            }
+        }
+    }
+    let fits = pools
+        .into_iter()
+        .map(|(key, by_plate)| {
+            let mut warnings = Vec::new();
+            // Every plate must share the units of the first; a plate with others is left out.
+            let first = &plates[*by_plate.keys().next().unwrap_or(&0)].digest;
+            let per_enzyme = by_plate
+                .values()
+                .all(|points| points.iter().all(|point| point.turnover.is_some()));
+            let mut series = Vec::new();
+            for (index, points) in &by_plate {
+                let digest = plates[*index].digest;
+                if digest.rate_unit != first.rate_unit || digest.substrate_unit != first.substrate_unit {
+                    warnings.push(format!(
+                        "plate {} left out: its units ({}, substrate {}) differ from the pool's ({}, substrate {})",
+                        plates[*index].plate,
+                        digest.rate_unit,
+                        digest.substrate_unit.as_deref().unwrap_or("without unit"),
+                        first.rate_unit,
+                        first.substrate_unit.as_deref().unwrap_or("without unit"),
+                    ));
+                    continue;
+                }
+                series.push(PlateSeries {
+                    plate: plates[*index].plate.to_string(),
+                    substrate: points.iter().map(|point| point.substrate).collect(),
+                    value: points
+                        .iter()
+                        .map(|point| {
+                            if per_enzyme {
+                                point.turnover.unwrap_or(point.rate)
+                            } else {
+                                point.rate
+                            }
+                        })
+                        .collect(),
+                });
+            }
+            let (scale_name, scale_unit) = if per_enzyme {
+                ("kcat", "1/s".to_string())
+            } else {
+                ("Vmax", first.rate_unit.clone())
+            };
+            let substrate_unit = first.substrate_unit.clone().unwrap_or_default();
+            let mut fit = fit_shared_km(&series, scale_name, &scale_unit, &substrate_unit);
+            fit.key = pool_by.iter().cloned().zip(key).collect();
+            warnings.append(&mut fit.warnings);
+            fit.warnings = warnings;
+            fit
+        })
+        .collect();
+    (fits, unknown)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use approx::assert_relative_eq;
+
+    // Puromycin, treated (Treloar 1974; Bates and Watts 1988, Appendix A1.3), as in the R datasets
+    // source Puromycin.R, copied from the project's reference folder.
+    const PUROMYCIN_SUBSTRATE: [f64; 12] = [
+        0.02, 0.02, 0.06, 0.06, 0.11, 0.11, 0.22, 0.22, 0.56, 0.56, 1.10, 1.10,
+    ];
+    const PUROMYCIN_RATE: [f64; 12] = [
+        76.0, 47.0, 97.0, 107.0, 123.0, 139.0, 159.0, 152.0, 191.0, 201.0, 207.0, 200.0,
+    ];
+
+    fn series(plate: &str, substrate: &[f64], value: &[f64]) -> PlateSeries {
+        PlateSeries {
+            plate: plate.to_string(),
+            substrate: substrate.to_vec(),
+            value: value.to_vec(),
+        }
+    }
+
+    #[test]
+    fn one_plate_reproduces_the_published_puromycin_fit() {
+        // Bates and Watts 1988 / R nls(SSmicmen) output in "An Introduction to R", section 11.7:
+        // Vm = 212.68370711 (SE 6.947), K = 0.06412123 (SE 8.281e-03) on 10 df.
+        let fit = fit_shared_km(
+            &[series("treated", &PUROMYCIN_SUBSTRATE, &PUROMYCIN_RATE)],
+            "Vmax",
+            "counts/min/min",
+            "ppm",
+        );
+        assert!(fit.error.is_none(), "{:?}", fit.error);
+        let km = fit.km.unwrap();
+        assert_relative_eq!(km.value, 0.06412123, max_relative = 1e-6);
+        assert_relative_eq!(km.se.unwrap(), 8.281e-3, max_relative = 1e-3);
+        assert_relative_eq!(fit.plates[0].scale.value, 212.68370711, max_relative = 1e-6);
+        assert_relative_eq!(fit.plates[0].scale.se.unwrap(), 6.947, max_relative = 1e-3);
+        assert_relative_eq!(fit.residual_sd.unwrap(), 10.93, max_relative = 1e-3);
+        assert!(fit.scale_cv.is_none(), "one plate has no between-plate CV");
+    }
+
+    #[test]
+    fn a_plate_with_all_rates_scaled_keeps_km_and_scales_its_own_kcat() {
+        // The same data on a second plate whose enzyme was 30% less active: the shared Km is the
+        // single-plate Km, the second plate's scale is 0.7 times the first's, and the residual SD
+        // reflects both plates' scatter.
+        let weaker: Vec<f64> = PUROMYCIN_RATE.iter().map(|v| 0.7 * v).collect();
+        let fit = fit_shared_km(
+            &[
+                series("day1", &PUROMYCIN_SUBSTRATE, &PUROMYCIN_RATE),
+                series("day2", &PUROMYCIN_SUBSTRATE, &weaker),
+            ],
+            "Vmax",
+            "u",
+            "ppm",
+        );
+        assert!(fit.error.is_none(), "{:?}", fit.error);
+        let km = fit.km.unwrap();
+        // Weighted by its own scale, the second plate pulls Km by a hair only: the scaled
+        // residuals are not the same size as the first plate's.
+        assert_relative_eq!(km.value, 0.06412123, max_relative = 0.02);
+        let ratio = fit.plates[1].scale.value / fit.plates[0].scale.value;
+        assert_relative_eq!(ratio, 0.7, max_relative = 0.01);
+        // CV of (1, 0.7) x scale: SD / mean = (0.3 / sqrt 2) / 0.85.
+        assert_relative_eq!(
+            fit.scale_cv.unwrap(),
+            0.3 / 2f64.sqrt() / 0.85,
+            max_relative = 0.01
+        );
+        let interval = km.ci95.unwrap();
+        assert!(interval[0] < km.value && km.value < interval[1]);
+    }
+
+    #[test]
+    fn plates_too_small_are_left_out_with_a_warning() {
+        let fit = fit_shared_km(
+            &[
+                series("good", &PUROMYCIN_SUBSTRATE, &PUROMYCIN_RATE),
+                series("tiny", &[0.1, 0.1], &[100.0, 101.0]),
+            ],
+            "Vmax",
+            "u",
+            "ppm",
+        );
+        assert_eq!(fit.plates.len(), 1);
+        assert!(
+            fit.warnings.iter().any(|w| w.contains("plate tiny left out")),
+            "{:?}",
+            fit.warnings
+        );
+        let none = fit_shared_km(&[series("tiny", &[0.1], &[1.0])], "Vmax", "u", "ppm");
+        assert!(none.error.is_some());
+    }
+}
