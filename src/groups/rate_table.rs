@@ -20,7 +20,7 @@ use crate::config::FitSettings;
 use crate::core::cells::{Cell, CellGrid, Position};
 use crate::core::units::{split_header_unit, ConcentrationUnit};
 use crate::files::input::InputFile;
-use crate::files::sheet::{read_input_cells, SheetReadError};
+use crate::files::sheet::{read_input_cells, MergedCells, SheetReadError};
 
 /// Why a rate table could not be read or fitted.
 #[derive(Debug, thiserror::Error)]
@@ -153,12 +153,12 @@ fn concentration_unit(
 fn number(grid: &CellGrid, row: usize, column: usize, header: &str) -> Result<Option<f64>, RateTableError> {
     match grid.cell(row, column) {
         Cell::Empty => Ok(None),
-        Cell::Number(value) | Cell::Duration(value) => Ok(Some(*value)),
+        Cell::Number(value) | Cell::Duration(value) => Ok(Some(value)),
         Cell::Text(text) if text.eq_ignore_ascii_case("nan") || text.eq_ignore_ascii_case("null") => Ok(None),
         Cell::Text(text) => Err(RateTableError::NotANumber {
             position: Box::new(grid.position(row, Some(column))),
             column: header.to_string(),
-            text: text.clone(),
+            text: text.to_string(),
         }),
     }
 }
@@ -170,9 +170,9 @@ pub fn read_rate_table(
     sheet: Option<&str>,
     settings: &FitSettings,
 ) -> Result<RateTable, RateTableError> {
-    let grid = read_input_cells(input, sheet)?;
+    let grid = read_input_cells(input, sheet, MergedCells::Fill)?;
     let source = grid.source.to_string();
-    let Some(header_row) = (0..grid.rows.len()).find(|&row| !grid.row_is_blank(row)) else {
+    let Some(header_row) = (0..grid.n_rows()).find(|&row| !grid.row_is_blank(row)) else {
         return Err(RateTableError::Empty { source_name: source });
     };
     let headers: Vec<String> = (0..grid.row_width(header_row))
@@ -246,7 +246,7 @@ pub fn read_rate_table(
     // Rows into provisional groups by factors and enzyme.
     let mut groups: Vec<TableGroup> = Vec::new();
     let mut any_row = false;
-    for row in header_row + 1..grid.rows.len() {
+    for row in header_row + 1..grid.n_rows() {
         if grid.row_is_blank(row) {
             continue;
         }

@@ -77,7 +77,7 @@ impl GridBuilder {
         well: WellId,
         variable: &BlockVariable,
         header: &str,
-        cell: &Cell,
+        cell: Cell,
         position: Position,
     ) -> Result<(), LayoutError> {
         let well_name = well.to_string();
@@ -188,7 +188,7 @@ impl GridBuilder {
 /// The row letters of a line that looks like a plate row (`B` then values), if it does.
 pub(super) fn plate_row_line(grid: &CellGrid, row: usize) -> Option<(u16, String)> {
     match grid.cell(row, 0) {
-        Cell::Text(text) => parse_row_letters(text).map(|plate_row| (plate_row, text.clone())),
+        Cell::Text(text) => parse_row_letters(text).map(|plate_row| (plate_row, text.to_string())),
         _ => None,
     }
 }
@@ -198,7 +198,7 @@ pub(super) fn parse_grid(grid: &CellGrid, plate: PlateFormat) -> Result<Layout, 
     let mut builder = GridBuilder::default();
     let mut seen_block = false;
     let mut row = 0;
-    while row < grid.rows.len() {
+    while row < grid.n_rows() {
         if is_skippable(grid, row) {
             row += 1;
             continue;
@@ -258,7 +258,7 @@ pub(super) fn parse_block(
     column_count: usize,
 ) -> Result<usize, LayoutError> {
     let mut row = first_row;
-    while row < grid.rows.len() && !grid.row_is_blank(row) {
+    while row < grid.n_rows() && !grid.row_is_blank(row) {
         if is_comment_line(grid, row) {
             row += 1;
             continue;

@@ -36,7 +36,7 @@ use crate::core::cells::{CellGrid, Position, Source};
 use crate::core::plate::{PlateFormat, WellId};
 use crate::core::units::ConcentrationUnit;
 use crate::files::input::InputFile;
-use crate::files::sheet::read_input_cells;
+use crate::files::sheet::{read_input_cells, MergedCells};
 
 pub use check::check_against_data;
 pub use error::LayoutError;
@@ -269,7 +269,7 @@ pub fn read_layout(
     sheet: Option<&str>,
     plate: PlateFormat,
 ) -> Result<Layout, LayoutError> {
-    let grid = read_input_cells(input, sheet)?;
+    let grid = read_input_cells(input, sheet, MergedCells::Fill)?;
     parse_layout(&grid, plate)
 }
 

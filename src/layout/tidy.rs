@@ -100,7 +100,7 @@ pub(super) fn parse_tidy(
     };
 
     let mut wells: BTreeMap<WellId, WellSetup> = BTreeMap::new();
-    for row in header_row + 1..grid.rows.len() {
+    for row in header_row + 1..grid.n_rows() {
         if is_skippable(grid, row) {
             continue;
         }
@@ -121,7 +121,7 @@ pub(super) fn parse_tidy(
                     position: Box::new(well_position),
                 })
             }
-            Cell::Text(text) => text.clone(),
+            Cell::Text(text) => text,
             other => {
                 return Err(LayoutError::BadWell {
                     text: describe_cell(other),
@@ -130,8 +130,8 @@ pub(super) fn parse_tidy(
                 })
             }
         };
-        let selected = parse_well_selection(&well_text).map_err(|reason| LayoutError::BadWell {
-            text: well_text.clone(),
+        let selected = parse_well_selection(well_text).map_err(|reason| LayoutError::BadWell {
+            text: well_text.to_string(),
             reason,
             position: Box::new(well_position.clone()),
         })?;
@@ -154,12 +154,12 @@ pub(super) fn parse_tidy(
                 TidyColumnKind::Well => {}
                 TidyColumnKind::Role => {
                     if !cell.is_empty() {
-                        setup.role = read_role(cell, &well_text, position)?;
+                        setup.role = read_role(cell, well_text, position)?;
                     }
                 }
                 TidyColumnKind::Quantity(quantity, _) => {
                     *setup.quantity_mut(*quantity) =
-                        read_concentration(cell, &column.header, &well_text, position)?;
+                        read_concentration(cell, &column.header, well_text, position)?;
                 }
                 TidyColumnKind::Factor(name) => {
                     setup.factors.insert(name.clone(), cell.as_text());
