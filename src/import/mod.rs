@@ -37,9 +37,7 @@ use crate::files::sheet::{
 
 use time::{classify_header, HeaderKind, HeaderTimeUnit, RawTime, TimeTextError};
 
-/// The most reads an export may hold (a read every second for almost six hours); beyond it the
-/// export is refused rather than held in memory.
-pub const MAX_READS: usize = 20_000;
+pub use crate::config::MAX_READS;
 
 /// A kinetic export read into per-well traces.
 #[derive(Debug, Clone, PartialEq)]

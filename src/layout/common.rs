@@ -205,6 +205,34 @@ pub(super) fn off_plate(well: String, plate: PlateFormat, position: Position) ->
     }
 }
 
+/// The headers of the factors (see [`Layout::factor_header`]): a note for each factor written
+/// under another header, naming its cell; an error when two factors would share a header.
+pub(super) fn factor_headers(
+    factors: &[(String, Position)],
+) -> Result<(Vec<String>, Vec<String>), LayoutError> {
+    let mut notes = Vec::new();
+    let mut seen: Vec<(String, &Position)> = Vec::new();
+    for (name, position) in factors {
+        let header = factor_header(name);
+        if header != *name {
+            notes.push(format!(
+                "{position}: the factor '{name}' is written as '{header}' in wells.csv and conditions.csv, \
+                 since '{name}' names a column of those tables"
+            ));
+        }
+        let key = header.to_lowercase();
+        if let Some((_, first)) = seen.iter().find(|(other, _)| *other == key) {
+            return Err(LayoutError::FactorHeaderClash {
+                header,
+                first: Box::new((*first).clone()),
+                second: Box::new(position.clone()),
+            });
+        }
+        seen.push((key, position));
+    }
+    Ok((factors.iter().map(|(name, _)| name.clone()).collect(), notes))
+}
+
 /// The checks both forms share once every well is known: at least one well that is not `empty`,
 /// and a substrate concentration for every sample and no-enzyme control (without it their rate
 /// cannot be placed on a Michaelis-Menten curve nor matched to its background).

@@ -30,6 +30,7 @@ pub(super) struct WellDraft {
 pub(super) struct GridBuilder {
     drafts: BTreeMap<WellId, WellDraft>,
     factor_names: Vec<String>,
+    factor_positions: Vec<Position>,
     factor_name_by_key: HashMap<String, String>,
     units: [Option<(ConcentrationUnit, Position)>; 3],
 }
@@ -63,6 +64,7 @@ impl GridBuilder {
                 .entry(header.to_lowercase())
                 .or_insert_with(|| {
                     self.factor_names.push(header.clone());
+                    self.factor_positions.push(position.clone());
                     header.clone()
                 })
                 .clone();
@@ -142,7 +144,14 @@ impl GridBuilder {
     }
 
     /// Turns the drafts into a layout: a well without a role is a sample.
-    fn into_layout(self, source: Source) -> Layout {
+    fn into_layout(self, source: Source) -> Result<Layout, LayoutError> {
+        let factors: Vec<(String, Position)> = self
+            .factor_names
+            .iter()
+            .cloned()
+            .zip(self.factor_positions.iter().cloned())
+            .collect();
+        let (_, notes) = factor_headers(&factors)?;
         let factor_names = self.factor_names;
         let wells = self
             .drafts
@@ -173,7 +182,7 @@ impl GridBuilder {
             })
             .collect();
         let unit = |quantity: Quantity| self.units[quantity.index()].as_ref().map(|(unit, _)| *unit);
-        Layout {
+        Ok(Layout {
             source,
             form: LayoutForm::Grid,
             wells,
@@ -181,7 +190,8 @@ impl GridBuilder {
             enzyme_unit: unit(Quantity::Enzyme),
             inhibitor_unit: unit(Quantity::Inhibitor),
             factor_names,
-        }
+            notes,
+        })
     }
 }
 
@@ -243,7 +253,7 @@ pub(super) fn parse_grid(grid: &CellGrid, plate: PlateFormat) -> Result<Layout, 
         }
         row += 1;
     }
-    finish_layout(builder.into_layout(grid.source.clone()))
+    finish_layout(builder.into_layout(grid.source.clone())?)
 }
 
 /// Reads the plate rows of one block starting at zero-based `first_row`; returns the first row
