@@ -113,8 +113,11 @@ pub fn check_output_folder(folder: &Path, force: bool) -> Result<(), OutputError
             folder: folder.display().to_string(),
         });
     }
+    // A folder that holds nothing but what an interrupted first run left (its staging folder) is
+    // empty to a new run, which removes the leftovers.
     let mut entries = fs::read_dir(folder).map_err(io_error(folder))?;
-    let empty = entries.next().is_none();
+    let empty =
+        entries.all(|entry| entry.is_ok_and(|entry| is_leftover(&entry.file_name().to_string_lossy())));
     if empty || force || folder.join(MARKER_FILE).exists() {
         Ok(())
     } else {
@@ -151,12 +154,16 @@ fn previous_outputs(folder: &Path) -> BTreeSet<String> {
     known
 }
 
+/// Whether a folder entry is a staging or set-aside folder of a run.
+fn is_leftover(name: &str) -> bool {
+    name.starts_with(STAGING_PREFIX) || name.starts_with(PREVIOUS_PREFIX)
+}
+
 /// Removes staging and set-aside folders an interrupted run left in `folder`.
 fn remove_leftovers(folder: &Path) {
     if let Ok(entries) = fs::read_dir(folder) {
         for entry in entries.flatten() {
-            let name = entry.file_name().to_string_lossy().into_owned();
-            if name.starts_with(STAGING_PREFIX) || name.starts_with(PREVIOUS_PREFIX) {
+            if is_leftover(&entry.file_name().to_string_lossy()) {
                 let _ = fs::remove_dir_all(entry.path());
             }
         }
@@ -569,6 +576,57 @@ mod tests {
         fs::write(out.join(".platekin-staging-1/big.tmp"), "partial").unwrap();
         write_outputs(&out, false, &[], &[file("a.csv", "y")]).unwrap();
         assert_eq!(listing(&out), vec![MARKER_FILE.to_string(), "a.csv".to_string()]);
+    }
+
+    #[test]
+    fn a_folder_holding_only_an_interrupted_first_run_is_taken() {
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("run");
+        fs::create_dir_all(out.join(".platekin-staging-7")).unwrap();
+        fs::write(out.join(".platekin-staging-7/wells.csv"), "partial").unwrap();
+        write_outputs(&out, false, &[], &[file("a.csv", "x")]).unwrap();
+        assert_eq!(listing(&out), vec![MARKER_FILE.to_string(), "a.csv".to_string()]);
+    }
+
+    #[test]
+    fn a_run_s_outputs_are_not_replaced_by_outputs_without_a_run_record() {
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("run");
+        write_outputs(
+            &out,
+            false,
+            &[],
+            &[file("fit.json", "run fit"), file("run.json", "record")],
+        )
+        .unwrap();
+        let error = write_outputs(&out, false, &[], &[file("fit.json", "table fit")]).unwrap_err();
+        assert!(matches!(error, OutputError::WouldReplaceRun { .. }), "{error}");
+        assert_eq!(fs::read_to_string(out.join("fit.json")).unwrap(), "run fit");
+        // Another run replaces them.
+        write_outputs(
+            &out,
+            false,
+            &[],
+            &[file("fit.json", "new"), file("run.json", "new record")],
+        )
+        .unwrap();
+        assert_eq!(fs::read_to_string(out.join("fit.json")).unwrap(), "new");
+    }
+
+    #[test]
+    fn a_failed_swap_restores_the_marker_too() {
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("run");
+        write_outputs(&out, false, &[], &[file("a.csv", "old"), file("b.csv", "old b")]).unwrap();
+        let marker = fs::read(out.join(MARKER_FILE)).unwrap();
+        // `c.csv` cannot be moved in: a folder of that name stands in the way.
+        fs::create_dir_all(out.join("c.csv/inside")).unwrap();
+        let error =
+            write_outputs(&out, false, &[], &[file("a.csv", "new"), file("c.csv", "new c")]).unwrap_err();
+        assert!(matches!(error, OutputError::Io { .. }), "{error}");
+        assert_eq!(fs::read(out.join(MARKER_FILE)).unwrap(), marker);
+        assert_eq!(fs::read_to_string(out.join("a.csv")).unwrap(), "old");
+        assert_eq!(fs::read_to_string(out.join("b.csv")).unwrap(), "old b");
     }
 
     #[test]

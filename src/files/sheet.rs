@@ -106,6 +106,21 @@ pub enum SheetReadError {
         /// How many lines the cell spans.
         lines: usize,
     },
+    /// The delimiter changes part-way through the file.
+    #[error(
+        "{file}, row {row}: from this row the lines are separated by '{new}', above it by '{old}'; \
+         platekin reads one delimiter a file (save the export again in one piece)"
+    )]
+    MixedDelimiters {
+        /// The file as the user named it.
+        file: String,
+        /// One-based row where the other delimiter starts.
+        row: usize,
+        /// The delimiter above it.
+        old: char,
+        /// The delimiter from it on.
+        new: char,
+    },
     /// A line longer than [`MAX_LINE_BYTES`].
     #[error("{file}, row {row}: the line is longer than {limit} MiB, the most platekin reads")]
     LineTooLong {
@@ -233,6 +248,7 @@ pub fn read_text_cells(bytes: &[u8], file: &str) -> Result<CellGrid, SheetReadEr
     };
     check_line_ceilings(text, &source)?;
     let delimiter = sniff_delimiter(text);
+    check_one_delimiter(text, delimiter, file)?;
     // First pass: the numbers' evidence of the decimal mark. Second pass: the cells.
     let mut evidence = MarkEvidence::default();
     let mut record = csv::StringRecord::new();
@@ -335,7 +351,7 @@ fn sniff_delimiter(text: &str) -> u8 {
         .collect();
     let field_count = |line: &str, delimiter: u8| line.bytes().filter(|&b| b == delimiter).count() + 1;
     let mut best = (b',', 0usize, 0usize);
-    for delimiter in [b'\t', b';', b','] {
+    for delimiter in DELIMITERS {
         let mut counts: std::collections::HashMap<usize, usize> = std::collections::HashMap::new();
         for line in &sample {
             let fields = field_count(line, delimiter);
@@ -373,6 +389,57 @@ fn sniff_delimiter(text: &str) -> u8 {
         }
     }
     best.0
+}
+
+/// The delimiters a text file may use.
+const DELIMITERS: [u8; 3] = [b'\t', b';', b','];
+
+/// Refuses a file whose delimiter changes part-way (a table pasted together from two exports):
+/// every line that one delimiter alone splits into the table's width (the commonest number of
+/// fields under the file's delimiter) must be split by the same one.
+fn check_one_delimiter(text: &str, delimiter: u8, file: &str) -> Result<(), SheetReadError> {
+    let field_count = |line: &str, delimiter: u8| line.bytes().filter(|&b| b == delimiter).count() + 1;
+    let mut widths: std::collections::HashMap<usize, usize> = std::collections::HashMap::new();
+    for line in text.lines().filter(|line| !line.trim().is_empty()).take(200) {
+        let fields = field_count(line, delimiter);
+        if fields > 1 {
+            *widths.entry(fields).or_default() += 1;
+        }
+    }
+    let Some(width) = widths
+        .into_iter()
+        .max_by_key(|&(width, lines)| (lines, width))
+        .map(|(width, _)| width)
+    else {
+        return Ok(());
+    };
+    let own_delimiter = |line: &str| -> Option<u8> {
+        let mut splitting = DELIMITERS
+            .into_iter()
+            .filter(|&candidate| field_count(line, candidate) == width);
+        match (splitting.next(), splitting.next()) {
+            (Some(only), None) => Some(only),
+            _ => None,
+        }
+    };
+    let mut previous: Option<u8> = None;
+    for (index, line) in text.lines().enumerate() {
+        let Some(own) = own_delimiter(line) else {
+            continue;
+        };
+        match previous {
+            Some(old) if old != own => {
+                return Err(SheetReadError::MixedDelimiters {
+                    file: file.to_string(),
+                    row: index + 1,
+                    old: char::from(old),
+                    new: char::from(own),
+                })
+            }
+            _ => previous = Some(own),
+        }
+    }
+    Ok(())
 }
 
 /// What one text says about the decimal mark.

@@ -21,7 +21,7 @@ use crate::core::cells::{Cell, CellGrid, Position};
 use crate::core::units::{split_header_unit, ConcentrationUnit};
 use crate::files::input::InputFile;
 use crate::files::sheet::{number_shape, read_input_cells, MergedCells, NumberShape, SheetReadError};
-use crate::layout::FACTOR_PREFIX;
+use crate::layout::{is_reserved_column_name, FACTOR_PREFIX};
 
 /// Why a rate table could not be read or fitted.
 #[derive(Debug, thiserror::Error)]
@@ -88,29 +88,6 @@ impl TableKind {
         }
     }
 }
-
-/// A run's bookkeeping columns: never factors.
-const NOT_FACTORS: [&str; 19] = [
-    "well",
-    "rate_se",
-    "window_slope",
-    "background",
-    "intercept",
-    "r2",
-    "window_start",
-    "window_end",
-    "n_points",
-    "conversion",
-    "flags",
-    "correction",
-    "notes",
-    "n",
-    "n_used",
-    "rate_sem",
-    "cv",
-    "role",
-    "used",
-];
 
 /// One group of rows of a rate table.
 #[derive(Debug, Clone, PartialEq)]
@@ -296,7 +273,8 @@ pub fn read_rate_table(
     .flatten()
     .collect();
     for (index, name) in names.iter().enumerate() {
-        if !taken.contains(&index) && !NOT_FACTORS.contains(&name.as_str()) && !name.is_empty() {
+        // A run's bookkeeping columns (`well`, `flags`, ...) are never factors.
+        if !taken.contains(&index) && !is_reserved_column_name(name) && !name.is_empty() {
             // A run writes a factor named like one of its columns as `factor:NAME`.
             let header = headers[index].trim();
             let factor = header.strip_prefix(FACTOR_PREFIX).unwrap_or(header);

@@ -73,7 +73,7 @@ pub(super) fn settle_rows(grid: &CellGrid, rows: Vec<(usize, RowKind)>) -> Resul
         match kind {
             RowKind::Data => settled.data_rows.push(row),
             RowKind::Blank => {
-                if between && !settled.data_rows.is_empty() {
+                if between {
                     blank_between.push(row);
                 }
             }
@@ -113,7 +113,7 @@ pub(super) fn settle_rows(grid: &CellGrid, rows: Vec<(usize, RowKind)>) -> Resul
     }
     if !blank_between.is_empty() {
         settled.warnings.push(format!(
-            "{}: blank row(s) {} between reads passed over; the reads below them are read",
+            "{}: blank row(s) {} among the reads passed over; the reads below them are read",
             grid.source,
             row_list(&blank_between)
         ));

@@ -13,7 +13,7 @@ use crate::files::sheet::read_text_cells;
 
 /// Imports a text table given in memory, as if read from `run.csv`.
 fn import_text(text: &str, options: &ImportOptions) -> Result<KineticData, ImportError> {
-    let grid = read_text_cells(text.as_bytes(), "run.csv").unwrap();
+    let grid = read_text_cells(text.as_bytes(), "run.csv")?;
     import_cells(&grid, options)
 }
 
