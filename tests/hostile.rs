@@ -278,62 +278,57 @@ fn mutations() -> Vec<Mutation> {
     let mut all = Vec::new();
     for (base, text) in bases() {
         let lines: Vec<&str> = text.lines().collect();
-        let mut push = |name: String, lines: Vec<String>, row: usize, reads: usize| {
+        let stem = base.trim_start_matches("../").trim_end_matches(".csv");
+        // Adds the base with `change` made to its lines; `row` is the row a message must name.
+        let mut add = |name: String, row: usize, change: &dyn Fn(&mut Vec<String>)| {
+            let mut changed: Vec<String> = lines.iter().map(|line| line.to_string()).collect();
+            change(&mut changed);
             all.push(Mutation {
-                file: format!(
-                    "{}-{}.csv",
-                    base.trim_start_matches("../").trim_end_matches(".csv"),
-                    all.len()
-                ),
+                file: format!("{stem}-{}.csv", all.len()),
                 name: format!("{base}: {name}"),
-                text: lines.join("\n") + "\n",
+                text: changed.join("\n") + "\n",
                 row,
-                reads,
+                reads: 10,
             });
         };
-        let owned = |lines: &[&str]| -> Vec<String> { lines.iter().map(|l| l.to_string()).collect() };
         if base.ends_with("small-plate.csv") {
             // Rows 4-13 are the reads (header on row 3).
             for index in 3..13 {
                 let row = index + 1;
                 for bad in BAD_TIMES {
-                    let mut changed = owned(&lines);
-                    changed[index] = with_first_cell(lines[index], bad);
-                    push(format!("time {bad:?} at row {row}"), changed, row, 10);
+                    add(format!("time {bad:?} at row {row}"), row, &|c| {
+                        c[index] = with_first_cell(&c[index], bad)
+                    });
                 }
-                let mut changed = owned(&lines);
-                changed.insert(index, String::new());
-                push(format!("blank line at row {row}"), changed, row, 10);
-                let mut changed = owned(&lines);
-                changed.insert(index, ",,,,,".to_string());
-                push(format!("delimiters only at row {row}"), changed, row, 10);
-                let mut changed = owned(&lines);
-                changed.insert(index, lines[2].to_string());
-                push(format!("header repeated at row {row}"), changed, row, 10);
-                let mut changed = owned(&lines);
-                changed[index] = format!("\"{}", lines[index]);
-                push(format!("unclosed quote at row {row}"), changed, row, 10);
-                let mut changed = owned(&lines);
-                let mut cells: Vec<&str> = lines[index].split(',').collect();
-                cells[1] = "OVER";
-                changed[index] = cells.join(",");
-                push(format!("a reading OVER at row {row}"), changed, row, 10);
-                let mut changed = owned(&lines);
-                changed[index] = format!("{},0.5", lines[index]);
-                push(format!("a cell beyond the header at row {row}"), changed, row, 10);
-                let mut changed = owned(&lines);
-                changed[index] = lines[index].split(',').take(3).collect::<Vec<_>>().join(",");
-                push(format!("row {row} cut short"), changed, row, 10);
-                let mut changed = owned(&lines);
-                for later in changed.iter_mut().skip(index) {
-                    *later = later.replace(',', ";");
-                }
-                push(
-                    format!("delimiter switches to ; from row {row}"),
-                    changed,
-                    row,
-                    10,
-                );
+                add(format!("blank line at row {row}"), row, &|c| {
+                    c.insert(index, String::new())
+                });
+                add(format!("delimiters only at row {row}"), row, &|c| {
+                    c.insert(index, ",,,,,".into())
+                });
+                add(format!("header repeated at row {row}"), row, &|c| {
+                    let header = c[2].clone();
+                    c.insert(index, header)
+                });
+                add(format!("unclosed quote at row {row}"), row, &|c| {
+                    c[index] = format!("\"{}", c[index])
+                });
+                add(format!("a reading OVER at row {row}"), row, &|c| {
+                    let mut cells: Vec<String> = c[index].split(',').map(str::to_string).collect();
+                    cells[1] = "OVER".into();
+                    c[index] = cells.join(",");
+                });
+                add(format!("a cell beyond the header at row {row}"), row, &|c| {
+                    c[index] = format!("{},0.5", c[index])
+                });
+                add(format!("row {row} cut short"), row, &|c| {
+                    c[index] = c[index].split(',').take(3).collect::<Vec<_>>().join(",")
+                });
+                add(format!("delimiter switches to ; from row {row}"), row, &|c| {
+                    for later in c.iter_mut().skip(index) {
+                        *later = later.replace(',', ";");
+                    }
+                });
             }
         } else if base.starts_with("c03") {
             // Rows 2-51 are well rows; every fifth gets each defect.
@@ -345,73 +340,53 @@ fn mutations() -> Vec<Mutation> {
                     ("well A0", "A0"),
                     ("no well", ""),
                 ] {
-                    let mut changed = owned(&lines);
-                    changed[index] = with_first_cell(lines[index], first);
-                    push(format!("{what} at row {row}"), changed, row, 10);
+                    add(format!("{what} at row {row}"), row, &|c| {
+                        c[index] = with_first_cell(&c[index], first)
+                    });
                 }
                 for bad in ["", "NaN", "soon", "1 20"] {
-                    let mut changed = owned(&lines);
-                    let cells: Vec<&str> = lines[index].split(',').collect();
-                    changed[index] = format!("{},{bad},{}", cells[0], cells[2]);
-                    push(format!("time {bad:?} at row {row}"), changed, row, 10);
+                    add(format!("time {bad:?} at row {row}"), row, &|c| {
+                        let cells: Vec<String> = c[index].split(',').map(str::to_string).collect();
+                        c[index] = format!("{},{bad},{}", cells[0], cells[2]);
+                    });
                 }
-                let mut changed = owned(&lines);
-                changed.insert(index, String::new());
-                push(format!("blank line at row {row}"), changed, row, 10);
+                add(format!("blank line at row {row}"), row, &|c| {
+                    c.insert(index, String::new())
+                });
             }
         } else {
             // Ten blocks of five lines: time line, column numbers, rows A and B, a blank.
             for block in 0..10 {
                 let time_line = block * 5;
                 let (numbers, row_a, row_b) = (time_line + 1, time_line + 2, time_line + 3);
-                let mut changed = owned(&lines);
-                changed[time_line] = "Time 0:0x:00".to_string();
-                push(
+                add(
                     format!("broken time line at row {}", time_line + 1),
-                    changed,
                     time_line + 1,
-                    10,
+                    &|c| c[time_line] = "Time 0:0x:00".into(),
                 );
-                let mut changed = owned(&lines);
-                changed[row_a] = format!("{},9.9", lines[row_a]);
-                push(
+                add(
                     format!("a cell beyond the column numbers at row {}", row_a + 1),
-                    changed,
                     row_a + 1,
-                    10,
+                    &|c| c[row_a] = format!("{},9.9", c[row_a]),
                 );
-                let mut changed = owned(&lines);
-                changed.swap(row_a, row_b);
-                push(
+                add(
                     format!("rows B and A swapped at row {}", row_a + 2),
-                    changed,
                     row_a + 2,
-                    10,
+                    &|c| c.swap(row_a, row_b),
                 );
-                let mut changed = owned(&lines);
-                changed[numbers] = ",1,2,50".to_string();
-                push(
+                add(
                     format!("column numbers 1,2,50 at row {}", numbers + 1),
-                    changed,
                     numbers + 1,
-                    10,
+                    &|c| c[numbers] = ",1,2,50".into(),
                 );
-                let mut changed = owned(&lines);
-                changed.insert(row_b, String::new());
-                push(
+                add(
                     format!("blank line inside a block at row {}", row_b + 1),
-                    changed,
                     row_b + 2,
-                    10,
+                    &|c| c.insert(row_b, String::new()),
                 );
-                let mut changed = owned(&lines);
-                changed[row_b] = with_first_cell(lines[row_b], "Q");
-                push(
-                    format!("plate row Q at row {}", row_b + 1),
-                    changed,
-                    row_b + 1,
-                    10,
-                );
+                add(format!("plate row Q at row {}", row_b + 1), row_b + 1, &|c| {
+                    c[row_b] = with_first_cell(&c[row_b], "Q")
+                });
             }
         }
     }
