@@ -471,12 +471,15 @@ proptest! {
         let outcome = grid
             .map_err(|error| error.to_string())
             .and_then(|grid| {
-                platekin::import::import_cells(&grid, &platekin::import::ImportOptions::default())
-                    .map_err(|error| error.to_string())
+                let data = platekin::import::import_cells(&grid, &platekin::import::ImportOptions::default())
+                    .map_err(|error| error.to_string())?;
+                let unaccounted = platekin::import::rows_unaccounted(&data, &grid);
+                Ok((data, unaccounted))
             });
         match outcome {
             Err(message) => prop_assert!(names_row(&message, mutation.row), "{}: {message}", mutation.name),
-            Ok(data) => {
+            Ok((data, unaccounted)) => {
+                prop_assert!(unaccounted.is_empty(), "{}: rows {unaccounted:?} neither read nor named", mutation.name);
                 let said = data.warnings.iter().any(|w| names_row(w, mutation.row))
                     || data.wells.iter().any(|trace| trace.unreadable.iter().any(|cell| cell.position.row == mutation.row));
                 prop_assert!(

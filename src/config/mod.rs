@@ -150,7 +150,13 @@ impl SettingLayer {
             file: path.display().to_string(),
             message: "the file is not UTF-8 text".to_string(),
         })?;
-        let mut layer: SettingLayer = toml::from_str(&text).map_err(|error| SettingsError::AssayInvalid {
+        SettingLayer::from_assay_text(&text, path)
+    }
+
+    /// Reads the text of the assay file at `path` (named in errors; relative paths in it are
+    /// taken from its folder).
+    pub fn from_assay_text(text: &str, path: &Path) -> Result<SettingLayer, SettingsError> {
+        let mut layer: SettingLayer = toml::from_str(text).map_err(|error| SettingsError::AssayInvalid {
             file: path.display().to_string(),
             message: error.to_string().trim_end().to_string(),
         })?;

@@ -13,8 +13,8 @@ use crate::core::plate::{parse_row_letters, row_label, WellId};
 
 use super::time::{parse_block_line, BlockTime, HeaderTimeUnit};
 use super::{
-    short_row, time_text_error, DataShape, ImportError, ImportOptions, ReadRecord, ShapeTable, TimeUnitRule,
-    WellColumn, WellMap,
+    list_some, short_row, time_text_error, DataShape, ImportError, ImportOptions, ReadRecord, ShapeTable,
+    TimeUnitRule, WellColumn, WellMap,
 };
 
 /// The most plate rows and columns a block can have (a 1536-well plate).
@@ -122,6 +122,8 @@ pub(super) fn parse(grid: &CellGrid, options: &ImportOptions) -> Result<ShapeTab
     let mut pending_time: Option<(BlockTime, usize)> = None;
     let mut pending_temperature: Option<f64> = None;
     let mut warnings: Vec<String> = Vec::new();
+    let mut rows_read: Vec<usize> = Vec::new();
+    let mut rows_passed_over: Vec<usize> = Vec::new();
     let mut row = 0;
     while row < grid.n_rows() {
         if grid.row_is_blank(row) {
@@ -130,6 +132,9 @@ pub(super) fn parse(grid: &CellGrid, options: &ImportOptions) -> Result<ShapeTab
         }
         if is_column_number_row(grid, row) {
             let block = read_block(grid, row, &mut pending_time, &mut pending_temperature)?;
+            rows_read.push(block.time.1);
+            rows_read.push(block.column_row);
+            rows_read.extend(block.row_of_plate_row.iter().flatten());
             row = block
                 .row_of_plate_row
                 .iter()
@@ -159,21 +164,26 @@ pub(super) fn parse(grid: &CellGrid, options: &ImportOptions) -> Result<ShapeTab
         }
         let line = parse_block_line(&grid.row_cells(row), grid.decimal_mark)
             .map_err(|error| time_text_error(error.error, grid.position(row, Some(error.column))))?;
-        if let Some(line) = line {
-            if let Some(time) = line.time {
-                if let Some((_, earlier)) = pending_time.replace((time, row)) {
-                    return Err(ImportError::TimeLineWithoutBlock {
-                        position: grid.position(earlier, None),
-                    });
-                }
+        let Some(line) = line else {
+            // Title lines above the first block, notes between blocks: no part of a read.
+            rows_passed_over.push(row);
+            row += 1;
+            continue;
+        };
+        if let Some(time) = line.time {
+            if let Some((_, earlier)) = pending_time.replace((time, row)) {
+                return Err(ImportError::TimeLineWithoutBlock {
+                    position: grid.position(earlier, None),
+                });
             }
-            if let Some(temperature) = line.temperature_c {
-                match blocks.last_mut() {
-                    Some(last) if pending_time.is_none() && last.temperature_c.is_none() => {
-                        last.temperature_c = Some(temperature);
-                    }
-                    _ => pending_temperature = Some(temperature),
+        }
+        if let Some(temperature) = line.temperature_c {
+            rows_read.push(row);
+            match blocks.last_mut() {
+                Some(last) if pending_time.is_none() && last.temperature_c.is_none() => {
+                    last.temperature_c = Some(temperature);
                 }
+                _ => pending_temperature = Some(temperature),
             }
         }
         row += 1;
@@ -188,8 +198,30 @@ pub(super) fn parse(grid: &CellGrid, options: &ImportOptions) -> Result<ShapeTab
             "that read is not read",
             &mut warnings,
         )?;
+        rows_passed_over.push(earlier);
     }
-    assemble(grid, blocks, options, warnings)
+    // Lines outside the blocks once the first block began are said (those above it are titles).
+    let first_block_row = rows_read.iter().min().copied().unwrap_or(usize::MAX);
+    let between: Vec<String> = rows_passed_over
+        .iter()
+        .filter(|&&passed| passed > first_block_row && !rows_read.contains(&passed))
+        .map(|passed| (passed + 1).to_string())
+        .collect();
+    if !between.is_empty() {
+        warnings.push(format!(
+            "{}: row(s) {} lie outside the plate blocks and are not read",
+            grid.source,
+            list_some(&between, 10)
+        ));
+    }
+    rows_read.sort_unstable();
+    rows_read.dedup();
+    rows_passed_over.retain(|passed| !rows_read.contains(passed));
+    rows_passed_over.sort_unstable();
+    let mut table = assemble(grid, blocks, options, warnings)?;
+    table.rows_read = rows_read;
+    table.rows_passed_over = rows_passed_over;
+    Ok(table)
 }
 
 /// Reads the block whose column numbers are on zero-based `column_row`.
@@ -366,6 +398,8 @@ fn assemble(
         temperatures_c: has_temperature.then_some(temperatures),
         wells,
         warnings,
+        rows_read: Vec::new(),
+        rows_passed_over: Vec::new(),
     })
 }
 

@@ -228,6 +228,10 @@ pub(super) fn parse(
         .collect();
     let settled = settle_rows(grid, kinds)?;
     warnings.extend(settled.warnings);
+    let mut rows = RowAccount {
+        read: Vec::with_capacity(settled.data_rows.len()),
+        passed_over: settled.passed_over,
+    };
     let mut long_rows: Vec<LongRow> = Vec::with_capacity(settled.data_rows.len());
     let mut off_plate: Vec<String> = Vec::new();
     for &row in &settled.data_rows {
@@ -236,8 +240,10 @@ pub(super) fn parse(
         };
         if options.plate.is_some_and(|plate| !plate.contains(well)) {
             off_plate.push(format!("{well} (row {})", row + 1));
+            rows.passed_over.push(row);
             continue;
         }
+        rows.read.push(row);
         let time_position = || grid.position(row, Some(time_column));
         let raw = raw_time_of_cell(&grid.cell(row, time_column), grid.decimal_mark)
             .map_err(|error| time_text_error(error, time_position()))?;
@@ -273,7 +279,14 @@ pub(super) fn parse(
             position: header_position(),
         });
     }
-    assemble(grid, long_rows, &columns, warnings)
+    rows.passed_over.sort_unstable();
+    assemble(grid, long_rows, &columns, warnings, rows)
+}
+
+/// Which rows a long table read and which it passed over (see `KineticData`).
+struct RowAccount {
+    read: Vec<usize>,
+    passed_over: Vec<usize>,
 }
 
 /// The well a cell names.
@@ -314,6 +327,7 @@ fn assemble(
     long_rows: Vec<LongRow>,
     columns: &LongColumns,
     mut warnings: Vec<String>,
+    rows: RowAccount,
 ) -> Result<ShapeTable, ImportError> {
     let mut index_of_well: WellMap<usize> = WellMap::new();
     let mut wells: Vec<WellColumn> = Vec::new();
@@ -332,7 +346,7 @@ fn assemble(
     }
     let most_rows = rows_of_well.iter().map(Vec::len).max().unwrap_or(0);
     if wells_have_own_times(&long_rows, wells.len(), most_rows) {
-        return assemble_own_times(grid, long_rows, rows_of_well, wells, columns, warnings);
+        return assemble_own_times(grid, long_rows, rows_of_well, wells, columns, warnings, rows);
     }
     let mut times: Vec<f64> = long_rows.iter().map(|row| row.time_s).collect();
     times.sort_unstable_by(f64::total_cmp);
@@ -414,6 +428,7 @@ fn assemble(
         wells,
         columns,
         warnings,
+        rows,
     ))
 }
 
@@ -425,6 +440,7 @@ fn long_table(
     wells: Vec<WellColumn>,
     columns: &LongColumns,
     warnings: Vec<String>,
+    rows: RowAccount,
 ) -> ShapeTable {
     let reads = times
         .iter()
@@ -441,6 +457,8 @@ fn long_table(
         temperatures_c: columns.temperature.map(|_| temperatures),
         wells,
         warnings,
+        rows_read: rows.read,
+        rows_passed_over: rows.passed_over,
     }
 }
 
@@ -467,6 +485,7 @@ fn assemble_own_times(
     mut wells: Vec<WellColumn>,
     columns: &LongColumns,
     mut warnings: Vec<String>,
+    rows: RowAccount,
 ) -> Result<ShapeTable, ImportError> {
     for (trace, rows) in wells.iter().zip(rows_of_well.iter_mut()) {
         rows.sort_by(|a, b| long_rows[*a].time_s.total_cmp(&long_rows[*b].time_s));
@@ -575,5 +594,6 @@ fn assemble_own_times(
         wells,
         columns,
         warnings,
+        rows,
     ))
 }

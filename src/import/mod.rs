@@ -56,6 +56,14 @@ pub struct KineticData {
     pub wells: Vec<WellTrace>,
     /// Things the user should know, each naming the file, sheet and row.
     pub warnings: Vec<String>,
+    /// Zero-based rows whose cells went into the reads: each read's row (wide, long), or each
+    /// block's time line, temperature line, column numbers and plate rows (grid).
+    pub rows_read: Vec<usize>,
+    /// Zero-based rows passed over and named in a warning: blank rows and repeated headers among
+    /// the reads, summary lines below them, lines of a grid export outside its blocks, rows of
+    /// wells off the plate given. With [`KineticData::rows_read`] it accounts for every row a
+    /// read could stand in.
+    pub rows_passed_over: Vec<usize>,
 }
 
 /// The readings of one well, one per read.
@@ -592,6 +600,10 @@ struct ShapeTable {
     wells: Vec<WellColumn>,
     /// Warnings so far.
     warnings: Vec<String>,
+    /// See [`KineticData::rows_read`].
+    rows_read: Vec<usize>,
+    /// See [`KineticData::rows_passed_over`].
+    rows_passed_over: Vec<usize>,
 }
 
 /// A map from well to a number (a column, a row, a trace index), dense over the largest plate.
@@ -738,6 +750,8 @@ fn finish(grid: &CellGrid, table: ShapeTable, options: &ImportOptions) -> Result
         temperatures_c,
         mut wells,
         mut warnings,
+        rows_read,
+        rows_passed_over,
     } = table;
     if reads.len() > MAX_READS {
         return Err(ImportError::TooManyReads {
@@ -801,6 +815,8 @@ fn finish(grid: &CellGrid, table: ShapeTable, options: &ImportOptions) -> Result
         temperatures_c,
         wells: traces,
         warnings,
+        rows_read,
+        rows_passed_over,
     })
 }
 
@@ -898,6 +914,24 @@ fn time_axis_warnings(grid: &CellGrid, reads: &[ReadRecord]) -> Vec<String> {
         }
     }
     warnings
+}
+
+/// The rows of `grid` from the first read on that hold a number and that `data` neither read
+/// nor passed over with a word: empty when nothing was lost. The promise of the importer, as a
+/// check for tests and the fuzz targets.
+pub fn rows_unaccounted(data: &KineticData, grid: &CellGrid) -> Vec<usize> {
+    let Some(&first) = data.rows_read.iter().min() else {
+        return Vec::new();
+    };
+    (first..grid.n_rows())
+        .filter(|row| {
+            grid.row(*row)
+                .any(|cell| matches!(cell, Cell::Number(_) | Cell::Duration(_)))
+        })
+        .filter(|row| {
+            data.rows_read.binary_search(row).is_err() && data.rows_passed_over.binary_search(row).is_err()
+        })
+        .collect()
 }
 
 /// Formats a list of names for a message, at most `limit` of them.

@@ -55,6 +55,8 @@ pub(super) struct SettledRows {
     pub data_rows: Vec<usize>,
     /// Warnings naming the rows passed over.
     pub warnings: Vec<String>,
+    /// Zero-based rows passed over (and named in the warnings).
+    pub passed_over: Vec<usize>,
 }
 
 /// Applies the rule of the module documentation to the rows after a header, in file order:
@@ -111,6 +113,13 @@ pub(super) fn settle_rows(grid: &CellGrid, rows: Vec<(usize, RowKind)>) -> Resul
             }
         }
     }
+    settled.passed_over = blank_between
+        .iter()
+        .chain(&repeated_headers)
+        .chain(&summary)
+        .copied()
+        .collect();
+    settled.passed_over.sort_unstable();
     if !blank_between.is_empty() {
         settled.warnings.push(format!(
             "{}: blank row(s) {} among the reads passed over; the reads below them are read",

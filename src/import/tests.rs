@@ -791,3 +791,50 @@ proptest! {
         let _ = import_text(&text, &ImportOptions::default());
     }
 }
+
+/// Every row of the demo exports that holds a number is read or named (the promise the fuzz
+/// targets check on arbitrary input).
+#[test]
+fn every_row_of_the_demo_exports_is_accounted_for() {
+    for (name, text) in [
+        (
+            "amber-fen-wide.csv",
+            include_str!("../../demo-plates/amber-fen-wide.csv"),
+        ),
+        (
+            "amber-fen-grid.csv",
+            include_str!("../../demo-plates/amber-fen-grid.csv"),
+        ),
+        ("wide-with-metadata.csv", WIDE_WITH_METADATA),
+    ] {
+        let grid = read_text_cells(text.as_bytes(), name).unwrap();
+        let data = import_cells(&grid, &ImportOptions::default()).unwrap();
+        assert_eq!(rows_unaccounted(&data, &grid), Vec::<usize>::new(), "{name}");
+        assert_eq!(data.rows_read.len() % data.times_s.len(), 0, "{name}");
+    }
+    // A row of readings below the summary lines that looks like a read is refused, so none is lost.
+    let text = "Time [s],A1\n0,0.1\n30,0.2\n\nMean,0.15\n,0.3\n";
+    assert!(import_error(text, &ImportOptions::default()).contains("run.csv, row 6"));
+}
+
+/// Long exports whose wells carry their own time stamps are matched read by read.
+#[test]
+fn long_exports_with_own_time_stamps_match_reads_by_order() {
+    let text = "well,time [s],value\nA1,0,0.1\nA2,2,0.2\nA1,30,0.11\nA2,32,0.21\nA1,60,0.12\nA2,62,0.22\n";
+    let data = import_ok(text);
+    assert_eq!(data.times_s, [1.0, 31.0, 61.0]);
+    assert_eq!(trace(&data, "A2").values, [Some(0.2), Some(0.21), Some(0.22)]);
+    assert!(data
+        .warnings
+        .iter()
+        .any(|w| w.contains("own time stamps") && w.contains("up to 1 s")));
+    // Read 2 of A2 after read 3 of A1: no order matches them.
+    let message = import_error(
+        "well,time [s],value\nA1,0,0.1\nA2,2,0.2\nA1,30,0.11\nA2,75,0.21\nA1,60,0.12\nA2,80,0.22\n",
+        &ImportOptions::default(),
+    );
+    assert!(
+        message.contains("own time stamps") && message.contains("row 5"),
+        "{message}"
+    );
+}

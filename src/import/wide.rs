@@ -164,6 +164,7 @@ pub(super) fn parse(
         .collect();
     let settled = settle_rows(grid, kinds)?;
     warnings.extend(settled.warnings);
+    let rows_passed_over = settled.passed_over;
     let needed_width = well_columns.iter().max().map_or(0, |last| last + 1);
     let mut reads: Vec<ReadRecord> = Vec::with_capacity(settled.data_rows.len());
     let mut temperatures: Vec<Option<f64>> = Vec::new();
@@ -232,5 +233,7 @@ pub(super) fn parse(
         temperatures_c: temperature.map(|_| temperatures),
         wells: wells.into_iter().map(|(trace, _)| trace).collect(),
         warnings,
+        rows_read: settled.data_rows,
+        rows_passed_over,
     })
 }
