@@ -10,7 +10,7 @@ use anyhow::Context;
 use clap::Parser;
 
 use cli::{Cli, Command};
-use platekin::config::{resolve_fit, resolve_import, resolve_report, resolve_run, SettingLayer};
+use platekin::config::{resolve_fit, resolve_import, resolve_report, resolve_run_from, SettingLayer};
 
 fn main() -> ExitCode {
     run(Cli::parse())
@@ -47,12 +47,11 @@ fn print_quietly(text: &str, code: ExitCode) -> ExitCode {
 fn execute(command: Command) -> anyhow::Result<String> {
     match command {
         Command::Run(args) => {
-            let flags = args.layer();
-            let layer = match &args.assay {
-                Some(path) => flags.over(SettingLayer::from_assay_file(path)?),
-                None => flags,
+            let assay = match &args.assay {
+                Some(path) => Some((path.as_path(), SettingLayer::from_assay_file(path)?)),
+                None => None,
             };
-            let settings = resolve_run(args.data.clone(), layer)?;
+            let settings = resolve_run_from(args.data.clone(), args.layer(), assay)?;
             let mut progress = progress_reporter();
             let outcome = platekin::commands::run::run_plate(&settings, &args.out, args.force, &mut progress)
                 .with_context(|| {

@@ -9,7 +9,7 @@ use std::path::{Path, PathBuf};
 
 use crate::core::cells::{CellGrid, Position};
 use crate::files::input::{InputError, InputFile, InputRole};
-use crate::files::sheet::{read_input_cells, SheetReadError};
+use crate::files::sheet::{read_input_cells, MergedCells, SheetReadError};
 
 /// The most plates one campaign may hold: far beyond a week of screening, and small enough that
 /// the campaign's tables (one row per well of every plate) stay within a laptop's memory.
@@ -195,7 +195,7 @@ pub fn plate_id_from_stem(path: &Path) -> String {
 /// Reads a manifest file (CSV/TSV or the first sheet of a spreadsheet holding data).
 pub fn read_manifest(path: &Path) -> Result<Manifest, ManifestError> {
     let input = InputFile::read(InputRole::Table, path)?;
-    let grid = read_input_cells(&input, None)?;
+    let grid = read_input_cells(&input, None, MergedCells::Fill)?;
     let folder = path.parent().unwrap_or(Path::new(""));
     parse_manifest(&grid, folder)
 }
@@ -203,10 +203,10 @@ pub fn read_manifest(path: &Path) -> Result<Manifest, ManifestError> {
 /// The manifest's plates from its cells; relative paths are taken from `folder`.
 pub fn parse_manifest(grid: &CellGrid, folder: &Path) -> Result<Manifest, ManifestError> {
     let file = grid.source.to_string();
-    let header_row = (0..grid.rows.len())
+    let header_row = (0..grid.n_rows())
         .find(|&row| !grid.row_is_blank(row))
         .ok_or(ManifestError::Empty { file: file.clone() })?;
-    let width = (header_row..grid.rows.len())
+    let width = (header_row..grid.n_rows())
         .map(|row| grid.row_width(row))
         .max()
         .unwrap_or(0);
@@ -216,8 +216,7 @@ pub fn parse_manifest(grid: &CellGrid, folder: &Path) -> Result<Manifest, Manife
     for column in 0..width {
         let name = grid.cell(header_row, column).as_text().trim().to_string();
         if name.is_empty() {
-            let holds_values =
-                (header_row + 1..grid.rows.len()).any(|row| !grid.cell(row, column).is_empty());
+            let holds_values = (header_row + 1..grid.n_rows()).any(|row| !grid.cell(row, column).is_empty());
             if holds_values {
                 return Err(ManifestError::UnnamedColumn {
                     position: grid.position(header_row, Some(column)),
@@ -249,7 +248,7 @@ pub fn parse_manifest(grid: &CellGrid, folder: &Path) -> Result<Manifest, Manife
     let layout_column = required("layout")?;
     let plate_column = columns.get("plate").copied();
     let assay_column = columns.get("assay").copied();
-    let listed_rows = (header_row + 1..grid.rows.len())
+    let listed_rows = (header_row + 1..grid.n_rows())
         .filter(|&row| !grid.row_is_blank(row))
         .count();
     if listed_rows > MAX_PLATES {
@@ -260,7 +259,7 @@ pub fn parse_manifest(grid: &CellGrid, folder: &Path) -> Result<Manifest, Manife
         });
     }
     let mut plates = Vec::new();
-    for row in header_row + 1..grid.rows.len() {
+    for row in header_row + 1..grid.n_rows() {
         if grid.row_is_blank(row) {
             continue;
         }
@@ -492,7 +491,9 @@ mod tests {
         sheet.write_number(1, 3, 2.0).unwrap();
         sheet.write_string(3, 0, "d2.csv").unwrap();
         let bytes = workbook.save_to_buffer().unwrap();
-        let grid = crate::files::sheet::read_spreadsheet_cells(&bytes, "plates.xlsx", None).unwrap();
+        let grid =
+            crate::files::sheet::read_spreadsheet_cells(&bytes, "plates.xlsx", None, MergedCells::Fill)
+                .unwrap();
         let error = parse_manifest(&grid, Path::new("runs")).unwrap_err();
         // Row 3 is blank and skipped; row 4 lacks its layout.
         assert!(
@@ -511,7 +512,9 @@ mod tests {
         }
         sheet.write_number(1, 3, 2.0).unwrap();
         let bytes = workbook.save_to_buffer().unwrap();
-        let grid = crate::files::sheet::read_spreadsheet_cells(&bytes, "plates.xlsx", None).unwrap();
+        let grid =
+            crate::files::sheet::read_spreadsheet_cells(&bytes, "plates.xlsx", None, MergedCells::Fill)
+                .unwrap();
         let parsed = parse_manifest(&grid, Path::new("runs")).unwrap();
         assert_eq!(parsed.plates[0].plate, "P1");
         assert_eq!(parsed.plates[0].factors, vec!["2"]);

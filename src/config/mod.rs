@@ -10,6 +10,7 @@ use std::path::{Path, PathBuf};
 
 pub use choices::*;
 
+use crate::core::format::significant;
 use crate::core::plate::PlateFormat;
 use crate::core::units::TimeUnit;
 
@@ -122,11 +123,40 @@ impl SettingLayer {
 
     /// Reads an assay file. Relative paths in it (`layout`) are taken from the file's folder.
     pub fn from_assay_file(path: &Path) -> Result<SettingLayer, SettingsError> {
-        let text = std::fs::read_to_string(path).map_err(|source| SettingsError::AssayUnreadable {
+        let unreadable = |source| SettingsError::AssayUnreadable {
             file: path.display().to_string(),
             source,
+        };
+        // Read once, with a ceiling like every input: an assay file is a few hundred bytes.
+        let mut bytes = Vec::new();
+        std::io::Read::read_to_end(
+            &mut std::io::Read::take(
+                std::fs::File::open(path).map_err(unreadable)?,
+                MAX_ASSAY_BYTES + 1,
+            ),
+            &mut bytes,
+        )
+        .map_err(unreadable)?;
+        if bytes.len() as u64 > MAX_ASSAY_BYTES {
+            return Err(SettingsError::AssayInvalid {
+                file: path.display().to_string(),
+                message: format!(
+                    "the file is larger than {} kB, far beyond any assay file",
+                    MAX_ASSAY_BYTES / 1024
+                ),
+            });
+        }
+        let text = String::from_utf8(bytes).map_err(|_| SettingsError::AssayInvalid {
+            file: path.display().to_string(),
+            message: "the file is not UTF-8 text".to_string(),
         })?;
-        let mut layer: SettingLayer = toml::from_str(&text).map_err(|error| SettingsError::AssayInvalid {
+        SettingLayer::from_assay_text(&text, path)
+    }
+
+    /// Reads the text of the assay file at `path` (named in errors; relative paths in it are
+    /// taken from its folder).
+    pub fn from_assay_text(text: &str, path: &Path) -> Result<SettingLayer, SettingsError> {
+        let mut layer: SettingLayer = toml::from_str(text).map_err(|error| SettingsError::AssayInvalid {
             file: path.display().to_string(),
             message: error.to_string().trim_end().to_string(),
         })?;
@@ -139,13 +169,48 @@ impl SettingLayer {
     }
 }
 
+/// The most reads an export may hold (a read every second for five and a half hours); beyond it
+/// the export is refused rather than held in memory (`import`), and `min-points` cannot ask for
+/// more.
+pub const MAX_READS: usize = 20_000;
+
+/// The largest assay file read (1 MiB).
+pub const MAX_ASSAY_BYTES: u64 = 1024 * 1024;
+
+/// The most bootstrap replicates (`--bootstrap`): each is a whole refit, and percentile intervals
+/// are settled long before this many.
+pub const MAX_BOOTSTRAP: usize = 100_000;
+
+/// The largest extinction coefficient accepted, M^-1 cm^-1: far above any chromophore's
+/// (strongly absorbing dyes reach a few 10^5; common practice), so only a slip is refused.
+pub const MAX_EXTINCTION: f64 = 1e7;
+
+/// The longest pathlength accepted, cm: ten times the longest common cuvette (common practice).
+pub const MAX_PATHLENGTH_CM: f64 = 100.0;
+
 /// A setting that cannot be used, with the reason; or an assay file that cannot be read.
 #[derive(Debug, thiserror::Error)]
 pub enum SettingsError {
     /// A value that cannot work, with the setting's name in the message.
     #[error("{message}")]
     Invalid {
+        /// The setting's key (`min-points`), when one setting is at fault.
+        key: Option<&'static str>,
         /// What is wrong, naming the setting.
+        message: String,
+    },
+    /// A value from the assay file that cannot work.
+    #[error("{file}: {message}")]
+    InvalidInAssay {
+        /// The assay file as the user named it.
+        file: String,
+        /// What is wrong, naming the setting.
+        message: String,
+    },
+    /// A setting that cannot work on this input.
+    #[error("{message}")]
+    NotForThisInput {
+        /// What is wrong, naming the setting and the input.
         message: String,
     },
     /// The assay file could not be read.
@@ -169,8 +234,48 @@ pub enum SettingsError {
 
 impl SettingsError {
     fn new(message: String) -> SettingsError {
-        SettingsError::Invalid { message }
+        SettingsError::Invalid { key: None, message }
     }
+
+    /// An error about the one setting `key`.
+    fn about(key: &'static str, message: String) -> SettingsError {
+        SettingsError::Invalid {
+            key: Some(key),
+            message,
+        }
+    }
+}
+
+/// Whether `layer` sets `key` (spelled as the flags and assay files spell it).
+fn layer_sets(layer: &SettingLayer, key: &str) -> bool {
+    toml::Value::try_from(layer)
+        .ok()
+        .and_then(|value| value.as_table().map(|table| table.contains_key(key)))
+        .unwrap_or(false)
+}
+
+/// Lays the flags over an assay file (if any) and resolves the run; a value the assay file gave
+/// (and no flag replaced) that cannot work is named with the file.
+pub fn resolve_run_from(
+    data: PathBuf,
+    flags: SettingLayer,
+    assay: Option<(&Path, SettingLayer)>,
+) -> Result<RunSettings, SettingsError> {
+    let Some((file, assay_layer)) = assay else {
+        return resolve_run(data, flags);
+    };
+    let file_sets = |key: &str| layer_sets(&assay_layer, key) && !layer_sets(&flags, key);
+    let attributed = |error: SettingsError| match error {
+        SettingsError::Invalid {
+            key: Some(key),
+            message,
+        } if file_sets(key) => SettingsError::InvalidInAssay {
+            file: file.display().to_string(),
+            message,
+        },
+        other => other,
+    };
+    resolve_run(data, flags.clone().over(assay_layer.clone())).map_err(attributed)
 }
 
 /// The resolved settings of an analysis (everything but where the files are).
@@ -231,16 +336,92 @@ pub struct RunSettings {
 }
 
 fn parse_field<T: std::str::FromStr<Err = String>>(
-    name: &str,
+    name: &'static str,
     text: &Option<String>,
 ) -> Result<Option<T>, SettingsError> {
     text.as_deref()
         .map(|value| {
             value
                 .parse::<T>()
-                .map_err(|error| SettingsError::new(format!("{name}: {error}")))
+                .map_err(|error| SettingsError::about(name, format!("{name}: {error}")))
         })
         .transpose()
+}
+
+/// What the settings are checked against once the inputs are read.
+#[derive(Debug, Clone, Copy)]
+pub struct InputFacts<'a> {
+    /// The export as the user named it (and its sheet).
+    pub export: &'a str,
+    /// Its read times, s.
+    pub times_s: &'a [f64],
+    /// Its largest reading in absolute value, AU.
+    pub largest_reading: f64,
+    /// One unit of the layout's substrate concentrations, in mol/L, if the layout gives one.
+    pub substrate_unit_in_molar: Option<f64>,
+}
+
+/// Refuses settings that cannot work on this input, naming both: a window rule that leaves fewer
+/// reads than `min-points` (too many points asked for, `skip` past the data, a fixed window past
+/// the last read), and an extinction coefficient and pathlength whose conversion of the readings
+/// is not a finite number.
+pub fn check_against_input(settings: &AnalysisSettings, input: &InputFacts) -> Result<(), SettingsError> {
+    let rates = &settings.rates;
+    let usable = input
+        .times_s
+        .iter()
+        .filter(|&&t| {
+            t >= rates.skip_s
+                && rates
+                    .fixed_window_s
+                    .is_none_or(|(start, end)| t >= start && t <= end)
+        })
+        .count();
+    let span = match (input.times_s.first(), input.times_s.last()) {
+        (Some(first), Some(last)) => format!(
+            "{} reads from {} s to {} s",
+            input.times_s.len(),
+            crate::core::format::format_seconds(*first),
+            crate::core::format::format_seconds(*last)
+        ),
+        _ => "no reads".to_string(),
+    };
+    if usable < rates.min_points {
+        let rule = match (rates.fixed_window_s, rates.skip_s > 0.0) {
+            (Some((start, end)), _) => format!("window {start}:{end} holds {usable} of them"),
+            (None, true) => format!("skip = {} s leaves {usable} of them", rates.skip_s),
+            (None, false) => format!("{usable} of them are at or after 0 s"),
+        };
+        return Err(SettingsError::NotForThisInput {
+            message: format!(
+                "{}: {span}; {rule}, fewer than min-points = {}, so no well could have a window; \
+                 give a smaller min-points or a wider window",
+                input.export, rates.min_points
+            ),
+        });
+    }
+    if let (Some(epsilon), Some(path), Some(unit)) = (
+        settings.extinction_per_molar_cm,
+        settings.pathlength_cm,
+        input.substrate_unit_in_molar,
+    ) {
+        let per_absorbance = 1.0 / (epsilon * path) / unit;
+        let largest = input.largest_reading * per_absorbance;
+        if !(per_absorbance.is_finite() && largest.is_finite() && per_absorbance > 0.0) {
+            return Err(SettingsError::NotForThisInput {
+                message: format!(
+                    "{}: extinction = {} x pathlength = {} is {} M^-1, which turns its readings \
+                     (up to {} AU) into no finite concentration; check both values",
+                    input.export,
+                    significant(epsilon),
+                    significant(path),
+                    significant(epsilon * path),
+                    significant(input.largest_reading)
+                ),
+            });
+        }
+    }
+    Ok(())
 }
 
 /// Parses a window `start:end` in seconds.
@@ -262,11 +443,27 @@ pub fn parse_window(text: &str) -> Result<(f64, f64), String> {
     Ok((start, end))
 }
 
-fn positive(name: &str, value: Option<f64>) -> Result<Option<f64>, SettingsError> {
+fn positive(name: &'static str, value: Option<f64>) -> Result<Option<f64>, SettingsError> {
     match value {
-        Some(v) if !(v.is_finite() && v > 0.0) => Err(SettingsError::new(format!(
-            "{name} must be a positive number, got {v}"
-        ))),
+        Some(v) if !(v.is_finite() && v > 0.0) => Err(SettingsError::about(
+            name,
+            format!("{name} must be a positive number, got {v}"),
+        )),
+        other => Ok(other),
+    }
+}
+
+/// A positive number no larger than `ceiling`.
+fn positive_at_most(
+    name: &'static str,
+    value: Option<f64>,
+    ceiling: f64,
+) -> Result<Option<f64>, SettingsError> {
+    match positive(name, value)? {
+        Some(v) if v > ceiling => Err(SettingsError::about(
+            name,
+            format!("{name} {v} is beyond {ceiling:e}, the largest platekin accepts"),
+        )),
         other => Ok(other),
     }
 }
@@ -322,8 +519,8 @@ pub fn resolve_import(layer: &SettingLayer) -> Result<ImportOptions, SettingsErr
 /// Resolves the analysis part of a layer.
 pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, SettingsError> {
     let defaults = RateSettings::default();
-    let extinction = positive("extinction", layer.extinction)?;
-    let pathlength = positive("pathlength", layer.pathlength)?;
+    let extinction = positive_at_most("extinction", layer.extinction, MAX_EXTINCTION)?;
+    let pathlength = positive_at_most("pathlength", layer.pathlength, MAX_PATHLENGTH_CM)?;
     if extinction.is_some() != pathlength.is_some() {
         return Err(SettingsError::new(
             "give both --extinction and --pathlength (rates in concentration units need both), or neither (rates in absorbance units)"
@@ -332,34 +529,42 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
     }
     let max_conversion = layer.max_conversion.unwrap_or(defaults.max_conversion);
     if !(max_conversion > 0.0 && max_conversion <= 1.0) {
-        return Err(SettingsError::new(format!(
-            "max-conversion must lie in (0, 1], got {max_conversion}"
-        )));
+        return Err(SettingsError::about(
+            "max-conversion",
+            format!("max-conversion must lie in (0, 1], got {max_conversion}"),
+        ));
     }
     let min_points = layer.min_points.unwrap_or(defaults.min_points);
-    if min_points < 3 {
-        return Err(SettingsError::new(format!(
-            "min-points must be at least 3, got {min_points}"
-        )));
+    if !(3..=MAX_READS).contains(&min_points) {
+        return Err(SettingsError::about(
+            "min-points",
+            format!(
+                "min-points must lie from 3 to {} (the most reads an export may hold), got {min_points}",
+                MAX_READS
+            ),
+        ));
     }
     let skip_s = layer.skip.unwrap_or(defaults.skip_s);
     if !(skip_s.is_finite() && skip_s >= 0.0) {
-        return Err(SettingsError::new(format!(
-            "skip must be zero or more seconds, got {skip_s}"
-        )));
+        return Err(SettingsError::about(
+            "skip",
+            format!("skip must be zero or more seconds, got {skip_s}"),
+        ));
     }
     let alpha = layer.alpha.unwrap_or(defaults.alpha);
     if !(alpha > 0.0 && alpha < 0.5) {
-        return Err(SettingsError::new(format!(
-            "alpha must lie in (0, 0.5), got {alpha}"
-        )));
+        return Err(SettingsError::about(
+            "alpha",
+            format!("alpha must lie in (0, 0.5), got {alpha}"),
+        ));
     }
     let max_absorbance = positive("max-absorbance", layer.max_absorbance)?.unwrap_or(defaults.max_absorbance);
     let dead_time_s = layer.dead_time.unwrap_or(0.0);
     if !(dead_time_s.is_finite() && dead_time_s >= 0.0) {
-        return Err(SettingsError::new(format!(
-            "dead-time must be zero or more seconds, got {dead_time_s}"
-        )));
+        return Err(SettingsError::about(
+            "dead-time",
+            format!("dead-time must be zero or more seconds, got {dead_time_s}"),
+        ));
     }
     let progress = ProgressSettings {
         mode: parse_field::<ProgressMode>("progress", &layer.progress)?.unwrap_or(ProgressMode::Auto),
@@ -371,7 +576,7 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         .as_deref()
         .map(parse_window)
         .transpose()
-        .map_err(SettingsError::new)?;
+        .map_err(|message| SettingsError::about("window", message))?;
     Ok(AnalysisSettings {
         readout: parse_field::<Readout>("readout", &layer.readout)?.unwrap_or(Readout::Product),
         extinction_per_molar_cm: extinction,
@@ -399,35 +604,49 @@ pub fn resolve_fit(layer: &SettingLayer) -> Result<FitSettings, SettingsError> {
     let model = match &layer.model {
         None => None,
         Some(name) => Some(ModelRequest::from_name(name).ok_or_else(|| {
-            SettingsError::new(format!(
-                "unknown --model '{name}' (choose auto, michaelis-menten, competitive, uncompetitive, \
+            SettingsError::about(
+                "model",
+                format!(
+                    "unknown --model '{name}' (choose auto, michaelis-menten, competitive, uncompetitive, \
                  noncompetitive, mixed, substrate-inhibition, hill, morrison or ic50)"
-            ))
+                ),
+            )
         })?),
     };
     let weighting = match &layer.weighting {
         None => Weighting::Auto,
         Some(name) => Weighting::from_name(name).ok_or_else(|| {
-            SettingsError::new(format!(
-                "unknown --weighting '{name}' (choose auto, none, relative, replicate-sd or rate-se)"
-            ))
+            SettingsError::about(
+                "weighting",
+                format!(
+                    "unknown --weighting '{name}' (choose auto, none, relative, replicate-sd or rate-se)"
+                ),
+            )
         })?,
     };
     let loss = match &layer.robust {
         None => RobustLoss::None,
-        Some(name) => RobustLoss::from_name(name)
-            .ok_or_else(|| SettingsError::new(format!("unknown --robust '{name}' (choose none or huber)")))?,
+        Some(name) => RobustLoss::from_name(name).ok_or_else(|| {
+            SettingsError::about(
+                "robust",
+                format!("unknown --robust '{name}' (choose none or huber)"),
+            )
+        })?,
     };
-    if layer.bootstrap == Some(0) {
-        return Err(SettingsError::new(
-            "--bootstrap needs at least 1 replicate".to_string(),
-        ));
+    if let Some(replicates) = layer.bootstrap {
+        if !(1..=MAX_BOOTSTRAP).contains(&replicates) {
+            return Err(SettingsError::about(
+                "bootstrap",
+                format!("--bootstrap takes from 1 to {MAX_BOOTSTRAP} replicates, got {replicates}"),
+            ));
+        }
     }
     if let Some(km) = layer.cheng_prusoff_km {
         if !(km.is_finite() && km > 0.0) {
-            return Err(SettingsError::new(format!(
-                "--cheng-prusoff-km must be a positive number, not {km}"
-            )));
+            return Err(SettingsError::about(
+                "cheng-prusoff-km",
+                format!("--cheng-prusoff-km must be a positive number, not {km}"),
+            ));
         }
     }
     Ok(FitSettings {

@@ -1,24 +1,26 @@
 //! A file read into a grid of typed cells with positions, whatever it was (CSV/TSV/TXT or a
 //! spreadsheet sheet), so that the data and layout parsers see one shape and every error they
 //! raise can name the file, sheet, row and column.
+//!
+//! The grid is stored compactly (16 bytes a cell, the texts in one buffer), since a 1536-well
+//! export of 2000 reads holds three million cells; parsers see each cell as a borrowed [`Cell`].
 
 use std::fmt;
 
-/// One cell as read.
-#[derive(Debug, Clone, PartialEq)]
-pub enum Cell {
+/// One cell as read, borrowed from its grid.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Cell<'a> {
     /// Nothing in the cell (or only spaces).
     Empty,
-    /// A number (text cells that parse as numbers become numbers; a decimal comma is accepted
-    /// where the reader allowed it).
+    /// A number (text cells that hold a number in the file's decimal mark become numbers).
     Number(f64),
     /// An elapsed time in seconds: a spreadsheet cell formatted as a time or duration.
     Duration(f64),
     /// Any other text, trimmed.
-    Text(String),
+    Text(&'a str),
 }
 
-impl Cell {
+impl Cell<'_> {
     /// The number in the cell, if it holds one.
     pub fn as_number(&self) -> Option<f64> {
         match self {
@@ -32,7 +34,7 @@ impl Cell {
         match self {
             Cell::Empty => String::new(),
             Cell::Number(value) | Cell::Duration(value) => format!("{value}"),
-            Cell::Text(text) => text.clone(),
+            Cell::Text(text) => (*text).to_string(),
         }
     }
 
@@ -42,8 +44,42 @@ impl Cell {
     }
 }
 
+/// The decimal mark of a file's numbers, decided once per file from the numbers it holds (see
+/// `files::sheet`). Text that holds a number written with the other mark, or a number whose mark
+/// cannot be told (`1,000` in a file with no other decimals), stays text: it is named where a
+/// number is needed, never guessed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum DecimalMark {
+    /// `0.5`.
+    #[default]
+    Point,
+    /// `0,5`.
+    Comma,
+    /// The file holds no number with a fraction that tells the mark: only whole numbers are read.
+    Unknown,
+}
+
+impl DecimalMark {
+    /// The mark's character, if known.
+    pub fn character(self) -> Option<char> {
+        match self {
+            DecimalMark::Point => Some('.'),
+            DecimalMark::Comma => Some(','),
+            DecimalMark::Unknown => None,
+        }
+    }
+
+    /// Words for messages: "'.'", "','" or "not known (no number in the file has a fraction)".
+    pub fn describe(self) -> String {
+        match self.character() {
+            Some(mark) => format!("'{mark}'"),
+            None => "not known (no number in the file shows one)".to_string(),
+        }
+    }
+}
+
 /// Where a grid came from: the file, and the sheet for spreadsheets.
-#[derive(Debug, Clone, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
 pub struct Source {
     /// The file name as the user gave it.
     pub file: String,
@@ -95,24 +131,129 @@ pub fn column_letters(column: usize) -> String {
     String::from_utf8(letters).unwrap_or_default()
 }
 
-/// A whole file or sheet as rows of cells. Row `i` of `rows` is one-based row `i + 1` of the
+/// A cell as the grid stores it: 16 bytes, its text (if any) a span of the grid's text buffer.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum StoredCell {
+    Empty,
+    Number(f64),
+    Duration(f64),
+    Text { start: u32, length: u32 },
+}
+
+/// A whole file or sheet as rows of cells. Zero-based row `i` is one-based row `i + 1` of the
 /// source. Rows keep their own length (a row cut short stays short, so parsers can name it).
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Default)]
 pub struct CellGrid {
     /// Where the cells came from.
     pub source: Source,
-    /// The rows as read.
-    pub rows: Vec<Vec<Cell>>,
+    /// The decimal mark the file's text numbers were read with.
+    pub decimal_mark: DecimalMark,
+    /// Every row's cells, one row after another.
+    cells: Vec<StoredCell>,
+    /// The end of each row in `cells` (its start is the previous row's end).
+    row_ends: Vec<usize>,
+    /// The texts of every text cell.
+    texts: String,
 }
 
 impl CellGrid {
+    /// An empty grid for cells from `source`.
+    pub fn new(source: Source, decimal_mark: DecimalMark) -> CellGrid {
+        CellGrid {
+            source,
+            decimal_mark,
+            ..CellGrid::default()
+        }
+    }
+
+    /// A grid from rows given whole (tests, and readers that hold their rows).
+    pub fn from_rows(source: Source, decimal_mark: DecimalMark, rows: &[Vec<Cell<'_>>]) -> CellGrid {
+        let mut grid = CellGrid::new(source, decimal_mark);
+        for row in rows {
+            grid.push_row(row.iter().copied());
+        }
+        grid
+    }
+
+    /// Appends a row.
+    pub fn push_row<'a>(&mut self, cells: impl IntoIterator<Item = Cell<'a>>) {
+        for cell in cells {
+            let stored = match cell {
+                Cell::Empty => StoredCell::Empty,
+                Cell::Number(value) => StoredCell::Number(value),
+                Cell::Duration(value) => StoredCell::Duration(value),
+                Cell::Text(text) => {
+                    // Inputs are at most 256 MiB (`files::input`), so the offsets fit; a text past
+                    // 4 GiB would read back empty rather than wrong.
+                    let start = u32::try_from(self.texts.len()).unwrap_or(u32::MAX);
+                    let length = u32::try_from(text.len()).unwrap_or(0);
+                    self.texts.push_str(text);
+                    StoredCell::Text { start, length }
+                }
+            };
+            self.cells.push(stored);
+        }
+        self.row_ends.push(self.cells.len());
+    }
+
+    /// Appends `count` rows with no cells.
+    pub fn push_blank_rows(&mut self, count: usize) {
+        let end = self.cells.len();
+        self.row_ends.extend(std::iter::repeat_n(end, count));
+    }
+
+    /// The number of rows.
+    pub fn n_rows(&self) -> usize {
+        self.row_ends.len()
+    }
+
+    /// The number of cells of every row together.
+    pub fn n_cells(&self) -> usize {
+        self.cells.len()
+    }
+
+    /// The stored cells of zero-based `row` (none beyond the last row).
+    fn stored_row(&self, row: usize) -> &[StoredCell] {
+        let Some(&end) = self.row_ends.get(row) else {
+            return &[];
+        };
+        let start = if row == 0 { 0 } else { self.row_ends[row - 1] };
+        &self.cells[start..end]
+    }
+
+    /// A stored cell as a [`Cell`].
+    fn view(&self, stored: StoredCell) -> Cell<'_> {
+        match stored {
+            StoredCell::Empty => Cell::Empty,
+            StoredCell::Number(value) => Cell::Number(value),
+            StoredCell::Duration(value) => Cell::Duration(value),
+            StoredCell::Text { start, length } => {
+                let start = start as usize;
+                Cell::Text(self.texts.get(start..start + length as usize).unwrap_or(""))
+            }
+        }
+    }
+
+    /// The number of cells zero-based `row` holds as read (empty cells included).
+    pub fn row_len(&self, row: usize) -> usize {
+        self.stored_row(row).len()
+    }
+
+    /// The cells of zero-based `row`, in order.
+    pub fn row(&self, row: usize) -> impl ExactSizeIterator<Item = Cell<'_>> + '_ {
+        self.stored_row(row).iter().map(|stored| self.view(*stored))
+    }
+
+    /// The cells of zero-based `row`, collected.
+    pub fn row_cells(&self, row: usize) -> Vec<Cell<'_>> {
+        self.row(row).collect()
+    }
+
     /// The cell at zero-based `row`, `column`; `Empty` beyond a row's end.
-    pub fn cell(&self, row: usize, column: usize) -> &Cell {
-        static EMPTY: Cell = Cell::Empty;
-        self.rows
-            .get(row)
-            .and_then(|cells| cells.get(column))
-            .unwrap_or(&EMPTY)
+    pub fn cell(&self, row: usize, column: usize) -> Cell<'_> {
+        self.stored_row(row)
+            .get(column)
+            .map_or(Cell::Empty, |stored| self.view(*stored))
     }
 
     /// The one-based position of zero-based `row`, `column`.
@@ -126,22 +267,17 @@ impl CellGrid {
 
     /// Whether zero-based `row` holds nothing but empty cells.
     pub fn row_is_blank(&self, row: usize) -> bool {
-        self.rows
-            .get(row)
-            .is_none_or(|cells| cells.iter().all(Cell::is_empty))
+        self.stored_row(row)
+            .iter()
+            .all(|stored| matches!(stored, StoredCell::Empty))
     }
 
     /// The number of cells in zero-based `row` up to its last non-empty one.
     pub fn row_width(&self, row: usize) -> usize {
-        self.rows
-            .get(row)
-            .map(|cells| {
-                cells
-                    .iter()
-                    .rposition(|cell| !cell.is_empty())
-                    .map_or(0, |last| last + 1)
-            })
-            .unwrap_or(0)
+        self.stored_row(row)
+            .iter()
+            .rposition(|stored| !matches!(stored, StoredCell::Empty))
+            .map_or(0, |last| last + 1)
     }
 }
 
@@ -172,5 +308,30 @@ mod tests {
             position.to_string(),
             "plate.xlsx, sheet 'Kinetics', row 12, column 3 (C)"
         );
+    }
+
+    #[test]
+    fn a_grid_gives_back_its_rows_and_cells() {
+        let rows = vec![
+            vec![Cell::Text("Time [s]"), Cell::Text("A1")],
+            vec![],
+            vec![Cell::Number(0.0), Cell::Empty, Cell::Duration(90.0)],
+        ];
+        let grid = CellGrid::from_rows(Source::default(), DecimalMark::Point, &rows);
+        assert_eq!(grid.n_rows(), 3);
+        assert_eq!(grid.row_cells(0), rows[0]);
+        assert!(grid.row_is_blank(1));
+        assert_eq!(grid.row_len(2), 3);
+        assert_eq!(grid.row_width(2), 3);
+        assert_eq!(grid.cell(2, 2), Cell::Duration(90.0));
+        assert_eq!(grid.cell(2, 9), Cell::Empty);
+        assert_eq!(grid.cell(7, 0), Cell::Empty);
+        assert_eq!(grid.cell(0, 1), Cell::Text("A1"));
+    }
+
+    #[test]
+    fn a_stored_cell_takes_sixteen_bytes() {
+        // The memory ceiling of a large export rests on this (module docs).
+        assert_eq!(std::mem::size_of::<StoredCell>(), 16);
     }
 }

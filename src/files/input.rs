@@ -82,7 +82,14 @@ impl InputFile {
             source,
         };
         let file = std::fs::File::open(path).map_err(unreadable)?;
-        let mut bytes = Vec::new();
+        // A regular file's size is known: reserve it (plus one byte to see the end), so a 21 MB
+        // export takes 21 MB and not the 32 MB a doubling buffer would. A pipe grows as it reads.
+        let known_size = file
+            .metadata()
+            .ok()
+            .filter(std::fs::Metadata::is_file)
+            .map_or(0, |metadata| metadata.len().min(MAX_INPUT_BYTES));
+        let mut bytes = Vec::with_capacity(usize::try_from(known_size + 1).unwrap_or(0));
         file.take(MAX_INPUT_BYTES + 1)
             .read_to_end(&mut bytes)
             .map_err(unreadable)?;

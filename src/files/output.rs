@@ -7,8 +7,15 @@
 //! beside the new ones.
 //!
 //! The marker file `.platekin-output` says the folder was made by platekin and lists the outputs
-//! of the last run written into it. Staging and set-aside folders left by an interrupted run are
-//! removed by the next run into the same folder.
+//! of the last run written into it. While the new outputs are swapped in, the marker lists the
+//! previous run's outputs and the new ones together, and interrupts (Ctrl-C, SIGTERM, SIGHUP) are
+//! held back until the swap is done ([`interrupts`]); so even a process killed outright in the
+//! swap leaves a marker that names every output the next run must replace. Staging and set-aside
+//! folders left by an interrupted run are removed by the next run into the same folder.
+//!
+//! The outputs of a run (with `run.json`, which records the others' checksums) are replaced only
+//! by another run's: `platekin fit --out RUNDIR` would leave `run.json` naming a `fit.json` that
+//! is no longer there, so it is refused.
 
 use std::collections::BTreeSet;
 use std::fs;
@@ -51,6 +58,17 @@ pub enum OutputError {
     NotAFolder {
         /// The path.
         folder: String,
+    },
+    /// Outputs without `run.json` would replace a run's outputs.
+    #[error(
+        "{folder}: the folder holds the outputs of a `platekin run` (run.json records their checksums); \
+         writing {files} there would replace them; choose another --out"
+    )]
+    WouldReplaceRun {
+        /// The folder.
+        folder: String,
+        /// The outputs that would be written.
+        files: String,
     },
     /// An output would replace an input.
     #[error("{path}: this output would overwrite an input file; choose another --out")]
@@ -95,8 +113,11 @@ pub fn check_output_folder(folder: &Path, force: bool) -> Result<(), OutputError
             folder: folder.display().to_string(),
         });
     }
+    // A folder that holds nothing but what an interrupted first run left (its staging folder) is
+    // empty to a new run, which removes the leftovers.
     let mut entries = fs::read_dir(folder).map_err(io_error(folder))?;
-    let empty = entries.next().is_none();
+    let empty =
+        entries.all(|entry| entry.is_ok_and(|entry| is_leftover(&entry.file_name().to_string_lossy())));
     if empty || force || folder.join(MARKER_FILE).exists() {
         Ok(())
     } else {
@@ -133,12 +154,16 @@ fn previous_outputs(folder: &Path) -> BTreeSet<String> {
     known
 }
 
+/// Whether a folder entry is a staging or set-aside folder of a run.
+fn is_leftover(name: &str) -> bool {
+    name.starts_with(STAGING_PREFIX) || name.starts_with(PREVIOUS_PREFIX)
+}
+
 /// Removes staging and set-aside folders an interrupted run left in `folder`.
 fn remove_leftovers(folder: &Path) {
     if let Ok(entries) = fs::read_dir(folder) {
         for entry in entries.flatten() {
-            let name = entry.file_name().to_string_lossy().into_owned();
-            if name.starts_with(STAGING_PREFIX) || name.starts_with(PREVIOUS_PREFIX) {
+            if is_leftover(&entry.file_name().to_string_lossy()) {
                 let _ = fs::remove_dir_all(entry.path());
             }
         }
@@ -202,6 +227,20 @@ pub fn write_outputs(
             }
         }
     }
+    let writes_run_record = files.iter().any(|file| file.name == "run.json");
+    if !writes_run_record
+        && previous_outputs(folder).contains("run.json")
+        && folder.join("run.json").is_file()
+    {
+        return Err(OutputError::WouldReplaceRun {
+            folder: folder.display().to_string(),
+            files: files
+                .iter()
+                .map(|file| file.name.as_str())
+                .collect::<Vec<_>>()
+                .join(", "),
+        });
+    }
     let created = !folder.exists();
     fs::create_dir_all(folder).map_err(io_error(folder))?;
     remove_leftovers(folder);
@@ -233,11 +272,35 @@ fn commit(folder: &Path, files: &[OutputFile]) -> Result<Vec<PathBuf>, OutputErr
         let _ = fs::remove_dir_all(&staging);
         return Err(error);
     }
+    // From here to the end the folder changes: interrupts wait until it is whole again.
+    let _held = interrupts::hold();
+    let previous = previous_outputs(folder);
+    let previous_marker = fs::read(folder.join(MARKER_FILE)).ok();
+    // The marker first names both runs' outputs, so that a process killed in the swap leaves a
+    // folder whose every output the next run replaces.
+    let mut interim =
+        format!("{MARKER_HEADER}\n# outputs of the last run written here (a swap in progress):\n");
+    let names: BTreeSet<&str> = previous
+        .iter()
+        .map(String::as_str)
+        .chain(files.iter().map(|file| file.name.as_str()))
+        .collect();
+    for name in names {
+        interim.push_str(name);
+        interim.push('\n');
+    }
+    let interim_path = staging.join(".platekin-output-interim");
+    if let Err(error) = write_new_file(&interim_path, interim.as_bytes())
+        .and_then(|()| move_file(&interim_path, &folder.join(MARKER_FILE)))
+    {
+        let _ = fs::remove_dir_all(&staging);
+        return Err(error);
+    }
     // Set the previous run's outputs aside, then move the new ones in.
     let mut set_aside: Vec<String> = Vec::new();
     let mut placed: Vec<String> = Vec::new();
     let moved = (|| {
-        for name in previous_outputs(folder) {
+        for name in previous {
             let path = folder.join(&name);
             if is_plain_relative(&name) && path.is_file() {
                 move_file(&path, &previous_dir.join(&name))?;
@@ -257,6 +320,14 @@ fn commit(folder: &Path, files: &[OutputFile]) -> Result<Vec<PathBuf>, OutputErr
         for name in &set_aside {
             let _ = move_file(&previous_dir.join(name), &folder.join(name));
         }
+        match &previous_marker {
+            Some(bytes) => {
+                let _ = fs::write(folder.join(MARKER_FILE), bytes);
+            }
+            None => {
+                let _ = fs::remove_file(folder.join(MARKER_FILE));
+            }
+        }
         let _ = fs::remove_dir_all(&staging);
         let _ = fs::remove_dir_all(&previous_dir);
         return Err(error);
@@ -270,6 +341,124 @@ fn commit(folder: &Path, files: &[OutputFile]) -> Result<Vec<PathBuf>, OutputErr
         }
     }
     Ok(files.iter().map(|file| folder.join(&file.name)).collect())
+}
+
+/// Holding interrupts back while the output folder changes. On unix the first hold installs, once
+/// for the process, handlers for SIGINT, SIGTERM and SIGHUP that act as the default (end the
+/// process) except while a hold is alive, when they only note the signal; the last hold to end
+/// re-raises what was noted. A signal the process ignores (a background job's SIGINT) stays
+/// ignored. Elsewhere a hold does nothing.
+mod interrupts {
+    /// Interrupts are held back while this lives.
+    pub struct Held {
+        #[cfg(unix)]
+        _private: (),
+    }
+
+    #[cfg(unix)]
+    mod unix {
+        use std::sync::atomic::{AtomicBool, Ordering};
+        use std::sync::{Arc, Mutex, OnceLock};
+
+        use signal_hook::consts::{SIGHUP, SIGINT, SIGTERM};
+
+        /// The process-wide state behind every hold.
+        pub(super) struct Deferral {
+            /// True while no hold is alive: a signal then acts as its default.
+            acting_normally: Arc<AtomicBool>,
+            /// Each handled signal, and whether it arrived during a hold.
+            pending: Vec<(i32, Arc<AtomicBool>)>,
+            /// How many holds are alive.
+            holders: Mutex<usize>,
+        }
+
+        /// Whether the process ignores `signal` now.
+        fn is_ignored(signal: i32) -> bool {
+            // SAFETY: with a null new action, sigaction only reads the current disposition into
+            // `current`, a zeroed plain-data struct of the right type.
+            unsafe {
+                let mut current: libc::sigaction = std::mem::zeroed();
+                libc::sigaction(signal, std::ptr::null(), &mut current) == 0
+                    && current.sa_sigaction == libc::SIG_IGN
+            }
+        }
+
+        /// The deferral, installed on first use (`None` if no handler could be installed).
+        pub(super) fn deferral() -> Option<&'static Deferral> {
+            static DEFERRAL: OnceLock<Option<Deferral>> = OnceLock::new();
+            DEFERRAL
+                .get_or_init(|| {
+                    let acting_normally = Arc::new(AtomicBool::new(true));
+                    let mut pending = Vec::new();
+                    for signal in [SIGINT, SIGTERM, SIGHUP] {
+                        if is_ignored(signal) {
+                            continue;
+                        }
+                        let flag = Arc::new(AtomicBool::new(false));
+                        signal_hook::flag::register_conditional_default(signal, acting_normally.clone())
+                            .ok()?;
+                        signal_hook::flag::register(signal, flag.clone()).ok()?;
+                        pending.push((signal, flag));
+                    }
+                    Some(Deferral {
+                        acting_normally,
+                        pending,
+                        holders: Mutex::new(0),
+                    })
+                })
+                .as_ref()
+        }
+
+        impl Deferral {
+            pub(super) fn begin(&self) {
+                let mut holders = self
+                    .holders
+                    .lock()
+                    .unwrap_or_else(|poisoned| poisoned.into_inner());
+                *holders += 1;
+                self.acting_normally.store(false, Ordering::SeqCst);
+            }
+
+            pub(super) fn end(&self) {
+                let mut holders = self
+                    .holders
+                    .lock()
+                    .unwrap_or_else(|poisoned| poisoned.into_inner());
+                *holders = holders.saturating_sub(1);
+                if *holders > 0 {
+                    return;
+                }
+                self.acting_normally.store(true, Ordering::SeqCst);
+                for (signal, flag) in &self.pending {
+                    if flag.swap(false, Ordering::SeqCst) {
+                        // The interrupt that waited: now act on it as the default would.
+                        let _ = signal_hook::low_level::emulate_default_handler(*signal);
+                    }
+                }
+            }
+        }
+    }
+
+    /// Holds interrupts back until the returned value is dropped.
+    pub fn hold() -> Held {
+        #[cfg(unix)]
+        if let Some(deferral) = unix::deferral() {
+            deferral.begin();
+        }
+        Held {
+            #[cfg(unix)]
+            _private: (),
+        }
+    }
+
+    impl Drop for Held {
+        fn drop(&mut self) {
+            #[cfg(unix)]
+            if let Some(deferral) = unix::deferral() {
+                deferral.end();
+            }
+        }
+    }
 }
 
 #[cfg(test)]
@@ -387,6 +576,57 @@ mod tests {
         fs::write(out.join(".platekin-staging-1/big.tmp"), "partial").unwrap();
         write_outputs(&out, false, &[], &[file("a.csv", "y")]).unwrap();
         assert_eq!(listing(&out), vec![MARKER_FILE.to_string(), "a.csv".to_string()]);
+    }
+
+    #[test]
+    fn a_folder_holding_only_an_interrupted_first_run_is_taken() {
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("run");
+        fs::create_dir_all(out.join(".platekin-staging-7")).unwrap();
+        fs::write(out.join(".platekin-staging-7/wells.csv"), "partial").unwrap();
+        write_outputs(&out, false, &[], &[file("a.csv", "x")]).unwrap();
+        assert_eq!(listing(&out), vec![MARKER_FILE.to_string(), "a.csv".to_string()]);
+    }
+
+    #[test]
+    fn a_run_s_outputs_are_not_replaced_by_outputs_without_a_run_record() {
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("run");
+        write_outputs(
+            &out,
+            false,
+            &[],
+            &[file("fit.json", "run fit"), file("run.json", "record")],
+        )
+        .unwrap();
+        let error = write_outputs(&out, false, &[], &[file("fit.json", "table fit")]).unwrap_err();
+        assert!(matches!(error, OutputError::WouldReplaceRun { .. }), "{error}");
+        assert_eq!(fs::read_to_string(out.join("fit.json")).unwrap(), "run fit");
+        // Another run replaces them.
+        write_outputs(
+            &out,
+            false,
+            &[],
+            &[file("fit.json", "new"), file("run.json", "new record")],
+        )
+        .unwrap();
+        assert_eq!(fs::read_to_string(out.join("fit.json")).unwrap(), "new");
+    }
+
+    #[test]
+    fn a_failed_swap_restores_the_marker_too() {
+        let root = tempfile::tempdir().unwrap();
+        let out = root.path().join("run");
+        write_outputs(&out, false, &[], &[file("a.csv", "old"), file("b.csv", "old b")]).unwrap();
+        let marker = fs::read(out.join(MARKER_FILE)).unwrap();
+        // `c.csv` cannot be moved in: a folder of that name stands in the way.
+        fs::create_dir_all(out.join("c.csv/inside")).unwrap();
+        let error =
+            write_outputs(&out, false, &[], &[file("a.csv", "new"), file("c.csv", "new c")]).unwrap_err();
+        assert!(matches!(error, OutputError::Io { .. }), "{error}");
+        assert_eq!(fs::read(out.join(MARKER_FILE)).unwrap(), marker);
+        assert_eq!(fs::read_to_string(out.join("a.csv")).unwrap(), "old");
+        assert_eq!(fs::read_to_string(out.join("b.csv")).unwrap(), "old b");
     }
 
     #[test]

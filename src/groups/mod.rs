@@ -1019,7 +1019,10 @@ fn enzyme_for_kcat(units: &GroupUnits) -> Result<(f64, ConcentrationUnit), &'sta
         (Some(rate_unit), Some(s_unit), Some((e, e_unit))) if e > 0.0 && rate_unit == s_unit => {
             Ok((e * e_unit.factor_to(s_unit), s_unit))
         }
-        (None, ..) => Err("no kcat: rates are in absorbance units (give --extinction and --pathlength)"),
+        (None, ..) if units.rate_unit.starts_with("AU") => {
+            Err("no kcat: rates are in absorbance units (give --extinction and --pathlength)")
+        }
+        (None, ..) => Err("no kcat: the rates are not in a concentration per second (such as uM/s)"),
         (_, _, None) | (_, None, _) => Err("no kcat: no enzyme concentration is given"),
         (Some(_), Some(_), Some((e, _))) if e <= 0.0 => Err("no kcat: the enzyme concentration is zero"),
         _ => Err("no kcat: the rate and substrate units differ"),

@@ -20,7 +20,8 @@ use crate::config::FitSettings;
 use crate::core::cells::{Cell, CellGrid, Position};
 use crate::core::units::{split_header_unit, ConcentrationUnit};
 use crate::files::input::InputFile;
-use crate::files::sheet::{read_input_cells, SheetReadError};
+use crate::files::sheet::{number_shape, read_input_cells, MergedCells, NumberShape, SheetReadError};
+use crate::layout::{is_reserved_column_name, FACTOR_PREFIX};
 
 /// Why a rate table could not be read or fitted.
 #[derive(Debug, thiserror::Error)]
@@ -35,11 +36,25 @@ pub enum RateTableError {
         column: &'static str,
         found: String,
     },
-    #[error("{position}: the {column} cell holds '{text}', not a number")]
+    #[error("{position}: the {column} cell holds '{text}', not a number{mark_note}")]
     NotANumber {
         position: Box<Position>,
         column: String,
         text: String,
+        /// Why a number-like text is none: the file's decimal mark, or "".
+        mark_note: String,
+    },
+    #[error("{position}: the {column} cell holds {value}; a concentration is a number >= 0")]
+    NegativeConcentration {
+        position: Box<Position>,
+        column: String,
+        value: f64,
+    },
+    #[error("{first} and {second}: two columns could be the {what} column; keep one")]
+    DuplicateColumn {
+        first: Box<Position>,
+        second: Box<Position>,
+        what: &'static str,
     },
     #[error("{position}: unit '{unit}' of column '{column}' is not a concentration unit ({reason})")]
     UnknownUnit {
@@ -73,29 +88,6 @@ impl TableKind {
         }
     }
 }
-
-/// A run's bookkeeping columns: never factors.
-const NOT_FACTORS: [&str; 19] = [
-    "well",
-    "rate_se",
-    "window_slope",
-    "background",
-    "intercept",
-    "r2",
-    "window_start",
-    "window_end",
-    "n_points",
-    "conversion",
-    "flags",
-    "correction",
-    "notes",
-    "n",
-    "n_used",
-    "rate_sem",
-    "cv",
-    "role",
-    "used",
-];
 
 /// One group of rows of a rate table.
 #[derive(Debug, Clone, PartialEq)]
@@ -153,13 +145,48 @@ fn concentration_unit(
 fn number(grid: &CellGrid, row: usize, column: usize, header: &str) -> Result<Option<f64>, RateTableError> {
     match grid.cell(row, column) {
         Cell::Empty => Ok(None),
-        Cell::Number(value) | Cell::Duration(value) => Ok(Some(*value)),
+        Cell::Number(value) | Cell::Duration(value) => Ok(Some(value)),
         Cell::Text(text) if text.eq_ignore_ascii_case("nan") || text.eq_ignore_ascii_case("null") => Ok(None),
         Cell::Text(text) => Err(RateTableError::NotANumber {
             position: Box::new(grid.position(row, Some(column))),
             column: header.to_string(),
-            text: text.clone(),
+            text: text.to_string(),
+            mark_note: if number_shape(text) == NumberShape::NotANumber {
+                String::new()
+            } else {
+                format!(
+                    " in this file, whose decimal mark is {}",
+                    grid.decimal_mark.describe()
+                )
+            },
         }),
+    }
+}
+
+/// A concentration cell: a number >= 0, or none.
+fn concentration(
+    grid: &CellGrid,
+    row: usize,
+    column: usize,
+    header: &str,
+) -> Result<Option<f64>, RateTableError> {
+    match number(grid, row, column, header)? {
+        Some(value) if value < 0.0 => Err(RateTableError::NegativeConcentration {
+            position: Box::new(grid.position(row, Some(column))),
+            column: header.to_string(),
+            value,
+        }),
+        other => Ok(other),
+    }
+}
+
+/// A factor's value as a table cell holds it, without the `'` a spreadsheet-safe writer put
+/// before text that starts like a formula (`render::tables::spreadsheet_safe`).
+fn factor_value(cell: Cell) -> String {
+    let text = cell.as_text();
+    match text.strip_prefix('\'') {
+        Some(rest) if rest.starts_with(['=', '+', '-', '@', '\t', '\r']) => rest.to_string(),
+        _ => text,
     }
 }
 
@@ -170,9 +197,9 @@ pub fn read_rate_table(
     sheet: Option<&str>,
     settings: &FitSettings,
 ) -> Result<RateTable, RateTableError> {
-    let grid = read_input_cells(input, sheet)?;
+    let grid = read_input_cells(input, sheet, MergedCells::Fill)?;
     let source = grid.source.to_string();
-    let Some(header_row) = (0..grid.rows.len()).find(|&row| !grid.row_is_blank(row)) else {
+    let Some(header_row) = (0..grid.n_rows()).find(|&row| !grid.row_is_blank(row)) else {
         return Err(RateTableError::Empty { source_name: source });
     };
     let headers: Vec<String> = (0..grid.row_width(header_row))
@@ -183,6 +210,27 @@ pub fn read_rate_table(
         .map(|h| split_header_unit(h).0.to_ascii_lowercase())
         .collect();
     let find = |wanted: &[&str]| names.iter().position(|name| wanted.contains(&name.as_str()));
+    // Two columns of one meaning: which one holds the values cannot be told.
+    for (what, wanted) in [
+        ("substrate", &["substrate"][..]),
+        ("rate", &["rate", "rate_mean"]),
+        ("inhibitor", &["inhibitor"]),
+        ("enzyme", &["enzyme"]),
+        ("sd", &["sd", "rate_sd"]),
+    ] {
+        let mut matching = names
+            .iter()
+            .enumerate()
+            .filter(|(_, name)| wanted.contains(&name.as_str()))
+            .map(|(index, _)| index);
+        if let (Some(first), Some(second)) = (matching.next(), matching.next()) {
+            return Err(RateTableError::DuplicateColumn {
+                first: Box::new(grid.position(header_row, Some(first))),
+                second: Box::new(grid.position(header_row, Some(second))),
+                what,
+            });
+        }
+    }
     let missing = |column: &'static str| RateTableError::MissingColumn {
         position: Box::new(grid.position(header_row, None)),
         column,
@@ -225,8 +273,12 @@ pub fn read_rate_table(
     .flatten()
     .collect();
     for (index, name) in names.iter().enumerate() {
-        if !taken.contains(&index) && !NOT_FACTORS.contains(&name.as_str()) && !name.is_empty() {
-            columns.factors.push((index, headers[index].trim().to_string()));
+        // A run's bookkeeping columns (`well`, `flags`, ...) are never factors.
+        if !taken.contains(&index) && !is_reserved_column_name(name) && !name.is_empty() {
+            // A run writes a factor named like one of its columns as `factor:NAME`.
+            let header = headers[index].trim();
+            let factor = header.strip_prefix(FACTOR_PREFIX).unwrap_or(header);
+            columns.factors.push((index, factor.to_string()));
         }
     }
     let substrate_unit = concentration_unit(&grid, header_row, substrate, &headers[substrate])?;
@@ -246,7 +298,7 @@ pub fn read_rate_table(
     // Rows into provisional groups by factors and enzyme.
     let mut groups: Vec<TableGroup> = Vec::new();
     let mut any_row = false;
-    for row in header_row + 1..grid.rows.len() {
+    for row in header_row + 1..grid.n_rows() {
         if grid.row_is_blank(row) {
             continue;
         }
@@ -259,19 +311,22 @@ pub fn read_rate_table(
         let label = format!("row {}", row + 1);
         let mut key = GroupKey::default();
         for (column, name) in &columns.factors {
-            key.insert(name.clone(), GroupValue::Text(grid.cell(row, *column).as_text()));
+            key.insert(
+                name.clone(),
+                GroupValue::Text(factor_value(grid.cell(row, *column))),
+            );
         }
         let enzyme = match columns.enzyme {
-            Some(column) => number(&grid, row, column, &headers[column])?,
+            Some(column) => concentration(&grid, row, column, &headers[column])?,
             None => None,
         };
         if let (Some(column), Some(value)) = (columns.enzyme, enzyme) {
             key.insert(headers[column].trim().to_string(), GroupValue::Number(value));
         }
-        let substrate_value = number(&grid, row, columns.substrate, &headers[columns.substrate])?;
+        let substrate_value = concentration(&grid, row, columns.substrate, &headers[columns.substrate])?;
         let rate_value = number(&grid, row, columns.rate, &headers[columns.rate])?;
         let inhibitor_value = match columns.inhibitor {
-            Some(column) => number(&grid, row, column, &headers[column])?,
+            Some(column) => concentration(&grid, row, column, &headers[column])?,
             None => None,
         };
         let sd_value = match columns.sd {

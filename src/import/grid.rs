@@ -1,14 +1,20 @@
 //! The grid shape: one plate-shaped block per read. Each block is a time line (`Time 0:01:30`,
 //! `t = 90 s`, `Cycle 3, Time 0:01:30`), optionally a temperature line, a row of column numbers
-//! (first cell empty or a label) and one row per plate-row letter (`A`, `B`, ...).
+//! (first cell empty or a label) and one row per plate-row letter (`A`, `B`, ...), in order.
+//!
+//! The rule of [`super::rows`] holds for blocks too: a plate row that holds readings is read or
+//! refused, never passed over (a block's rows out of order, a cell beyond the column numbers, a
+//! plate row outside any block because its row of column numbers is broken); a time line with
+//! no block below it is refused when more blocks follow, and otherwise (an aborted last read)
+//! follows the short-row policy.
 
-use crate::core::cells::{Cell, CellGrid};
+use crate::core::cells::{column_letters, Cell, CellGrid};
 use crate::core::plate::{parse_row_letters, row_label, WellId};
 
 use super::time::{parse_block_line, BlockTime, HeaderTimeUnit};
 use super::{
-    short_row, time_text_error, DataShape, ImportError, ImportOptions, ReadRecord, ShapeTable, TimeUnitRule,
-    WellColumn, WellMap,
+    list_some, short_row, time_text_error, DataShape, ImportError, ImportOptions, ReadRecord, ShapeTable,
+    TimeUnitRule, WellColumn, WellMap,
 };
 
 /// The most plate rows and columns a block can have (a 1536-well plate).
@@ -17,7 +23,7 @@ const MAX_PLATE_ROWS: usize = 32;
 const MAX_PLATE_COLUMNS: usize = 48;
 
 /// The plate row a cell names (`A`..`Z`, `AA`..`AF`), if it names one.
-fn row_letter(cell: &Cell) -> Option<u16> {
+fn row_letter(cell: Cell) -> Option<u16> {
     match cell {
         Cell::Text(text) => parse_row_letters(text.trim()),
         _ => None,
@@ -51,10 +57,45 @@ fn column_numbers(cells: &[Cell]) -> Option<Vec<(u16, usize)>> {
 /// Whether zero-based `row` is a block's row of column numbers: its cells after the first are
 /// 1, 2, 3, ... and the next row starts with a plate-row letter.
 pub(super) fn is_column_number_row(grid: &CellGrid, row: usize) -> bool {
-    let Some(cells) = grid.rows.get(row) else {
-        return false;
-    };
-    plate_row_of(grid, row + 1).is_some() && column_numbers(cells).is_some()
+    row < grid.n_rows()
+        && plate_row_of(grid, row + 1).is_some()
+        && column_numbers(&grid.row_cells(row)).is_some()
+}
+
+/// What is wrong with a row that looks like a row of column numbers but is none (every cell
+/// after the first a number, at least two of them), if it is one.
+fn broken_column_numbers(cells: &[Cell]) -> Option<String> {
+    let width = cells.iter().rposition(|cell| !cell.is_empty())? + 1;
+    if width < 3
+        || matches!(cells.first(), Some(Cell::Number(_) | Cell::Duration(_)))
+        || column_numbers(cells).is_some()
+        || !cells[1..width].iter().all(|cell| matches!(cell, Cell::Number(_)))
+    {
+        return None;
+    }
+    let mut previous = 0.0;
+    for (index, cell) in cells[..width].iter().enumerate().skip(1) {
+        let value = cell.as_number().unwrap_or(f64::NAN);
+        if !(value.fract() == 0.0 && value > previous && value <= MAX_PLATE_COLUMNS as f64) {
+            return Some(format!(
+                "{} (column {}) is not a column number after {}",
+                cell.as_text(),
+                column_letters(index + 1),
+                previous
+            ));
+        }
+        previous = value;
+    }
+    None
+}
+
+/// Whether zero-based `row` holds numbers in at least two cells after the first.
+fn holds_readings(grid: &CellGrid, row: usize) -> bool {
+    grid.row(row)
+        .skip(1)
+        .filter(|cell| matches!(cell, Cell::Number(_)))
+        .nth(1)
+        .is_some()
 }
 
 /// One block as found.
@@ -81,14 +122,19 @@ pub(super) fn parse(grid: &CellGrid, options: &ImportOptions) -> Result<ShapeTab
     let mut pending_time: Option<(BlockTime, usize)> = None;
     let mut pending_temperature: Option<f64> = None;
     let mut warnings: Vec<String> = Vec::new();
+    let mut rows_read: Vec<usize> = Vec::new();
+    let mut rows_passed_over: Vec<usize> = Vec::new();
     let mut row = 0;
-    while row < grid.rows.len() {
+    while row < grid.n_rows() {
         if grid.row_is_blank(row) {
             row += 1;
             continue;
         }
         if is_column_number_row(grid, row) {
             let block = read_block(grid, row, &mut pending_time, &mut pending_temperature)?;
+            rows_read.push(block.time.1);
+            rows_read.push(block.column_row);
+            rows_read.extend(block.row_of_plate_row.iter().flatten());
             row = block
                 .row_of_plate_row
                 .iter()
@@ -99,35 +145,83 @@ pub(super) fn parse(grid: &CellGrid, options: &ImportOptions) -> Result<ShapeTab
             blocks.push(block);
             continue;
         }
-        let line = parse_block_line(&grid.rows[row])
+        if let Some(plate_row) = plate_row_of(grid, row).filter(|_| holds_readings(grid, row)) {
+            let hint = (0..row)
+                .rev()
+                .find(|&above| !grid.row_is_blank(above) && plate_row_of(grid, above).is_none())
+                .and_then(|above| {
+                    broken_column_numbers(&grid.row_cells(above))
+                        .map(|detail| format!("; the row of column numbers above it (row {}) is broken: {detail}", above + 1))
+                })
+                .unwrap_or_else(|| {
+                    "; a block is a time line, a row of column numbers 1, 2, 3, ... and its plate rows, with no other line between them".to_string()
+                });
+            return Err(ImportError::PlateRowOutsideBlock {
+                position: Box::new(grid.position(row, Some(0))),
+                letters: row_label(plate_row),
+                hint,
+            });
+        }
+        let line = parse_block_line(&grid.row_cells(row), grid.decimal_mark)
             .map_err(|error| time_text_error(error.error, grid.position(row, Some(error.column))))?;
-        if let Some(line) = line {
-            if let Some(time) = line.time {
-                if let Some((_, earlier)) = pending_time.replace((time, row)) {
-                    warnings.push(format!(
-                        "{}: a time line with no plate block below it; ignored",
-                        grid.position(earlier, None)
-                    ));
-                }
+        let Some(line) = line else {
+            // Title lines above the first block, notes between blocks: no part of a read.
+            rows_passed_over.push(row);
+            row += 1;
+            continue;
+        };
+        if let Some(time) = line.time {
+            if let Some((_, earlier)) = pending_time.replace((time, row)) {
+                return Err(ImportError::TimeLineWithoutBlock {
+                    position: grid.position(earlier, None),
+                });
             }
-            if let Some(temperature) = line.temperature_c {
-                match blocks.last_mut() {
-                    Some(last) if pending_time.is_none() && last.temperature_c.is_none() => {
-                        last.temperature_c = Some(temperature);
-                    }
-                    _ => pending_temperature = Some(temperature),
+        }
+        if let Some(temperature) = line.temperature_c {
+            rows_read.push(row);
+            match blocks.last_mut() {
+                Some(last) if pending_time.is_none() && last.temperature_c.is_none() => {
+                    last.temperature_c = Some(temperature);
                 }
+                _ => pending_temperature = Some(temperature),
             }
         }
         row += 1;
     }
     if let Some((_, earlier)) = pending_time {
+        // The last read's block is missing: an aborted read, as a row cut short is.
+        short_row(
+            grid,
+            options,
+            earlier,
+            "a time line with no plate block below it".to_string(),
+            "that read is not read",
+            &mut warnings,
+        )?;
+        rows_passed_over.push(earlier);
+    }
+    // Lines outside the blocks once the first block began are said (those above it are titles).
+    let first_block_row = rows_read.iter().min().copied().unwrap_or(usize::MAX);
+    let between: Vec<String> = rows_passed_over
+        .iter()
+        .filter(|&&passed| passed > first_block_row && !rows_read.contains(&passed))
+        .map(|passed| (passed + 1).to_string())
+        .collect();
+    if !between.is_empty() {
         warnings.push(format!(
-            "{}: a time line with no plate block below it; ignored",
-            grid.position(earlier, None)
+            "{}: row(s) {} lie outside the plate blocks and are not read",
+            grid.source,
+            list_some(&between, 10)
         ));
     }
-    assemble(grid, blocks, options, warnings)
+    rows_read.sort_unstable();
+    rows_read.dedup();
+    rows_passed_over.retain(|passed| !rows_read.contains(passed));
+    rows_passed_over.sort_unstable();
+    let mut table = assemble(grid, blocks, options, warnings)?;
+    table.rows_read = rows_read;
+    table.rows_passed_over = rows_passed_over;
+    Ok(table)
 }
 
 /// Reads the block whose column numbers are on zero-based `column_row`.
@@ -139,8 +233,8 @@ fn read_block(
 ) -> Result<Block, ImportError> {
     // The time may also be the label of the column-number row itself (`Time 0:01:30 | 1 | 2 ...`).
     if pending_time.is_none() {
-        let label = &grid.rows[column_row][..1];
-        if let Ok(Some(line)) = parse_block_line(label) {
+        let label = [grid.cell(column_row, 0)];
+        if let Ok(Some(line)) = parse_block_line(&label, grid.decimal_mark) {
             if let Some(time) = line.time {
                 *pending_time = Some((time, column_row));
             }
@@ -155,7 +249,9 @@ fn read_block(
         });
     };
     let mut cell_of_column = [None; MAX_PLATE_COLUMNS];
-    for (column, index) in column_numbers(&grid.rows[column_row]).unwrap_or_default() {
+    let numbers = column_numbers(&grid.row_cells(column_row)).unwrap_or_default();
+    let last_numbered = numbers.last().map_or(0, |(_, index)| *index);
+    for (column, index) in numbers {
         cell_of_column[usize::from(column)] = Some(index);
     }
     let mut row_of_plate_row: [Option<usize>; MAX_PLATE_ROWS] = [None; MAX_PLATE_ROWS];
@@ -177,10 +273,26 @@ fn read_block(
                 ]),
             });
         }
-        // Plate rows run downwards (A, B, ...); a letter out of order (`T = 30 °C` split into
-        // cells) ends the block.
-        if previous_plate_row.is_some_and(|previous| plate_row < previous) {
-            break;
+        // Plate rows run downwards (A, B, ...): a row out of order is a defect, never the end of
+        // the block (which would drop the rows below it).
+        if let Some(previous) = previous_plate_row.filter(|previous| plate_row < *previous) {
+            return Err(ImportError::BlockRowOrder {
+                position: grid.position(row, Some(0)),
+                letters: row_label(plate_row),
+                previous: row_label(previous),
+            });
+        }
+        if let Some((index, cell)) = grid
+            .row(row)
+            .enumerate()
+            .skip(last_numbered + 1)
+            .find(|(_, cell)| !cell.is_empty())
+        {
+            return Err(ImportError::BeyondColumnNumbers {
+                position: grid.position(row, Some(index)),
+                text: cell.as_text(),
+                numbers_row: column_row + 1,
+            });
         }
         row_of_plate_row[usize::from(plate_row)] = Some(row);
         previous_plate_row = Some(plate_row);
@@ -200,7 +312,7 @@ fn read_block(
 fn plate_row_of(grid: &CellGrid, row: usize) -> Option<u16> {
     let plate_row = row_letter(grid.cell(row, 0))?;
     match grid.cell(row, 1) {
-        Cell::Text(text) if matches!(text.as_str(), "=" | ":") => None,
+        Cell::Text("=" | ":") => None,
         _ => Some(plate_row),
     }
 }
@@ -238,7 +350,7 @@ fn assemble(
     let Some(first_block) = blocks.first() else {
         return Err(ImportError::NoShape {
             origin: grid.source.clone(),
-            searched: format!("rows 1-{}", grid.rows.len()),
+            searched: format!("rows 1-{}", grid.n_rows()),
             looked_for: super::shape_looked_for(DataShape::Grid).to_string(),
         });
     };
@@ -265,7 +377,8 @@ fn assemble(
             let cell_index = block.cell_of_column[usize::from(trace.well.column)];
             match (plate_row, cell_index) {
                 (Some(grid_row), Some(cell_index)) => {
-                    trace.push_cell(grid.rows[grid_row].get(cell_index), grid_row, cell_index);
+                    let cell = (cell_index < grid.row_len(grid_row)).then(|| grid.cell(grid_row, cell_index));
+                    trace.push_cell(cell, grid_row, cell_index);
                 }
                 // No cell exists for this well in this block: a gap, named in the warning above.
                 _ => trace.values.push(None),
@@ -285,6 +398,8 @@ fn assemble(
         temperatures_c: has_temperature.then_some(temperatures),
         wells,
         warnings,
+        rows_read: Vec::new(),
+        rows_passed_over: Vec::new(),
     })
 }
 
@@ -338,7 +453,7 @@ fn check_block_complete(
     }
     for (plate_row, grid_row) in block.row_of_plate_row.iter().enumerate() {
         let Some(grid_row) = *grid_row else { continue };
-        let length = grid.rows[grid_row].len();
+        let length = grid.row_len(grid_row);
         let needed = needed_width_of_row[plate_row];
         if length < needed {
             short_row(

@@ -1,15 +1,21 @@
 //! The long shape: one row per well per read, with a `well` column, a time column and a value
 //! column (named `value`, `absorbance`, `signal`, `OD`, or else the one remaining numeric
-//! column). Reads are matched across wells by time: the reads are the sorted distinct times.
+//! column). Reads are matched across wells by time: the reads are the sorted distinct times; or,
+//! where every well carries its own time stamps (a reader that times each well's read), by their
+//! order within each well, each read timed by the mean of its wells' times and the spread said.
+//! Which rows are reads follows the one rule of [`super::rows`].
 
 use crate::core::cells::{column_letters, Cell, CellGrid};
+use crate::core::format::format_seconds;
 use crate::core::plate::WellId;
 use crate::core::units::split_header_unit;
+use crate::files::sheet::MAX_CELLS;
 
+use super::rows::{blank_or_repeated_header, settle_rows, time_cell_looks_like_read, RowKind};
 use super::time::{classify_header, raw_time_of_cell, HeaderKind, HeaderTimeUnit};
 use super::{
     list_some, reading_of_cell, short_row, time_text_error, DataShape, ImportError, ImportOptions,
-    ReadRecord, ShapeTable, TimeUnitRule, UnreadableCell, WellColumn, WellMap,
+    ReadRecord, ShapeTable, TimeUnitRule, UnreadableCell, WellColumn, WellMap, MAX_READS,
 };
 
 /// Whether a row is a long header: it has a `well` column, and (unless the shape is forced) a
@@ -56,25 +62,75 @@ struct LongRow {
     temperature_c: Option<f64>,
 }
 
+/// The columns of a long header.
+struct LongColumns {
+    well: usize,
+    time: usize,
+    value: usize,
+    temperature: Option<usize>,
+}
+
+/// Whether a cell's text looks like a well ID, even a broken one (`A 2`, `Z99`, `A0`): one or
+/// two letters, then digits (spaces allowed between). A summary label (`Mean`) does not.
+fn looks_like_well(text: &str) -> bool {
+    let text = text.trim();
+    let letters = text.chars().take_while(char::is_ascii_alphabetic).count();
+    let rest = &text[letters..];
+    (1..=2).contains(&letters)
+        && rest.chars().any(|c| c.is_ascii_digit())
+        && rest.chars().all(|c| c.is_ascii_digit() || c == ' ')
+}
+
+/// Sorts one row below the header (see [`super::rows`]).
+fn row_kind(grid: &CellGrid, row: usize, header_row: usize, columns: &LongColumns) -> RowKind {
+    if let Some(kind) = blank_or_repeated_header(grid, row, header_row) {
+        return kind;
+    }
+    let well_cell = grid.cell(row, columns.well);
+    let time_cell = grid.cell(row, columns.time);
+    let time = raw_time_of_cell(&time_cell, grid.decimal_mark);
+    let well = well_of(well_cell);
+    let well_like = match well_cell {
+        Cell::Text(text) => looks_like_well(text),
+        _ => false,
+    };
+    let looks_like_read = well_like || time.is_ok() || time_cell_looks_like_read(time_cell, false);
+    match (well, time) {
+        (Some(_), Ok(_)) => RowKind::Data,
+        (None, _) => RowKind::NotData {
+            position: grid.position(row, Some(columns.well)),
+            reason: match well_cell {
+                Cell::Empty => "the well cell is empty".to_string(),
+                other => format!("'{}' is not a well (such as A1 or A01)", other.as_text()),
+            },
+            looks_like_read,
+        },
+        (Some(_), Err(error)) => RowKind::NotData {
+            position: grid.position(row, Some(columns.time)),
+            reason: error.reason(),
+            looks_like_read,
+        },
+    }
+}
+
 /// Reads the long table whose header is zero-based row `header_row`.
 pub(super) fn parse(
     grid: &CellGrid,
     header_row: usize,
     options: &ImportOptions,
 ) -> Result<ShapeTable, ImportError> {
-    let header = grid.rows.get(header_row).map(Vec::as_slice).unwrap_or_default();
     let header_position = || grid.position(header_row, None);
     let mut well_column = None;
     let mut time_column: Option<(usize, HeaderTimeUnit)> = None;
     let mut temperature_column = None;
     let mut named_values: Vec<usize> = Vec::new();
     let mut others: Vec<usize> = Vec::new();
-    for (column, cell) in header.iter().enumerate() {
-        match classify_header(cell) {
+    for (column, cell) in grid.row(header_row).enumerate() {
+        match classify_header(&cell) {
             HeaderKind::WellName if well_column.is_none() => well_column = Some(column),
             HeaderKind::Time(unit) if time_column.is_none() => time_column = Some((column, unit)),
             HeaderKind::Temperature if temperature_column.is_none() => temperature_column = Some(column),
-            _ if is_value_name(cell) => named_values.push(column),
+            _ if is_value_name(&cell) => named_values.push(column),
             _ if cell.is_empty() => {}
             _ => others.push(column),
         }
@@ -91,7 +147,6 @@ pub(super) fn parse(
             what: "time (such as `time [s]` or `Time (min)`)".to_string(),
         });
     };
-    let data_end = data_end(grid, header_row, well_column);
     let describe = |columns: &[usize]| -> String {
         let names: Vec<String> = columns
             .iter()
@@ -105,15 +160,20 @@ pub(super) fn parse(
             .collect();
         list_some(&names, 10)
     };
+    let sampled: Vec<usize> = (header_row + 1..grid.n_rows())
+        .filter(|&row| well_of(grid.cell(row, well_column)).is_some())
+        .take(ROWS_SAMPLED_FOR_VALUE_COLUMN)
+        .collect();
     let value_column = match named_values.as_slice() {
         [only] => *only,
         [] => {
-            let sample_end = data_end.min(header_row + 1 + ROWS_SAMPLED_FOR_VALUE_COLUMN);
             let numeric: Vec<usize> = others
                 .iter()
                 .copied()
                 .filter(|&column| {
-                    (header_row + 1..sample_end).any(|row| matches!(grid.cell(row, column), Cell::Number(_)))
+                    sampled
+                        .iter()
+                        .any(|&row| matches!(grid.cell(row, column), Cell::Number(_)))
                 })
                 .collect();
             match numeric.as_slice() {
@@ -157,47 +217,44 @@ pub(super) fn parse(
     let units = TimeUnitRule::settle(&header_unit, options.time_unit, || {
         grid.position(header_row, Some(time_column))
     })?;
-    let mut long_rows: Vec<LongRow> = Vec::with_capacity(data_end.saturating_sub(header_row + 1));
-    for row in header_row + 1..data_end {
-        let cells = grid.rows[row].as_slice();
+    let columns = LongColumns {
+        well: well_column,
+        time: time_column,
+        value: value_column,
+        temperature: temperature_column,
+    };
+    let kinds: Vec<(usize, RowKind)> = (header_row + 1..grid.n_rows())
+        .map(|row| (row, row_kind(grid, row, header_row, &columns)))
+        .collect();
+    let settled = settle_rows(grid, kinds)?;
+    warnings.extend(settled.warnings);
+    let mut rows = RowAccount {
+        read: Vec::with_capacity(settled.data_rows.len()),
+        passed_over: settled.passed_over,
+    };
+    let mut long_rows: Vec<LongRow> = Vec::with_capacity(settled.data_rows.len());
+    let mut off_plate: Vec<String> = Vec::new();
+    for &row in &settled.data_rows {
         let Some(well) = well_of(grid.cell(row, well_column)) else {
             continue;
         };
-        if cells.len() <= time_column {
-            short_row(
-                grid,
-                options,
-                row,
-                format!("{} cells, ending before the time column", cells.len()),
-                "the row cannot be placed in time and is not read",
-                &mut warnings,
-            )?;
+        if options.plate.is_some_and(|plate| !plate.contains(well)) {
+            off_plate.push(format!("{well} (row {})", row + 1));
+            rows.passed_over.push(row);
             continue;
         }
+        rows.read.push(row);
         let time_position = || grid.position(row, Some(time_column));
-        let raw = match raw_time_of_cell(&cells[time_column]) {
-            Some(Ok(raw)) => raw,
-            Some(Err(error)) => return Err(time_text_error(error, time_position())),
-            None => {
-                let text = cells[time_column].as_text();
-                let reason = if text.is_empty() {
-                    "the time cell is empty".to_string()
-                } else {
-                    format!("'{text}' is not a time")
-                };
-                return Err(ImportError::BadTime {
-                    position: time_position(),
-                    reason,
-                });
-            }
-        };
+        let raw = raw_time_of_cell(&grid.cell(row, time_column), grid.decimal_mark)
+            .map_err(|error| time_text_error(error, time_position()))?;
         let time_s = units.seconds(raw, time_position)?;
-        if cells.len() <= value_column {
+        let length = grid.row_len(row);
+        if length <= value_column {
             short_row(
                 grid,
                 options,
                 row,
-                format!("{} cells, ending before the value column", cells.len()),
+                format!("{length} cells, ending before the value column"),
                 "its value is unreadable",
                 &mut warnings,
             )?;
@@ -206,61 +263,102 @@ pub(super) fn parse(
             well,
             time_s,
             row,
-            reading: reading_of_cell(cells.get(value_column)),
+            reading: reading_of_cell((value_column < length).then(|| grid.cell(row, value_column))),
             temperature_c: temperature_column.and_then(|column| grid.cell(row, column).as_number()),
         });
+    }
+    if let Some(plate) = options.plate.filter(|_| !off_plate.is_empty()) {
+        warnings.push(format!(
+            "{}: rows of wells that are not on the {plate}-well plate given are not read: {}",
+            grid.source,
+            list_some(&off_plate, 10)
+        ));
     }
     if long_rows.is_empty() {
         return Err(ImportError::NoReads {
             position: header_position(),
         });
     }
-    assemble(
-        grid,
-        long_rows,
-        (well_column, value_column),
-        temperature_column.is_some(),
-        warnings,
-    )
+    rows.passed_over.sort_unstable();
+    assemble(grid, long_rows, &columns, warnings, rows)
+}
+
+/// Which rows a long table read and which it passed over (see `KineticData`).
+struct RowAccount {
+    read: Vec<usize>,
+    passed_over: Vec<usize>,
 }
 
 /// The well a cell names.
-fn well_of(cell: &Cell) -> Option<WellId> {
+fn well_of(cell: Cell) -> Option<WellId> {
     match cell {
         Cell::Text(text) => WellId::parse(text),
         _ => None,
     }
 }
 
-/// The zero-based row after the data: the first blank row, or the first whose well cell names
-/// no well (a summary line).
-fn data_end(grid: &CellGrid, header_row: usize, well_column: usize) -> usize {
-    (header_row + 1..grid.rows.len())
-        .find(|&row| grid.row_is_blank(row) || well_of(grid.cell(row, well_column)).is_none())
-        .unwrap_or(grid.rows.len())
+/// Whether each well carries its own time stamps (a reader that times every well's read): most
+/// distinct times belong to one well only, and there are more of them than any well has rows.
+fn wells_have_own_times(long_rows: &[LongRow], wells: usize, most_rows_of_a_well: usize) -> bool {
+    if wells < 2 {
+        return false;
+    }
+    let mut times: Vec<f64> = long_rows.iter().map(|row| row.time_s).collect();
+    times.sort_unstable_by(f64::total_cmp);
+    let mut wells_per_time: Vec<usize> = Vec::new();
+    for (index, time) in times.iter().enumerate() {
+        if index > 0 && times[index - 1] == *time {
+            if let Some(last) = wells_per_time.last_mut() {
+                *last += 1;
+            }
+        } else {
+            wells_per_time.push(1);
+        }
+    }
+    let distinct = wells_per_time.len();
+    wells_per_time.sort_unstable();
+    distinct > most_rows_of_a_well && wells_per_time[distinct / 2] == 1
 }
 
-/// Groups the rows into reads (sorted distinct times) and wells.
+/// Groups the rows into reads and wells: reads are the sorted distinct times, or, when each
+/// well carries its own time stamps, the rows of each well in time order.
 fn assemble(
     grid: &CellGrid,
     long_rows: Vec<LongRow>,
-    (well_column, value_column): (usize, usize),
-    has_temperature: bool,
+    columns: &LongColumns,
     mut warnings: Vec<String>,
+    rows: RowAccount,
 ) -> Result<ShapeTable, ImportError> {
+    let mut index_of_well: WellMap<usize> = WellMap::new();
+    let mut wells: Vec<WellColumn> = Vec::new();
+    let mut rows_of_well: Vec<Vec<usize>> = Vec::new();
+    for (index, row) in long_rows.iter().enumerate() {
+        let trace_index = match index_of_well.get(row.well) {
+            Some(trace_index) => trace_index,
+            None => {
+                let _ = index_of_well.insert_new(row.well, wells.len());
+                wells.push(WellColumn::new(row.well, (row.row, columns.well), 0));
+                rows_of_well.push(Vec::new());
+                wells.len() - 1
+            }
+        };
+        rows_of_well[trace_index].push(index);
+    }
+    let most_rows = rows_of_well.iter().map(Vec::len).max().unwrap_or(0);
+    if wells_have_own_times(&long_rows, wells.len(), most_rows) {
+        return assemble_own_times(grid, long_rows, rows_of_well, wells, columns, warnings, rows);
+    }
     let mut times: Vec<f64> = long_rows.iter().map(|row| row.time_s).collect();
     times.sort_unstable_by(f64::total_cmp);
     times.dedup();
+    if times.len() > MAX_READS || times.len().saturating_mul(wells.len()) > MAX_CELLS {
+        return Err(ImportError::TooManyReads {
+            origin: grid.source.clone(),
+            limit: MAX_READS,
+        });
+    }
     // The first row of each read names it (for positions in later messages).
     let mut first_row_of_read: Vec<Option<usize>> = vec![None; times.len()];
-    let mut index_of_well: WellMap<usize> = WellMap::new();
-    let mut wells: Vec<WellColumn> = Vec::new();
-    for row in &long_rows {
-        if index_of_well.get(row.well).is_none() {
-            let _ = index_of_well.insert_new(row.well, wells.len());
-            wells.push(WellColumn::new(row.well, (row.row, well_column), 0));
-        }
-    }
     for trace in &mut wells {
         trace.values = vec![None; times.len()];
     }
@@ -277,8 +375,8 @@ fn assemble(
             return Err(ImportError::DuplicateWell {
                 well: row.well,
                 positions: Box::new([
-                    grid.position(first, Some(well_column)),
-                    grid.position(row.row, Some(well_column)),
+                    grid.position(first, Some(columns.well)),
+                    grid.position(row.row, Some(columns.well)),
                 ]),
             });
         }
@@ -287,16 +385,7 @@ fn assemble(
         if temperatures[read_index].is_none() {
             temperatures[read_index] = row.temperature_c;
         }
-        let trace = &mut wells[trace_index];
-        match row.reading {
-            Ok(value) => trace.values[read_index] = Some(value),
-            Err(text) => trace.unreadable.push(UnreadableCell {
-                read_index,
-                row: row.row,
-                column: value_column,
-                text,
-            }),
-        }
+        place_reading(&mut wells[trace_index], read_index, row, columns.value);
     }
     // Wells missing reads: one warning per well, the first ten wells named in full.
     const WELLS_NAMED: usize = 10;
@@ -332,20 +421,179 @@ fn assemble(
             wells_missing_reads - WELLS_NAMED
         ));
     }
+    Ok(long_table(
+        &times,
+        &first_row_of_read,
+        temperatures,
+        wells,
+        columns,
+        warnings,
+        rows,
+    ))
+}
+
+/// The shape table of a long export: each read's time and the row that first names it.
+fn long_table(
+    times: &[f64],
+    first_row_of_read: &[Option<usize>],
+    temperatures: Vec<Option<f64>>,
+    wells: Vec<WellColumn>,
+    columns: &LongColumns,
+    warnings: Vec<String>,
+    rows: RowAccount,
+) -> ShapeTable {
     let reads = times
         .iter()
-        .zip(&first_row_of_read)
+        .zip(first_row_of_read)
         .map(|(&time_s, row)| ReadRecord {
             time_s,
             row: row.unwrap_or(0),
-            column: 0,
+            column: columns.time,
         })
         .collect();
-    Ok(ShapeTable {
+    ShapeTable {
         shape: DataShape::Long,
         reads,
-        temperatures_c: has_temperature.then_some(temperatures),
+        temperatures_c: columns.temperature.map(|_| temperatures),
         wells,
         warnings,
-    })
+        rows_read: rows.read,
+        rows_passed_over: rows.passed_over,
+    }
+}
+
+/// Puts a row's reading into its well's trace at `read_index`.
+fn place_reading(trace: &mut WellColumn, read_index: usize, row: LongRow, value_column: usize) {
+    match row.reading {
+        Ok(value) => trace.values[read_index] = Some(value),
+        Err(text) => trace.unreadable.push(UnreadableCell {
+            read_index,
+            row: row.row,
+            column: value_column,
+            text,
+        }),
+    }
+}
+
+/// Reads of wells with their own time stamps: read k of every well is its k-th row in time, and
+/// the read's time is the mean of its wells' times. Read k of one well must come before read
+/// k + 1 of every well, or the reads cannot be matched and the table is refused.
+fn assemble_own_times(
+    grid: &CellGrid,
+    long_rows: Vec<LongRow>,
+    mut rows_of_well: Vec<Vec<usize>>,
+    mut wells: Vec<WellColumn>,
+    columns: &LongColumns,
+    mut warnings: Vec<String>,
+    rows: RowAccount,
+) -> Result<ShapeTable, ImportError> {
+    for (trace, rows) in wells.iter().zip(rows_of_well.iter_mut()) {
+        rows.sort_by(|a, b| long_rows[*a].time_s.total_cmp(&long_rows[*b].time_s));
+        if let Some(pair) = rows
+            .windows(2)
+            .find(|pair| long_rows[pair[0]].time_s == long_rows[pair[1]].time_s)
+        {
+            return Err(ImportError::DuplicateWell {
+                well: trace.well,
+                positions: Box::new([
+                    grid.position(long_rows[pair[0]].row, Some(columns.well)),
+                    grid.position(long_rows[pair[1]].row, Some(columns.well)),
+                ]),
+            });
+        }
+    }
+    let n_reads = rows_of_well.iter().map(Vec::len).max().unwrap_or(0);
+    if n_reads > MAX_READS {
+        return Err(ImportError::TooManyReads {
+            origin: grid.source.clone(),
+            limit: MAX_READS,
+        });
+    }
+    // Each read's earliest and latest time across wells, and its mean time.
+    let mut earliest = vec![f64::INFINITY; n_reads];
+    let mut latest = vec![f64::NEG_INFINITY; n_reads];
+    let mut sums = vec![0.0; n_reads];
+    let mut counts = vec![0usize; n_reads];
+    let mut latest_row = vec![(0usize, WellId::new(0, 0)); n_reads];
+    for (trace, rows) in wells.iter().zip(&rows_of_well) {
+        for (read, &index) in rows.iter().enumerate() {
+            let time = long_rows[index].time_s;
+            earliest[read] = earliest[read].min(time);
+            if time > latest[read] {
+                latest[read] = time;
+                latest_row[read] = (long_rows[index].row, trace.well);
+            }
+            sums[read] += time;
+            counts[read] += 1;
+        }
+    }
+    for read in 0..n_reads.saturating_sub(1) {
+        if latest[read] >= earliest[read + 1] {
+            let (row, well) = latest_row[read];
+            return Err(ImportError::UnmatchedOwnTimes {
+                origin: grid.source.clone(),
+                read: read + 1,
+                well,
+                row: row + 1,
+                overlap: format!(
+                    "at {} s comes after read {} of another well (at {} s)",
+                    format_seconds(latest[read]),
+                    read + 2,
+                    format_seconds(earliest[read + 1])
+                ),
+            });
+        }
+    }
+    let times: Vec<f64> = sums
+        .iter()
+        .zip(&counts)
+        .map(|(sum, count)| sum / *count as f64)
+        .collect();
+    let spread = (0..n_reads)
+        .map(|read| (latest[read] - times[read]).max(times[read] - earliest[read]))
+        .fold(0.0, f64::max);
+    let mut temperatures: Vec<Option<f64>> = vec![None; n_reads];
+    let mut first_row_of_read: Vec<Option<usize>> = vec![None; n_reads];
+    let mut short_wells: Vec<String> = Vec::new();
+    let mut rows_by_index: Vec<Option<LongRow>> = long_rows.into_iter().map(Some).collect();
+    for (trace, rows) in wells.iter_mut().zip(&rows_of_well) {
+        trace.values = vec![None; n_reads];
+        if rows.len() < n_reads {
+            short_wells.push(format!("{} ({} of {n_reads})", trace.well, rows.len()));
+        }
+        for (read, &index) in rows.iter().enumerate() {
+            let Some(row) = rows_by_index[index].take() else {
+                continue;
+            };
+            first_row_of_read[read] =
+                Some(first_row_of_read[read].map_or(row.row, |first| first.min(row.row)));
+            if temperatures[read].is_none() {
+                temperatures[read] = row.temperature_c;
+            }
+            place_reading(trace, read, row, columns.value);
+        }
+    }
+    warnings.push(format!(
+        "{}: each well carries its own time stamps: reads are matched by their order within each \
+         well, and each read's time is the mean of its wells' times, from which a well's own time \
+         differs by up to {} s (a well read at a steady offset in every read keeps its slope)",
+        grid.source,
+        format_seconds(spread)
+    ));
+    if !short_wells.is_empty() {
+        warnings.push(format!(
+            "{}: wells with fewer reads than the others have no reading for their last reads: {}",
+            grid.source,
+            list_some(&short_wells, 10)
+        ));
+    }
+    Ok(long_table(
+        &times,
+        &first_row_of_read,
+        temperatures,
+        wells,
+        columns,
+        warnings,
+        rows,
+    ))
 }

@@ -5,9 +5,17 @@
 //!
 //! Every error names the file, sheet, row and column (or well) it is about; every warning names
 //! the file, sheet and row.
+//!
+//! One definition of a data row serves every shape ([`rows`]): a row that holds a valid time
+//! (and, in the long shape, a well) is a read wherever it stands. A blank row or a repeat of the
+//! header between reads is passed over and said; any other row between reads is refused with its
+//! position, never taken for the end of the table; below the last read, rows that start with a
+//! label (`Mean`) are summary lines, said and not read, while rows that look like reads are
+//! refused. So nothing after a defect is lost without a word.
 
 mod grid;
 mod long;
+mod rows;
 #[cfg(test)]
 mod tests;
 mod time;
@@ -19,12 +27,17 @@ use calamine::Reader;
 
 pub use crate::config::{DataShape, ImportOptions, ShortRowPolicy};
 use crate::core::cells::{Cell, CellGrid, Position, Source};
+use crate::core::format::format_seconds;
 use crate::core::plate::{PlateFormat, WellId};
 use crate::core::units::TimeUnit;
 use crate::files::input::InputFile;
-use crate::files::sheet::{read_input_cells, read_spreadsheet_cells, SheetReadError};
+use crate::files::sheet::{
+    looks_like_spreadsheet, read_input_cells, read_spreadsheet_cells, MergedCells, SheetReadError,
+};
 
 use time::{classify_header, HeaderKind, HeaderTimeUnit, RawTime, TimeTextError};
+
+pub use crate::config::MAX_READS;
 
 /// A kinetic export read into per-well traces.
 #[derive(Debug, Clone, PartialEq)]
@@ -43,6 +56,14 @@ pub struct KineticData {
     pub wells: Vec<WellTrace>,
     /// Things the user should know, each naming the file, sheet and row.
     pub warnings: Vec<String>,
+    /// Zero-based rows whose cells went into the reads: each read's row (wide, long), or each
+    /// block's time line, temperature line, column numbers and plate rows (grid).
+    pub rows_read: Vec<usize>,
+    /// Zero-based rows passed over and named in a warning: blank rows and repeated headers among
+    /// the reads, summary lines below them, lines of a grid export outside its blocks, rows of
+    /// wells off the plate given. With [`KineticData::rows_read`] it accounts for every row a
+    /// read could stand in.
+    pub rows_passed_over: Vec<usize>,
 }
 
 /// The readings of one well, one per read.
@@ -202,15 +223,158 @@ pub enum ImportError {
         /// The block's row of column numbers.
         position: Position,
     },
+    /// A row that is no read, where only reads may stand (between reads), or below the last read
+    /// looking like one.
+    #[error("{position}: {reason}; {context}")]
+    NotARead {
+        /// The row (and the cell that makes it no read), boxed: positions are large.
+        position: Box<Position>,
+        /// Why it is no read.
+        reason: String,
+        /// Where it stands, and what to do.
+        context: RowContext,
+    },
+    /// A value in a cell beyond the table's header.
+    #[error(
+        "{position}: this cell holds '{text}' but lies beyond the header's last column ({last}); \
+         a read's values must stand under the header"
+    )]
+    BeyondHeader {
+        /// The cell, boxed: positions are large.
+        position: Box<Position>,
+        /// Its text.
+        text: String,
+        /// The header's last column, as letters.
+        last: String,
+    },
+    /// More reads than [`MAX_READS`].
+    #[error("{origin}: more than {limit} reads, the most platekin reads from one export")]
+    TooManyReads {
+        /// The file (and sheet).
+        origin: Source,
+        /// The ceiling.
+        limit: usize,
+    },
+    /// A few wells alone make the plate larger than the rest need: a well, or another column?
+    #[error(
+        "{wells}: {count_words} beyond a {smaller}-well plate while {others} other wells fit on one; \
+         {it_they} would make the plate a {larger}-well plate. Give --plate {larger} if it is, or \
+         --plate {smaller} to leave {them} out (a column headed like a well, such as a temperature \
+         probe T1, is no well)"
+    )]
+    AmbiguousPlate {
+        /// The wells beyond the smaller plate, each with where it is named.
+        wells: String,
+        /// "the only well" or "the only N wells".
+        count_words: String,
+        /// "it" or "they".
+        it_they: &'static str,
+        /// "it" or "them".
+        them: &'static str,
+        /// How many wells fit the smaller plate.
+        others: usize,
+        /// The plate most wells fit.
+        smaller: PlateFormat,
+        /// The plate all wells need.
+        larger: PlateFormat,
+    },
+    /// Plate rows of a grid block out of order.
+    #[error("{position}: plate row {letters} comes after row {previous}; the rows of a plate block run A, B, C, ... in order")]
+    BlockRowOrder {
+        /// The row out of order.
+        position: Position,
+        /// Its letters.
+        letters: String,
+        /// The row above it.
+        previous: String,
+    },
+    /// A value in a grid block beyond its column numbers.
+    #[error("{position}: this cell holds '{text}' but its column has no column number in the block's row of column numbers (row {numbers_row})")]
+    BeyondColumnNumbers {
+        /// The cell.
+        position: Position,
+        /// Its text.
+        text: String,
+        /// The one-based row of the block's column numbers.
+        numbers_row: usize,
+    },
+    /// A row of a grid export that holds readings under a plate-row letter but belongs to no block.
+    #[error("{position}: plate row '{letters}' holds readings but belongs to no plate block{hint}")]
+    PlateRowOutsideBlock {
+        /// The row, boxed: positions are large.
+        position: Box<Position>,
+        /// Its letters.
+        letters: String,
+        /// What is likely wrong above it (a broken row of column numbers), or "".
+        hint: String,
+    },
+    /// A grid time line with no plate block below it, while later blocks follow.
+    #[error("{position}: this time line has no plate block below it, but more blocks follow; a read cannot be skipped quietly")]
+    TimeLineWithoutBlock {
+        /// The time line.
+        position: Position,
+    },
+    /// Wells of a long table with their own time stamps whose reads cannot be matched by order.
+    #[error(
+        "{origin}: the wells carry their own time stamps, and read {read} of well {well} (row {row}) \
+         {overlap}; the reads cannot be matched across wells"
+    )]
+    UnmatchedOwnTimes {
+        /// The file (and sheet).
+        origin: Source,
+        /// One-based read number.
+        read: usize,
+        /// The well.
+        well: WellId,
+        /// Its one-based row.
+        row: usize,
+        /// Its time and the next read's earliest, in words.
+        overlap: String,
+    },
+}
+
+/// Where a row that is no read stands, for [`ImportError::NotARead`].
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum RowContext {
+    /// Between reads: reads follow below it, up to the row given.
+    BetweenReads {
+        /// The one-based row of the last read.
+        last_read_row: usize,
+    },
+    /// Below the last read, but it holds readings.
+    BelowReads {
+        /// The one-based row of the last read.
+        last_read_row: usize,
+    },
+    /// Below the header, where no row is a read.
+    NoReads,
+}
+
+impl std::fmt::Display for RowContext {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            RowContext::BetweenReads { last_read_row } => write!(
+                f,
+                "reads follow below it (to row {last_read_row}), so it would end the table early; \
+                 correct the row or delete it"
+            ),
+            RowContext::BelowReads { last_read_row } => write!(
+                f,
+                "it stands below the last read (row {last_read_row}) but looks like a read, not a \
+                 summary line; correct the row or delete it"
+            ),
+            RowContext::NoReads => write!(f, "no row below the header is a read"),
+        }
+    }
 }
 
 /// Reads an export from an input file's bytes. Spreadsheets: `options.sheet`, else the first
 /// sheet holding kinetic data (sheets holding none are skipped with a warning).
 pub fn import_data(input: &InputFile, options: &ImportOptions) -> Result<KineticData, ImportError> {
-    if options.sheet.is_none() && input.is_spreadsheet() {
+    if options.sheet.is_none() && looks_like_spreadsheet(input) {
         return import_first_sheet_with_data(input, options);
     }
-    let grid = read_input_cells(input, options.sheet.as_deref())?;
+    let grid = read_input_cells(input, options.sheet.as_deref(), MergedCells::Keep)?;
     import_cells(&grid, options)
 }
 
@@ -230,8 +394,8 @@ fn import_first_sheet_with_data(
     let mut skipped: Vec<String> = Vec::new();
     let mut first_error: Option<ImportError> = None;
     for name in &names {
-        let grid = read_spreadsheet_cells(bytes, &file, Some(name))?;
-        if grid.rows.iter().all(|row| row.iter().all(Cell::is_empty)) {
+        let grid = read_spreadsheet_cells(bytes, &file, Some(name), MergedCells::Keep)?;
+        if (0..grid.n_rows()).all(|row| grid.row_is_blank(row)) {
             continue;
         }
         match import_cells(&grid, options) {
@@ -301,15 +465,16 @@ pub fn import_cells(grid: &CellGrid, options: &ImportOptions) -> Result<KineticD
 /// Finds the first row that starts a table of an allowed shape. On one row, wide is tried first,
 /// then grid, then long.
 fn detect_shape(grid: &CellGrid, forced: Option<DataShape>) -> Result<(DataShape, usize), ImportError> {
-    for row in 0..grid.rows.len() {
+    for row in 0..grid.n_rows() {
+        let cells = grid.row_cells(row);
         for shape in DataShape::ALL {
             if forced.is_some_and(|forced| forced != shape) {
                 continue;
             }
             let starts_here = match shape {
-                DataShape::Wide => wide::is_header(&grid.rows[row]),
+                DataShape::Wide => wide::is_header(&cells),
                 DataShape::Grid => grid::is_column_number_row(grid, row),
-                DataShape::Long => long::is_header(&grid.rows[row], forced.is_some()),
+                DataShape::Long => long::is_header(&cells, forced.is_some()),
             };
             if starts_here {
                 return Ok((shape, row));
@@ -319,7 +484,8 @@ fn detect_shape(grid: &CellGrid, forced: Option<DataShape>) -> Result<(DataShape
     // A header with a time column but no well column is most likely a wide table whose well
     // headers are not well IDs: say that rather than "nothing found".
     if forced.is_none_or(|forced| forced == DataShape::Wide) {
-        for (row, cells) in grid.rows.iter().enumerate() {
+        for row in 0..grid.n_rows() {
+            let cells = grid.row_cells(row);
             let time_column = cells
                 .iter()
                 .position(|cell| matches!(classify_header(cell), HeaderKind::Time(_)));
@@ -338,7 +504,7 @@ fn detect_shape(grid: &CellGrid, forced: Option<DataShape>) -> Result<(DataShape
     }
     Err(ImportError::NoShape {
         origin: grid.source.clone(),
-        searched: format!("rows 1-{}", grid.rows.len()),
+        searched: format!("rows 1-{}", grid.n_rows()),
         looked_for: looked_for(forced),
     })
 }
@@ -392,7 +558,7 @@ impl WellColumn {
     }
 
     /// Appends the reading of the next read from `cell` (`None`: the row ends before it).
-    fn push_cell(&mut self, cell: Option<&Cell>, row: usize, column: usize) {
+    fn push_cell(&mut self, cell: Option<Cell>, row: usize, column: usize) {
         let read_index = self.values.len();
         match reading_of_cell(cell) {
             Ok(value) => self.values.push(Some(value)),
@@ -411,11 +577,11 @@ impl WellColumn {
 
 /// The number in a value cell, or the text to record when there is none. A blank or missing
 /// cell is text "", never zero.
-fn reading_of_cell(cell: Option<&Cell>) -> Result<f64, String> {
+fn reading_of_cell(cell: Option<Cell>) -> Result<f64, String> {
     match cell {
-        Some(Cell::Number(value)) => Ok(*value),
+        Some(Cell::Number(value)) => Ok(value),
         None | Some(Cell::Empty) => Err(String::new()),
-        Some(Cell::Text(text)) => Err(text.clone()),
+        Some(Cell::Text(text)) => Err(text.to_string()),
         // A time-formatted cell shows a time, not the reading the instrument wrote.
         Some(Cell::Duration(_)) => Err("time-formatted cell".to_string()),
     }
@@ -434,6 +600,10 @@ struct ShapeTable {
     wells: Vec<WellColumn>,
     /// Warnings so far.
     warnings: Vec<String>,
+    /// See [`KineticData::rows_read`].
+    rows_read: Vec<usize>,
+    /// See [`KineticData::rows_passed_over`].
+    rows_passed_over: Vec<usize>,
 }
 
 /// A map from well to a number (a column, a row, a trace index), dense over the largest plate.
@@ -540,8 +710,11 @@ impl TimeUnitRule {
 /// Turns a time-text error at `position` into an import error.
 fn time_text_error(error: TimeTextError, position: Position) -> ImportError {
     match error {
-        TimeTextError::BadClock(reason) => ImportError::BadTime { position, reason },
         TimeTextError::UnknownUnit(unit) => ImportError::UnknownTimeUnit { position, unit },
+        other => ImportError::BadTime {
+            position,
+            reason: other.reason(),
+        },
     }
 }
 
@@ -569,15 +742,23 @@ fn short_row(
     }
 }
 
-/// Checks the reads, settles the plate and builds the traces.
+/// Checks the reads, settles the plate, says how the time axis was read and builds the traces.
 fn finish(grid: &CellGrid, table: ShapeTable, options: &ImportOptions) -> Result<KineticData, ImportError> {
     let ShapeTable {
         shape,
         reads,
         temperatures_c,
         mut wells,
-        warnings,
+        mut warnings,
+        rows_read,
+        rows_passed_over,
     } = table;
+    if reads.len() > MAX_READS {
+        return Err(ImportError::TooManyReads {
+            origin: grid.source.clone(),
+            limit: MAX_READS,
+        });
+    }
     for pair in reads.windows(2) {
         if let [previous, current] = pair {
             // Anything but "greater" fails, a NaN time included.
@@ -593,8 +774,7 @@ fn finish(grid: &CellGrid, table: ShapeTable, options: &ImportOptions) -> Result
     }
     let plate = match options.plate {
         Some(plate) => plate,
-        None => PlateFormat::smallest_holding(wells.iter().map(|column| &column.well))
-            .unwrap_or(PlateFormat::Wells1536),
+        None => infer_plate(grid, &wells)?,
     };
     if let Some(off) = wells.iter().find(|column| !plate.contains(column.well)) {
         return Err(ImportError::WellOffPlate {
@@ -603,6 +783,7 @@ fn finish(grid: &CellGrid, table: ShapeTable, options: &ImportOptions) -> Result
             plate,
         });
     }
+    warnings.extend(time_axis_warnings(grid, &reads));
     wells.sort_by_key(|column| column.well);
     let times_s: Vec<f64> = reads.iter().map(|read| read.time_s).collect();
     let traces = wells
@@ -614,7 +795,7 @@ fn finish(grid: &CellGrid, table: ShapeTable, options: &ImportOptions) -> Result
                 .into_iter()
                 .map(|cell| UnreadableRead {
                     read_index: cell.read_index,
-                    time_s: times_s[cell.read_index],
+                    time_s: times_s.get(cell.read_index).copied().unwrap_or(f64::NAN),
                     position: grid.position(cell.row, Some(cell.column)),
                     text: cell.text,
                 })
@@ -634,7 +815,123 @@ fn finish(grid: &CellGrid, table: ShapeTable, options: &ImportOptions) -> Result
         temperatures_c,
         wells: traces,
         warnings,
+        rows_read,
+        rows_passed_over,
     })
+}
+
+/// The most wells that may lie beyond a smaller plate before the larger one is taken without a
+/// question: a stray column such as a temperature probe `T1` is one or two, while a real larger
+/// plate in use has many wells beyond the smaller one.
+const FEW_WELLS_BEYOND: usize = 4;
+
+/// The plate the wells are on: the smallest format holding them all, unless a few of them alone
+/// (at most [`FEW_WELLS_BEYOND`], and fewer than the rest) make it larger, which is asked about
+/// rather than assumed.
+fn infer_plate(grid: &CellGrid, wells: &[WellColumn]) -> Result<PlateFormat, ImportError> {
+    let all = PlateFormat::smallest_holding(wells.iter().map(|column| &column.well))
+        .unwrap_or(PlateFormat::Wells1536);
+    // The smallest format that holds all but a few of the wells, if any smaller than `all` does.
+    let smaller_with_few_beyond = PlateFormat::ALL
+        .into_iter()
+        .take_while(|format| *format != all)
+        .find_map(|format| {
+            let beyond: Vec<&WellColumn> = wells
+                .iter()
+                .filter(|column| !format.contains(column.well))
+                .collect();
+            let others = wells.len() - beyond.len();
+            (beyond.len() <= FEW_WELLS_BEYOND && beyond.len() < others).then_some((format, beyond, others))
+        });
+    let Some((smaller, beyond, others)) = smaller_with_few_beyond else {
+        return Ok(all);
+    };
+    let named: Vec<String> = beyond
+        .iter()
+        .map(|column| {
+            format!(
+                "{} ({})",
+                column.well,
+                grid.position(column.named_at.0, Some(column.named_at.1))
+            )
+        })
+        .collect();
+    let one = beyond.len() == 1;
+    Err(ImportError::AmbiguousPlate {
+        wells: named.join("; "),
+        count_words: if one {
+            "the only well".to_string()
+        } else {
+            format!("the only {} wells", beyond.len())
+        },
+        it_they: if one { "it" } else { "they" },
+        them: if one { "it" } else { "them" },
+        others,
+        smaller,
+        larger: all,
+    })
+}
+
+/// Read intervals after 0 s beyond which a first read is said to start late.
+const LATE_START_INTERVALS: f64 = 3.0;
+
+/// What the time axis means, said where a reader could be misled: reads before 0 s (which no
+/// initial-rate window uses), and a first read long after 0 s (all of that time counts as
+/// reaction time before the first read).
+fn time_axis_warnings(grid: &CellGrid, reads: &[ReadRecord]) -> Vec<String> {
+    let mut warnings = Vec::new();
+    let negative: Vec<&ReadRecord> = reads.iter().filter(|read| read.time_s < 0.0).collect();
+    if let (Some(first), Some(last)) = (negative.first(), negative.last()) {
+        warnings.push(format!(
+            "{}: {} read(s) before 0 s (rows {}-{}, from {} s): times are read as time since the \
+             reaction started, and initial-rate windows start at 0 s (or --skip), so these reads \
+             are kept in the traces but give no rate",
+            grid.source,
+            negative.len(),
+            first.row + 1,
+            last.row + 1,
+            format_seconds(first.time_s)
+        ));
+    }
+    let mut steps: Vec<f64> = reads
+        .windows(2)
+        .map(|pair| pair[1].time_s - pair[0].time_s)
+        .collect();
+    steps.sort_by(f64::total_cmp);
+    if let (Some(first), Some(&median_step)) = (reads.first(), steps.get(steps.len() / 2)) {
+        if first.time_s > 0.0 && first.time_s > LATE_START_INTERVALS * median_step {
+            warnings.push(format!(
+                "{}: the first read is at {} s, {:.0} read intervals after 0 s: times are read as \
+                 time since the reaction started, so {} s of reaction count before the first read \
+                 (in the conversion limit and the initial rates); if the reaction started at the \
+                 first read, subtract {} s from the export's times",
+                grid.position(first.row, Some(first.column)),
+                format_seconds(first.time_s),
+                first.time_s / median_step,
+                format_seconds(first.time_s),
+                format_seconds(first.time_s)
+            ));
+        }
+    }
+    warnings
+}
+
+/// The rows of `grid` from the first read on that hold a number and that `data` neither read
+/// nor passed over with a word: empty when nothing was lost. The promise of the importer, as a
+/// check for tests and the fuzz targets.
+pub fn rows_unaccounted(data: &KineticData, grid: &CellGrid) -> Vec<usize> {
+    let Some(&first) = data.rows_read.iter().min() else {
+        return Vec::new();
+    };
+    (first..grid.n_rows())
+        .filter(|row| {
+            grid.row(*row)
+                .any(|cell| matches!(cell, Cell::Number(_) | Cell::Duration(_)))
+        })
+        .filter(|row| {
+            data.rows_read.binary_search(row).is_err() && data.rows_passed_over.binary_search(row).is_err()
+        })
+        .collect()
 }
 
 /// Formats a list of names for a message, at most `limit` of them.

@@ -13,7 +13,7 @@ use crate::files::sheet::read_text_cells;
 
 /// Imports a text table given in memory, as if read from `run.csv`.
 fn import_text(text: &str, options: &ImportOptions) -> Result<KineticData, ImportError> {
-    let grid = read_text_cells(text.as_bytes(), "run.csv").unwrap();
+    let grid = read_text_cells(text.as_bytes(), "run.csv")?;
     import_cells(&grid, options)
 }
 
@@ -82,7 +82,7 @@ fn empty_lines_end_the_block_and_keep_row_numbers() {
     assert!(
         data.warnings
             .iter()
-            .any(|w| w.contains("ends at row 6") && w.contains("rows 7-7")),
+            .any(|w| w.contains("reads end at row 5") && w.contains("rows 7-7")),
         "{:?}",
         data.warnings
     );
@@ -162,18 +162,48 @@ fn plate_format_from_the_well_ids() {
     );
 }
 
+/// Issue class: a column headed `T1` (a temperature probe) must not silently make a 96-well plate a
+/// 1536-well one; the user settles it with `--plate`, and wells off a plate given are named.
 #[test]
-fn well_off_the_given_plate_is_an_error_naming_well_and_cell() {
+fn a_few_wells_beyond_a_smaller_plate_are_asked_about_and_off_plate_wells_named() {
+    let text = "Time [s],A1,A2,A3,B1,B2,T1\n0,0.1,0.2,0.3,0.4,0.5,30.1\n30,0.1,0.2,0.3,0.4,0.5,30.2\n";
+    let message = import_error(text, &ImportOptions::default());
+    assert!(
+        message.contains("T1 (run.csv, row 1, column 7 (G))")
+            && message.contains("--plate 1536")
+            && message.contains("--plate 96"),
+        "{message}"
+    );
     let options = ImportOptions {
         plate: Some(PlateFormat::Wells96),
         ..ImportOptions::default()
     };
-    let message = import_error("Time [s],A1,P24\n0,0.1,0.2\n", &options);
+    let data = import_text(text, &options).unwrap();
+    assert_eq!(well_names(&data), ["A1", "A2", "A3", "B1", "B2"]);
     assert!(
-        message.contains("well P24") && message.contains("run.csv, row 1, column 3 (C)"),
-        "{message}"
+        data.warnings
+            .iter()
+            .any(|w| w.contains("'T1' (G)") && w.contains("96-well plate given")),
+        "{:?}",
+        data.warnings
     );
-    assert!(message.contains("96-well"), "{message}");
+    let options = ImportOptions {
+        plate: Some(PlateFormat::Wells1536),
+        ..ImportOptions::default()
+    };
+    assert_eq!(import_text(text, &options).unwrap().wells.len(), 6);
+    // The long shape names the rows of wells off the plate given.
+    let options = ImportOptions {
+        plate: Some(PlateFormat::Wells96),
+        ..ImportOptions::default()
+    };
+    let data = import_text("well,time [s],value\nA1,0,0.1\nP24,0,0.2\nA1,30,0.2\n", &options).unwrap();
+    assert_eq!(well_names(&data), ["A1"]);
+    assert!(
+        data.warnings.iter().any(|w| w.contains("P24 (row 3)")),
+        "{:?}",
+        data.warnings
+    );
 }
 
 #[test]
@@ -731,10 +761,19 @@ proptest! {
         zero_pad in any::<bool>(),
     ) {
         let text = wide_csv(&wells, reads, zero_pad, |read, index| seed[read * 24 + index]);
-        let data = import_ok(&text);
+        let plate = PlateFormat::smallest_holding(&wells).unwrap();
+        // A few wells alone beyond a smaller plate are asked about (`--plate` settles it).
+        let data = match import_text(&text, &ImportOptions::default()) {
+            Ok(data) => data,
+            Err(ImportError::AmbiguousPlate { larger, .. }) => {
+                prop_assert_eq!(larger, plate);
+                import_text(&text, &ImportOptions { plate: Some(plate), ..ImportOptions::default() }).unwrap()
+            }
+            Err(error) => return Err(TestCaseError::fail(error.to_string())),
+        };
         prop_assert_eq!(data.wells.len(), wells.len());
         prop_assert_eq!(data.times_s.len(), reads);
-        prop_assert_eq!(data.plate, PlateFormat::smallest_holding(&wells).unwrap());
+        prop_assert_eq!(data.plate, plate);
         for (index, well) in wells.iter().enumerate() {
             let trace = data.wells.iter().find(|trace| trace.well == *well).unwrap();
             for read in 0..reads {
@@ -751,4 +790,51 @@ proptest! {
         let text = lines.join("\n");
         let _ = import_text(&text, &ImportOptions::default());
     }
+}
+
+/// Every row of the demo exports that holds a number is read or named (the promise the fuzz
+/// targets check on arbitrary input).
+#[test]
+fn every_row_of_the_demo_exports_is_accounted_for() {
+    for (name, text) in [
+        (
+            "amber-fen-wide.csv",
+            include_str!("../../demo-plates/amber-fen-wide.csv"),
+        ),
+        (
+            "amber-fen-grid.csv",
+            include_str!("../../demo-plates/amber-fen-grid.csv"),
+        ),
+        ("wide-with-metadata.csv", WIDE_WITH_METADATA),
+    ] {
+        let grid = read_text_cells(text.as_bytes(), name).unwrap();
+        let data = import_cells(&grid, &ImportOptions::default()).unwrap();
+        assert_eq!(rows_unaccounted(&data, &grid), Vec::<usize>::new(), "{name}");
+        assert_eq!(data.rows_read.len() % data.times_s.len(), 0, "{name}");
+    }
+    // A row of readings below the summary lines that looks like a read is refused, so none is lost.
+    let text = "Time [s],A1\n0,0.1\n30,0.2\n\nMean,0.15\n,0.3\n";
+    assert!(import_error(text, &ImportOptions::default()).contains("run.csv, row 6"));
+}
+
+/// Long exports whose wells carry their own time stamps are matched read by read.
+#[test]
+fn long_exports_with_own_time_stamps_match_reads_by_order() {
+    let text = "well,time [s],value\nA1,0,0.1\nA2,2,0.2\nA1,30,0.11\nA2,32,0.21\nA1,60,0.12\nA2,62,0.22\n";
+    let data = import_ok(text);
+    assert_eq!(data.times_s, [1.0, 31.0, 61.0]);
+    assert_eq!(trace(&data, "A2").values, [Some(0.2), Some(0.21), Some(0.22)]);
+    assert!(data
+        .warnings
+        .iter()
+        .any(|w| w.contains("own time stamps") && w.contains("up to 1 s")));
+    // Read 2 of A2 after read 3 of A1: no order matches them.
+    let message = import_error(
+        "well,time [s],value\nA1,0,0.1\nA2,2,0.2\nA1,30,0.11\nA2,75,0.21\nA1,60,0.12\nA2,80,0.22\n",
+        &ImportOptions::default(),
+    );
+    assert!(
+        message.contains("own time stamps") && message.contains("row 5"),
+        "{message}"
+    );
 }

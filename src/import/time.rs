@@ -4,14 +4,16 @@
 //! grid export (`Cycle 3, Time 0:01:30`, `t = 90 s`, `Temperature 30.1 °C`).
 //!
 //! Nothing here guesses a time unit: a plain number stays [`RawTime::Plain`] until the header,
-//! the block line or the user's `--time-unit` supplies one.
+//! the block line or the user's `--time-unit` supplies one. Every shape reads its times through
+//! [`raw_time_of_cell`] (a grid block line hands its value text to the same [`raw_time_of_text`]),
+//! so a time one shape refuses no other shape reads.
 
 use std::str::FromStr;
 
-use crate::core::cells::Cell;
+use crate::core::cells::{column_letters, Cell, DecimalMark};
 use crate::core::plate::WellId;
 use crate::core::units::{split_header_unit, TimeUnit};
-use crate::files::sheet::parse_number;
+use crate::files::sheet::{number_shape, parse_number, NumberShape};
 
 /// A time as read from one cell, before any unit from elsewhere is applied.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -23,13 +25,44 @@ pub(crate) enum RawTime {
     Plain(f64),
 }
 
-/// Why a text that looks like a time could not be read.
+/// Why a cell holds no time.
 #[derive(Debug, Clone, PartialEq)]
 pub(crate) enum TimeTextError {
+    /// The cell is empty.
+    Empty,
+    /// Text that is no time at all: a label (`Mean`), a marker (`NaN`, `n/a`, `OVER`, `#120`),
+    /// a date; the text as written.
+    NotATime(String),
     /// Digits and colons that are not a valid `h:mm:ss` / `mm:ss` (the reason says why).
     BadClock(String),
     /// A number followed by a word that is not a time unit.
     UnknownUnit(String),
+    /// A number written with a decimal mark the file does not use (`120,5` in a file of `0.5`).
+    WrongDecimalMark {
+        /// The text as written.
+        text: String,
+        /// The file's decimal mark.
+        mark: DecimalMark,
+    },
+    /// Two times on one line of a grid export.
+    TwoTimes(String),
+}
+
+impl TimeTextError {
+    /// Why the cell is no time, in words (the reason of [`super::ImportError::BadTime`]).
+    pub(crate) fn reason(&self) -> String {
+        match self {
+            TimeTextError::Empty => "the time cell is empty".to_string(),
+            TimeTextError::NotATime(text) => format!("'{text}' is not a time"),
+            TimeTextError::BadClock(reason) => reason.clone(),
+            TimeTextError::UnknownUnit(unit) => format!("'{unit}' is not a time unit (expected s, min or h)"),
+            TimeTextError::WrongDecimalMark { text, mark } => format!(
+                "'{text}' is not a number in this file, whose decimal mark is {}",
+                mark.describe()
+            ),
+            TimeTextError::TwoTimes(texts) => format!("the line gives two times ({texts})"),
+        }
+    }
 }
 
 /// Parses clock text: `mm:ss` or `h:mm:ss`, seconds optionally with a fraction (`1:02:03.5`,
@@ -87,12 +120,22 @@ pub(crate) fn parse_clock_text(text: &str) -> Option<Result<f64, TimeTextError>>
     Some(Ok(whole_seconds as f64 + fraction))
 }
 
-/// Parses a number followed by a time unit, with or without a space: `90 s`, `90s`, `1,5 min`.
-/// `None` if the text does not start with a number; an error if the word after it is not a unit.
-pub(crate) fn parse_number_with_unit(text: &str) -> Option<Result<f64, TimeTextError>> {
+/// Parses a number followed by a time unit, with or without a space: `90 s`, `90s`, `1,5 min`
+/// (in the file's decimal mark). `None` if the text does not start with a number and a word.
+pub(crate) fn parse_number_with_unit(text: &str, mark: DecimalMark) -> Option<Result<f64, TimeTextError>> {
     let text = text.trim();
     let unit_start = text.find(|c: char| c.is_alphabetic())?;
-    let value = parse_number(text[..unit_start].trim(), true)?;
+    let number_text = text[..unit_start].trim();
+    let value = match parse_number(number_text, mark) {
+        Some(value) => value,
+        None if number_shape(number_text) != NumberShape::NotANumber => {
+            return Some(Err(TimeTextError::WrongDecimalMark {
+                text: text.to_string(),
+                mark,
+            }))
+        }
+        None => return None,
+    };
     let unit_text = text[unit_start..].trim();
     Some(match TimeUnit::from_str(unit_text) {
         Ok(unit) => Ok(value * unit.in_seconds()),
@@ -107,25 +150,78 @@ pub(crate) fn duration_seconds(seconds: f64) -> f64 {
     (seconds * 1e6).round() / 1e6
 }
 
-/// Reads one time cell. `None` means "not a time at all" (the end of a data block); an error
-/// means text that looks like a time but is broken.
-pub(crate) fn raw_time_of_cell(cell: &Cell) -> Option<Result<RawTime, TimeTextError>> {
+/// Reads one time cell: a plain number, a spreadsheet time, clock text or a number with its unit.
+/// Anything else is an error saying why it is no time; whether that ends a table or is a defect
+/// is for the caller (`super::rows`) to say.
+pub(crate) fn raw_time_of_cell(cell: &Cell, mark: DecimalMark) -> Result<RawTime, TimeTextError> {
     match cell {
-        Cell::Duration(seconds) => Some(Ok(RawTime::Seconds(duration_seconds(*seconds)))),
-        Cell::Number(value) => Some(Ok(RawTime::Plain(*value))),
-        Cell::Empty => None,
-        Cell::Text(text) => {
-            // Only text that starts with a digit can be a time; anything else ("Mean",
-            // "Max V") is a summary line.
-            if !text.trim_start().starts_with(|c: char| c.is_ascii_digit()) {
-                return None;
-            }
-            if let Some(result) = parse_clock_text(text) {
-                return Some(result.map(RawTime::Seconds));
-            }
-            parse_number_with_unit(text).map(|result| result.map(RawTime::Seconds))
-        }
+        Cell::Duration(seconds) => Ok(RawTime::Seconds(duration_seconds(*seconds))),
+        Cell::Number(value) => Ok(RawTime::Plain(*value)),
+        Cell::Empty => Err(TimeTextError::Empty),
+        Cell::Text(text) => raw_time_of_text(text, mark),
     }
+}
+
+/// Reads a time written as text (a text cell, or the value of a grid block line).
+pub(crate) fn raw_time_of_text(text: &str, mark: DecimalMark) -> Result<RawTime, TimeTextError> {
+    let text = text.trim();
+    if text.is_empty() {
+        return Err(TimeTextError::Empty);
+    }
+    // Only text that starts with a digit (or a sign or point and a digit) can be a time.
+    let digits_start = text.trim_start_matches(['+', '-', '.', ',']);
+    if !digits_start.starts_with(|c: char| c.is_ascii_digit()) {
+        return Err(TimeTextError::NotATime(text.to_string()));
+    }
+    if let Some(result) = parse_clock_text(text) {
+        return result.map(RawTime::Seconds);
+    }
+    if let Some(value) = parse_number(text, mark) {
+        return Ok(RawTime::Plain(value));
+    }
+    if number_shape(text) != NumberShape::NotANumber {
+        return Err(TimeTextError::WrongDecimalMark {
+            text: text.to_string(),
+            mark,
+        });
+    }
+    match parse_number_with_unit(text, mark) {
+        Some(result) => result.map(RawTime::Seconds),
+        None => Err(TimeTextError::NotATime(text.to_string())),
+    }
+}
+
+/// Whether a text reads as a label (`Mean`, `Max V`, `End of kinetic read`): it starts with a
+/// letter and is not one of the words instruments write for "no reading" (`NaN`, `n/a`, `OVER`,
+/// `error`, ...). Rows below a table that start with a label are summary lines; rows that start
+/// with anything else and hold readings look like reads and are never passed over quietly.
+pub(crate) fn is_label_text(text: &str) -> bool {
+    let text = text.trim();
+    if !text.starts_with(|c: char| c.is_alphabetic()) {
+        return false;
+    }
+    let folded = text.to_ascii_lowercase();
+    !matches!(
+        folded.as_str(),
+        "nan"
+            | "na"
+            | "n/a"
+            | "null"
+            | "none"
+            | "inf"
+            | "infinity"
+            | "over"
+            | "overflow"
+            | "under"
+            | "underflow"
+            | "sat"
+            | "saturated"
+            | "err"
+            | "error"
+            | "invalid"
+            | "masked"
+            | "out of range"
+    )
 }
 
 /// What a header's unit says about time.
@@ -292,6 +388,15 @@ fn tokenize_text(text: &str, column: usize, tokens: &mut Vec<(Token, usize)>) {
             {
                 index += 1;
             }
+            // Clock text run into letters (`0:12:1O`) is one broken time, not a time and a word.
+            let clock = chars[start..index].contains(&':');
+            if clock && chars.get(index).is_some_and(|c| c.is_alphanumeric()) {
+                while index < chars.len()
+                    && (chars[index].is_alphanumeric() || matches!(chars[index], '.' | ',' | ':'))
+                {
+                    index += 1;
+                }
+            }
             // A trailing separator (`Cycle 3,`) belongs to the punctuation, not the number.
             let mut end = index;
             while end > start + 1 && matches!(chars[end - 1], '.' | ',' | ':') {
@@ -323,13 +428,30 @@ fn is_read_label_word(word: &str) -> bool {
     )
 }
 
+/// The error for a line with a second time in zero-based `second` (the first in `first`).
+fn two_times(first: usize, second: usize) -> BlockLineError {
+    BlockLineError {
+        column: second,
+        error: TimeTextError::TwoTimes(format!(
+            "columns {} and {}",
+            column_letters(first + 1),
+            column_letters(second + 1)
+        )),
+    }
+}
+
 /// Parses a grid block's per-read line. `Ok(None)` when the row is no such line.
 ///
 /// Grammar (case-insensitive): an optional read label (`Cycle 3`, `Read no. 2`), then one or more
 /// fields `KEYWORD [UNIT]? (:|=)? VALUE UNIT?`, where KEYWORD is `time`, `temperature`, `temp`
 /// or `t`. A bare `t` needs `=` or `:`, and is a temperature when its unit is °C. Fields may be
-/// split across cells. Anything after the last field is ignored.
-pub(crate) fn parse_block_line(cells: &[Cell]) -> Result<Option<BlockLine>, BlockLineError> {
+/// split across cells. Values are read with the file's decimal mark and the one time reader
+/// ([`raw_time_of_text`]). A second time on the line (a second time field, or a clock time right
+/// after the first) is an error; anything else after the last field is ignored.
+pub(crate) fn parse_block_line(
+    cells: &[Cell],
+    mark: DecimalMark,
+) -> Result<Option<BlockLine>, BlockLineError> {
     let mut tokens: Vec<(Token, usize)> = Vec::new();
     for (column, cell) in cells.iter().enumerate() {
         match cell {
@@ -427,7 +549,7 @@ pub(crate) fn parse_block_line(cells: &[Cell]) -> Result<Option<BlockLine>, Bloc
         if is_temperature {
             let value = match value_token {
                 Token::Number(value) => Some(*value),
-                Token::Numeric(text) => parse_number(text, true),
+                Token::Numeric(text) => parse_number(text, mark),
                 _ => None,
             };
             let Some(value) = value else {
@@ -438,24 +560,10 @@ pub(crate) fn parse_block_line(cells: &[Cell]) -> Result<Option<BlockLine>, Bloc
             let raw = match value_token {
                 Token::Duration(seconds) => RawTime::Seconds(duration_seconds(*seconds)),
                 Token::Number(value) => RawTime::Plain(*value),
-                Token::Numeric(text) => match parse_clock_text(text) {
-                    Some(Ok(seconds)) => RawTime::Seconds(seconds),
-                    Some(Err(error)) => {
-                        return Err(BlockLineError {
-                            column: value_column,
-                            error,
-                        })
-                    }
-                    None => match parse_number(text, true) {
-                        Some(value) => RawTime::Plain(value),
-                        None => {
-                            return Err(BlockLineError {
-                                column: value_column,
-                                error: TimeTextError::BadClock(format!("'{text}' is not a time")),
-                            })
-                        }
-                    },
-                },
+                Token::Numeric(text) => raw_time_of_text(text, mark).map_err(|error| BlockLineError {
+                    column: value_column,
+                    error,
+                })?,
                 // `Time zone: UTC` and the like: not a read's time.
                 Token::Word(_) | Token::Punct(_) => break,
             };
@@ -469,6 +577,9 @@ pub(crate) fn parse_block_line(cells: &[Cell]) -> Result<Option<BlockLine>, Bloc
                 }
                 _ => None,
             };
+            if let Some(first) = &line.time {
+                return Err(two_times(first.column, value_column));
+            }
             line.time = Some(BlockTime {
                 raw,
                 unit,
@@ -479,6 +590,18 @@ pub(crate) fn parse_block_line(cells: &[Cell]) -> Result<Option<BlockLine>, Bloc
         index = look + 1 + consumed_unit;
         skip_separators(&mut index);
     }
+    // A clock time right after the line's time (`Time 0:01:30 0:02:00`) is a second time, not a
+    // note: taking either would be a guess.
+    if let (Some(first), Some((token, column))) = (&line.time, tokens.get(index)) {
+        let is_time = match token {
+            Token::Numeric(text) => text.contains(':'),
+            Token::Duration(_) => true,
+            _ => false,
+        };
+        if is_time {
+            return Err(two_times(first.column, *column));
+        }
+    }
     Ok(found_any.then_some(line))
 }
 
@@ -487,10 +610,12 @@ mod tests {
     use super::*;
     use proptest::prelude::*;
 
-    fn text_cells(texts: &[&str]) -> Vec<Cell> {
+    const POINT: DecimalMark = DecimalMark::Point;
+
+    fn text_cells<'a>(texts: &[&'a str]) -> Vec<Cell<'a>> {
         texts
             .iter()
-            .map(|text| crate::files::sheet::text_cell(text, false))
+            .map(|text| crate::files::sheet::text_cell(text, DecimalMark::Comma))
             .collect()
     }
 
@@ -526,32 +651,73 @@ mod tests {
     #[test]
     fn time_cells() {
         assert_eq!(
-            raw_time_of_cell(&Cell::Number(90.0)),
-            Some(Ok(RawTime::Plain(90.0)))
+            raw_time_of_cell(&Cell::Number(90.0), POINT),
+            Ok(RawTime::Plain(90.0))
         );
         assert_eq!(
-            raw_time_of_cell(&Cell::Duration(90.0)),
-            Some(Ok(RawTime::Seconds(90.0)))
+            raw_time_of_cell(&Cell::Duration(90.0), POINT),
+            Ok(RawTime::Seconds(90.0))
         );
         assert_eq!(
-            raw_time_of_cell(&Cell::Text("1.5 min".into())),
-            Some(Ok(RawTime::Seconds(90.0)))
+            raw_time_of_cell(&Cell::Text("1.5 min"), POINT),
+            Ok(RawTime::Seconds(90.0))
         );
         assert_eq!(
-            raw_time_of_cell(&Cell::Text("90s".into())),
-            Some(Ok(RawTime::Seconds(90.0)))
+            raw_time_of_cell(&Cell::Text("90s"), POINT),
+            Ok(RawTime::Seconds(90.0))
         );
-        assert_eq!(raw_time_of_cell(&Cell::Text("Mean".into())), None);
-        assert_eq!(raw_time_of_cell(&Cell::Empty), None);
+        assert_eq!(
+            raw_time_of_cell(&Cell::Text("Mean"), POINT),
+            Err(TimeTextError::NotATime("Mean".into()))
+        );
+        assert_eq!(raw_time_of_cell(&Cell::Empty, POINT), Err(TimeTextError::Empty));
         assert!(matches!(
-            raw_time_of_cell(&Cell::Text("90 ms".into())),
-            Some(Err(TimeTextError::UnknownUnit(_)))
+            raw_time_of_cell(&Cell::Text("90 ms"), POINT),
+            Err(TimeTextError::UnknownUnit(_))
         ));
+    }
+
+    /// Issue class: every shape reads its times with one parser, so what one refuses none reads.
+    #[test]
+    fn broken_times_are_errors_in_every_form() {
+        for text in [
+            "NaN",
+            "n/a",
+            "-",
+            "#120",
+            "OVER",
+            "120?",
+            "1 20",
+            "2024-05-01",
+            "0:12:1O",
+        ] {
+            assert!(raw_time_of_text(text, POINT).is_err(), "{text}");
+        }
+        assert_eq!(
+            raw_time_of_text("120,5", POINT),
+            Err(TimeTextError::WrongDecimalMark {
+                text: "120,5".into(),
+                mark: POINT
+            })
+        );
+        assert_eq!(
+            raw_time_of_text("120,5", DecimalMark::Comma),
+            Ok(RawTime::Plain(120.5))
+        );
+        // The grid's block line hands its value to the same reader.
+        let error = parse_block_line(&text_cells(&["Time 0:12:1O"]), POINT).unwrap_err();
+        assert!(matches!(error.error, TimeTextError::BadClock(_)), "{error:?}");
+        let error = parse_block_line(&text_cells(&["Time 0:01:30 0:02:00"]), POINT).unwrap_err();
+        assert!(matches!(error.error, TimeTextError::TwoTimes(_)), "{error:?}");
+        let error = parse_block_line(&text_cells(&["Time 0:01:30", "Time 0:02:00"]), POINT).unwrap_err();
+        assert_eq!(error.column, 1);
+        assert!(is_label_text("Mean") && is_label_text("Max V"));
+        assert!(!is_label_text("NaN") && !is_label_text("OVER") && !is_label_text("#120"));
     }
 
     #[test]
     fn headers_are_classified() {
-        let kind = |text: &str| classify_header(&Cell::Text(text.into()));
+        let kind = |text: &str| classify_header(&Cell::Text(text));
         assert_eq!(
             kind("Time [s]"),
             HeaderKind::Time(HeaderTimeUnit::Unit(TimeUnit::Seconds))
@@ -595,7 +761,7 @@ mod tests {
     #[test]
     fn block_lines_in_their_usual_forms() {
         let time_of = |texts: &[&str]| {
-            parse_block_line(&text_cells(texts))
+            parse_block_line(&text_cells(texts), POINT)
                 .unwrap()
                 .and_then(|line| line.time)
                 .map(|time| (time.raw, time.unit))
@@ -634,7 +800,7 @@ mod tests {
             time_of(&["Read no. 2 - Time 30 s"]),
             Some((RawTime::Plain(30.0), Some(TimeUnit::Seconds)))
         );
-        let line = parse_block_line(&[Cell::Text("Time".into()), Cell::Duration(90.0)])
+        let line = parse_block_line(&[Cell::Text("Time"), Cell::Duration(90.0)], POINT)
             .unwrap()
             .unwrap();
         assert_eq!(
@@ -646,16 +812,19 @@ mod tests {
     #[test]
     fn temperature_lines() {
         let temperature_of = |texts: &[&str]| {
-            parse_block_line(&text_cells(texts))
+            parse_block_line(&text_cells(texts), POINT)
                 .unwrap()
                 .and_then(|line| line.temperature_c)
         };
         assert_eq!(temperature_of(&["Temperature 30.1 C"]), Some(30.1));
         assert_eq!(temperature_of(&["T = 30.1 \u{b0}C"]), Some(30.1));
         assert_eq!(temperature_of(&["Temperature:", "30.1", "\u{b0}C"]), Some(30.1));
-        let both = parse_block_line(&text_cells(&["Time 0:00:30; Temp 29,5 \u{b0}C"]))
-            .unwrap()
-            .unwrap();
+        let both = parse_block_line(
+            &text_cells(&["Time 0:00:30; Temp 29,5 \u{b0}C"]),
+            DecimalMark::Comma,
+        )
+        .unwrap()
+        .unwrap();
         assert_eq!(both.temperature_c, Some(29.5));
         assert_eq!(both.time.map(|time| time.raw), Some(RawTime::Seconds(30.0)));
     }
@@ -669,16 +838,16 @@ mod tests {
             &["T 30"],
             &["Date/Time", "2024-05-01"],
         ] {
-            assert_eq!(parse_block_line(&text_cells(texts)), Ok(None), "{texts:?}");
+            assert_eq!(parse_block_line(&text_cells(texts), POINT), Ok(None), "{texts:?}");
         }
     }
 
     #[test]
     fn broken_block_times_are_errors() {
-        let error = parse_block_line(&text_cells(&["Time", "0:61:00"])).unwrap_err();
+        let error = parse_block_line(&text_cells(&["Time", "0:61:00"]), POINT).unwrap_err();
         assert_eq!(error.column, 1);
         assert!(matches!(error.error, TimeTextError::BadClock(_)));
-        let error = parse_block_line(&text_cells(&["Time 90 ms"])).unwrap_err();
+        let error = parse_block_line(&text_cells(&["Time 90 ms"]), POINT).unwrap_err();
         assert_eq!(error.error, TimeTextError::UnknownUnit("ms".into()));
     }
 
@@ -703,8 +872,9 @@ mod tests {
         #[test]
         fn arbitrary_text_never_panics(text in "\\PC{0,16}") {
             let _ = parse_clock_text(&text);
-            let _ = parse_number_with_unit(&text);
-            let _ = parse_block_line(&[Cell::Text(text.clone()), Cell::Text(text)]);
+            let _ = parse_number_with_unit(&text, POINT);
+            let _ = raw_time_of_text(&text, DecimalMark::Unknown);
+            let _ = parse_block_line(&[Cell::Text(&text), Cell::Text(&text)], POINT);
         }
     }
 }

@@ -1,8 +1,10 @@
 //! The wide shape: one header row with a time column and one column per well (`A1` or `A01`),
-//! one row per read; metadata lines may sit above the header and summary lines below the block.
+//! one row per read; metadata lines may sit above the header and summary lines below the reads.
+//! Which rows are reads follows the one rule of [`super::rows`].
 
 use crate::core::cells::{column_letters, Cell, CellGrid};
 
+use super::rows::{blank_or_repeated_header, settle_rows, time_cell_looks_like_read, RowKind};
 use super::time::{classify_header, raw_time_of_cell, HeaderKind, HeaderTimeUnit};
 use super::{
     list_some, short_row, time_text_error, DataShape, ImportError, ImportOptions, ReadRecord, ShapeTable,
@@ -25,28 +27,40 @@ pub(super) fn is_header(cells: &[Cell]) -> bool {
     false
 }
 
-/// Reads the wide table whose header is zero-based row `header_row`.
-///
-/// The data block runs from the row below the header to the first blank row or the first row
-/// whose time cell holds no time; non-blank rows after it are summary lines, ignored with a
-/// warning.
-pub(super) fn parse(
+/// The columns of a wide header.
+struct WideColumns {
+    /// The time column and the unit its header states.
+    time: (usize, HeaderTimeUnit),
+    /// The temperature column, if any.
+    temperature: Option<usize>,
+    /// One trace per well column, and the column.
+    wells: Vec<(WellColumn, usize)>,
+    /// The header's width: cells beyond it must be empty.
+    width: usize,
+}
+
+/// Reads the header row: time, temperature and well columns; other columns named in a warning.
+/// Wells off a plate format the user gave are not read (named in a warning).
+fn header_columns(
     grid: &CellGrid,
     header_row: usize,
     options: &ImportOptions,
-) -> Result<ShapeTable, ImportError> {
-    let header = grid.rows.get(header_row).map(Vec::as_slice).unwrap_or_default();
+    warnings: &mut Vec<String>,
+) -> Result<WideColumns, ImportError> {
     let mut time_column: Option<(usize, HeaderTimeUnit)> = None;
     let mut temperature_column: Option<usize> = None;
-    let mut wells: Vec<WellColumn> = Vec::new();
-    let mut well_columns: Vec<usize> = Vec::new();
+    let mut wells: Vec<(WellColumn, usize)> = Vec::new();
     let mut columns_of_wells: WellMap<usize> = WellMap::new();
     let mut ignored: Vec<String> = Vec::new();
-    let reads_expected = grid.rows.len().saturating_sub(header_row + 1);
-    for (column, cell) in header.iter().enumerate() {
-        match classify_header(cell) {
+    let mut off_plate: Vec<String> = Vec::new();
+    let reads_expected = grid.n_rows().saturating_sub(header_row + 1);
+    for (column, cell) in grid.row(header_row).enumerate() {
+        match classify_header(&cell) {
             HeaderKind::Time(unit) if time_column.is_none() => time_column = Some((column, unit)),
             HeaderKind::Temperature if temperature_column.is_none() => temperature_column = Some(column),
+            HeaderKind::Well(well) if options.plate.is_some_and(|plate| !plate.contains(well)) => {
+                off_plate.push(format!("'{}' ({})", cell.as_text(), column_letters(column + 1)));
+            }
             HeaderKind::Well(well) => {
                 if let Err(first) = columns_of_wells.insert_new(well, column) {
                     return Err(ImportError::DuplicateWell {
@@ -57,14 +71,16 @@ pub(super) fn parse(
                         ]),
                     });
                 }
-                wells.push(WellColumn::new(well, (header_row, column), reads_expected));
-                well_columns.push(column);
+                wells.push((
+                    WellColumn::new(well, (header_row, column), reads_expected),
+                    column,
+                ));
             }
             _ if cell.is_empty() => {}
             _ => ignored.push(format!("'{}' ({})", cell.as_text(), column_letters(column + 1))),
         }
     }
-    let Some((time_column, header_unit)) = time_column else {
+    let Some(time) = time_column else {
         return Err(ImportError::NoWells {
             position: grid.position(header_row, None),
             detail: "the header row has no time column".to_string(),
@@ -76,7 +92,6 @@ pub(super) fn parse(
             detail: "no column is headed by a well ID such as A1 or A01".to_string(),
         });
     }
-    let mut warnings = Vec::new();
     if !ignored.is_empty() {
         warnings.push(format!(
             "{}: columns that are neither time, temperature nor a well are not read: {}",
@@ -84,38 +99,107 @@ pub(super) fn parse(
             list_some(&ignored, 10)
         ));
     }
+    if let Some(plate) = options.plate.filter(|_| !off_plate.is_empty()) {
+        warnings.push(format!(
+            "{}: columns headed by wells that are not on the {plate}-well plate given are not read: {}",
+            grid.position(header_row, None),
+            list_some(&off_plate, 10)
+        ));
+    }
+    Ok(WideColumns {
+        time,
+        temperature: temperature_column,
+        wells,
+        width: grid.row_width(header_row),
+    })
+}
+
+/// Sorts one row below the header (see [`super::rows`]).
+fn row_kind(
+    grid: &CellGrid,
+    row: usize,
+    header_row: usize,
+    time_column: usize,
+    well_columns: &[usize],
+) -> RowKind {
+    if let Some(kind) = blank_or_repeated_header(grid, row, header_row) {
+        return kind;
+    }
+    let time_cell = grid.cell(row, time_column);
+    match raw_time_of_cell(&time_cell, grid.decimal_mark) {
+        Ok(_) => RowKind::Data,
+        Err(error) => {
+            let holds_reading = well_columns
+                .iter()
+                .any(|column| matches!(grid.cell(row, *column), Cell::Number(_)));
+            let looks_like_read = time_cell_looks_like_read(time_cell, holds_reading);
+            RowKind::NotData {
+                position: grid.position(row, Some(time_column)),
+                reason: error.reason(),
+                looks_like_read,
+            }
+        }
+    }
+}
+
+/// Reads the wide table whose header is zero-based row `header_row`.
+pub(super) fn parse(
+    grid: &CellGrid,
+    header_row: usize,
+    options: &ImportOptions,
+) -> Result<ShapeTable, ImportError> {
+    let mut warnings = Vec::new();
+    let WideColumns {
+        time: (time_column, header_unit),
+        temperature,
+        mut wells,
+        width,
+    } = header_columns(grid, header_row, options, &mut warnings)?;
     let units = TimeUnitRule::settle(&header_unit, options.time_unit, || {
         grid.position(header_row, Some(time_column))
     })?;
+    let well_columns: Vec<usize> = wells.iter().map(|(_, column)| *column).collect();
+    let kinds: Vec<(usize, RowKind)> = (header_row + 1..grid.n_rows())
+        .map(|row| (row, row_kind(grid, row, header_row, time_column, &well_columns)))
+        .collect();
+    let settled = settle_rows(grid, kinds)?;
+    warnings.extend(settled.warnings);
+    let rows_passed_over = settled.passed_over;
     let needed_width = well_columns.iter().max().map_or(0, |last| last + 1);
-    let mut reads: Vec<ReadRecord> = Vec::with_capacity(reads_expected);
+    let mut reads: Vec<ReadRecord> = Vec::with_capacity(settled.data_rows.len());
     let mut temperatures: Vec<Option<f64>> = Vec::new();
-    let mut row = header_row + 1;
-    while row < grid.rows.len() {
-        let cells = grid.rows[row].as_slice();
-        if cells.iter().all(Cell::is_empty) {
-            break;
+    for &row in &settled.data_rows {
+        let time_position = || grid.position(row, Some(time_column));
+        let raw = raw_time_of_cell(&grid.cell(row, time_column), grid.decimal_mark)
+            .map_err(|error| time_text_error(error, time_position()))?;
+        let time_s = units.seconds(raw, time_position)?;
+        if let Some((column, cell)) = grid
+            .row(row)
+            .enumerate()
+            .skip(width)
+            .find(|(_, cell)| !cell.is_empty())
+        {
+            return Err(ImportError::BeyondHeader {
+                position: Box::new(grid.position(row, Some(column))),
+                text: cell.as_text(),
+                last: column_letters(width),
+            });
         }
-        let raw = match raw_time_of_cell(grid.cell(row, time_column)) {
-            None => break,
-            Some(Err(error)) => return Err(time_text_error(error, grid.position(row, Some(time_column)))),
-            Some(Ok(raw)) => raw,
-        };
-        let time_s = units.seconds(raw, || grid.position(row, Some(time_column)))?;
-        if cells.len() < needed_width {
-            let missing = well_columns
-                .iter()
-                .filter(|&&column| column >= cells.len())
-                .count();
+        let length = grid.row_len(row);
+        if length < needed_width {
+            let missing = well_columns.iter().filter(|&&column| column >= length).count();
             short_row(
                 grid,
                 options,
                 row,
-                format!("{} cells where the header has {}", cells.len(), needed_width),
+                format!("{length} cells where the header has {needed_width}"),
                 &format!("its last {missing} well cells are unreadable"),
                 &mut warnings,
             )?;
-        } else if well_columns.iter().all(|&column| cells[column].is_empty()) {
+        } else if well_columns
+            .iter()
+            .all(|&column| grid.cell(row, column).is_empty())
+        {
             short_row(
                 grid,
                 options,
@@ -125,10 +209,11 @@ pub(super) fn parse(
                 &mut warnings,
             )?;
         }
-        for (trace, &column) in wells.iter_mut().zip(&well_columns) {
-            trace.push_cell(cells.get(column), row, column);
+        for (trace, column) in &mut wells {
+            let cell = (*column < length).then(|| grid.cell(row, *column));
+            trace.push_cell(cell, row, *column);
         }
-        if let Some(column) = temperature_column {
+        if let Some(column) = temperature {
             temperatures.push(grid.cell(row, column).as_number());
         }
         reads.push(ReadRecord {
@@ -136,31 +221,19 @@ pub(super) fn parse(
             row,
             column: time_column,
         });
-        row += 1;
     }
     if reads.is_empty() {
         return Err(ImportError::NoReads {
             position: grid.position(header_row, None),
         });
     }
-    let trailing: Vec<usize> = (row..grid.rows.len())
-        .filter(|&later| !grid.row_is_blank(later))
-        .collect();
-    if let (Some(first), Some(last)) = (trailing.first(), trailing.last()) {
-        warnings.push(format!(
-            "{}: the data block ends at row {}; {} non-blank row(s) below it (rows {}-{}) are summary lines and not read",
-            grid.source,
-            row + 1,
-            trailing.len(),
-            first + 1,
-            last + 1
-        ));
-    }
     Ok(ShapeTable {
         shape: DataShape::Wide,
         reads,
-        temperatures_c: temperature_column.map(|_| temperatures),
-        wells,
+        temperatures_c: temperature.map(|_| temperatures),
+        wells: wells.into_iter().map(|(trace, _)| trace).collect(),
         warnings,
+        rows_read: settled.data_rows,
+        rows_passed_over,
     })
 }

@@ -1,4 +1,6 @@
-//! The layout checked against the wells the data hold.
+//! The layout checked against the wells the data hold, both ways: layout wells the data lack are
+//! refused (or left out, when allowed), and data wells with readings the layout does not name are
+//! said, since they are not analysed.
 
 use std::collections::BTreeSet;
 
@@ -54,4 +56,24 @@ pub fn check_against_data(
         wells,
         first
     )])
+}
+
+/// Notes for the run: the layout's own ([`Layout::notes`]), and the wells that hold readings in
+/// the data but are not in the layout, which are not analysed.
+pub fn wells_outside_layout(layout: &Layout, wells_with_readings: &BTreeSet<WellId>) -> Vec<String> {
+    let mut notes = layout.notes.clone();
+    let outside: Vec<WellId> = wells_with_readings
+        .iter()
+        .filter(|well| !layout.wells.contains_key(well))
+        .copied()
+        .collect();
+    if !outside.is_empty() {
+        notes.push(format!(
+            "{}: {} well(s) of the data hold readings but are not in the layout and are not analysed: {}",
+            layout.source,
+            outside.len(),
+            spell_out_wells(&outside)
+        ));
+    }
+    notes
 }

@@ -10,9 +10,8 @@ use crate::core::units::split_header_unit;
 
 /// A line whose first filled cell is text starting with `#`.
 pub(super) fn is_comment_line(grid: &CellGrid, row: usize) -> bool {
-    grid.rows
-        .get(row)
-        .and_then(|cells| cells.iter().find(|cell| !cell.is_empty()))
+    grid.row(row)
+        .find(|cell| !cell.is_empty())
         .is_some_and(|cell| matches!(cell, Cell::Text(text) if text.starts_with('#')))
 }
 
@@ -29,7 +28,7 @@ pub(super) fn is_well_header(cell: &Cell) -> bool {
 /// The number of columns a grid's column-number row numbers: first cell empty, then exactly
 /// 1, 2, 3, ... up to the line's last filled cell.
 pub(super) fn numbered_columns(grid: &CellGrid, row: usize) -> Option<usize> {
-    if row >= grid.rows.len() || !grid.cell(row, 0).is_empty() {
+    if row >= grid.n_rows() || !grid.cell(row, 0).is_empty() {
         return None;
     }
     let width = grid.row_width(row);
@@ -44,11 +43,10 @@ pub(super) fn numbered_columns(grid: &CellGrid, row: usize) -> Option<usize> {
 /// The first line that tells the form: a header holding `well` (tidy) or a row of column numbers
 /// (grid). Comment lines never count, even if a cell of theirs reads `well`.
 pub(super) fn detect_form(grid: &CellGrid) -> Option<(LayoutForm, usize)> {
-    (0..grid.rows.len())
+    (0..grid.n_rows())
         .filter(|&row| !is_skippable(grid, row))
         .find_map(|row| {
-            let cells = &grid.rows[row];
-            if cells.iter().any(is_well_header) {
+            if grid.row(row).any(|cell| is_well_header(&cell)) {
                 Some((LayoutForm::Tidy, row))
             } else if numbered_columns(grid, row).is_some() {
                 Some((LayoutForm::Grid, row))
@@ -63,7 +61,7 @@ pub(super) fn detect_form(grid: &CellGrid) -> Option<(LayoutForm, usize)> {
 // ---------------------------------------------------------------------------------------------
 
 /// A cell's content for messages; time-formatted cells say so, since their number is seconds.
-pub(super) fn describe_cell(cell: &Cell) -> String {
+pub(super) fn describe_cell(cell: Cell) -> String {
     match cell {
         Cell::Duration(seconds) => format!("{seconds} s (a time-formatted cell)"),
         other => other.as_text(),
@@ -72,7 +70,7 @@ pub(super) fn describe_cell(cell: &Cell) -> String {
 
 /// Reads a concentration cell: empty is no value; a number must be >= 0.
 pub(super) fn read_concentration(
-    cell: &Cell,
+    cell: Cell,
     header: &str,
     wells: &str,
     position: impl Fn() -> Position,
@@ -80,9 +78,9 @@ pub(super) fn read_concentration(
     match cell {
         Cell::Empty => Ok(None),
         // `+ 0.0` turns a written "-0" into 0, so that equal setups compare equal.
-        Cell::Number(value) if value.is_finite() && *value >= 0.0 => Ok(Some(*value + 0.0)),
-        Cell::Number(value) if *value < 0.0 => Err(LayoutError::NegativeConcentration {
-            value: *value,
+        Cell::Number(value) if value.is_finite() && value >= 0.0 => Ok(Some(value + 0.0)),
+        Cell::Number(value) if value < 0.0 => Err(LayoutError::NegativeConcentration {
+            value,
             header: header.to_string(),
             wells: wells.to_string(),
             position: Box::new(position()),
@@ -98,7 +96,7 @@ pub(super) fn read_concentration(
 
 /// Reads a filled role cell.
 pub(super) fn read_role(
-    cell: &Cell,
+    cell: Cell,
     wells: &str,
     position: impl Fn() -> Position,
 ) -> Result<Role, LayoutError> {
@@ -205,6 +203,34 @@ pub(super) fn off_plate(well: String, plate: PlateFormat, position: Position) ->
         last_column: plate.n_columns(),
         position: Box::new(position),
     }
+}
+
+/// The headers of the factors (see [`Layout::factor_header`]): a note for each factor written
+/// under another header, naming its cell; an error when two factors would share a header.
+pub(super) fn factor_headers(
+    factors: &[(String, Position)],
+) -> Result<(Vec<String>, Vec<String>), LayoutError> {
+    let mut notes = Vec::new();
+    let mut seen: Vec<(String, &Position)> = Vec::new();
+    for (name, position) in factors {
+        let header = factor_header(name);
+        if header != *name {
+            notes.push(format!(
+                "{position}: the factor '{name}' is written as '{header}' in wells.csv and conditions.csv, \
+                 since '{name}' names a column of those tables"
+            ));
+        }
+        let key = header.to_lowercase();
+        if let Some((_, first)) = seen.iter().find(|(other, _)| *other == key) {
+            return Err(LayoutError::FactorHeaderClash {
+                header,
+                first: Box::new((*first).clone()),
+                second: Box::new(position.clone()),
+            });
+        }
+        seen.push((key, position));
+    }
+    Ok((factors.iter().map(|(name, _)| name.clone()).collect(), notes))
 }
 
 /// The checks both forms share once every well is known: at least one well that is not `empty`,

@@ -178,6 +178,21 @@ pub enum LayoutError {
         also: String,
     },
 
+    /// Two factors that would be written under one header (`flags` becomes `factor:flags`,
+    /// which another factor already is).
+    #[error(
+        "{first} and {second}: two factors would both be written as '{header}' in wells.csv and \
+         conditions.csv; rename one of them"
+    )]
+    FactorHeaderClash {
+        /// The shared header.
+        header: String,
+        /// The first factor's header cell.
+        first: Box<Position>,
+        /// The second factor's header cell.
+        second: Box<Position>,
+    },
+
     /// Two tidy columns with the same name.
     #[error("{first} and {second}: two columns are both named '{header}'")]
     DuplicateColumn {

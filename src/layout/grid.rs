@@ -30,6 +30,7 @@ pub(super) struct WellDraft {
 pub(super) struct GridBuilder {
     drafts: BTreeMap<WellId, WellDraft>,
     factor_names: Vec<String>,
+    factor_positions: Vec<Position>,
     factor_name_by_key: HashMap<String, String>,
     units: [Option<(ConcentrationUnit, Position)>; 3],
 }
@@ -63,6 +64,7 @@ impl GridBuilder {
                 .entry(header.to_lowercase())
                 .or_insert_with(|| {
                     self.factor_names.push(header.clone());
+                    self.factor_positions.push(position.clone());
                     header.clone()
                 })
                 .clone();
@@ -77,7 +79,7 @@ impl GridBuilder {
         well: WellId,
         variable: &BlockVariable,
         header: &str,
-        cell: &Cell,
+        cell: Cell,
         position: Position,
     ) -> Result<(), LayoutError> {
         let well_name = well.to_string();
@@ -142,7 +144,14 @@ impl GridBuilder {
     }
 
     /// Turns the drafts into a layout: a well without a role is a sample.
-    fn into_layout(self, source: Source) -> Layout {
+    fn into_layout(self, source: Source) -> Result<Layout, LayoutError> {
+        let factors: Vec<(String, Position)> = self
+            .factor_names
+            .iter()
+            .cloned()
+            .zip(self.factor_positions.iter().cloned())
+            .collect();
+        let (_, notes) = factor_headers(&factors)?;
         let factor_names = self.factor_names;
         let wells = self
             .drafts
@@ -173,7 +182,7 @@ impl GridBuilder {
             })
             .collect();
         let unit = |quantity: Quantity| self.units[quantity.index()].as_ref().map(|(unit, _)| *unit);
-        Layout {
+        Ok(Layout {
             source,
             form: LayoutForm::Grid,
             wells,
@@ -181,14 +190,15 @@ impl GridBuilder {
             enzyme_unit: unit(Quantity::Enzyme),
             inhibitor_unit: unit(Quantity::Inhibitor),
             factor_names,
-        }
+            notes,
+        })
     }
 }
 
 /// The row letters of a line that looks like a plate row (`B` then values), if it does.
 pub(super) fn plate_row_line(grid: &CellGrid, row: usize) -> Option<(u16, String)> {
     match grid.cell(row, 0) {
-        Cell::Text(text) => parse_row_letters(text).map(|plate_row| (plate_row, text.clone())),
+        Cell::Text(text) => parse_row_letters(text).map(|plate_row| (plate_row, text.to_string())),
         _ => None,
     }
 }
@@ -198,7 +208,7 @@ pub(super) fn parse_grid(grid: &CellGrid, plate: PlateFormat) -> Result<Layout, 
     let mut builder = GridBuilder::default();
     let mut seen_block = false;
     let mut row = 0;
-    while row < grid.rows.len() {
+    while row < grid.n_rows() {
         if is_skippable(grid, row) {
             row += 1;
             continue;
@@ -243,7 +253,7 @@ pub(super) fn parse_grid(grid: &CellGrid, plate: PlateFormat) -> Result<Layout, 
         }
         row += 1;
     }
-    finish_layout(builder.into_layout(grid.source.clone()))
+    finish_layout(builder.into_layout(grid.source.clone())?)
 }
 
 /// Reads the plate rows of one block starting at zero-based `first_row`; returns the first row
@@ -258,7 +268,7 @@ pub(super) fn parse_block(
     column_count: usize,
 ) -> Result<usize, LayoutError> {
     let mut row = first_row;
-    while row < grid.rows.len() && !grid.row_is_blank(row) {
+    while row < grid.n_rows() && !grid.row_is_blank(row) {
         if is_comment_line(grid, row) {
             row += 1;
             continue;

@@ -36,9 +36,9 @@ use crate::core::cells::{CellGrid, Position, Source};
 use crate::core::plate::{PlateFormat, WellId};
 use crate::core::units::ConcentrationUnit;
 use crate::files::input::InputFile;
-use crate::files::sheet::read_input_cells;
+use crate::files::sheet::{read_input_cells, MergedCells};
 
-pub use check::check_against_data;
+pub use check::{check_against_data, wells_outside_layout};
 pub use error::LayoutError;
 
 use common::detect_form;
@@ -50,6 +50,58 @@ pub const KNOWN_ROLES: &str = "sample, blank, no-enzyme, empty";
 
 /// The known concentration units, as listed in error messages.
 pub const KNOWN_CONCENTRATION_UNITS: &str = "M, mM, uM (or \u{b5}M), nM, pM";
+
+/// Column names the outputs (`wells.csv`, `conditions.csv`) or `platekin fit` give a meaning,
+/// compared without their unit and case: a factor named so is written as `factor:NAME`, so that
+/// `platekin fit` never takes it for the rate or a bookkeeping column.
+pub const RESERVED_COLUMN_NAMES: [&str; 27] = [
+    "well",
+    "role",
+    "substrate",
+    "enzyme",
+    "inhibitor",
+    "rate",
+    "rate_se",
+    "rate_mean",
+    "rate_sd",
+    "rate_sem",
+    "sd",
+    "se",
+    "window_slope",
+    "background",
+    "intercept",
+    "r2",
+    "window_start",
+    "window_end",
+    "n_points",
+    "conversion",
+    "flags",
+    "used",
+    "correction",
+    "notes",
+    "n",
+    "n_used",
+    "cv",
+];
+
+/// The prefix of a factor written under another header.
+pub const FACTOR_PREFIX: &str = "factor:";
+
+/// Whether a column name (unit and case aside) is one of [`RESERVED_COLUMN_NAMES`].
+pub fn is_reserved_column_name(name: &str) -> bool {
+    let (bare, _) = crate::core::units::split_header_unit(name.trim());
+    let bare = bare.trim().to_lowercase();
+    RESERVED_COLUMN_NAMES.contains(&bare.as_str())
+}
+
+/// See [`Layout::factor_header`].
+pub fn factor_header(name: &str) -> String {
+    if is_reserved_column_name(name) {
+        format!("{FACTOR_PREFIX}{name}")
+    } else {
+        name.to_string()
+    }
+}
 
 /// At most this many wells are spelled out in one message; the rest are counted.
 pub(super) const WELLS_SPELLED_OUT: usize = 48;
@@ -244,12 +296,22 @@ pub struct Layout {
     pub inhibitor_unit: Option<ConcentrationUnit>,
     /// The free factors, in the order they first appear.
     pub factor_names: Vec<String>,
+    /// What the reader did that the user should know (factors written under another header),
+    /// each naming the file and cell.
+    pub notes: Vec<String>,
 }
 
 impl Layout {
     /// The wells holding `role`, in well order.
     pub fn wells_with_role(&self, role: Role) -> impl Iterator<Item = (&WellId, &WellSetup)> {
         self.wells.iter().filter(move |(_, setup)| setup.role == role)
+    }
+
+    /// The header a factor is written under in `wells.csv` and `conditions.csv`: its own name, or
+    /// `factor:NAME` when the name is one the outputs or `platekin fit` give a meaning
+    /// ([`RESERVED_COLUMN_NAMES`]), the same in both tables.
+    pub fn factor_header(&self, name: &str) -> String {
+        factor_header(name)
     }
 
     /// The unit the layout uses for `quantity`, if it gives that quantity at all.
@@ -269,7 +331,7 @@ pub fn read_layout(
     sheet: Option<&str>,
     plate: PlateFormat,
 ) -> Result<Layout, LayoutError> {
-    let grid = read_input_cells(input, sheet)?;
+    let grid = read_input_cells(input, sheet, MergedCells::Fill)?;
     parse_layout(&grid, plate)
 }
 

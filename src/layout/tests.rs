@@ -3,7 +3,7 @@
 use std::collections::BTreeSet;
 
 use super::*;
-use crate::core::cells::Cell;
+use crate::core::cells::{Cell, DecimalMark};
 use crate::core::plate::row_label;
 use crate::files::input::{InputFile, InputRole};
 use crate::files::sheet::read_text_cells;
@@ -764,10 +764,10 @@ proptest! {
         rows in prop::collection::vec(
             prop::collection::vec(
                 prop_oneof![
-                    Just(Cell::Empty), Just(Cell::Text("well".into())), Just(Cell::Text("role".into())),
-                    Just(Cell::Text("substrate [uM]".into())), Just(Cell::Text("A".into())),
-                    Just(Cell::Text("B1:C3".into())), Just(Cell::Text("sample".into())),
-                    Just(Cell::Text("#".into())), (0u8..4).prop_map(|n| Cell::Number(f64::from(n))),
+                    Just(Cell::Empty), Just(Cell::Text("well")), Just(Cell::Text("role")),
+                    Just(Cell::Text("substrate [uM]")), Just(Cell::Text("A")),
+                    Just(Cell::Text("B1:C3")), Just(Cell::Text("sample")),
+                    Just(Cell::Text("#")), (0u8..4).prop_map(|n| Cell::Number(f64::from(n))),
                     Just(Cell::Duration(30.0)), Just(Cell::Number(-1.0)),
                 ],
                 0..6,
@@ -775,7 +775,8 @@ proptest! {
             0..10,
         )
     ) {
-        let grid = CellGrid { source: Source { file: "random.csv".into(), sheet: None }, rows };
+        let source = Source { file: "random.csv".into(), sheet: None };
+        let grid = CellGrid::from_rows(source, DecimalMark::Point, &rows);
         if let Ok(layout) = parse_layout(&grid, PlateFormat::Wells96) {
             prop_assert!(layout.wells.keys().all(|w| PlateFormat::Wells96.contains(*w)));
             prop_assert!(layout.wells.values().any(|s| s.role != Role::Empty));

@@ -68,6 +68,18 @@ pub(super) fn tidy_columns(grid: &CellGrid, header_row: usize) -> Result<Vec<Tid
     Ok(columns)
 }
 
+/// Whether a line below a tidy header is a comment: its first filled cell starts with `#` and it
+/// names no well, or the `#` stands in its well cell (a line commented out). A line whose well
+/// cell names wells is a layout line even when another cell starts with `#` (a compound `#7` in
+/// a first column).
+fn is_tidy_comment(grid: &CellGrid, row: usize, well_index: usize) -> bool {
+    let Some(first) = grid.row(row).position(|cell| !cell.is_empty()) else {
+        return false;
+    };
+    let starts_with_hash = matches!(grid.cell(row, first), Cell::Text(text) if text.starts_with('#'));
+    starts_with_hash && (first == well_index || grid.cell(row, well_index).is_empty())
+}
+
 /// Parses a tidy layout whose header is at zero-based `header_row`.
 pub(super) fn parse_tidy(
     grid: &CellGrid,
@@ -85,13 +97,16 @@ pub(super) fn parse_tidy(
     };
     let well_index = well_column.index;
     let named: BTreeSet<usize> = columns.iter().map(|column| column.index).collect();
-    let factor_names: Vec<String> = columns
+    let factors: Vec<(String, Position)> = columns
         .iter()
         .filter_map(|column| match &column.kind {
-            TidyColumnKind::Factor(name) => Some(name.clone()),
+            TidyColumnKind::Factor(name) => {
+                Some((name.clone(), grid.position(header_row, Some(column.index))))
+            }
             _ => None,
         })
         .collect();
+    let (factor_names, notes) = factor_headers(&factors)?;
     let unit_of = |quantity: Quantity| {
         columns.iter().find_map(|column| match column.kind {
             TidyColumnKind::Quantity(q, unit) if q == quantity => Some(unit),
@@ -100,8 +115,8 @@ pub(super) fn parse_tidy(
     };
 
     let mut wells: BTreeMap<WellId, WellSetup> = BTreeMap::new();
-    for row in header_row + 1..grid.rows.len() {
-        if is_skippable(grid, row) {
+    for row in header_row + 1..grid.n_rows() {
+        if grid.row_is_blank(row) || is_tidy_comment(grid, row, well_index) {
             continue;
         }
         // A value in an unnamed column would otherwise be dropped without a word.
@@ -121,7 +136,7 @@ pub(super) fn parse_tidy(
                     position: Box::new(well_position),
                 })
             }
-            Cell::Text(text) => text.clone(),
+            Cell::Text(text) => text,
             other => {
                 return Err(LayoutError::BadWell {
                     text: describe_cell(other),
@@ -130,8 +145,8 @@ pub(super) fn parse_tidy(
                 })
             }
         };
-        let selected = parse_well_selection(&well_text).map_err(|reason| LayoutError::BadWell {
-            text: well_text.clone(),
+        let selected = parse_well_selection(well_text).map_err(|reason| LayoutError::BadWell {
+            text: well_text.to_string(),
             reason,
             position: Box::new(well_position.clone()),
         })?;
@@ -154,12 +169,12 @@ pub(super) fn parse_tidy(
                 TidyColumnKind::Well => {}
                 TidyColumnKind::Role => {
                     if !cell.is_empty() {
-                        setup.role = read_role(cell, &well_text, position)?;
+                        setup.role = read_role(cell, well_text, position)?;
                     }
                 }
                 TidyColumnKind::Quantity(quantity, _) => {
                     *setup.quantity_mut(*quantity) =
-                        read_concentration(cell, &column.header, &well_text, position)?;
+                        read_concentration(cell, &column.header, well_text, position)?;
                 }
                 TidyColumnKind::Factor(name) => {
                     setup.factors.insert(name.clone(), cell.as_text());
@@ -197,5 +212,6 @@ pub(super) fn parse_tidy(
         enzyme_unit: unit_of(Quantity::Enzyme),
         inhibitor_unit: unit_of(Quantity::Inhibitor),
         factor_names,
+        notes,
     })
 }

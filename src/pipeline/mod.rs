@@ -5,12 +5,14 @@
 
 use std::collections::BTreeSet;
 
-use crate::config::{AnalysisSettings, FitSettings, ImportOptions};
+use crate::config::{
+    check_against_input, AnalysisSettings, FitSettings, ImportOptions, InputFacts, SettingsError,
+};
 use crate::core::plate::WellId;
 use crate::files::input::InputFile;
 use crate::groups::{fit_groups_with, GroupFit, InitialRateOptions};
 use crate::import::{import_data, ImportError, KineticData};
-use crate::layout::{check_against_data, read_layout, Layout, LayoutError};
+use crate::layout::{check_against_data, read_layout, wells_outside_layout, Layout, LayoutError};
 use crate::progress::analysis::{analyse_progress, ProgressAnalysis};
 use crate::rates::conditions::{condition_table, Condition, TableError};
 use crate::rates::{analyse_plate, PlateAnalysis};
@@ -27,6 +29,9 @@ pub enum PipelineError {
     /// The condition table could not be built.
     #[error(transparent)]
     Table(#[from] TableError),
+    /// A setting cannot work on these inputs.
+    #[error(transparent)]
+    Settings(#[from] SettingsError),
 }
 
 /// Everything a run found.
@@ -73,6 +78,7 @@ pub fn run_pipeline(
 ) -> Result<RunResults, PipelineError> {
     let data = import_data(&inputs.data, import)?;
     let layout = read_layout(&inputs.layout, layout_sheet, data.plate)?;
+    check_against_input(settings, &input_facts(&data, &layout))?;
     analyse_inputs(data, layout, settings, fit_settings, progress)
 }
 
@@ -90,6 +96,7 @@ pub fn analyse_inputs(
         &wells_in_data(&data),
         settings.allow_missing,
     )?);
+    input_warnings.extend(wells_outside_layout(&layout, &wells_with_readings(&data)));
     let mut analysis = analyse_plate(&data, &layout, settings);
     let initial = InitialRateOptions {
         estimator: settings.initial_rate,
@@ -124,4 +131,28 @@ pub fn analyse_inputs(
 /// The set of wells the data holds.
 pub fn wells_in_data(data: &KineticData) -> BTreeSet<WellId> {
     data.wells.iter().map(|trace| trace.well).collect()
+}
+
+/// What the settings are checked against: the export's reads and readings, the layout's unit.
+fn input_facts<'a>(data: &'a KineticData, layout: &Layout) -> InputFacts<'a> {
+    let largest_reading = data
+        .wells
+        .iter()
+        .flat_map(|trace| trace.values.iter().flatten())
+        .fold(0.0_f64, |largest, value| largest.max(value.abs()));
+    InputFacts {
+        export: &data.source.file,
+        times_s: &data.times_s,
+        largest_reading,
+        substrate_unit_in_molar: layout.substrate_unit.map(|unit| unit.in_molar()),
+    }
+}
+
+/// The wells of the data with at least one reading.
+fn wells_with_readings(data: &KineticData) -> BTreeSet<WellId> {
+    data.wells
+        .iter()
+        .filter(|trace| trace.values.iter().any(Option::is_some))
+        .map(|trace| trace.well)
+        .collect()
 }

@@ -1,5 +1,11 @@
 //! The run's CSV tables, `wells.csv` and `conditions.csv`, as polars DataFrames written with
 //! polars' CSV writer. Units are written into the headers (`rate [uM/s]`, `substrate [uM]`).
+//!
+//! Text from the layout (factor names and values) is written spreadsheet-safe: a cell starting
+//! with `=`, `+`, `-`, `@`, a tab or a carriage return gets a leading `'`, as spreadsheet-safe
+//! CSV writers do, so that a spreadsheet opening the table shows the text instead of running it as
+//! a formula (plain numbers such as `-5` are left alone: they are no formula). A factor named like
+//! one of the tables' columns is written as `factor:NAME` in both tables (`Layout::factor_header`).
 
 use polars::prelude::*;
 
@@ -45,22 +51,31 @@ fn pick(
     }
 }
 
-/// A layout factor named like one of the table's own columns (`flags`, `n`, `role`...) is written
-/// as `factor:NAME`, so the table stays readable instead of failing on a duplicate header.
-fn rename_clashing_factors(columns: &mut [Column], first_factor: usize, n_factors: usize) {
-    let factor_range = first_factor..first_factor + n_factors;
-    let fixed: std::collections::HashSet<String> = columns
-        .iter()
-        .enumerate()
-        .filter(|(index, _)| !factor_range.contains(index))
-        .map(|(_, column)| column.name().to_string())
-        .collect();
-    for column in &mut columns[factor_range.clone()] {
-        if fixed.contains(column.name().as_str()) {
-            let renamed = format!("factor:{}", column.name());
-            column.rename(renamed.into());
-        }
+/// Text as a spreadsheet-safe CSV cell (module docs).
+pub fn spreadsheet_safe(text: &str) -> String {
+    let starts_like_formula = text.starts_with(['=', '+', '-', '@', '\t', '\r']);
+    let plain_number =
+        crate::files::sheet::number_shape(text) != crate::files::sheet::NumberShape::NotANumber;
+    if starts_like_formula && !plain_number {
+        format!("'{text}")
+    } else {
+        text.to_string()
     }
+}
+
+/// The factor columns of a table: each factor under its header, its values spreadsheet-safe.
+fn factor_columns<'a>(layout: &Layout, values_of: impl Fn(&str) -> Vec<String> + 'a) -> Vec<Column> {
+    layout
+        .factor_names
+        .iter()
+        .map(|name| {
+            let values: Vec<String> = values_of(name)
+                .iter()
+                .map(|value| spreadsheet_safe(value))
+                .collect();
+            Column::new(spreadsheet_safe(&layout.factor_header(name)).into(), values)
+        })
+        .collect()
 }
 
 /// Empty text as a missing value, so the CSV cell is empty rather than `""`.
@@ -96,14 +111,12 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
             .collect();
         columns.push(Column::new(header.into(), values));
     }
-    let first_factor = columns.len();
-    for name in &layout.factor_names {
-        let values: Vec<String> = wells
+    columns.extend(factor_columns(layout, |name| {
+        wells
             .iter()
             .map(|w| w.setup.factors.get(name).cloned().unwrap_or_default())
-            .collect();
-        columns.push(Column::new(name.as_str().into(), values));
-    }
+            .collect()
+    }));
     let fit_value = |f: fn(&LineFit) -> f64| -> Vec<Option<f64>> {
         wells.iter().map(|w| w.rate.fit.as_ref().map(f)).collect()
     };
@@ -174,7 +187,6 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
                 .collect::<Vec<_>>(),
         ),
     ]);
-    rename_clashing_factors(&mut columns, first_factor, layout.factor_names.len());
     Ok(DataFrame::new(wells.len(), columns)?)
 }
 
@@ -196,14 +208,12 @@ pub fn conditions_table(
             .collect();
         columns.push(Column::new(header.into(), values));
     }
-    let first_factor = columns.len();
-    for name in &layout.factor_names {
-        let values: Vec<String> = conditions
+    columns.extend(factor_columns(layout, |name| {
+        conditions
             .iter()
             .map(|c| c.factors.get(name).cloned().unwrap_or_default())
-            .collect();
-        columns.push(Column::new(name.as_str().into(), values));
-    }
+            .collect()
+    }));
     columns.extend([
         Column::new(
             "n".into(),
@@ -234,6 +244,5 @@ pub fn conditions_table(
                 .collect::<Vec<_>>(),
         ),
     ]);
-    rename_clashing_factors(&mut columns, first_factor, layout.factor_names.len());
     Ok(DataFrame::new(conditions.len(), columns)?)
 }
