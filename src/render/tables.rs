@@ -176,7 +176,7 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
             "correction".into(),
             wells
                 .iter()
-                .map(|w| correction_words(&w.correction, analysis.signal.blank_model, &unit))
+                .map(|w| correction_words(&w.correction, &analysis.signal, &unit))
                 .collect::<Vec<_>>(),
         ),
         Column::new(
