@@ -42,9 +42,14 @@ pub fn run_plate(
         &settings.fit,
         progress,
     )?;
+    let input_records = vec![InputRecord::of(&inputs.data), InputRecord::of(&inputs.layout)];
+    let files_given = vec![inputs.data.name.clone(), inputs.layout.name.clone()];
+    // The bytes were parsed and hashed: rendering (the run's largest need of memory) goes on
+    // without them.
+    drop(inputs);
     let record = RunRecord {
-        inputs: vec![InputRecord::of(&inputs.data), InputRecord::of(&inputs.layout)],
-        files_given: vec![inputs.data.name.clone(), inputs.layout.name.clone()],
+        inputs: input_records,
+        files_given,
         data_path: Some(
             settings
                 .data
