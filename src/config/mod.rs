@@ -531,7 +531,9 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
     let extinction = positive_at_most("extinction", layer.extinction, MAX_EXTINCTION)?;
     let pathlength = positive_at_most("pathlength", layer.pathlength, MAX_PATHLENGTH_CM)?;
     if extinction.is_some() != pathlength.is_some() {
-        return Err(SettingsError::new(
+        // The setting given alone is at fault (so an assay file that gives it is named).
+        return Err(SettingsError::about(
+            if extinction.is_some() { "extinction" } else { "pathlength" },
             "give both --extinction and --pathlength (rates in concentration units need both), or neither (rates in absorbance units)"
                 .into(),
         ));
