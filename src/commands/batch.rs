@@ -399,8 +399,7 @@ fn run_one_plate(
                 return Ok((PlateStatus::Ok { digest, reused: true }, tables));
             }
         }
-        let run = run_plate_inputs(&settings, &inputs, &plate_folder, false, &mut |_, _| {})?;
-        drop(inputs);
+        let run = run_plate_inputs(&settings, inputs, &plate_folder, false, &mut |_, _| {})?;
         let plate_digest = digest(&run.results);
         let tables = plate_tables(&run.results).map_err(crate::render::RenderError::from)?;
         drop(run);

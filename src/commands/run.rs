@@ -34,7 +34,7 @@ pub fn run_plate(
         data: InputFile::read(InputRole::Data, &settings.data)?,
         layout: InputFile::read(InputRole::Layout, &settings.layout)?,
     };
-    run_plate_inputs(settings, &inputs, out, force, progress)
+    run_plate_inputs(settings, inputs, out, force, progress)
 }
 
 /// Runs a plate whose inputs were already read (from `settings.data` and `settings.layout`) and
@@ -42,23 +42,28 @@ pub fn run_plate(
 /// first to compare their checksums with the previous run's).
 pub fn run_plate_inputs(
     settings: &RunSettings,
-    inputs: &PlateInputs,
+    inputs: PlateInputs,
     out: &Path,
     force: bool,
     progress: &mut dyn FnMut(usize, usize),
 ) -> Result<RunOutcome, CommandError> {
     check_output_folder(out, force)?;
     let results = run_pipeline(
-        inputs,
+        &inputs,
         &settings.import,
         settings.layout_sheet.as_deref(),
         &settings.analysis,
         &settings.fit,
         progress,
     )?;
+    let input_records = vec![InputRecord::of(&inputs.data), InputRecord::of(&inputs.layout)];
+    let files_given = vec![inputs.data.name.clone(), inputs.layout.name.clone()];
+    // The bytes were parsed and hashed: rendering (the run's largest need of memory) goes on
+    // without them.
+    drop(inputs);
     let record = RunRecord {
-        inputs: vec![InputRecord::of(&inputs.data), InputRecord::of(&inputs.layout)],
-        files_given: vec![inputs.data.name.clone(), inputs.layout.name.clone()],
+        inputs: input_records,
+        files_given,
         data_path: Some(
             settings
                 .data

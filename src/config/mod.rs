@@ -174,6 +174,10 @@ impl SettingLayer {
 /// more.
 pub const MAX_READS: usize = 20_000;
 
+/// The longest time platekin reads, s (about 31 years): read times, `skip`, `dead-time` and a
+/// window's ends beyond it are refused, so no arithmetic on them can overflow.
+pub const MAX_SECONDS: f64 = 1e9;
+
 /// The largest assay file read (1 MiB).
 pub const MAX_ASSAY_BYTES: u64 = 1024 * 1024;
 
@@ -440,6 +444,11 @@ pub fn parse_window(text: &str) -> Result<(f64, f64), String> {
     if !(start.is_finite() && end.is_finite() && end > start && start >= 0.0) {
         return Err(format!("window '{text}' must have 0 <= start < end"));
     }
+    if end > MAX_SECONDS {
+        return Err(format!(
+            "window '{text}' ends beyond {MAX_SECONDS:e} s, the longest time platekin reads"
+        ));
+    }
     Ok((start, end))
 }
 
@@ -522,7 +531,9 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
     let extinction = positive_at_most("extinction", layer.extinction, MAX_EXTINCTION)?;
     let pathlength = positive_at_most("pathlength", layer.pathlength, MAX_PATHLENGTH_CM)?;
     if extinction.is_some() != pathlength.is_some() {
-        return Err(SettingsError::new(
+        // The setting given alone is at fault (so an assay file that gives it is named).
+        return Err(SettingsError::about(
+            if extinction.is_some() { "extinction" } else { "pathlength" },
             "give both --extinction and --pathlength (rates in concentration units need both), or neither (rates in absorbance units)"
                 .into(),
         ));
@@ -545,10 +556,10 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         ));
     }
     let skip_s = layer.skip.unwrap_or(defaults.skip_s);
-    if !(skip_s.is_finite() && skip_s >= 0.0) {
+    if !(skip_s.is_finite() && (0.0..=MAX_SECONDS).contains(&skip_s)) {
         return Err(SettingsError::about(
             "skip",
-            format!("skip must be zero or more seconds, got {skip_s}"),
+            format!("skip must be from 0 to {MAX_SECONDS:e} seconds, got {skip_s}"),
         ));
     }
     let alpha = layer.alpha.unwrap_or(defaults.alpha);
@@ -560,10 +571,10 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
     }
     let max_absorbance = positive("max-absorbance", layer.max_absorbance)?.unwrap_or(defaults.max_absorbance);
     let dead_time_s = layer.dead_time.unwrap_or(0.0);
-    if !(dead_time_s.is_finite() && dead_time_s >= 0.0) {
+    if !(dead_time_s.is_finite() && (0.0..=MAX_SECONDS).contains(&dead_time_s)) {
         return Err(SettingsError::about(
             "dead-time",
-            format!("dead-time must be zero or more seconds, got {dead_time_s}"),
+            format!("dead-time must be from 0 to {MAX_SECONDS:e} seconds, got {dead_time_s}"),
         ));
     }
     let progress = ProgressSettings {

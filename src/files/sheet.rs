@@ -783,6 +783,8 @@ fn fill_merged_regions(
 /// spreadsheet shows; text cells holding numbers are read with the sheet's decimal mark.
 fn grid_of_sparse_cells(mut cells: SparseCells, source: Source) -> Result<CellGrid, SheetReadError> {
     cells.sort_by_key(|(position, _)| *position);
+    // A cell listed twice (a malformed file) counts once.
+    cells.dedup_by_key(|(position, _)| *position);
     let mut evidence = MarkEvidence::default();
     for (_, data) in &cells {
         if let Data::String(text) = data {
@@ -799,6 +801,14 @@ fn grid_of_sparse_cells(mut cells: SparseCells, source: Source) -> Result<CellGr
             .iter()
             .take_while(|((cell_row, _), _)| *cell_row as usize == row)
             .count();
+        // The row is stored up to its last cell: that width counts against the ceiling.
+        let width = cells[index + in_row - 1].0 .1 as usize + 1;
+        if grid.n_cells().saturating_add(width) > MAX_CELLS {
+            return Err(SheetReadError::TooManyCells {
+                origin: grid.source.clone(),
+                limit: MAX_CELLS,
+            });
+        }
         let mut row_cells: Vec<Cell> = Vec::new();
         for ((_, column), data) in &cells[index..index + in_row] {
             row_cells.resize(*column as usize, Cell::Empty);
@@ -1022,6 +1032,21 @@ mod tests {
         let wide = format!("a\n{}\n", ",".repeat(MAX_CELLS_PER_ROW + 1));
         let error = read_text_cells(wide.as_bytes(), "wide.csv").unwrap_err();
         assert!(error.to_string().contains("wide.csv, row 2"), "{error}");
+    }
+
+    /// A sheet is read cell by cell, and the width its rows would take counts against the cell
+    /// ceiling: far cells in many rows are refused instead of allocated.
+    #[test]
+    fn a_sheet_of_far_cells_is_refused_not_allocated() {
+        let mut workbook = rust_xlsxwriter::Workbook::new();
+        let sheet = workbook.add_worksheet();
+        for row in 0..1600u32 {
+            sheet.write_number(row, 16_000, 1.0).unwrap();
+        }
+        let bytes = workbook.save_to_buffer().unwrap();
+        let error = read_spreadsheet_cells(&bytes, "far.xlsx", None, MergedCells::Keep).unwrap_err();
+        assert!(matches!(error, SheetReadError::TooManyCells { .. }), "{error}");
+        assert!(error.to_string().contains("far.xlsx"), "{error}");
     }
 
     #[test]

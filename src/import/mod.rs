@@ -37,7 +37,7 @@ use crate::files::sheet::{
 
 use time::{classify_header, HeaderKind, HeaderTimeUnit, RawTime, TimeTextError};
 
-pub use crate::config::MAX_READS;
+pub use crate::config::{MAX_READS, MAX_SECONDS};
 
 /// A kinetic export read into per-well traces.
 #[derive(Debug, Clone, PartialEq)]
@@ -757,6 +757,18 @@ fn finish(grid: &CellGrid, table: ShapeTable, options: &ImportOptions) -> Result
         return Err(ImportError::TooManyReads {
             origin: grid.source.clone(),
             limit: MAX_READS,
+        });
+    }
+    if let Some(far) = reads
+        .iter()
+        .find(|read| read.time_s.is_nan() || read.time_s.abs() > MAX_SECONDS)
+    {
+        return Err(ImportError::BadTime {
+            position: grid.position(far.row, Some(far.column)),
+            reason: format!(
+                "{} s is beyond {MAX_SECONDS:e} s, the longest time platekin reads",
+                far.time_s
+            ),
         });
     }
     for pair in reads.windows(2) {

@@ -838,3 +838,13 @@ fn long_exports_with_own_time_stamps_match_reads_by_order() {
         "{message}"
     );
 }
+
+/// Times beyond the ceiling (or made infinite by their unit) are refused with their cell.
+#[test]
+fn times_beyond_the_ceiling_are_refused() {
+    let message = import_error("Time [h],A1\n0,0.1\n1e306,0.2\n", &ImportOptions::default());
+    assert!(
+        message.contains("run.csv, row 3, column 1 (A)") && message.contains("longest time"),
+        "{message}"
+    );
+}

@@ -623,6 +623,54 @@ fn check_against_data_errors_or_drops_with_a_warning() {
     assert!(matches!(error, LayoutError::EmptyLayout { .. }), "{error}");
 }
 
+/// Issue class: a line whose first cell starts with `#` is a comment only when it names no well.
+#[test]
+fn hash_lines_are_comments_only_when_they_name_no_well() {
+    let text = "compound,well,role,substrate [uM]\n#7,A1,sample,10\n# a note\nx,A3,sample,30\n";
+    let layout = parse_csv(text, PlateFormat::Wells96).unwrap();
+    assert_eq!(layout.wells[&well("A1")].factors["compound"], "#7");
+    assert!(layout.wells.contains_key(&well("A3")));
+    // With the well column first, `#` in the well cell comments the line out.
+    let text = "well,role,substrate [uM]\nA1,sample,10\n#A2,sample,20\n";
+    let layout = parse_csv(text, PlateFormat::Wells96).unwrap();
+    assert!(
+        !layout.wells.contains_key(&well("A2")),
+        "a line commented out in its well cell"
+    );
+}
+
+/// Issue class: factors named like output columns are written as `factor:NAME` in both tables,
+/// said with their cell; two factors that would share a header are refused naming both.
+#[test]
+fn factors_named_like_output_columns_are_renamed_once_or_refused() {
+    let text = "well,substrate [uM],rate,Flags,variant\nA1,10,1,x,wt\n";
+    let layout = parse_csv(text, PlateFormat::Wells96).unwrap();
+    assert_eq!(layout.factor_header("rate"), "factor:rate");
+    assert_eq!(layout.factor_header("Flags"), "factor:Flags");
+    assert_eq!(layout.factor_header("variant"), "variant");
+    assert_eq!(layout.notes.len(), 2, "{:?}", layout.notes);
+    assert!(
+        layout.notes[0].contains("layout.csv, row 1, column 3 (C)"),
+        "{:?}",
+        layout.notes
+    );
+    let message = error_text(
+        "well,substrate [uM],flags,factor:flags\nA1,10,a,b\n",
+        PlateFormat::Wells96,
+    );
+    assert_mentions(&message, &["column 3 (C)", "column 4 (D)", "'factor:flags'"]);
+}
+
+/// Data wells with readings that the layout does not name are said.
+#[test]
+fn data_wells_outside_the_layout_are_named() {
+    let layout = parse_csv("well,substrate [uM]\nA1,10\n", PlateFormat::Wells96).unwrap();
+    let data_wells: BTreeSet<WellId> = [well("A1"), well("B7")].into_iter().collect();
+    let notes = wells_outside_layout(&layout, &data_wells);
+    assert_eq!(notes.len(), 1);
+    assert_mentions(&notes[0], &["layout.csv", "1 well(s)", "B7"]);
+}
+
 // ---------------------------------------------------------------------------------------
 // Property tests: a random layout written in either form parses back to the same setups.
 // ---------------------------------------------------------------------------------------

@@ -176,7 +176,7 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
             "correction".into(),
             wells
                 .iter()
-                .map(|w| correction_words(&w.correction, analysis.signal.blank_model, &unit))
+                .map(|w| correction_words(&w.correction, &analysis.signal, &unit))
                 .collect::<Vec<_>>(),
         ),
         Column::new(
@@ -245,4 +245,24 @@ pub fn conditions_table(
         ),
     ]);
     Ok(DataFrame::new(conditions.len(), columns)?)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Spreadsheet-safe text: what would run as a formula gets a leading `'`; plain numbers and
+    /// other text stay as they are (OWASP's advice on CSV injection; common practice).
+    #[test]
+    fn formula_like_text_is_neutralised_and_numbers_are_not() {
+        assert_eq!(spreadsheet_safe("=HYPERLINK(\"x\")"), "'=HYPERLINK(\"x\")");
+        assert_eq!(spreadsheet_safe("+1+2"), "'+1+2");
+        assert_eq!(spreadsheet_safe("-1+2"), "'-1+2");
+        assert_eq!(spreadsheet_safe("@SUM(1)"), "'@SUM(1)");
+        assert_eq!(spreadsheet_safe("\tcmd"), "'\tcmd");
+        assert_eq!(spreadsheet_safe("-5"), "-5");
+        assert_eq!(spreadsheet_safe("+0.5"), "+0.5");
+        assert_eq!(spreadsheet_safe("FenA-wt"), "FenA-wt");
+        assert_eq!(spreadsheet_safe(""), "");
+    }
 }

@@ -9,7 +9,7 @@ use crate::progress::choice::{ModelTried, ModelVerdict};
 use crate::progress::trust::{KmPair, RunReason, Suspicion, Trust, TrustReason, LOW_SUBSTRATE_CONVERSION};
 use crate::rates::background::{Background, NoBackground};
 use crate::rates::{flag_words, Correction, Flag};
-use crate::signal::BlankModel;
+use crate::signal::{BlankModel, PlateSignal};
 
 /// A group key's value as JSON writes it (numbers as serde_json prints an f64).
 pub fn group_value_json(value: &GroupValue) -> serde_json::Value {
@@ -256,8 +256,8 @@ pub fn flag_count_words(counts: &std::collections::BTreeMap<Flag, usize>) -> Str
 }
 
 /// The corrections a well got, as `wells.csv`'s `correction` column writes them.
-pub fn correction_words(correction: &Correction, blank_model: BlankModel, rate_unit: &str) -> String {
-    let mut text = match (correction.blank_wells, blank_model) {
+pub fn correction_words(correction: &Correction, signal: &PlateSignal, rate_unit: &str) -> String {
+    let mut text = match (correction.blank_wells, signal.blank_model) {
         (None, _) => "none (blank)".to_string(),
         (Some(0), _) | (_, BlankModel::None) => "no blank correction".to_string(),
         (Some(n), BlankModel::PerRead) => format!("blank: mean of {n} blank wells at each read"),
@@ -266,6 +266,29 @@ pub fn correction_words(correction: &Correction, blank_model: BlankModel, rate_u
             if degree == 1 { "straight line" } else { "quadratic" }
         ),
     };
+    // Reads with no readable blank were never corrected with 0: say what they got instead.
+    if correction.blank_wells.is_some_and(|n| n > 0) && !signal.reads_without_blank.is_empty() {
+        let reads: Vec<String> = signal
+            .reads_without_blank
+            .iter()
+            .take(8)
+            .map(|read| (read + 1).to_string())
+            .collect();
+        let more = signal.reads_without_blank.len().saturating_sub(8);
+        text.push_str(&format!(
+            " (no blank readable at read(s) {}{}: {})",
+            reads.join(", "),
+            if more > 0 {
+                format!(" and {more} more")
+            } else {
+                String::new()
+            },
+            match signal.blank_model {
+                BlankModel::PerRead => "interpolated between the neighbouring reads",
+                _ => "taken from the curve",
+            }
+        ));
+    }
     match &correction.background {
         None => {}
         Some(Background::Matched { rate, controls, .. }) => text.push_str(&format!(

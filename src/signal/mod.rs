@@ -81,6 +81,9 @@ pub struct PlateSignal {
     pub concentration_unit: Option<ConcentrationUnit>,
     /// Plate-level remarks (no blanks, no extinction coefficient...).
     pub warnings: Vec<String>,
+    /// Zero-based reads at which no blank well was readable: their blank comes from the smooth
+    /// curve or is interpolated from the neighbouring reads, never 0.
+    pub reads_without_blank: Vec<usize>,
 }
 
 /// The smooth blank (module docs): the degree and the curve at every read, or `None` when the blank
@@ -285,6 +288,16 @@ impl PlateSignal {
             Some(smooth) => smooth.uncertainty.clone(),
             None => per_read_uncertainty(&data.times_s, &measured, &traces),
         };
+        let reads_without_blank: Vec<usize> = if blank_wells.is_empty() {
+            Vec::new()
+        } else {
+            measured
+                .iter()
+                .enumerate()
+                .filter(|(_, mean)| mean.is_none())
+                .map(|(read, _)| read)
+                .collect()
+        };
         let blank_per_read = if let Some(SmoothBlank { curve, .. }) = smooth {
             let gaps: Vec<usize> = measured
                 .iter()
@@ -347,6 +360,7 @@ impl PlateSignal {
             blank_model,
             blank_uncertainty,
             blank_per_read,
+            reads_without_blank,
             n_blank_wells: blank_wells.len(),
             sign: match settings.readout {
                 Readout::Product => 1.0,
