@@ -227,7 +227,11 @@ fn depletion_heavy_plate_initial_rates_miss_km_and_the_global_fit_recovers_it() 
     assert_eq!(group["parameters"]["kcat"]["unit"], "1/s");
     assert_eq!(group["parameters"]["Km"]["ci95"].as_array().unwrap().len(), 2);
     let summary = summary(&chords);
-    assert!(summary.contains("trust: the progress-curve fit"), "{summary}");
+    // The results block at the top names the analysis trusted and shows its constants.
+    assert!(
+        summary.contains("from progress curves") && summary.contains("trust: progress curves"),
+        "{summary}"
+    );
 }
 
 #[test]

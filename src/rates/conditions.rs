@@ -34,7 +34,7 @@ pub struct Condition {
     pub rate_sd: Option<f64>,
     /// Their SEM (n_used >= 2).
     pub rate_sem: Option<f64>,
-    /// SD / |mean|.
+    /// SD / |mean|, where the mean is more than twice its SEM away from zero (else none).
     pub cv: Option<f64>,
     /// How many of the condition's wells carry each flag.
     pub flags: BTreeMap<Flag, usize>,
@@ -168,9 +168,12 @@ pub fn condition_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<Vec<
         let mean = stats.map(|s| s.mean);
         let sd = stats.and_then(|s| s.sd);
         let sem = stats.and_then(|s| s.sem());
+        // A CV means something only for a mean clearly away from zero: a blank's mean is zero
+        // by construction, and its CV would be noise divided by noise.
         let cv = sd
             .zip(mean)
-            .and_then(|(sd, mean)| (mean != 0.0).then(|| sd / mean.abs()));
+            .filter(|(_, mean)| sem.is_some_and(|sem| mean.abs() > 2.0 * sem))
+            .map(|(sd, mean)| sd / mean.abs());
         let mut flags: BTreeMap<Flag, usize> = BTreeMap::new();
         for flag in members.iter().flat_map(|well| well.rate.flags.iter()) {
             *flags.entry(*flag).or_insert(0) += 1;

@@ -7,10 +7,12 @@
 //! ([`report`], [`plots`]) and last `run.json`, which lists the others with their checksums.
 
 pub mod campaign;
+pub mod display;
 pub mod inspect;
 pub mod json;
 pub mod plots;
 pub mod report;
+pub mod results;
 pub mod summary;
 pub mod tables;
 pub mod words;

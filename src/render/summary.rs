@@ -4,53 +4,41 @@
 
 use std::path::Path;
 
-use super::words::{group_label, run_reason_words, trust_reason_words};
+use super::display::number as significant;
+use super::display::DisplayUnit;
+use super::results::{numbers_from_words, result_columns, run_results, trust_word};
+use super::words::{group_label, run_reason_words};
 use crate::config::{RateModelKind, ReportMode};
-use crate::core::format::{significant, CAUTION};
+use crate::core::format::CAUTION;
 use crate::groups::{GroupFit, ParameterReport};
 use crate::layout::Role;
 use crate::pipeline::RunResults;
 use crate::progress::analysis::{CalibrationInput, CalibrationSensitivity, ProgressAnalysis};
 use crate::rates::flag_counts;
 
-/// Formats a value with its 95% interval: `12.1 [11.6, 12.6]`.
+/// A constant with its 95% interval (and its profile interval) in the unit that reads plainly:
+/// `12.01 [11.95, 12.07] profile [11.97, 12.04] 1/s`.
 fn with_interval(parameter: Option<&ParameterReport>) -> String {
     match parameter {
         None => "-".to_string(),
         Some(p) => {
-            let value = significant(p.value);
-            let interval = p.ci95.map_or(String::new(), |[lo, hi]| {
-                format!(" [{}, {}]", significant(lo), significant(hi))
-            });
-            let end = |x: Option<f64>, open: &str| x.map_or(open.to_string(), significant);
+            let unit = DisplayUnit::for_values(&p.unit, [p.value]);
+            let end = |x: Option<f64>| x.map_or("open".to_string(), |x| unit.value_like(x, p.value));
             let profile = p.ci95_profile.map_or(String::new(), |[lo, hi]| {
-                format!(" profile [{}, {}]", end(lo, "open"), end(hi, "open"))
+                format!(" profile [{}, {}]", end(lo), end(hi))
             });
             let doubt = if p.determined { "" } else { " (not determined)" };
-            format!("{value}{interval}{profile}{doubt}")
+            format!(
+                "{}{profile} {}{doubt}",
+                unit.with_interval(p.value, p.ci95),
+                unit.plain()
+            )
         }
     }
 }
 
-/// A progress-curve parameter with its interval, and Km's profile interval when there is one.
-fn progress_value(parameter: Option<&ParameterReport>) -> String {
-    match parameter {
-        None => "-".to_string(),
-        Some(p) => {
-            let interval = p.ci95.map_or(String::new(), |[lo, hi]| {
-                format!(" [{}, {}]", significant(lo), significant(hi))
-            });
-            let profile = p.ci95_profile.map_or(String::new(), |[lo, hi]| {
-                let side = |v: Option<f64>| v.map_or("open".to_string(), significant);
-                format!(" (profile [{}, {}])", side(lo), side(hi))
-            });
-            let doubt = if p.determined { "" } else { " (not determined)" };
-            format!("{}{interval}{profile} {}{doubt}", significant(p.value), p.unit)
-        }
-    }
-}
-
-/// The progress-curve lines of the summary: one block per group, ending with what to trust.
+/// The progress-curve lines of the summary: one block per group (what to trust is in the results
+/// block at the top).
 fn progress_summary(progress: &ProgressAnalysis) -> Vec<String> {
     let mut lines = vec![
         String::new(),
@@ -58,9 +46,11 @@ fn progress_summary(progress: &ProgressAnalysis) -> Vec<String> {
     ];
     for group in &progress.groups {
         let label = group_label(&group.group);
-        let trust = trust_reason_words(&group.decision.reason);
         if !group.analysed {
-            lines.push(format!("  {label}: not fitted; trust: {trust}"));
+            lines.push(format!(
+                "  {label}: not fitted ({})",
+                run_reason_words(&group.run)
+            ));
             continue;
         }
         lines.push(format!(
@@ -72,22 +62,21 @@ fn progress_summary(progress: &ProgressAnalysis) -> Vec<String> {
         ));
         lines.push(format!(
             "    kcat    {}",
-            progress_value(group.parameters.get("kcat"))
+            with_interval(group.parameters.get("kcat"))
         ));
         lines.push(format!(
             "    Km      {}",
-            progress_value(group.parameters.get("Km"))
+            with_interval(group.parameters.get("Km"))
         ));
         for extra in ["Kp", "k_inact", "dead_time"] {
             if let Some(p) = group.parameters.get(extra) {
-                lines.push(format!("    {extra:<7} {}", progress_value(Some(p))));
+                lines.push(format!("    {extra:<7} {}", with_interval(Some(p))));
             }
         }
         lines.extend(sensitivity_lines(&group.sensitivity));
         for warning in &group.warnings {
             lines.push(format!("    warning: {warning}"));
         }
-        lines.push(format!("    trust: {trust}"));
     }
     lines
 }
@@ -121,6 +110,56 @@ fn sensitivity_lines(sensitivity: &[CalibrationSensitivity]) -> Vec<String> {
             moves("kcat"),
             moves("Km")
         ));
+    }
+    lines
+}
+
+/// The answer first: per group the constants of the analysis to trust with their 95% intervals
+/// (in units that read plainly), then one line naming the model, the analysis, the wells and the
+/// verdict, then the warnings that change how the numbers may be used.
+fn results_lines(results: &RunResults) -> Vec<String> {
+    let rows = run_results(results);
+    let columns = result_columns(&rows);
+    let mut lines = vec!["Results (value [95% interval]):".to_string()];
+    if rows.is_empty() {
+        lines.push("  no group was fitted".to_string());
+    }
+    for row in &rows {
+        let mut constants: Vec<String> = Vec::new();
+        for (name, parameter) in &row.parameters {
+            let unit = columns.iter().find(|(column, _)| column == name).map_or_else(
+                || DisplayUnit::for_values(&parameter.unit, [parameter.value]),
+                |(_, u)| u.clone(),
+            );
+            constants.push(format!(
+                "{name} {} {}",
+                unit.with_interval(parameter.value, parameter.ci95),
+                unit.plain()
+            ));
+        }
+        match &row.error {
+            Some(error) => lines.push(format!("  {}: no constants: {error}", row.label)),
+            None => lines.push(format!("  {}: {}", row.label, constants.join("; "))),
+        }
+        let trust = row
+            .trust
+            .map_or(String::new(), |t| format!("; trust: {}", trust_word(t)));
+        lines.push(format!(
+            "    {} from {}, {} wells ({} left out){trust}: {}{}",
+            row.model,
+            numbers_from_words(row.numbers_from),
+            row.wells_used,
+            row.wells_left_out,
+            row.reason,
+            if row.usable {
+                ""
+            } else {
+                " - do not use these numbers without checking"
+            }
+        ));
+        for warning in &row.warnings {
+            lines.push(format!("    warning: {warning}"));
+        }
     }
     lines
 }
@@ -172,7 +211,9 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
         }
     }
     lines.push(String::new());
-    lines.push("Fits (value [95% interval]):".to_string());
+    lines.extend(results_lines(results));
+    lines.push(String::new());
+    lines.push("Initial-rate fits (value [95% interval]):".to_string());
     lines.extend(group_fit_lines(&results.fits));
     lines.extend(progress_summary(&results.progress));
     let mut warnings: Vec<&String> = results.input_warnings.iter().collect();
@@ -236,34 +277,22 @@ pub fn group_fit_lines(fits: &[GroupFit]) -> Vec<String> {
         if let Some(choice) = fit.model_choice.as_ref().filter(|_| fit.models_tried.len() > 1) {
             lines.push(format!("    chosen: {choice}"));
         }
-        let unit = |name: &str| {
-            fit.parameters
-                .get(name)
-                .map_or(String::new(), |p| format!(" {}", p.unit))
-        };
         // The classic block for Michaelis-Menten; other models list what they fitted.
         let classic = fit.model == RateModelKind::MichaelisMenten;
         if classic {
             lines.push(format!(
-                "    kcat    {}{}",
-                with_interval(fit.parameters.get("kcat")),
-                unit("kcat")
+                "    kcat    {}",
+                with_interval(fit.parameters.get("kcat"))
             ));
+            lines.push(format!("    Km      {}", with_interval(fit.parameters.get("Km"))));
             lines.push(format!(
-                "    Km      {}{}",
-                with_interval(fit.parameters.get("Km")),
-                unit("Km")
-            ));
-            lines.push(format!(
-                "    kcat/Km {}{}",
-                with_interval(fit.parameters.get("kcat_over_Km")),
-                unit("kcat_over_Km")
+                "    kcat/Km {}",
+                with_interval(fit.parameters.get("kcat_over_Km"))
             ));
             if !fit.parameters.contains_key("kcat") {
                 lines.push(format!(
-                    "    Vmax    {}{}",
-                    with_interval(fit.parameters.get("Vmax")),
-                    unit("Vmax")
+                    "    Vmax    {}",
+                    with_interval(fit.parameters.get("Vmax"))
                 ));
             }
         }
@@ -274,11 +303,7 @@ pub fn group_fit_lines(fits: &[GroupFit]) -> Vec<String> {
             if name == "Vmax" && fit.parameters.contains_key("kcat") {
                 continue;
             }
-            lines.push(format!(
-                "    {name:<7} {} {}",
-                with_interval(Some(parameter)),
-                parameter.unit
-            ));
+            lines.push(format!("    {name:<7} {}", with_interval(Some(parameter))));
         }
         for warning in &fit.warnings {
             lines.push(format!("    warning: {warning}"));

@@ -16,6 +16,7 @@ use crate::render::plots::{
 };
 use crate::render::plots::{progress_plots, ProgressPlot, ProgressPlotKind, ProgressView};
 use crate::render::plots::{Drawing, GroupPlot, Overview, OverviewGeometry, WellDetail};
+use crate::render::results::{numbers_from_words, other_constants, result_columns, run_results, trust_word};
 use crate::render::words::{
     flag_count_words, group_label, run_reason_words, trust_reason_words, verdict_words,
 };
@@ -198,7 +199,8 @@ table{border-collapse:collapse;margin:.6em 0;font-size:.92em}th,td{border:1px so
 th{background:#eef4fa}td.num{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}
 .caution{border-left:5px solid #D55E00;background:#fdf1e8;padding:.6em 1em}
 .warn{color:#8a3b00}.scroll{overflow-x:auto;border:1px solid #ddd;padding:4px}
-tr.chosen td{font-weight:bold}p.model code{font-size:.95em}
+tr.chosen td{font-weight:bold}table.results{font-size:1em}table.results th[scope=row]{background:none;font-weight:bold}.ci{color:#444;font-size:.9em}
+p.model code{font-size:.95em}
 .scroll svg{max-width:none}svg{max-width:100%;height:auto}
 figure{display:inline-block;margin:.5em 1em .5em 0;vertical-align:top}figcaption{font-size:.85em;max-width:40em}
 .diagnostic{border:2px dashed #D55E00;padding:.3em}
@@ -227,16 +229,16 @@ pub fn report_html(parts: &ReportParts) -> String {
     );
     let _ = writeln!(page, "<p class=\"caution\">{}</p>", escape(CAUTION));
     page.push_str(&contents());
-    page.push_str(&inputs_section(parts));
-    page.push_str(&settings_section(parts));
+    page.push_str(&results_section(parts));
     page.push_str(&overview_section(parts));
     page.push_str(&flagged_section(parts));
-    page.push_str(&conditions_section(parts));
     page.push_str(&groups_section(parts));
     page.push_str(&progress_section(parts));
     page.push_str(&trust_section(parts));
+    page.push_str(&conditions_section(parts));
     page.push_str(&checklist_section(parts));
     page.push_str(&details_section(parts));
+    page.push_str(&about_section(parts));
     let _ = writeln!(
         page,
         "<section id=\"caution\">\n<h2>Caution</h2>\n<p class=\"caution\">{}</p>\n</section>\n</body>\n</html>",
@@ -247,16 +249,16 @@ pub fn report_html(parts: &ReportParts) -> String {
 
 /// The section ids and headings, in page order (the golden tests check these).
 pub const SECTIONS: [(&str, &str); 11] = [
-    ("inputs", "Inputs"),
-    ("settings", "Settings used"),
+    ("results", "Results"),
     ("overview", "Plate overview"),
     ("flagged", "Flagged wells"),
-    ("conditions", "Conditions"),
     ("fits", "Group fits"),
     ("progress", "Progress-curve fits"),
     ("trust", "Which analysis to trust"),
+    ("conditions", "Conditions"),
     ("checklist", "Reporting checklist"),
     ("details", "Well details"),
+    ("about", "About this run"),
     ("caution", "Caution"),
 ];
 
@@ -276,8 +278,120 @@ fn contents() -> String {
     format!("<nav><p>{}</p></nav>\n", links.join(" &middot; "))
 }
 
-fn inputs_section(parts: &ReportParts) -> String {
-    let mut html = heading("inputs");
+/// The answer first: per group the constants of the analysis to trust with their 95% intervals
+/// in units that read plainly, the model and analysis, the wells, and the verdict in a line; then
+/// the warnings that change how the numbers may be used.
+fn results_section(parts: &ReportParts) -> String {
+    let results = parts.results;
+    let rows = run_results(results);
+    let columns = result_columns(&rows);
+    let mut html = heading("results");
+    if rows.is_empty() {
+        html.push_str("<p>No group was fitted: see the conditions and the flagged wells below.</p>\n");
+    } else {
+        html.push_str("<p>Per group, the constants of the analysis to trust (value and 95% interval); the details of every fit follow below.</p>\n");
+        html.push_str("<table class=\"results\">\n<thead><tr><th scope=\"col\">group</th>");
+        for (name, unit) in &columns {
+            let _ = write!(html, "<th scope=\"col\">{} [{}]</th>", escape(name), unit.html());
+        }
+        let any_other = rows.iter().any(|row| !other_constants(row, &columns).is_empty());
+        if any_other {
+            html.push_str("<th scope=\"col\">other constants</th>");
+        }
+        html.push_str("<th scope=\"col\">model, from</th><th scope=\"col\">wells used (left out)</th><th scope=\"col\">analysis to trust</th></tr></thead>\n<tbody>\n");
+        for row in &rows {
+            let _ = write!(html, "<tr><th scope=\"row\">{}</th>", escape(&row.label));
+            for (name, unit) in &columns {
+                match row.parameters.iter().find(|(n, _)| n == name) {
+                    Some((_, p)) if row.error.is_none() => {
+                        let interval = p.ci95.map_or(String::new(), |[lo, hi]| {
+                            format!(
+                                " <span class=\"ci\">[{}, {}]</span>",
+                                unit.value_like(lo, p.value),
+                                unit.value_like(hi, p.value)
+                            )
+                        });
+                        let doubt = if p.determined {
+                            ""
+                        } else {
+                            " <span class=\"warn\">(not determined)</span>"
+                        };
+                        let _ = write!(
+                            html,
+                            "<td class=\"num\">{}{interval}{doubt}</td>",
+                            unit.value(p.value)
+                        );
+                    }
+                    _ => html.push_str("<td class=\"num\">-</td>"),
+                }
+            }
+            if any_other {
+                let others: Vec<String> = other_constants(row, &columns)
+                    .into_iter()
+                    .map(|(name, p, unit)| {
+                        format!(
+                            "{} {} {}",
+                            escape(name),
+                            unit.with_interval(p.value, p.ci95),
+                            unit.html()
+                        )
+                    })
+                    .collect();
+                let _ = write!(html, "<td>{}</td>", others.join("<br>"));
+            }
+            let verdict = row.trust.map_or("initial rates", trust_word);
+            let _ =
+                writeln!(
+                html,
+                "<td>{} from {}</td><td class=\"num\">{} ({})</td><td{}><strong>{}</strong>: {}{}</td></tr>",
+                escape(row.model),
+                numbers_from_words(row.numbers_from),
+                row.wells_used,
+                row.wells_left_out,
+                if row.usable { "" } else { " class=\"warn\"" },
+                escape(verdict),
+                escape(row.error.as_deref().unwrap_or(&row.reason)),
+                if row.usable { "" } else { "; do not use these numbers without checking" }
+            );
+        }
+        html.push_str("</tbody>\n</table>\n");
+    }
+    let group_warnings: Vec<String> = rows
+        .iter()
+        .flat_map(|row| row.warnings.iter().map(move |w| format!("{}: {w}", row.label)))
+        .collect();
+    let plate_warnings: Vec<&String> = results
+        .input_warnings
+        .iter()
+        .chain(&results.analysis.warnings)
+        .collect();
+    if !group_warnings.is_empty() || !plate_warnings.is_empty() {
+        html.push_str("<h3>Warnings</h3>\n<ul class=\"warnings\">\n");
+        for warning in &group_warnings {
+            let _ = writeln!(html, "<li class=\"warn\">{}</li>", escape(warning));
+        }
+        for warning in plate_warnings {
+            let _ = writeln!(html, "<li>{}</li>", escape(warning));
+        }
+        html.push_str("</ul>\n");
+    }
+    html.push_str("</section>\n");
+    html
+}
+
+/// Inputs, their checksums and every setting: collapsed at the end, for whoever repeats or audits
+/// the run.
+fn about_section(parts: &ReportParts) -> String {
+    let mut html = heading("about");
+    html.push_str("<details>\n<summary>Inputs (sizes and SHA-256), how the export was read, and every setting used</summary>\n");
+    html.push_str(&inputs_part(parts));
+    html.push_str(&settings_part(parts));
+    html.push_str("</details>\n</section>\n");
+    html
+}
+
+fn inputs_part(parts: &ReportParts) -> String {
+    let mut html = String::from("<h3 id=\"inputs\">Inputs</h3>\n");
     if parts.record.inputs.is_empty() {
         html.push_str("<p>No input files were recorded for this run.</p>\n");
     } else {
@@ -307,20 +421,6 @@ fn inputs_section(parts: &ReportParts) -> String {
         data.times_s.len(),
         escape(&temperature_text(parts.results))
     );
-    let warnings: Vec<&String> = parts
-        .results
-        .input_warnings
-        .iter()
-        .chain(&parts.results.analysis.warnings)
-        .collect();
-    if !warnings.is_empty() {
-        html.push_str("<ul>\n");
-        for warning in warnings {
-            let _ = writeln!(html, "<li class=\"warn\">{}</li>", escape(warning));
-        }
-        html.push_str("</ul>\n");
-    }
-    html.push_str("</section>\n");
     html
 }
 
@@ -344,8 +444,8 @@ pub fn temperature_text(results: &RunResults) -> String {
     format!("{low:.1} to {high:.1} °C in the export (mean {mean:.1} °C)")
 }
 
-fn settings_section(parts: &ReportParts) -> String {
-    let mut html = heading("settings");
+fn settings_part(parts: &ReportParts) -> String {
+    let mut html = String::from("<h3 id=\"settings\">Settings used</h3>\n");
     html.push_str("<table>\n<tr><th>setting</th><th>value</th></tr>\n");
     if let Ok(serde_json::Value::Object(map)) = serde_json::to_value(&parts.record.used) {
         for (name, value) in map {
@@ -362,7 +462,7 @@ fn settings_section(parts: &ReportParts) -> String {
             );
         }
     }
-    html.push_str("</table>\n<p>The same settings are in <code>settings.toml</code> (repeat the run with <code>--assay settings.toml</code>) and <code>run.json</code>.</p>\n</section>\n");
+    html.push_str("</table>\n<p>The same settings are in <code>settings.toml</code> (repeat the run with <code>--assay settings.toml</code>) and <code>run.json</code>.</p>\n");
     html
 }
 

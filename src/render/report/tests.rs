@@ -124,8 +124,16 @@ fn structure(page: &str) -> String {
     for heading in all_between(page, "<h3>", "</h3>") {
         lines.push(format!("h3 {heading}"));
     }
-    for id in ["inputs", "settings", "conditions", "trust", "checklist"] {
+    for id in ["results", "about", "conditions", "trust", "checklist"] {
         lines.push(format!("rows {id} {}", table_rows(section(page, id))));
+    }
+    for row in all_between(section(page, "results"), "<tr><th scope=\"row\">", "</tr>") {
+        let group = row.split('<').next().unwrap_or("");
+        let analysis = all_between(row, "<strong>", "</strong>");
+        lines.push(format!(
+            "result {group}: trust {}",
+            analysis.first().copied().unwrap_or("")
+        ));
     }
     for row in all_between(section(page, "flagged"), "<tr data-well=\"", "</tr>") {
         let well = row.split('"').next().unwrap_or("");
