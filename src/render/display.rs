@@ -258,6 +258,24 @@ pub fn number(value: f64) -> String {
     }
 }
 
+/// An axis tick: four significant digits without trailing zeros (`0.002`, `100`, `1.5e-5`).
+pub fn tick(value: f64) -> String {
+    if !value.is_finite() {
+        return String::new();
+    }
+    if value == 0.0 {
+        return "0".to_string();
+    }
+    let magnitude = value.abs().log10().floor() as i32;
+    let scale = 10f64.powi(3 - magnitude);
+    let rounded = (value * scale).round() / scale;
+    if (-4..6).contains(&magnitude) {
+        format!("{rounded}")
+    } else {
+        format!("{rounded:e}")
+    }
+}
+
 /// [`number`] for HTML (`1.462 &times; 10<sup>&minus;5</sup>`).
 pub fn number_html(value: f64) -> String {
     let text = number(value);
@@ -292,6 +310,16 @@ mod tests {
         assert_eq!(number(f64::NAN), "-");
         assert_eq!(number_html(1.46e7), "1.460 &times; 10<sup>7</sup>");
         assert_eq!(with_decimals(-0.0001, 2), "0.00");
+        for (value, text) in [
+            (100.0, "100"),
+            (0.002, "0.002"),
+            (0.30000000000000004, "0.3"),
+            (1.5e-5, "1.5e-5"),
+            (-2.5, "-2.5"),
+            (0.0, "0"),
+        ] {
+            assert_eq!(tick(value), text);
+        }
     }
 
     #[test]

@@ -16,7 +16,6 @@ use plotters::prelude::*;
 
 use super::palette::{BLACK, BLUE, FRAME_GREY, ORANGE, SKY_BLUE, VERMILLION};
 use super::{drawn, padded_range, text_style, titled_chart, Drawing};
-use crate::core::format::significant;
 use crate::core::stats::t_critical;
 use crate::groups::{GroupFit, LeftOutPlace};
 use crate::pipeline::RunResults;
@@ -257,15 +256,22 @@ impl GroupPlot<'_> {
             .map(|p| p.rate)
             .chain(curve.iter().flat_map(|p| [p.1, p.2, p.3]));
         let y_range = padded_range(y_values, true);
-        let mut chart = titled_chart(root, self.title(), text_style(14.0, BLACK), x_range, y_range)?;
+        let mut chart = titled_chart(
+            root,
+            self.title(),
+            text_style(super::text_px::TITLE, BLACK),
+            x_range,
+            y_range,
+        )?;
         drawn(
             chart
                 .configure_mesh()
                 .x_desc(self.substrate_axis())
                 .y_desc(format!("rate [{}]", view.rate_unit))
-                .label_style(text_style(11.0, BLACK))
-                .axis_desc_style(text_style(12.0, BLACK))
-                .y_label_formatter(&|v| significant(*v))
+                .label_style(text_style(super::text_px::TICK, BLACK))
+                .axis_desc_style(text_style(super::text_px::AXIS, BLACK))
+                .x_label_formatter(&super::tick_label)
+                .y_label_formatter(&super::tick_label)
                 .max_light_lines(0)
                 .draw(),
         )?;
@@ -311,7 +317,7 @@ impl GroupPlot<'_> {
         drawn(
             chart
                 .configure_series_labels()
-                .label_font(text_style(11.0, BLACK))
+                .label_font(text_style(super::text_px::TICK, BLACK))
                 .background_style(WHITE.mix(0.85))
                 .border_style(FRAME_GREY)
                 .position(SeriesLabelPosition::LowerRight)
@@ -327,15 +333,22 @@ impl GroupPlot<'_> {
         let x_range = (0.0, if s_max > 0.0 { s_max * 1.05 } else { 1.0 });
         let largest = residuals.iter().map(|p| p.1.abs()).fold(0.0, f64::max);
         let y_range = padded_range([-largest, largest], true);
-        let mut chart = titled_chart(root, self.title(), text_style(14.0, BLACK), x_range, y_range)?;
+        let mut chart = titled_chart(
+            root,
+            self.title(),
+            text_style(super::text_px::TITLE, BLACK),
+            x_range,
+            y_range,
+        )?;
         drawn(
             chart
                 .configure_mesh()
                 .x_desc(self.substrate_axis())
                 .y_desc(format!("observed - fitted [{}]", view.rate_unit))
-                .label_style(text_style(11.0, BLACK))
-                .axis_desc_style(text_style(12.0, BLACK))
-                .y_label_formatter(&|v| significant(*v))
+                .label_style(text_style(super::text_px::TICK, BLACK))
+                .axis_desc_style(text_style(super::text_px::AXIS, BLACK))
+                .x_label_formatter(&super::tick_label)
+                .y_label_formatter(&super::tick_label)
                 .max_light_lines(0)
                 .draw(),
         )?;
@@ -370,15 +383,22 @@ impl GroupPlot<'_> {
             .chain(nonlinear_line.iter().flatten().map(|p| p.1))
             .chain(straight_line.iter().flatten().map(|p| p.1));
         let y_range = padded_range(y_values, true);
-        let mut chart = titled_chart(root, self.title(), text_style(14.0, VERMILLION), x_range, y_range)?;
+        let mut chart = titled_chart(
+            root,
+            self.title(),
+            text_style(super::text_px::TITLE, VERMILLION),
+            x_range,
+            y_range,
+        )?;
         drawn(
             chart
                 .configure_mesh()
                 .x_desc(format!("1/[S] [1/{}]", view.substrate_unit))
                 .y_desc(format!("1/rate [1/({})]", view.rate_unit))
-                .label_style(text_style(11.0, BLACK))
-                .axis_desc_style(text_style(12.0, BLACK))
-                .y_label_formatter(&|v| significant(*v))
+                .label_style(text_style(super::text_px::TICK, BLACK))
+                .axis_desc_style(text_style(super::text_px::AXIS, BLACK))
+                .x_label_formatter(&super::tick_label)
+                .y_label_formatter(&super::tick_label)
                 .max_light_lines(0)
                 .draw(),
         )?;
@@ -398,7 +418,7 @@ impl GroupPlot<'_> {
         drawn(
             chart
                 .configure_series_labels()
-                .label_font(text_style(11.0, BLACK))
+                .label_font(text_style(super::text_px::TICK, BLACK))
                 .background_style(WHITE.mix(0.85))
                 .border_style(FRAME_GREY)
                 .position(SeriesLabelPosition::UpperLeft)

@@ -15,7 +15,6 @@ use plotters::prelude::*;
 
 use super::palette::{BLACK, BLUE, BLUISH_GREEN, FRAME_GREY, ORANGE, REDDISH_PURPLE, SKY_BLUE, VERMILLION};
 use super::{drawn, padded_range, text_style, titled_chart, Drawing};
-use crate::core::format::significant;
 use crate::fit::models::{predict_rate, RateModelKind};
 use crate::groups::{GroupFit, LeftOutPlace};
 use crate::pipeline::RunResults;
@@ -471,15 +470,22 @@ impl Drawing for InhibitionPlot<'_> {
                 )
             }
         };
-        let mut chart = titled_chart(root, self.title(), text_style(13.0, BLACK), x_range, y_range)?;
+        let mut chart = titled_chart(
+            root,
+            self.title(),
+            text_style(super::text_px::TITLE, BLACK),
+            x_range,
+            y_range,
+        )?;
         drawn(
             chart
                 .configure_mesh()
                 .x_desc(format!("[S] [{}]", view.substrate_unit))
                 .y_desc(y_desc)
-                .label_style(text_style(11.0, BLACK))
-                .axis_desc_style(text_style(12.0, BLACK))
-                .y_label_formatter(&|v| significant(*v))
+                .label_style(text_style(super::text_px::TICK, BLACK))
+                .axis_desc_style(text_style(super::text_px::AXIS, BLACK))
+                .x_label_formatter(&super::tick_label)
+                .y_label_formatter(&super::tick_label)
                 .max_light_lines(0)
                 .draw(),
         )?;
@@ -529,7 +535,7 @@ impl Drawing for InhibitionPlot<'_> {
         drawn(
             chart
                 .configure_series_labels()
-                .label_font(text_style(11.0, BLACK))
+                .label_font(text_style(super::text_px::TICK, BLACK))
                 .background_style(WHITE.mix(0.85))
                 .border_style(FRAME_GREY)
                 .position(SeriesLabelPosition::LowerRight)

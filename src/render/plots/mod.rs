@@ -8,8 +8,8 @@
 //! registered once with plotters' ab_glyph text renderer ([`register_fonts`]).
 //!
 //! Colours are the Okabe-Ito palette, chosen to stay distinguishable for the common forms of
-//! colour blindness, and a flag is never shown by colour alone (a text code and a hatch pattern
-//! go with it). References: Okabe M and Ito K (2008), Color Universal Design (CUD): how to make
+//! colour blindness, and a flag is never shown by colour alone (a hatch pattern, a frame and its
+//! word or, on crowded plates, its word in the hover text go with it). References: Okabe M and Ito K (2008), Color Universal Design (CUD): how to make
 //! figures and presentations that are friendly to colorblind people, https://jfly.uni-koeln.de/color/;
 //! Wong B (2011), Points of view: color blindness, Nature Methods 8:441.
 
@@ -33,8 +33,7 @@ pub use inhibition::{
 };
 pub use progress::{progress_plots, ProgressPlot, ProgressPlotKind, ProgressView};
 pub use wells::{
-    flag_code, plate_view, viridis, Overview, OverviewGeometry, PlateView, WellDetail, WellState, WellView,
-    ALL_FLAGS,
+    plate_view, viridis, Overview, OverviewGeometry, PlateView, WellDetail, WellState, WellView, ALL_FLAGS,
 };
 
 /// Why a plot could not be drawn (a drawing-library failure; not reachable from user input).
@@ -211,15 +210,43 @@ pub(crate) fn titled_chart<'a, DB: DrawingBackend>(
         ChartBuilder::on(root)
             .caption(title, title_style)
             .margin(10)
-            .x_label_area_size(40)
-            .y_label_area_size(72)
+            .x_label_area_size(48)
+            .y_label_area_size(80)
             .build_cartesian_2d(x_range.0..x_range.1, y_range.0..y_range.1),
     )
 }
 
-/// A text style in the plots' font.
-pub(crate) fn text_style(size: f64, colour: RGBColor) -> TextStyle<'static> {
-    styled_font((FONT_FAMILY, size).into_font(), colour)
+/// plotters' SVG backend writes a font size of the size asked divided by 1.24 (its bitmap backend
+/// draws the same), so sizes are asked here in the pixels wanted on the page and scaled up.
+const PLOTTERS_FONT_SCALE: f64 = 1.24;
+
+/// The smallest text any plot carries, in pixels at the page's natural width (issue 14: 11 px).
+pub const MIN_TEXT_PX: f64 = 11.0;
+
+/// The plots' text sizes in pixels on the page, one set for every plot so they look alike.
+pub mod text_px {
+    /// Tick labels and legends.
+    pub const TICK: f64 = 12.0;
+    /// Axis descriptions.
+    pub const AXIS: f64 = 13.0;
+    /// Titles.
+    pub const TITLE: f64 = 15.0;
+}
+
+/// The font of the plots at `px` pixels on the page (never below [`MIN_TEXT_PX`]).
+pub(crate) fn font_px(px: f64, style: FontStyle) -> FontDesc<'static> {
+    (FONT_FAMILY, px.max(MIN_TEXT_PX) * PLOTTERS_FONT_SCALE, style).into_font()
+}
+
+/// A text style in the plots' font, `px` pixels high on the page (never below [`MIN_TEXT_PX`]).
+pub(crate) fn text_style(px: f64, colour: RGBColor) -> TextStyle<'static> {
+    styled_font(font_px(px, FontStyle::Normal), colour)
+}
+
+/// A tick label: the value to four significant digits without trailing zeros (`0.002`, `100`,
+/// `1.5e-5`), never `100.0`.
+pub(crate) fn tick_label(value: &f64) -> String {
+    crate::render::display::tick(*value)
 }
 
 /// A text style from a font and a colour (plotters' `color` ties the style to the colour's borrow).

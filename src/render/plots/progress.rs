@@ -14,7 +14,6 @@ use plotters::prelude::*;
 use super::inhibition::{draw_markers, legend_entry, level_style};
 use super::palette::{BLACK, FRAME_GREY};
 use super::{drawn, padded_range, text_style, titled_chart, Drawing};
-use crate::core::format::significant;
 use crate::pipeline::RunResults;
 use crate::progress::analysis::{ProgressCurve, ProgressGroupReport};
 use crate::render::words::group_label;
@@ -167,15 +166,22 @@ impl Drawing for ProgressPlot<'_> {
                 )
             }
         };
-        let mut chart = titled_chart(root, self.title(), text_style(13.0, BLACK), x_range, y_range)?;
+        let mut chart = titled_chart(
+            root,
+            self.title(),
+            text_style(super::text_px::TITLE, BLACK),
+            x_range,
+            y_range,
+        )?;
         drawn(
             chart
                 .configure_mesh()
                 .x_desc("time [s]")
                 .y_desc(y_desc)
-                .label_style(text_style(11.0, BLACK))
-                .axis_desc_style(text_style(12.0, BLACK))
-                .y_label_formatter(&|v| significant(*v))
+                .label_style(text_style(super::text_px::TICK, BLACK))
+                .axis_desc_style(text_style(super::text_px::AXIS, BLACK))
+                .x_label_formatter(&super::tick_label)
+                .y_label_formatter(&super::tick_label)
                 .max_light_lines(0)
                 .draw(),
         )?;
@@ -227,7 +233,7 @@ impl Drawing for ProgressPlot<'_> {
         drawn(
             chart
                 .configure_series_labels()
-                .label_font(text_style(10.0, BLACK))
+                .label_font(text_style(super::text_px::TICK, BLACK))
                 .background_style(WHITE.mix(0.85))
                 .border_style(FRAME_GREY)
                 .position(match self.kind {

@@ -19,19 +19,6 @@ use crate::layout::Role;
 use crate::pipeline::RunResults;
 use crate::rates::Flag;
 
-/// The short text code a flag carries on the plots (never colour alone).
-pub fn flag_code(flag: Flag) -> &'static str {
-    match flag {
-        Flag::Nonlinear => "NL",
-        Flag::Lag => "LG",
-        Flag::Unreadable => "UR",
-        Flag::Depleted => "DP",
-        Flag::Noisy => "NO",
-        Flag::Weak => "WK",
-        Flag::Saturated => "SA",
-    }
-}
-
 /// Every flag, for legends.
 pub const ALL_FLAGS: [Flag; 7] = [
     Flag::Nonlinear,
@@ -82,13 +69,22 @@ pub struct WellView {
 }
 
 impl WellView {
-    /// The flag codes joined: `DP,WK`.
-    pub fn codes(&self) -> String {
+    /// The flags' words joined: `depleted, weak` (words, never codes a reader must learn).
+    pub fn flag_words(&self) -> String {
         self.flags
             .iter()
-            .map(|flag| flag_code(*flag))
+            .map(|flag| flag.word())
             .collect::<Vec<_>>()
-            .join(",")
+            .join(", ")
+    }
+
+    /// The first flag's word, with how many more there are: `depleted +1`.
+    pub fn first_flag_word(&self) -> Option<String> {
+        let first = self.flags.first()?;
+        Some(match self.flags.len() {
+            1 => first.word().to_string(),
+            n => format!("{} +{}", first.word(), n - 1),
+        })
     }
 
     /// The anchor of the well's detail in the report.
@@ -230,7 +226,8 @@ impl OverviewGeometry {
     pub fn for_plate(plate: PlateFormat) -> OverviewGeometry {
         let (cell_width, cell_height, heat_map) = match plate {
             PlateFormat::Wells96 => (92, 64, false),
-            PlateFormat::Wells384 => (60, 42, false),
+            // 24 columns of 46 px: the plate fits a 1366 px laptop screen without scrolling.
+            PlateFormat::Wells384 => (46, 36, false),
             PlateFormat::Wells1536 => (22, 16, true),
         };
         let left = 36;
@@ -346,8 +343,12 @@ impl Drawing for Overview<'_> {
         let geometry = self.geometry();
         let view = self.view;
         drawn(root.fill(&WHITE))?;
-        drawn(root.draw_text(&self.title, &text_style(15.0, BLACK), (geometry.left as i32, 8)))?;
-        let label_style = text_style(11.0, BLACK);
+        drawn(root.draw_text(
+            &self.title,
+            &text_style(super::text_px::TITLE, BLACK),
+            (geometry.left as i32, 8),
+        ))?;
+        let label_style = text_style(super::text_px::TICK, BLACK);
         for column in 0..view.plate.n_columns() {
             let (x, _, w, _) = geometry.cell(WellId::new(0, column));
             let text = (column + 1).to_string();
@@ -397,7 +398,11 @@ impl Overview<'_> {
         let (wi, hi) = (w as i32, h as i32);
         let small = geometry.cell_width < 80;
         // plotters draws text at about 0.8 of the size asked: 11 gives 9 px labels at 384 wells.
-        let font = if small { 11.0 } else { 13.0 };
+        let font = if small {
+            super::MIN_TEXT_PX
+        } else {
+            super::text_px::TICK
+        };
         let flagged = !well.flags.is_empty();
         let background = if well.state == WellState::Analysed {
             WHITE
@@ -416,19 +421,18 @@ impl Overview<'_> {
         }
         let label = format!("{}{}", well.well, role_tag(well.role));
         drawn(cell.draw_text(&label, &text_style(font, BLACK), (4, 3)))?;
-        if flagged {
-            let codes = well.codes();
-            let style = super::styled_font(
-                (super::FONT_FAMILY, font, FontStyle::Bold).into_font(),
-                VERMILLION,
-            );
-            let width = drawn(root.estimate_text_size(&codes, &style))?.0 as i32;
-            drawn(cell.draw_text(&codes, &style, (wi - width - 4, 3)))?;
+        // Miniatures wide enough carry the flag's word along their foot; narrower ones (384 wells)
+        // carry the hatch and frame only, with the words in the hover text.
+        let word_below = if small { None } else { well.first_flag_word() };
+        if let Some(word) = &word_below {
+            let style = super::styled_font(super::font_px(super::MIN_TEXT_PX, FontStyle::Bold), VERMILLION);
+            drawn(cell.draw_text(word, &style, (4, hi - 16)))?;
         }
         if well.state == WellState::Analysed {
+            let foot = if word_below.is_some() { 15 } else { 0 };
             let plot_area = cell
                 .clone()
-                .shrink((3, font as u32 + 5), (w - 6, h - font as u32 - 8));
+                .shrink((3, font as u32 + 5), (w - 6, h - font as u32 - 8 - foot));
             let t_range = padded_range(self.view.times_s.iter().copied(), false);
             let y_range = padded_range(well.trace.iter().flatten().copied(), false);
             let mut chart = drawn(
@@ -474,7 +478,7 @@ impl Overview<'_> {
     ) -> Result<(), String> {
         let y = (geometry.height - 50) as i32;
         let x = geometry.left as i32;
-        let style = text_style(12.0, BLACK);
+        let style = text_style(super::text_px::AXIS, BLACK);
         drawn(root.draw(&PathElement::new(
             vec![(x, y + 7), (x + 22, y + 7)],
             BLUE.stroke_width(2),
@@ -495,17 +499,16 @@ impl Overview<'_> {
         let x4 = x3 + 180;
         drawn(root.draw(&Rectangle::new([(x4, y), (x4 + 22, y + 14)], EMPTY_GREY.filled())))?;
         drawn(root.draw_text("empty or no data", &style, (x4 + 28, y)))?;
-        let codes = ALL_FLAGS
-            .iter()
-            .map(|flag| format!("{} {}", flag_code(*flag), flag.word()))
-            .collect::<Vec<_>>()
-            .join(", ");
         let y2 = y + 22;
         let marker = root.clone().shrink((x as u32, y2 as u32), (22u32, 14u32));
         hatch(&marker, 22, 14, 6, VERMILLION.mix(0.5).stroke_width(1))?;
         drawn(marker.draw(&Rectangle::new([(0, 0), (22, 14)], VERMILLION.stroke_width(2))))?;
         drawn(root.draw_text(
-            &format!("flagged: hatched, red frame and code ({codes})"),
+            if geometry.cell_width < 80 {
+                "flagged: hatched and framed in red (hover over a well for its flags)"
+            } else {
+                "flagged: hatched, framed in red, with the first flag's word (hover over a well for every flag)"
+            },
             &style,
             (x + 28, y2),
         ))?;
@@ -527,7 +530,6 @@ impl Overview<'_> {
         let low = rates.iter().copied().fold(f64::INFINITY, f64::min);
         let high = rates.iter().copied().fold(f64::NEG_INFINITY, f64::max);
         let span = if high > low { high - low } else { 1.0 };
-        let code_style = super::styled_font((super::FONT_FAMILY, 9.0, FontStyle::Bold).into_font(), BLACK);
         for well in &self.view.wells {
             let (x, y, w, h) = geometry.cell(well.well);
             let cell = root.clone().shrink((x, y), (w, h));
@@ -539,14 +541,12 @@ impl Overview<'_> {
             };
             drawn(cell.draw(&Rectangle::new([(0, 0), (wi - 1, hi - 1)], fill.filled())))?;
             if !well.flags.is_empty() {
-                // Pattern and code: a white inset crossed by a diagonal, the first flag's code in it.
+                // The marker: a white inset crossed by a diagonal (the words are in the hover text).
                 drawn(cell.draw(&Rectangle::new([(2, 2), (wi - 3, hi - 3)], WHITE.filled())))?;
                 drawn(cell.draw(&PathElement::new(
                     vec![(2, hi - 3), (wi - 3, 2)],
                     VERMILLION.stroke_width(1),
                 )))?;
-                let code = flag_code(well.flags[0]);
-                drawn(cell.draw_text(code, &code_style, (3, 2)))?;
                 drawn(cell.draw(&Rectangle::new(
                     [(0, 0), (wi - 1, hi - 1)],
                     VERMILLION.stroke_width(2),
@@ -566,7 +566,7 @@ impl Overview<'_> {
                 colour.filled(),
             )))?;
         }
-        let style = text_style(12.0, BLACK);
+        let style = text_style(super::text_px::AXIS, BLACK);
         let (low_text, high_text) = if rates.is_empty() {
             ("-".to_string(), "-".to_string())
         } else {
@@ -577,15 +577,8 @@ impl Overview<'_> {
             &style,
             (x + bar_width + 10, y),
         ))?;
-        let codes = ALL_FLAGS
-            .iter()
-            .map(|flag| format!("{} {}", flag_code(*flag), flag.word()))
-            .collect::<Vec<_>>()
-            .join(", ");
         drawn(root.draw_text(
-            &format!(
-                "flagged: white inset, diagonal, red frame and code of the first flag ({codes}); grey: empty"
-            ),
+            "flagged: white inset, diagonal and red frame (hover over a well for its flags); grey: empty",
             &style,
             (x, y + 24),
         ))?;
@@ -624,17 +617,17 @@ impl Drawing for WellDetail<'_> {
         let flags = if well.flags.is_empty() {
             String::new()
         } else {
-            format!(" | flagged {}", well.codes())
+            format!(" | flagged {}", well.flag_words())
         };
         let caption = format!("Well {} ({role}{substrate}){flags}", well.well);
         let t_range = padded_range(self.view.times_s.iter().copied(), false);
         let y_range = padded_range(well.trace.iter().flatten().copied(), false);
         let mut chart = drawn(
             ChartBuilder::on(root)
-                .caption(caption, text_style(13.0, BLACK))
+                .caption(caption, text_style(super::text_px::TITLE, BLACK))
                 .margin(8)
-                .x_label_area_size(34)
-                .y_label_area_size(64)
+                .x_label_area_size(44)
+                .y_label_area_size(72)
                 .build_cartesian_2d(t_range.0..t_range.1, y_range.0..y_range.1),
         )?;
         drawn(
@@ -642,11 +635,12 @@ impl Drawing for WellDetail<'_> {
                 .configure_mesh()
                 .x_desc("time [s]")
                 .y_desc(self.view.value_label.as_str())
-                .label_style(text_style(10.0, BLACK))
-                .axis_desc_style(text_style(11.0, BLACK))
+                .label_style(text_style(super::text_px::TICK, BLACK))
+                .axis_desc_style(text_style(super::text_px::TICK, BLACK))
                 .x_labels(6)
                 .y_labels(5)
-                .y_label_formatter(&|v| significant(*v))
+                .x_label_formatter(&super::tick_label)
+                .y_label_formatter(&super::tick_label)
                 .max_light_lines(0)
                 .draw(),
         )?;
@@ -694,7 +688,7 @@ impl Drawing for WellDetail<'_> {
         drawn(
             chart
                 .configure_series_labels()
-                .label_font(text_style(10.0, BLACK))
+                .label_font(text_style(super::text_px::TICK, BLACK))
                 .background_style(WHITE.mix(0.85))
                 .border_style(FRAME_GREY)
                 .position(SeriesLabelPosition::LowerRight)
@@ -709,10 +703,9 @@ mod tests {
     use super::*;
 
     #[test]
-    fn every_flag_has_a_distinct_two_letter_code() {
-        let codes: std::collections::BTreeSet<&str> = ALL_FLAGS.iter().map(|f| flag_code(*f)).collect();
-        assert_eq!(codes.len(), ALL_FLAGS.len());
-        assert!(codes.iter().all(|code| code.len() == 2));
+    fn every_flag_has_a_distinct_word() {
+        let words: std::collections::BTreeSet<&str> = ALL_FLAGS.iter().map(|f| f.word()).collect();
+        assert_eq!(words.len(), ALL_FLAGS.len());
     }
 
     #[test]

@@ -6,10 +6,11 @@
 use std::fmt::Write as _;
 
 use super::trust_verdicts;
-use crate::core::format::{significant, CAUTION};
+use crate::core::format::CAUTION;
 use crate::files::output::OutputFile;
 use crate::layout::Role;
 use crate::pipeline::RunResults;
+use crate::render::display::{cv_percent, number_html as significant, DisplayUnit};
 use crate::render::plots::{
     group_plots, inhibition_plots, plate_view, render_png, render_svg, GroupPlotKind, GroupView,
     InhibitionPlot, InhibitionPlotKind, InhibitionView, PlateView, Plot, PlotError, WellState,
@@ -495,9 +496,9 @@ fn overview_with_links(parts: &ReportParts) -> String {
 fn overview_section(parts: &ReportParts) -> String {
     let mut html = heading("overview");
     let kind = if OverviewGeometry::for_plate(parts.plate.plate).heat_map {
-        "Each cell is one well coloured by its rate (viridis scale); flagged wells carry a white inset, a diagonal, a red frame and their first flag's code."
+        "Each cell is one well coloured by its rate (viridis scale); flagged wells carry a white inset, a diagonal and a red frame."
     } else {
-        "Each miniature is one well: its curve (blue, on its own scale), the initial-rate window (orange) and the fitted straight line (black). Flagged wells are hatched, framed in red and carry their flag codes."
+        "Each miniature is one well: its curve (blue, on its own scale), the initial-rate window (orange) and the fitted straight line (black). Flagged wells are hatched and framed in red, and on a 96-well plate carry their first flag's word."
     };
     let _ = writeln!(
         html,
@@ -532,7 +533,7 @@ fn flagged_section(parts: &ReportParts) -> String {
             .rate
             .flags
             .iter()
-            .map(|f| format!("{} ({})", f.word(), crate::render::plots::flag_code(*f)))
+            .map(|f| f.word().to_string())
             .collect::<Vec<_>>()
             .join(", ");
         let reason = if well.rate.notes.is_empty() {
@@ -579,11 +580,14 @@ fn conditions_section(parts: &ReportParts) -> String {
     for name in &layout.factor_names {
         let _ = write!(html, "<th>{}</th>", escape(name));
     }
+    // One display unit for the rate columns, chosen over the conditions' means.
+    let rates = DisplayUnit::for_values(rate_unit, results.conditions.iter().filter_map(|c| c.rate_mean));
     let _ = writeln!(
         html,
         "<th>n</th><th>n used</th><th>mean [{r}]</th><th>SD [{r}]</th><th>SEM [{r}]</th><th>CV</th><th>flags</th></tr>",
-        r = escape(rate_unit)
+        r = rates.html()
     );
+    let rate = |value: Option<f64>| value.map_or("-".to_string(), |v| rates.value(v));
     for condition in &results.conditions {
         let _ = write!(
             html,
@@ -602,10 +606,10 @@ fn conditions_section(parts: &ReportParts) -> String {
             "<td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
             condition.n,
             condition.n_used,
-            optional(condition.rate_mean),
-            optional(condition.rate_sd),
-            optional(condition.rate_sem),
-            optional(condition.cv),
+            rate(condition.rate_mean),
+            rate(condition.rate_sd),
+            rate(condition.rate_sem),
+            cv_percent(condition.cv),
             escape(&flag_count_words(&condition.flags))
         );
     }
@@ -635,7 +639,7 @@ fn groups_section(parts: &ReportParts) -> String {
         if let Some(error) = &fit.error {
             let _ = writeln!(html, "<p class=\"warn\">{}</p>", escape(error));
         }
-        html.push_str("<table>\n<tr><th>parameter</th><th>value</th><th>SE</th><th>95% interval</th><th>unit</th><th>determined</th></tr>\n");
+        html.push_str("<table>\n<tr><th>parameter</th><th>value</th><th>SE</th><th>95% interval</th><th>profile 95% interval</th><th>unit</th><th>determined</th></tr>\n");
         // The usual four first, then every other constant the reported model has (Ki, Ki', h...).
         let first = ["Vmax", "Km", "kcat", "kcat_over_Km"];
         let names = first.into_iter().chain(
@@ -646,26 +650,22 @@ fn groups_section(parts: &ReportParts) -> String {
         );
         for name in names {
             if let Some(p) = fit.parameters.get(name) {
-                let interval = p.ci95.map_or("-".to_string(), |[lo, hi]| {
-                    format!("{} to {}", significant(lo), significant(hi))
-                });
                 let _ = writeln!(
                     html,
-                    "<tr><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{interval}</td><td>{}</td><td>{}</td></tr>",
+                    "<tr><td>{}</td>{}</tr>",
                     name.replace("_over_", "/"),
-                    significant(p.value),
-                    optional(p.se),
-                    escape(&p.unit),
-                    if p.determined { "yes" } else { "no" }
+                    parameter_cells(p)
                 );
             }
         }
         let _ = writeln!(
             html,
-            "</table>\n<p>{} wells fitted; residual SD {} {}.</p>",
+            "</table>\n<p>{} wells fitted; residual SD {}.</p>",
             fit.n,
-            optional(fit.residual_sd),
-            escape(&parts.results.analysis.signal.rate_unit())
+            fit.residual_sd.map_or("-".to_string(), |sd| {
+                let unit = DisplayUnit::for_values(&parts.results.analysis.signal.rate_unit(), [sd]);
+                format!("{} {}", unit.value(sd), unit.html())
+            })
         );
         html.push_str(&model_choice_html(fit));
         if !fit.warnings.is_empty() {
@@ -743,20 +743,26 @@ fn model_choice_html(fit: &crate::groups::GroupFit) -> String {
     html
 }
 
-/// A progress-curve parameter: value, 95% interval, and Km's profile interval when there is one.
-fn progress_parameter_cells(p: &crate::groups::ParameterReport) -> String {
+/// A constant's cells in the unit that reads plainly: value, SE, 95% interval, profile 95%
+/// interval (an open end where the profile does not cross), unit, determined.
+fn parameter_cells(p: &crate::groups::ParameterReport) -> String {
+    let unit = DisplayUnit::for_values(&p.unit, [p.value]);
     let interval = p.ci95.map_or("-".to_string(), |[lo, hi]| {
-        format!("{} to {}", significant(lo), significant(hi))
+        format!(
+            "{} to {}",
+            unit.value_like(lo, p.value),
+            unit.value_like(hi, p.value)
+        )
     });
     let profile = p.ci95_profile.map_or("-".to_string(), |[lo, hi]| {
-        let side = |v: Option<f64>| v.map_or("open".to_string(), significant);
+        let side = |v: Option<f64>| v.map_or("open".to_string(), |v| unit.value_like(v, p.value));
         format!("{} to {}", side(lo), side(hi))
     });
     format!(
         "<td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{interval}</td><td class=\"num\">{profile}</td><td>{}</td><td>{}</td>",
-        significant(p.value),
-        optional(p.se),
-        escape(&p.unit),
+        unit.value(p.value),
+        p.se.map_or("-".to_string(), |se| unit.value(se)),
+        unit.html(),
         if p.determined { "yes" } else { "no" }
     )
 }
@@ -804,7 +810,7 @@ fn progress_section(parts: &ReportParts) -> String {
                 html,
                 "<tr><td>{}</td>{}</tr>",
                 escape(&name.replace("_over_", "/")),
-                progress_parameter_cells(p)
+                parameter_cells(p)
             );
         }
         html.push_str("</table>\n");

@@ -103,6 +103,32 @@ fn all_between<'a>(text: &'a str, start: &str, end: &str) -> Vec<&'a str> {
     found
 }
 
+/// The smallest `font-size` in an SVG (or a page of them), in pixels.
+pub(crate) fn smallest_font_px(svg: &str) -> Option<f64> {
+    all_between(svg, "font-size=\"", "\"")
+        .iter()
+        .filter_map(|size| size.trim_end_matches("px").parse::<f64>().ok())
+        .map(|size| (size * 1000.0).round() / 1000.0)
+        .reduce(f64::min)
+}
+
+/// Issue 14: no plot text below 11 px at the page's natural width (plots are drawn at their own
+/// size and never scaled up or down on a wide screen).
+#[test]
+fn no_plot_text_is_smaller_than_eleven_pixels() {
+    let (_, page) = demo_page();
+    let smallest = smallest_font_px(&page).unwrap();
+    assert!(smallest >= 11.0, "smallest plot text {smallest} px");
+    let (results, layer) = inhibition_results();
+    let record = record(&layer);
+    let parts = ReportParts::build(&results, &record).unwrap();
+    let smallest = smallest_font_px(&report_html(&parts)).unwrap();
+    assert!(
+        smallest >= 11.0,
+        "inhibition page: smallest plot text {smallest} px"
+    );
+}
+
 fn table_rows(section: &str) -> usize {
     section.matches("<tr>").count() + section.matches("<tr ").count()
 }
@@ -366,12 +392,12 @@ fn report_mode_parses_and_refuses_unknown_words() {
 }
 
 /// The 384- and 1536-well overviews: every analysed well appears once as a cell, the cells are
-/// large enough to read (384: 60 x 42 px miniatures with 9 px labels; 1536: 22 x 16 px heat-map
-/// cells), and the whole overview keeps a readable width.
+/// large enough to read (384: 46 x 36 px miniatures with 11 px labels; 1536: 22 x 16 px heat-map
+/// cells), no text is below 11 px, and the whole overview fits a 1366 px laptop screen.
 #[test]
 fn large_plates_give_a_legible_overview_with_every_well() {
     for (format, min_cell) in [
-        (PlateFormat::Wells384, (56, 40)),
+        (PlateFormat::Wells384, (44, 34)),
         (PlateFormat::Wells1536, (20, 14)),
     ] {
         let (results, layer) = large_results(format);
@@ -383,10 +409,12 @@ fn large_plates_give_a_legible_overview_with_every_well() {
             "{format}"
         );
         assert!(
-            parts.overview.width <= 1600,
+            parts.overview.width <= 1152,
             "{format}: {} px wide",
             parts.overview.width
         );
+        let smallest = smallest_font_px(&parts.overview.svg).unwrap();
+        assert!(smallest >= 11.0, "{format}: {smallest} px");
         assert_eq!(
             analysed_well_count(&parts),
             results.analysis.wells.len(),
