@@ -171,6 +171,7 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
             lines.push(format!("left out of means and fits: {}", excluded.join(", ")));
         }
     }
+    lines.extend(super::screen::summary_lines(results));
     lines.push(String::new());
     lines.push("Fits (value [95% interval]):".to_string());
     lines.extend(group_fit_lines(&results.fits));

@@ -1,0 +1,324 @@
+//! Inhibitor screens through the binary: a simulated 384-well screen (40 compounds at eight
+//! three-fold doses, controls in four columns, every seventh compound inactive, Hill slopes 0.8 to
+//! 1.5; rates from the simulator's integration of the progress curves, truth known), exclusions
+//! recorded everywhere, and every new bad input refused naming the file and well or row.
+
+mod common;
+
+use std::collections::BTreeMap;
+use std::path::Path;
+
+use common::{platekin, text};
+use platekin::core::plate::PlateFormat;
+use platekin::simulate::screen::{screen_plate, ScreenPlate};
+use platekin::simulate::{simulate, wide_csv, WideCsvOptions};
+use serde_json::Value;
+
+/// Writes the plate's export and layout into `folder`.
+fn write_screen(folder: &Path, screen: &ScreenPlate) {
+    let plate = simulate(&screen.spec).expect("the simulator runs");
+    std::fs::write(
+        folder.join("plate.csv"),
+        wide_csv(&plate, &WideCsvOptions::default()),
+    )
+    .unwrap();
+    std::fs::write(folder.join("layout.csv"), &screen.layout_csv).unwrap();
+}
+
+fn screen_384() -> ScreenPlate {
+    screen_plate(PlateFormat::Wells384, 40, 7, 31, 2026)
+}
+
+/// Rows of a CSV by header.
+fn csv_rows(path: &Path) -> Vec<BTreeMap<String, String>> {
+    let content = std::fs::read_to_string(path).unwrap();
+    let mut lines = content.lines();
+    let header: Vec<String> = lines.next().unwrap().split(',').map(str::to_string).collect();
+    lines
+        .map(|line| {
+            header
+                .iter()
+                .cloned()
+                .zip(line.split(',').map(str::to_string))
+                .collect()
+        })
+        .collect()
+}
+
+fn run(folder: &Path, extra: &[&str]) -> std::process::Output {
+    let mut args = vec![
+        "run",
+        "plate.csv",
+        "--layout",
+        "layout.csv",
+        "--out",
+        "out",
+        "--report",
+        "none",
+    ];
+    args.extend_from_slice(extra);
+    platekin(&args, folder)
+}
+
+#[test]
+fn a_simulated_384_well_screen_recovers_ic50s_bounds_and_z_prime() {
+    let folder = tempfile::tempdir().unwrap();
+    let screen = screen_384();
+    write_screen(folder.path(), &screen);
+    let output = run(folder.path(), &[]);
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    let out = folder.path().join("out");
+    let compounds = csv_rows(&out.join("compounds.csv"));
+    assert_eq!(compounds.len(), 40);
+    let header: Vec<&String> = compounds[0].keys().collect();
+    for column in [
+        "compound",
+        "IC50 [uM]",
+        "IC50_qualifier",
+        "IC50_ci95_low [uM]",
+        "IC50_ci95_high [uM]",
+        "hill",
+        "top [%]",
+        "bottom [%]",
+        "n_points",
+        "flags",
+    ] {
+        assert!(
+            compounds[0].contains_key(column),
+            "{column} missing from {header:?}"
+        );
+    }
+    let by_name: BTreeMap<&str, &BTreeMap<String, String>> = compounds
+        .iter()
+        .map(|row| (row["compound"].as_str(), row))
+        .collect();
+    // Tolerance: 0.15 log10 units (a factor 1.41) on every active compound; the rates carry read
+    // noise (SD 0.0008 AU) and depletion of up to 10%, and the controls' means are estimates.
+    let mut worst: f64 = 0.0;
+    let mut inside = 0;
+    let mut active = 0;
+    for truth in &screen.compounds {
+        let row = by_name[truth.name.as_str()];
+        if truth.inactive {
+            assert_eq!(row["IC50_qualifier"], ">", "{}: {row:?}", truth.name);
+            continue;
+        }
+        active += 1;
+        assert_eq!(row["IC50_qualifier"], "=", "{}: {row:?}", truth.name);
+        let ic50: f64 = row["IC50 [uM]"].parse().unwrap();
+        let error = (ic50.log10() - truth.ic50_um.log10()).abs();
+        worst = worst.max(error);
+        assert!(
+            error < 0.15,
+            "{}: IC50 {ic50} against {} ({row:?})",
+            truth.name,
+            truth.ic50_um
+        );
+        let low: f64 = row["IC50_ci95_low [uM]"].parse().unwrap();
+        let high: f64 = row["IC50_ci95_high [uM]"].parse().unwrap();
+        assert!(low < ic50 && ic50 < high, "{row:?}");
+        if low <= truth.ic50_um && truth.ic50_um <= high {
+            inside += 1;
+        }
+    }
+    eprintln!("worst |log10 IC50 error| {worst:.3}; {inside} of {active} intervals hold the truth");
+    assert!(inside * 10 >= active * 8, "{inside} of {active}");
+
+    // Z' equals the formula applied to the control rates of wells.csv.
+    let wells = csv_rows(&out.join("wells.csv"));
+    let rate_header = wells[0].keys().find(|k| k.starts_with("rate [")).unwrap().clone();
+    let rates_of = |role: &str| -> Vec<f64> {
+        wells
+            .iter()
+            .filter(|row| row["role"] == role && row["used"] == "true")
+            .map(|row| row[&rate_header].parse().unwrap())
+            .collect()
+    };
+    let (u, i) = (rates_of("uninhibited"), rates_of("inhibited"));
+    assert_eq!((u.len(), i.len()), (32, 32));
+    let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len() as f64;
+    let sd = |v: &[f64]| {
+        let m = mean(v);
+        (v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (v.len() - 1) as f64).sqrt()
+    };
+    let z_by_hand = 1.0 - 3.0 * (sd(&u) + sd(&i)) / (mean(&u) - mean(&i)).abs();
+    let qc: Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("plate_qc.json")).unwrap()).unwrap();
+    let z = qc["z_prime"].as_f64().unwrap();
+    assert!(
+        (z - z_by_hand).abs() < 1e-6 * z_by_hand.abs().max(1.0),
+        "{z} against {z_by_hand}"
+    );
+    assert_eq!(qc["uninhibited"]["n"], 32);
+    assert!(qc["signal_window"].as_f64().is_some());
+    // % activity of a sample is the formula on its rate.
+    let sample = wells.iter().find(|row| row["role"] == "sample").unwrap();
+    let rate: f64 = sample[&rate_header].parse().unwrap();
+    let activity: f64 = sample["activity [%]"].parse().unwrap();
+    let by_hand = 100.0 * (rate - mean(&i)) / (mean(&u) - mean(&i));
+    assert!((activity - by_hand).abs() < 1e-6, "{activity} against {by_hand}");
+}
+
+#[test]
+fn exclusions_are_recorded_everywhere_and_repeat() {
+    let folder = tempfile::tempdir().unwrap();
+    let screen = screen_plate(PlateFormat::Wells384, 6, 0, 21, 7);
+    write_screen(folder.path(), &screen);
+    // One well by file, one by the layout's exclude column.
+    std::fs::write(
+        folder.path().join("bad.csv"),
+        "well,reason\nC5,bubble seen at the bench\n",
+    )
+    .unwrap();
+    let layout = screen
+        .layout_csv
+        .replacen("inhibitor [uM]\n", "inhibitor [uM],exclude\n", 1);
+    let layout: String = layout
+        .lines()
+        .map(|line| {
+            if line.starts_with("D5,") {
+                format!("{line},tip touched the well\n")
+            } else if line.starts_with("well,") {
+                format!("{line}\n")
+            } else {
+                format!("{line},\n")
+            }
+        })
+        .collect();
+    std::fs::write(folder.path().join("layout.csv"), layout).unwrap();
+    let output = run(folder.path(), &["--exclude", "bad.csv"]);
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    let summary = text(&output.stdout);
+    assert!(
+        summary.contains("C5") && summary.contains("bubble seen at the bench"),
+        "{summary}"
+    );
+    assert!(summary.contains("tip touched the well"), "{summary}");
+    let out = folder.path().join("out");
+    let wells = csv_rows(&out.join("wells.csv"));
+    for (well, reason) in [("C5", "bubble seen at the bench"), ("D5", "tip touched the well")] {
+        let row = wells.iter().find(|row| row["well"] == well).unwrap();
+        assert_eq!(row["used"], "false", "{row:?}");
+        assert!(row["notes"].contains(reason), "{row:?}");
+    }
+    let settings = std::fs::read_to_string(out.join("settings.toml")).unwrap();
+    assert!(
+        settings.contains("bubble seen at the bench") && settings.contains("C5"),
+        "{settings}"
+    );
+    // The settings repeat the run without the file.
+    std::fs::remove_file(folder.path().join("bad.csv")).unwrap();
+    let again = platekin(
+        &[
+            "run",
+            "plate.csv",
+            "--assay",
+            "out/settings.toml",
+            "--out",
+            "again",
+            "--report",
+            "none",
+        ],
+        folder.path(),
+    );
+    assert!(again.status.success(), "{}", text(&again.stderr));
+    assert_eq!(
+        std::fs::read(out.join("compounds.csv")).unwrap(),
+        std::fs::read(folder.path().join("again/compounds.csv")).unwrap()
+    );
+    let rows = csv_rows(&folder.path().join("again/wells.csv"));
+    assert_eq!(
+        rows.iter().find(|row| row["well"] == "C5").unwrap()["used"],
+        "false"
+    );
+}
+
+/// Runs with a changed layout (and extra flags) and returns the error text, checking that nothing
+/// was written.
+fn refused(layout: &str, extra: &[&str], files: &[(&str, &str)]) -> String {
+    let folder = tempfile::tempdir().unwrap();
+    let screen = screen_plate(PlateFormat::Wells384, 4, 0, 21, 11);
+    write_screen(folder.path(), &screen);
+    std::fs::write(folder.path().join("layout.csv"), layout).unwrap();
+    for (name, content) in files {
+        std::fs::write(folder.path().join(name), content).unwrap();
+    }
+    let output = run(folder.path(), extra);
+    assert_eq!(output.status.code(), Some(2), "{}", text(&output.stdout));
+    assert!(!folder.path().join("out").exists(), "nothing is written");
+    text(&output.stderr)
+}
+
+#[test]
+fn bad_screening_inputs_are_refused_naming_the_file_and_well() {
+    let screen = screen_plate(PlateFormat::Wells384, 4, 0, 21, 11);
+    let layout = &screen.layout_csv;
+    // Controls missing: no inhibited wells.
+    let without_inhibited: String = layout
+        .lines()
+        .filter(|line| !line.contains(",inhibited,"))
+        .map(|line| format!("{line}\n"))
+        .collect();
+    let message = refused(&without_inhibited, &["--allow-missing"], &[]);
+    assert!(
+        message.contains("layout.csv") && message.contains("no well is `inhibited`"),
+        "{message}"
+    );
+    // A compound tested at one dose: CPD-001's doses all set to 1.
+    let one_dose: String = layout
+        .lines()
+        .map(|line| {
+            if line.contains(",CPD-001,") {
+                let mut cells: Vec<&str> = line.split(',').collect();
+                cells[5] = "1";
+                format!("{}\n", cells.join(","))
+            } else {
+                format!("{line}\n")
+            }
+        })
+        .collect();
+    let message = refused(&one_dose, &[], &[]);
+    assert!(
+        message.contains("layout.csv, row") && message.contains("CPD-001") && message.contains("one dose"),
+        "{message}"
+    );
+    // Activity without controls: a factor splits the controls, and one sample's group has none.
+    let split: String = layout
+        .lines()
+        .enumerate()
+        .map(|(index, line)| {
+            if index == 0 {
+                format!("{line},batch\n")
+            } else if line.contains(",uninhibited,") || line.contains(",inhibited,") {
+                format!("{line},north\n")
+            } else if line.starts_with("A3,") {
+                format!("{line},south\n")
+            } else {
+                format!("{line},north\n")
+            }
+        })
+        .collect();
+    let message = refused(&split, &[], &[]);
+    assert!(
+        message.contains("layout.csv, row") && message.contains("A3") && message.contains("batch = south"),
+        "{message}"
+    );
+    // An exclusion naming a well off the plate.
+    let message = refused(
+        layout,
+        &["--exclude", "bad.csv"],
+        &[("bad.csv", "well,reason\nB2,bubble\nQ30,bubble\n")],
+    );
+    assert!(
+        message.contains("bad.csv, row 3")
+            && message.contains("Q30")
+            && message.contains("off the 384-well plate"),
+        "{message}"
+    );
+    // A compound column asked for that the layout does not have.
+    let message = refused(layout, &["--compound-column", "inhibitor_id"], &[]);
+    assert!(
+        message.contains("layout.csv") && message.contains("inhibitor_id"),
+        "{message}"
+    );
+}
