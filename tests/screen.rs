@@ -362,3 +362,61 @@ fn the_ic50_interval_covers_the_truth_over_200_simulated_compounds() {
     assert!(inside >= 176, "coverage {inside}/{total}");
     assert!(bias.abs() < 0.03, "log10 bias {bias}");
 }
+
+/// The screening demo (the invented Heron Quay fragment screen): the committed files are the
+/// simulator's output byte for byte, and the two commands of its README work: the run (with its
+/// exclusion table and Cheng-Prusoff Km from the assay file) and a report a screener can read:
+/// quality figures, a ranked table, one thumbnail per compound, the heat map, text of 11 px or more.
+#[test]
+fn the_screening_demo_runs_from_its_files_and_reports_for_a_screener() {
+    let folder = tempfile::tempdir().unwrap();
+    for (name, text) in platekin::simulate::screen::heron_quay_demo_files() {
+        let committed = std::fs::read_to_string(common::project(&format!("demo-plates/{name}"))).unwrap();
+        assert!(
+            committed == text,
+            "demo-plates/{name} differs from the simulator's output (rerun make_screen_demo)"
+        );
+        std::fs::write(folder.path().join(name), text).unwrap();
+    }
+    let output = platekin(
+        &[
+            "run",
+            "heron-quay-screen-wide.csv",
+            "--assay",
+            "heron-quay-screen-assay.toml",
+            "--out",
+            "heron-quay-results",
+        ],
+        folder.path(),
+    );
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    let summary = text(&output.stdout);
+    assert!(
+        summary.contains("Screen: Z'") && summary.contains("G9 (bubble"),
+        "{summary}"
+    );
+    assert!(summary.contains("assumes a competitive inhibitor"), "{summary}");
+    let out = folder.path().join("heron-quay-results");
+    let compounds = csv_rows(&out.join("compounds.csv"));
+    assert_eq!(compounds.len(), 40);
+    assert!(compounds[0].contains_key("Ki [uM]"));
+    let report = std::fs::read_to_string(out.join("report.html")).unwrap();
+    for heading in [
+        "Screen: plate quality and compounds",
+        "Compounds, most potent first",
+        "Dose-response curves",
+        "% activity heat map",
+        "Wells excluded by hand",
+    ] {
+        assert!(report.contains(heading), "{heading} missing");
+    }
+    assert_eq!(report.matches("<svg id=\"cpd-").count(), 40);
+    let screen_part = &report
+        [report.find("<section id=\"screen\">").unwrap()..report.find("<section id=\"flagged\">").unwrap()];
+    for size in screen_part.split("font-size=\"").skip(1) {
+        let px: u32 = size.split('"').next().unwrap().parse().unwrap();
+        assert!(px >= 11, "text of {px} px");
+    }
+    // Light: thumbnails and a heat map, not one detail plot per well.
+    assert!(report.len() < 1_500_000, "report of {} bytes", report.len());
+}

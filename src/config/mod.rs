@@ -175,6 +175,11 @@ impl SettingLayer {
                 layer.layout = Some(folder.join(layout));
             }
         }
+        if let (Some(exclude), Some(folder)) = (&layer.exclude, path.parent()) {
+            if exclude.is_relative() {
+                layer.exclude = Some(folder.join(exclude));
+            }
+        }
         Ok(layer)
     }
 }

@@ -421,12 +421,6 @@ pub fn fit_dose_response(doses: &[f64], responses: &[f64]) -> Result<DoseRespons
     let qualifier = qualify(&parameters, low, high);
     let hill = parameters[HILL];
     let mut flags = Vec::new();
-    if hill < SHALLOW_HILL {
-        flags.push(CurveFlag::Shallow);
-    }
-    if hill > STEEP_HILL {
-        flags.push(CurveFlag::Steep);
-    }
     let fixed = [
         top_fixed.then_some(FIXED_TOP),
         bottom_fixed.then_some(FIXED_BOTTOM),
@@ -437,6 +431,13 @@ pub fn fit_dose_response(doses: &[f64], responses: &[f64]) -> Result<DoseRespons
     let mut log_ic50 = parameters[LOG_IC50];
     match qualifier {
         Ic50Qualifier::Equal => {
+            // A slope means something only where the curve crosses half activity in range.
+            if hill < SHALLOW_HILL {
+                flags.push(CurveFlag::Shallow);
+            }
+            if hill > STEEP_HILL {
+                flags.push(CurveFlag::Steep);
+            }
             if top_fixed || bottom_fixed {
                 flags.push(CurveFlag::NoPlateau);
             }

@@ -275,6 +275,7 @@ pub fn summary_lines(results: &RunResults) -> Vec<String> {
     if screen.cheng_prusoff.is_some() {
         lines.push(format!("note: {CHENG_PRUSOFF_WORDS}"));
     }
+    lines.push("screen outputs: compounds.csv, plate_qc.json, and `activity [%]` in wells.csv".to_string());
     lines
 }
 

@@ -201,3 +201,62 @@ pub fn screen_plate(
         controls: (uninhibited, inhibited),
     }
 }
+
+/// The screening demo's files, by name: an invented scenario (the Heron Quay screening bench, 40
+/// fragments against the invented hydrolase "quaylase"), a 384-well plate read every 20 s for
+/// 10 min. One sample well carries extra noise (a bubble the screener saw and excluded), another
+/// a smaller noise burst left to platekin's flags.
+pub fn heron_quay_demo_files() -> Vec<(&'static str, String)> {
+    let mut screen = screen_plate(PlateFormat::Wells384, 40, 8, 31, 20_261_203);
+    let rename = |text: &str| text.replace("CPD-", "HQF-");
+    screen.layout_csv = format!(
+        "# Heron Quay screening bench (invented): quaylase against 40 fragments, 8 doses each\n{}",
+        rename(&screen.layout_csv)
+    );
+    for variant in &mut screen.spec.variants {
+        variant.name = rename(&variant.name);
+    }
+    for group in &mut screen.spec.layout {
+        if let Some(variant) = &group.condition.variant {
+            group.condition.variant = Some(rename(variant));
+        }
+    }
+    screen.spec.run_name = "Heron Quay quaylase fragment screen".to_string();
+    screen.spec.metadata = [
+        ("Run", "Heron Quay quaylase fragment screen"),
+        ("Lab", "Heron Quay screening bench (invented)"),
+        ("Enzyme", "quaylase, 2 nM (invented)"),
+        ("Plate", "384 wells"),
+        ("Wavelength [nm]", "410"),
+        ("Read interval [s]", "20"),
+        ("Note", "simulated demo data; every name and value is invented"),
+    ]
+    .iter()
+    .map(|(key, value)| (key.to_string(), value.to_string()))
+    .collect();
+    screen.spec.defects = vec![
+        (
+            WellId::new(6, 8),
+            super::PlantedDefect::ExtraNoise { factor: 12.0 },
+        ),
+        (
+            WellId::new(11, 14),
+            super::PlantedDefect::ExtraNoise { factor: 3.0 },
+        ),
+    ];
+    let plate =
+        super::simulate(&screen.spec).unwrap_or_else(|error| panic!("the demo screen simulates: {error}"));
+    let data = super::wide_csv(&plate, &super::WideCsvOptions::default());
+    vec![
+        ("heron-quay-screen-wide.csv", data),
+        ("heron-quay-screen-layout.csv", screen.layout_csv),
+        (
+            "heron-quay-screen-exclude.csv",
+            "# wells the screener left out at the bench\nwell,reason\nG9,bubble over the well from read 3 (seen at the bench)\n".to_string(),
+        ),
+        (
+            "heron-quay-screen-assay.toml",
+            "# Heron Quay quaylase fragment screen (invented): run with\n# platekin run heron-quay-screen-wide.csv --assay heron-quay-screen-assay.toml --out heron-quay-results\nlayout = \"heron-quay-screen-layout.csv\"\nexclude = \"heron-quay-screen-exclude.csv\"\n# Km of quaylase for its substrate under the screen's conditions (uM, the layout's substrate unit):\n# gives the Cheng-Prusoff Ki, an assumption that each fragment competes with the substrate\ncheng-prusoff-km = 40\n".to_string(),
+        ),
+    ]
+}
