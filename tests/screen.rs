@@ -315,6 +315,35 @@ fn bad_screening_inputs_are_refused_naming_the_file_and_well() {
             && message.contains("off the 384-well plate"),
         "{message}"
     );
+    // A sample without a dose, and one without a compound.
+    let edit = |well: &str, column: usize, value: &str| -> String {
+        layout
+            .lines()
+            .map(|line| {
+                if line.starts_with(&format!("{well},")) {
+                    let mut cells: Vec<&str> = line.split(',').collect();
+                    cells[column] = value;
+                    format!("{}\n", cells.join(","))
+                } else {
+                    format!("{line}\n")
+                }
+            })
+            .collect()
+    };
+    let message = refused(&edit("B3", 5, ""), &[], &[]);
+    assert!(
+        message.contains("layout.csv, row")
+            && message.contains("B3")
+            && message.contains("no positive inhibitor dose"),
+        "{message}"
+    );
+    let message = refused(&edit("C3", 2, ""), &[], &[]);
+    assert!(
+        message.contains("layout.csv, row")
+            && message.contains("C3")
+            && message.contains("names no compound"),
+        "{message}"
+    );
     // A compound column asked for that the layout does not have.
     let message = refused(layout, &["--compound-column", "inhibitor_id"], &[]);
     assert!(

@@ -41,8 +41,8 @@ pub fn run_plate(
 
 /// Reads the `--exclude` table (if any) into the settings: its wells join the exclusions the
 /// settings give, and `settings.toml` records them instead of the file, so that the run repeats
-/// exactly without it.
-fn with_exclusion_table(settings: &RunSettings) -> Result<RunSettings, CommandError> {
+/// exactly without it (and a campaign's result key sees the rows, not the file's name).
+pub fn with_exclusion_table(settings: &RunSettings) -> Result<RunSettings, CommandError> {
     let mut settings = settings.clone();
     let Some(path) = settings.used.exclude.take() else {
         return Ok(settings);

@@ -263,4 +263,38 @@ mod tests {
             "{message}"
         );
     }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(128))]
+
+        /// Any text: no panic; an error names the file; every entry read has its well, a reason
+        /// and the row it came from.
+        #[test]
+        fn any_text_is_read_or_refused_naming_the_file(text in "(well,reason\n)?([A-Z]{0,2}[0-9]{0,3}(,[ a-z]{0,8})?\n){0,6}") {
+            match table(&text) {
+                Ok(exclusions) => {
+                    for exclusion in exclusions {
+                        proptest::prop_assert!(!exclusion.reason.is_empty());
+                        proptest::prop_assert!(exclusion.origin.contains("exclude.csv, row"));
+                    }
+                }
+                Err(error) => proptest::prop_assert!(error.to_string().contains("exclude.csv"), "{}", error),
+            }
+        }
+
+        /// Written tables read back to the same wells and reasons.
+        #[test]
+        fn written_tables_read_back(rows in proptest::collection::vec((0u16..16, 0u16..24, "[a-z][a-z ]{0,10}[a-z]"), 0..10)) {
+            let mut text = String::from("well,reason\n");
+            for (row, column, reason) in &rows {
+                text.push_str(&format!("{},{reason}\n", WellId::new(*row, *column)));
+            }
+            let exclusions = table(&text).unwrap();
+            proptest::prop_assert_eq!(exclusions.len(), rows.len());
+            for (exclusion, (row, column, reason)) in exclusions.iter().zip(&rows) {
+                proptest::prop_assert_eq!(exclusion.well, WellId::new(*row, *column));
+                proptest::prop_assert_eq!(&exclusion.reason, reason);
+            }
+        }
+    }
 }
