@@ -185,7 +185,8 @@ pub fn plate_qc_document(screen: &ScreenAnalysis, rate_unit: &str) -> Value {
         "formulas": {
             "z_prime": "1 - 3 (SD_u + SD_i) / |mean_u - mean_i| (Zhang, Chung and Oldenburg 1999, J Biomol Screen 4:67)",
             "signal_window": "(|mean_u - mean_i| - 3 (SD_u + SD_i)) / SD_u (Iversen et al. 2006)",
-            "signal_to_background": "mean_u / mean_i (only when mean_i > 0)",
+            "signal_to_background": "mean_u / mean_i (only when mean_i is positive and more than 3 SE from zero)",
+            "cv_percent": "100 SD / |mean| (only when the mean is more than 3 SE from zero)",
             "activity": "100 (v - mean_i) / (mean_u - mean_i), controls of the same plate and group",
         },
     })

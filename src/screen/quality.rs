@@ -7,9 +7,10 @@
 //! - Signal window SW = (|mean_u - mean_i| - 3 (SD_u + SD_i)) / SD_u (Iversen et al. 2006, J Biomol
 //!   Screen 11:247; volume and page from memory): the gap between the controls' 3-SD bands in units
 //!   of the uninhibited SD.
-//! - Signal-to-background S/B = mean_u / mean_i, only when the inhibited mean is positive (a rate
-//!   near zero or below makes the ratio meaningless; Z' and SW stay valid).
-//! - CV = 100 SD / |mean| of each control.
+//! - Signal-to-background S/B = mean_u / mean_i, only when the inhibited mean is positive and more
+//!   than three standard errors from zero (a rate near zero makes the ratio meaningless; Z' and SW
+//!   stay valid).
+//! - CV = 100 SD / |mean| of each control, under the same condition on its mean.
 //! - Edge check: each control's wells on the outer rows and columns against its inner wells, the
 //!   difference of their means in % of the control window (mean_u - mean_i); a difference of
 //!   [`EDGE_LIMIT_PERCENT`] or more is flagged (the project's threshold: evaporation and
@@ -96,7 +97,7 @@ impl ControlSummary {
             sd,
             cv_percent: mean
                 .zip(sd)
-                .filter(|(mean, _)| *mean != 0.0)
+                .filter(|(mean, sd)| clearly_away_from_zero(*mean, *sd, rates.len()))
                 .map(|(mean, sd)| 100.0 * sd / mean.abs()),
         }
     }
@@ -141,6 +142,12 @@ impl PlateQuality {
     }
 }
 
+/// Whether a mean lies more than three standard errors from zero: a CV or a ratio over a mean
+/// that does not is noise over noise (fully inhibited controls have rates near zero by design).
+fn clearly_away_from_zero(mean: f64, sd: f64, n: usize) -> bool {
+    n > 0 && mean.abs() > 3.0 * sd / (n as f64).sqrt()
+}
+
 /// A control well and its rate.
 type ControlRate = (WellId, f64);
 
@@ -168,8 +175,8 @@ pub fn plate_quality(
         }
         _ => None,
     };
-    let signal_to_background = match (u.mean, i.mean) {
-        (Some(mu), Some(mi)) if mi > 0.0 => Some(mu / mi),
+    let signal_to_background = match (u.mean, i.mean, i.sd) {
+        (Some(mu), Some(mi), Some(si)) if mi > 0.0 && clearly_away_from_zero(mi, si, i.n) => Some(mu / mi),
         _ => None,
     };
     let window = u.mean.zip(i.mean).map(|(mu, mi)| mu - mi).filter(|w| *w != 0.0);
