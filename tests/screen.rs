@@ -449,3 +449,33 @@ fn the_screening_demo_runs_from_its_files_and_reports_for_a_screener() {
     // Light: thumbnails and a heat map, not one detail plot per well.
     assert!(report.len() < 1_500_000, "report of {} bytes", report.len());
 }
+
+/// A screening plate in a campaign: `platekin batch` writes the plate's screen outputs and carries
+/// its Z' (from the `uninhibited`/`inhibited` controls, computed once) into `plates.csv`.
+#[test]
+fn a_screen_in_a_campaign_keeps_its_outputs_and_z_prime() {
+    let folder = tempfile::tempdir().unwrap();
+    write_screen(folder.path(), &screen_plate(PlateFormat::Wells384, 8, 4, 21, 33));
+    std::fs::write(
+        folder.path().join("manifest.csv"),
+        "plate,data,layout\ns1,plate.csv,layout.csv\n",
+    )
+    .unwrap();
+    let output = platekin(
+        &["batch", "manifest.csv", "--out", "campaign", "--report", "none"],
+        folder.path(),
+    );
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    let plate = folder.path().join("campaign/plates/s1");
+    assert!(plate.join("compounds.csv").exists());
+    let qc: Value =
+        serde_json::from_str(&std::fs::read_to_string(plate.join("plate_qc.json")).unwrap()).unwrap();
+    let rows = csv_rows(&folder.path().join("campaign/plates.csv"));
+    let z: f64 = rows[0]["z_prime"].parse().unwrap();
+    // The same number, written by two writers (the CSV one may round the last digit).
+    let from_plate = qc["z_prime"].as_f64().unwrap();
+    assert!(
+        (z - from_plate).abs() <= 1e-12 * from_plate.abs(),
+        "{z} against {from_plate}"
+    );
+}
