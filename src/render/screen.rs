@@ -243,16 +243,18 @@ pub fn summary_lines(results: &RunResults) -> Vec<String> {
     };
     let quality = &screen.quality;
     let figure = |value: Option<f64>| value.map_or("-".to_string(), |v| format!("{v:.2}"));
+    // A CV over a mean near zero is not given (see `screen::quality`); say so instead of "-%".
+    let cv = |value: Option<f64>| value.map_or("none: mean near zero".to_string(), |v| format!("{v:.2}%"));
     lines.push(String::new());
     lines.push(format!(
-        "Screen: Z' {}, signal window {}, signal-to-background {}; uninhibited n {} (CV {}%), inhibited n {} (CV {}%)",
+        "Screen: Z' {}, signal window {}, signal-to-background {}; uninhibited n {} (CV {}), inhibited n {} (CV {})",
         figure(quality.z_prime.as_ref().map(|z| z.value)),
         figure(quality.signal_window),
         figure(quality.signal_to_background),
         quality.uninhibited.n,
-        figure(quality.uninhibited.cv_percent),
+        cv(quality.uninhibited.cv_percent),
         quality.inhibited.n,
-        figure(quality.inhibited.cv_percent),
+        cv(quality.inhibited.cv_percent),
     ));
     for warning in quality_warnings(screen) {
         lines.push(format!("warning: {warning}"));
