@@ -180,6 +180,13 @@ pub struct RunArgs {
     /// Layout wells absent from the data only warn.
     #[arg(long)]
     pub allow_missing: bool,
+    /// Screening plates: the layout column naming each sample's compound (default `compound`).
+    #[arg(long, value_name = "NAME")]
+    pub compound_column: Option<String>,
+    /// A table of wells to leave out, with columns `well` and `reason` (a bubble, a pipetting
+    /// error); each is listed with its reason in wells.csv, the summary and the report.
+    #[arg(long, value_name = "FILE")]
+    pub exclude: Option<PathBuf>,
     /// Report: none, html (report.html, the default) or full (also one PNG per plot in plots/).
     #[arg(long, value_name = "none|html|full")]
     pub report: Option<String>,
@@ -259,6 +266,8 @@ impl RunArgs {
             alpha: self.alpha,
             keep_flagged: self.keep_flagged.then_some(true),
             allow_missing: self.allow_missing.then_some(true),
+            compound_column: self.compound_column.clone(),
+            exclude: self.exclude.clone(),
             report: self.report.clone(),
             progress: self.progress.clone(),
             dead_time: self.dead_time,

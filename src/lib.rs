@@ -21,5 +21,6 @@ pub mod pipeline;
 pub mod progress;
 pub mod rates;
 pub mod render;
+pub mod screen;
 pub mod signal;
 pub mod simulate;

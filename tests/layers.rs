@@ -18,6 +18,8 @@ const LAYERS: &[(&str, usize)] = &[
     ("rates", 5),
     ("fit", 6),
     ("groups", 7),
+    // Screening plates: % activity, plate quality, a dose-response curve per compound.
+    ("screen", 7),
     ("progress", 8),
     ("pipeline", 9),
     // A campaign of plates: digests of pipeline results, Z', cross-plate fits.

@@ -207,7 +207,13 @@ pub fn digest(results: &RunResults) -> PlateDigest {
         groups: results.fits.len(),
         groups_fitted,
         constants,
-        z_prime: z_prime(&positive, &negative),
+        // A screening plate's Z' was computed once from its `uninhibited`/`inhibited` controls;
+        // other plates mark their controls with the `control` factor.
+        z_prime: results
+            .screen
+            .as_ref()
+            .and_then(|screen| screen.quality.z_prime.clone())
+            .or_else(|| z_prime(&positive, &negative)),
         pool_points,
         rate_unit: analysis.signal.rate_unit(),
         substrate_unit: layout.substrate_unit.map(|unit| unit.to_string()),

@@ -11,7 +11,7 @@ use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicUsize, Ordering};
 
-use super::run::run_plate_inputs;
+use super::run::{run_plate_inputs, with_exclusion_table};
 use super::CommandError;
 use crate::campaign::manifest::{folder_manifest, read_manifest};
 use crate::campaign::pooled::MAX_POOL_FACTORS;
@@ -382,7 +382,8 @@ fn run_one_plate(
             ..SettingLayer::default()
         }
         .over(own);
-        let settings = resolve_run(entry.data.clone(), layer)?;
+        // The exclusion table's rows join the settings, so the result key sees them.
+        let settings = with_exclusion_table(&resolve_run(entry.data.clone(), layer)?)?;
         let inputs = PlateInputs {
             data: InputFile::read(InputRole::Data, &settings.data)?,
             layout: InputFile::read(InputRole::Layout, &settings.layout)?,

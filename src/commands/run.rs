@@ -3,10 +3,11 @@
 use std::path::{Path, PathBuf};
 
 use super::CommandError;
-use crate::config::RunSettings;
+use crate::config::{ExcludedWellEntry, RunSettings};
 use crate::files::input::{InputFile, InputRole};
 use crate::files::output::{check_output_folder, write_outputs};
-use crate::pipeline::{run_pipeline, PlateInputs, RunResults};
+use crate::layout::exclusions::read_exclusion_table;
+use crate::pipeline::{run_pipeline, PipelineError, PlateInputs, RunResults};
 use crate::render::summary::run_summary;
 use crate::render::{render_run_outputs, InputRecord, RunRecord};
 
@@ -34,7 +35,29 @@ pub fn run_plate(
         data: InputFile::read(InputRole::Data, &settings.data)?,
         layout: InputFile::read(InputRole::Layout, &settings.layout)?,
     };
-    run_plate_inputs(settings, inputs, out, force, progress)
+    let settings = with_exclusion_table(settings)?;
+    run_plate_inputs(&settings, inputs, out, force, progress)
+}
+
+/// Reads the `--exclude` table (if any) into the settings: its wells join the exclusions the
+/// settings give, and `settings.toml` records them instead of the file, so that the run repeats
+/// exactly without it (and a campaign's result key sees the rows, not the file's name).
+pub fn with_exclusion_table(settings: &RunSettings) -> Result<RunSettings, CommandError> {
+    let mut settings = settings.clone();
+    let Some(path) = settings.used.exclude.take() else {
+        return Ok(settings);
+    };
+    let table = InputFile::read(InputRole::Exclusions, &path)?;
+    let exclusions = read_exclusion_table(&table).map_err(PipelineError::from)?;
+    let recorded = settings.used.excluded_wells.get_or_insert_with(Vec::new);
+    for exclusion in &exclusions {
+        recorded.push(ExcludedWellEntry {
+            well: exclusion.well.to_string(),
+            reason: exclusion.reason.clone(),
+        });
+    }
+    settings.analysis.screen.exclusions.extend(exclusions);
+    Ok(settings)
 }
 
 /// Runs a plate whose inputs were already read (from `settings.data` and `settings.layout`) and

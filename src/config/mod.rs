@@ -11,7 +11,7 @@ use std::path::{Path, PathBuf};
 pub use choices::*;
 
 use crate::core::format::significant;
-use crate::core::plate::PlateFormat;
+use crate::core::plate::{PlateFormat, WellId};
 use crate::core::units::TimeUnit;
 
 /// Every setting, each optional, as a flag set or an assay file gives them. Keys are the flags'
@@ -55,6 +55,13 @@ pub struct SettingLayer {
     pub keep_flagged: Option<bool>,
     /// Layout wells absent from the data only warn.
     pub allow_missing: Option<bool>,
+    /// The layout factor naming each sample's compound on a screening plate (default `compound`).
+    pub compound_column: Option<String>,
+    /// A table of wells to leave out (`well`, `reason`); read by the run, which records its rows in
+    /// `excluded-wells` so that `settings.toml` repeats the run without the file.
+    pub exclude: Option<PathBuf>,
+    /// Wells left out by hand, each with its reason.
+    pub excluded_wells: Option<Vec<ExcludedWellEntry>>,
     /// Report written: `none`, `html` (default) or `full` (adds PNGs).
     pub report: Option<String>,
     /// Rate law: `auto` or a model name.
@@ -105,6 +112,9 @@ impl SettingLayer {
             alpha: self.alpha.or(below.alpha),
             keep_flagged: self.keep_flagged.or(below.keep_flagged),
             allow_missing: self.allow_missing.or(below.allow_missing),
+            compound_column: self.compound_column.or(below.compound_column),
+            exclude: self.exclude.or(below.exclude),
+            excluded_wells: self.excluded_wells.or(below.excluded_wells),
             report: self.report.or(below.report),
             model: self.model.or(below.model),
             weighting: self.weighting.or(below.weighting),
@@ -163,6 +173,11 @@ impl SettingLayer {
         if let (Some(layout), Some(folder)) = (&layer.layout, path.parent()) {
             if layout.is_relative() {
                 layer.layout = Some(folder.join(layout));
+            }
+        }
+        if let (Some(exclude), Some(folder)) = (&layer.exclude, path.parent()) {
+            if exclude.is_relative() {
+                layer.exclude = Some(folder.join(exclude));
             }
         }
         Ok(layer)
@@ -301,6 +316,76 @@ pub struct AnalysisSettings {
     pub allow_missing: bool,
     /// The progress-curve analysis.
     pub progress: ProgressSettings,
+    /// Screening plates: the compound factor and the wells left out by hand.
+    pub screen: ScreenSettings,
+}
+
+/// One well left out by hand, as an assay file or `settings.toml` writes it.
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ExcludedWellEntry {
+    /// The well, e.g. `C7`.
+    pub well: String,
+    /// Why it is left out (a bubble, a pipetting error).
+    pub reason: String,
+}
+
+/// A well left out by hand, resolved.
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize)]
+pub struct ExcludedWell {
+    /// The well.
+    pub well: WellId,
+    /// Why.
+    pub reason: String,
+    /// Where it was asked for (a file and row, a layout cell, or the settings), for messages.
+    pub origin: String,
+}
+
+/// The settings of a screening plate.
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize)]
+pub struct ScreenSettings {
+    /// The layout factor naming each sample's compound.
+    pub compound_column: String,
+    /// Wells left out by hand (settings and `--exclude`; the layout's `exclude` column is read
+    /// with the layout).
+    pub exclusions: Vec<ExcludedWell>,
+}
+
+/// The compound factor's name when none is given.
+pub const DEFAULT_COMPOUND_COLUMN: &str = "compound";
+
+impl Default for ScreenSettings {
+    fn default() -> Self {
+        ScreenSettings {
+            compound_column: DEFAULT_COMPOUND_COLUMN.to_string(),
+            exclusions: Vec::new(),
+        }
+    }
+}
+
+/// The longest reason kept for a well left out by hand, in characters.
+pub const MAX_EXCLUSION_REASON_CHARS: usize = 500;
+
+/// Checks one exclusion's well and reason; the error names `origin`.
+pub fn resolve_excluded_well(well: &str, reason: &str, origin: &str) -> Result<ExcludedWell, String> {
+    let parsed = WellId::parse(well.trim())
+        .ok_or_else(|| format!("{origin}: '{}' is not a well (write it like C7)", well.trim()))?;
+    let reason = reason.trim();
+    if reason.is_empty() {
+        return Err(format!(
+            "{origin}: well {parsed} is excluded without a reason (say why, e.g. 'bubble')"
+        ));
+    }
+    if reason.chars().count() > MAX_EXCLUSION_REASON_CHARS {
+        return Err(format!(
+            "{origin}: the reason for well {parsed} is longer than {MAX_EXCLUSION_REASON_CHARS} characters"
+        ));
+    }
+    Ok(ExcludedWell {
+        well: parsed,
+        reason: reason.to_string(),
+        origin: origin.to_string(),
+    })
 }
 
 impl Default for AnalysisSettings {
@@ -314,6 +399,7 @@ impl Default for AnalysisSettings {
             keep_flagged: false,
             allow_missing: false,
             progress: ProgressSettings::default(),
+            screen: ScreenSettings::default(),
         }
     }
 }
@@ -606,6 +692,33 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         keep_flagged: layer.keep_flagged.unwrap_or(false),
         allow_missing: layer.allow_missing.unwrap_or(false),
         progress,
+        screen: resolve_screen(layer)?,
+    })
+}
+
+/// The screening settings of a layer: the compound factor and the wells excluded in the settings.
+fn resolve_screen(layer: &SettingLayer) -> Result<ScreenSettings, SettingsError> {
+    let compound_column = match &layer.compound_column {
+        Some(name) if name.trim().is_empty() => {
+            return Err(SettingsError::about(
+                "compound-column",
+                "compound-column names no column".into(),
+            ))
+        }
+        Some(name) => name.trim().to_string(),
+        None => DEFAULT_COMPOUND_COLUMN.to_string(),
+    };
+    let mut exclusions = Vec::new();
+    for (index, entry) in layer.excluded_wells.iter().flatten().enumerate() {
+        let origin = format!("settings: excluded-wells entry {}", index + 1);
+        exclusions.push(
+            resolve_excluded_well(&entry.well, &entry.reason, &origin)
+                .map_err(|message| SettingsError::about("excluded-wells", message))?,
+        );
+    }
+    Ok(ScreenSettings {
+        compound_column,
+        exclusions,
     })
 }
 
@@ -684,6 +797,7 @@ pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLa
         alpha: Some(analysis.rates.alpha),
         keep_flagged: Some(analysis.keep_flagged),
         allow_missing: Some(analysis.allow_missing),
+        compound_column: Some(analysis.screen.compound_column.clone()),
         progress: Some(analysis.progress.mode.word().into()),
         dead_time: Some(analysis.rates.dead_time_s),
         initial_rate: Some(analysis.initial_rate.word().into()),

@@ -24,6 +24,8 @@ pub enum InputRole {
     Assay,
     /// A rate table given to `platekin fit`.
     Table,
+    /// A table of wells left out by hand (`--exclude`).
+    Exclusions,
 }
 
 impl InputRole {
@@ -34,6 +36,7 @@ impl InputRole {
             InputRole::Layout => "layout",
             InputRole::Assay => "assay",
             InputRole::Table => "table",
+            InputRole::Exclusions => "exclusions",
         }
     }
 }

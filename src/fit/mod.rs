@@ -3,6 +3,7 @@
 //!
 //! Residuals are always `model - observed`. Every result type is `serde::Serialize`.
 
+pub mod dose_response;
 pub mod inference;
 pub mod integrated;
 pub mod lambert;

@@ -5,7 +5,8 @@
 //! Tidy form: a header row holding a `well` column (the first such row; title and `#` comment
 //! lines may stand above it), then one line per well, rectangle (`B1:D12`) or space-separated list
 //! of wells (`B1 B3 B5`). A `role` column says `sample`, `blank` (buffer only), `no-enzyme`
-//! (substrate without enzyme: the background rate) or `empty` (ignored); without it, or where its
+//! (substrate without enzyme: the background rate), `empty` (ignored), or, on a screening plate,
+//! `uninhibited` (100% activity control) or `inhibited` (0% activity control); without it, or where its
 //! cell is empty, a well is a sample. `substrate [uM]`, `enzyme [nM]` and `inhibitor [uM]` hold
 //! concentrations in the unit written in brackets. Every other column is a free factor kept as text.
 //!
@@ -23,6 +24,7 @@
 mod check;
 mod common;
 mod error;
+pub mod exclusions;
 mod grid;
 #[cfg(test)]
 mod tests;
@@ -46,7 +48,7 @@ use grid::parse_grid;
 use tidy::parse_tidy;
 
 /// The known roles, as listed in error messages.
-pub const KNOWN_ROLES: &str = "sample, blank, no-enzyme, empty";
+pub const KNOWN_ROLES: &str = "sample, blank, no-enzyme, empty, uninhibited, inhibited";
 
 /// The known concentration units, as listed in error messages.
 pub const KNOWN_CONCENTRATION_UNITS: &str = "M, mM, uM (or \u{b5}M), nM, pM";
@@ -118,11 +120,22 @@ pub enum Role {
     NoEnzyme,
     /// Not used; ignored by the analysis.
     Empty,
+    /// Screening control: enzyme, substrate and vehicle without inhibitor (100% activity).
+    Uninhibited,
+    /// Screening control: the full-inhibition reference (0% activity).
+    Inhibited,
 }
 
 impl Role {
     /// Every role, in the order they are listed to users.
-    pub const ALL: [Role; 4] = [Role::Sample, Role::Blank, Role::NoEnzyme, Role::Empty];
+    pub const ALL: [Role; 6] = [
+        Role::Sample,
+        Role::Blank,
+        Role::NoEnzyme,
+        Role::Empty,
+        Role::Uninhibited,
+        Role::Inhibited,
+    ];
 
     /// The spelling used in output and messages.
     pub fn name(self) -> &'static str {
@@ -131,7 +144,15 @@ impl Role {
             Role::Blank => "blank",
             Role::NoEnzyme => "no-enzyme",
             Role::Empty => "empty",
+            Role::Uninhibited => "uninhibited",
+            Role::Inhibited => "inhibited",
         }
+    }
+
+    /// Whether the well is a screening control (`uninhibited` or `inhibited`): measured like a
+    /// sample, normalised against rather than normalised.
+    pub fn is_screening_control(self) -> bool {
+        matches!(self, Role::Uninhibited | Role::Inhibited)
     }
 }
 
@@ -159,6 +180,8 @@ impl FromStr for Role {
             "blank" => Ok(Role::Blank),
             "no-enzyme" | "noenzyme" => Ok(Role::NoEnzyme),
             "empty" => Ok(Role::Empty),
+            "uninhibited" => Ok(Role::Uninhibited),
+            "inhibited" => Ok(Role::Inhibited),
             _ => Err(format!(
                 "unknown role '{}' (known roles: {KNOWN_ROLES})",
                 text.trim()

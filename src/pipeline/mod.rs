@@ -6,16 +6,19 @@
 use std::collections::BTreeSet;
 
 use crate::config::{
-    check_against_input, AnalysisSettings, FitSettings, ImportOptions, InputFacts, SettingsError,
+    check_against_input, AnalysisSettings, ExcludedWell, FitSettings, ImportOptions, InputFacts,
+    SettingsError,
 };
 use crate::core::plate::WellId;
 use crate::files::input::InputFile;
 use crate::groups::{fit_groups_with, GroupFit, InitialRateOptions};
 use crate::import::{import_data, ImportError, KineticData};
+use crate::layout::exclusions::{check_exclusions, take_exclude_column, ExclusionError};
 use crate::layout::{check_against_data, read_layout, wells_outside_layout, Layout, LayoutError};
 use crate::progress::analysis::{analyse_progress, ProgressAnalysis};
 use crate::rates::conditions::{condition_table, Condition, TableError};
 use crate::rates::{analyse_plate, PlateAnalysis};
+use crate::screen::{analyse_screen, is_screen, ScreenAnalysis, ScreenError};
 
 /// Why the pipeline stopped.
 #[derive(Debug, thiserror::Error)]
@@ -32,6 +35,12 @@ pub enum PipelineError {
     /// A setting cannot work on these inputs.
     #[error(transparent)]
     Settings(#[from] SettingsError),
+    /// A well excluded by hand is not on the plate or not in the layout.
+    #[error(transparent)]
+    Exclusion(#[from] ExclusionError),
+    /// A screening plate's layout cannot give % activity or dose-response curves.
+    #[error(transparent)]
+    Screen(#[from] Box<ScreenError>),
 }
 
 /// Everything a run found.
@@ -55,6 +64,10 @@ pub struct RunResults {
     pub progress: ProgressAnalysis,
     /// Warnings from reading the inputs and checking them against each other.
     pub input_warnings: Vec<String>,
+    /// Wells left out by hand (settings, `--exclude`, the layout's `exclude` column), in well order.
+    pub exclusions: Vec<ExcludedWell>,
+    /// The screen's % activity, plate quality and compounds, on a screening plate.
+    pub screen: Option<ScreenAnalysis>,
 }
 
 /// The inputs of a plate, read once.
@@ -97,12 +110,26 @@ pub fn analyse_inputs(
         settings.allow_missing,
     )?);
     input_warnings.extend(wells_outside_layout(&layout, &wells_with_readings(&data)));
+    let mut asked = settings.screen.exclusions.clone();
+    asked.extend(take_exclude_column(&mut layout));
+    let exclusions: Vec<ExcludedWell> = check_exclusions(&asked, data.plate, &layout)?
+        .into_values()
+        .collect();
     let mut analysis = analyse_plate(&data, &layout, settings);
+    analysis.apply_exclusions(exclusions.iter().map(|e| (e.well, e.reason.as_str())));
+    let screening = is_screen(&layout);
     let initial = InitialRateOptions {
         estimator: settings.initial_rate,
         dead_time_s: settings.rates.dead_time_s,
     };
-    let fits = fit_groups_with(&analysis, &layout, fit_settings, &initial, progress);
+    // A screening plate's samples are described by their compound's dose-response curve on %
+    // activity (`screen`), not by rate-law fits of raw rates: the group fits and the
+    // progress-curve analysis are not run, and each well keeps its window's rate.
+    let fits = if screening {
+        Vec::new()
+    } else {
+        fit_groups_with(&analysis, &layout, fit_settings, &initial, progress)
+    };
     // The group fits' depletion-corrected initial rates become the wells' rates, once.
     let corrected: std::collections::BTreeMap<WellId, (f64, f64)> = fits
         .iter()
@@ -114,7 +141,23 @@ pub fn analyse_inputs(
         .collect();
     analysis.apply_initial_rates(&corrected);
     let conditions = condition_table(&analysis, &layout)?;
-    let progress_curves = analyse_progress(&data, &layout, &analysis, &fits, settings);
+    let (progress_curves, screen) = if screening {
+        let screen = analyse_screen(
+            &analysis,
+            &layout,
+            &settings.screen,
+            fit_settings.cheng_prusoff_km,
+            data.plate,
+        )
+        .map_err(Box::new)?;
+        let none = ProgressAnalysis {
+            mode: settings.progress.mode,
+            groups: Vec::new(),
+        };
+        (none, Some(screen))
+    } else {
+        (analyse_progress(&data, &layout, &analysis, &fits, settings), None)
+    };
     Ok(RunResults {
         data,
         layout,
@@ -125,6 +168,8 @@ pub fn analyse_inputs(
         fits,
         progress: progress_curves,
         input_warnings,
+        exclusions,
+        screen,
     })
 }
 

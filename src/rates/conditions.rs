@@ -51,6 +51,8 @@ fn role_order(role: Role) -> u8 {
         Role::NoEnzyme => 1,
         Role::Blank => 2,
         Role::Empty => 3,
+        Role::Uninhibited => 4,
+        Role::Inhibited => 5,
     }
 }
 

@@ -56,6 +56,9 @@ pub struct WellResult {
     pub correction: Correction,
     /// Whether the rate enters condition means and fits.
     pub used: bool,
+    /// The reason a person gave for leaving the well out (`--exclude`, the layout's `exclude`
+    /// column); such a well is never used.
+    pub excluded_by_hand: Option<String>,
 }
 
 impl WellResult {
@@ -92,13 +95,29 @@ impl PlateAnalysis {
             .iter()
             .filter(|well| !well.used && well.setup.role != Role::Empty)
             .map(|well| {
-                let reason = if well.rate_value.is_none() {
+                let reason = if let Some(reason) = &well.excluded_by_hand {
+                    format!("excluded: {reason}")
+                } else if well.rate_value.is_none() {
                     "no rate".to_string()
                 } else {
                     well.flag_text()
                 };
                 (well, reason)
             })
+    }
+
+    /// Leaves out the wells a person excluded, each with its reason: `used` false, the reason in
+    /// the well's notes. Wells not on the plate's analysis are passed over (the caller checks
+    /// exclusions against the layout first).
+    pub fn apply_exclusions<'a>(&mut self, exclusions: impl IntoIterator<Item = (WellId, &'a str)>) {
+        let by_well: BTreeMap<WellId, &str> = exclusions.into_iter().collect();
+        for well in &mut self.wells {
+            if let Some(reason) = by_well.get(&well.well) {
+                well.used = false;
+                well.excluded_by_hand = Some((*reason).to_string());
+                well.rate.notes.push(format!("excluded: {reason}"));
+            }
+        }
     }
 
     /// Replaces wells' initial rates (and standard errors) by better estimates made upstream of
@@ -189,7 +208,9 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
     let mut wells = Vec::with_capacity(wells_in_play.len());
     for ((well, setup, _), rate) in wells_in_play.iter().zip(rates.iter_mut()) {
         let blank_wells = (setup.role != Role::Blank).then_some(signal.n_blank_wells);
-        let background = (setup.role == Role::Sample).then(|| background_for(setup, &controls));
+        // Screening controls are measured like samples, so that % activity compares like with like.
+        let gets_background = setup.role == Role::Sample || setup.role.is_screening_control();
+        let background = gets_background.then(|| background_for(setup, &controls));
         if let Some(Background::None(_)) = &background {
             without_background.push(*well);
         }
@@ -224,6 +245,7 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
                 background,
             },
             used,
+            excluded_by_hand: None,
         });
     }
     if !without_background.is_empty() && !controls.is_empty() {

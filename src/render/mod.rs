@@ -13,6 +13,7 @@ pub mod json;
 pub mod plots;
 pub mod report;
 pub mod results;
+pub mod screen;
 pub mod summary;
 pub mod tables;
 pub mod words;
@@ -100,6 +101,9 @@ pub fn settings_toml(record: &RunRecord) -> Result<OutputFile, RenderError> {
 /// Every output file of a run, rendered in memory; `run.json` comes last and lists the others.
 pub fn render_run_outputs(results: &RunResults, record: &RunRecord) -> Result<Vec<OutputFile>, RenderError> {
     let mut wells = tables::wells_table(&results.analysis, &results.layout)?;
+    if let Some(screen_results) = &results.screen {
+        screen::add_activity_column(&mut wells, &results.analysis, screen_results)?;
+    }
     let mut conditions = tables::conditions_table(&results.conditions, &results.layout, &results.analysis)?;
     let fit = json::run_fit_document(
         &record.files_given,
@@ -123,6 +127,12 @@ pub fn render_run_outputs(results: &RunResults, record: &RunRecord) -> Result<Ve
         json::json_file("progress.json", &progress)?,
         settings_toml(record)?,
     ];
+    if let Some(screen_results) = &results.screen {
+        files.extend(screen::screen_files(
+            screen_results,
+            &results.analysis.signal.rate_unit(),
+        )?);
+    }
     files.extend(report::report_files(results, record)?);
     files.push(json::run_json(
         &record.inputs,

@@ -210,6 +210,7 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
             lines.push(format!("left out of means and fits: {}", excluded.join(", ")));
         }
     }
+    lines.extend(super::screen::summary_lines(results));
     lines.push(String::new());
     lines.extend(results_lines(results));
     lines.push(String::new());

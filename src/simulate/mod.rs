@@ -32,6 +32,7 @@
 pub mod campaign;
 pub mod demo;
 pub mod kinetics;
+pub mod screen;
 pub mod study;
 pub mod writers;
 

@@ -321,6 +321,8 @@ fn role_tag(role: Option<Role>) -> &'static str {
     match role {
         Some(Role::Blank) => " blank",
         Some(Role::NoEnzyme) => " no-E",
+        Some(Role::Uninhibited) => " 100%",
+        Some(Role::Inhibited) => " 0%",
         _ => "",
     }
 }

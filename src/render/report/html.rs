@@ -103,10 +103,18 @@ impl<'a> ReportParts<'a> {
                 .collect::<Result<Vec<_>, _>>()?;
             progress.push((view, plots));
         }
-        let all = plate.plate.n_wells() <= DETAIL_ALL_WELLS_UP_TO;
+        // A screen's page stays light: its wells are the thumbnails and the heat map, and only
+        // wells left out (or flagged beyond `weak`, which fully inhibited wells are) get a plot.
+        let screen = results.screen.is_some();
+        let all = plate.plate.n_wells() <= DETAIL_ALL_WELLS_UP_TO && !screen;
         let mut details = Vec::new();
         for (index, well) in plate.wells.iter().enumerate() {
-            if well.state == WellState::Analysed && (all || !well.flags.is_empty()) {
+            let shown = if screen {
+                !well.used || well.flags.iter().any(|flag| flag.excludes())
+            } else {
+                all || !well.flags.is_empty()
+            };
+            if well.state == WellState::Analysed && shown {
                 details.push((index, render_svg(&WellDetail { view: &plate, well })?));
             }
         }
@@ -205,6 +213,7 @@ p.model code{font-size:.95em}
 .scroll svg{max-width:none}svg{max-width:100%;height:auto}
 figure{display:inline-block;margin:.5em 1em .5em 0;vertical-align:top}figcaption{font-size:.85em;max-width:40em}
 .diagnostic{border:2px dashed #D55E00;padding:.3em}
+.thumbs svg{margin:2px;border:1px solid #eee}
 .details figure{margin:.3em}.details figure:target{outline:3px solid #0072B2}
 code{background:#f3f3f3;padding:0 .2em}
 ";
@@ -232,6 +241,7 @@ pub fn report_html(parts: &ReportParts) -> String {
     page.push_str(&contents());
     page.push_str(&results_section(parts));
     page.push_str(&overview_section(parts));
+    page.push_str(&super::screen::screen_section(results));
     page.push_str(&flagged_section(parts));
     page.push_str(&groups_section(parts));
     page.push_str(&progress_section(parts));
@@ -1071,7 +1081,9 @@ fn checklist_section(parts: &ReportParts) -> String {
 
 fn details_section(parts: &ReportParts) -> String {
     let mut html = heading("details");
-    if parts.plate.plate.n_wells() > DETAIL_ALL_WELLS_UP_TO {
+    if parts.results.screen.is_some() {
+        html.push_str("<p>On a screening plate only wells left out get a detail plot here; every well is in <code>wells.csv</code> and the heat map.</p>\n");
+    } else if parts.plate.plate.n_wells() > DETAIL_ALL_WELLS_UP_TO {
         let _ = writeln!(
             html,
             "<p>On a {}-well plate only flagged wells get a detail plot here; every well is in <code>wells.csv</code>.</p>",

@@ -8,6 +8,7 @@
 //! the others. `run.json` itself is made in [`super::json`].
 
 pub(crate) mod html;
+mod screen;
 
 use super::plots::WellState;
 use super::words::{group_label, trust_analysis_words, trust_reason_words};
