@@ -156,6 +156,14 @@ pub struct RunArgs {
     /// Optical pathlength, cm (the liquid height in a plate, not 1 cm).
     #[arg(long, value_name = "cm")]
     pub pathlength: Option<f64>,
+    /// What the reader measures: absorbance (default; Beer-Lambert with --extinction and
+    /// --pathlength), fluorescence or luminescence (converted by standards on the plate).
+    #[arg(long, value_name = "absorbance|fluorescence|luminescence")]
+    pub signal: Option<String>,
+    /// Fluorescence or luminescence above which reads are not used (default: only the reader's
+    /// over-range marker ends the usable reads).
+    #[arg(long, value_name = "SIGNAL")]
+    pub max_signal: Option<f64>,
     /// Dead time: reads before this many seconds are ignored.
     #[arg(long, value_name = "SECONDS")]
     pub skip: Option<f64>,
@@ -265,6 +273,8 @@ impl RunArgs {
             initial_rate: self.initial_rate.clone(),
             fit_dead_time: self.fit_dead_time.then_some(true),
             s0_from_signal: self.s0_from_signal.then_some(true),
+            signal: self.signal.clone(),
+            max_signal: self.max_signal,
             ..self.models.layer().over(self.read.layer())
         }
     }

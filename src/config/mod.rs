@@ -81,6 +81,10 @@ pub struct SettingLayer {
     pub initial_rate: Option<String>,
     /// Take S0 from each well's first signal (substrate readout) in the progress-curve fits.
     pub s0_from_signal: Option<bool>,
+    /// What the reader measures: `absorbance` (default), `fluorescence` or `luminescence`.
+    pub signal: Option<String>,
+    /// Raw fluorescence or luminescence above which reads are not used.
+    pub max_signal: Option<f64>,
 }
 
 impl SettingLayer {
@@ -118,6 +122,8 @@ impl SettingLayer {
             fit_dead_time: self.fit_dead_time.or(below.fit_dead_time),
             initial_rate: self.initial_rate.or(below.initial_rate),
             s0_from_signal: self.s0_from_signal.or(below.s0_from_signal),
+            signal: self.signal.or(below.signal),
+            max_signal: self.max_signal.or(below.max_signal),
         }
     }
 
@@ -525,9 +531,50 @@ pub fn resolve_import(layer: &SettingLayer) -> Result<ImportOptions, SettingsErr
     })
 }
 
+/// Refuses the settings that belong to another kind of signal than the one read, saying why:
+/// Beer-Lambert (`extinction`, `pathlength`) and `max-absorbance` describe absorbance only, and
+/// `max-signal` describes the others.
+fn check_signal_settings(layer: &SettingLayer, signal: SignalKind) -> Result<(), SettingsError> {
+    let word = signal.word();
+    if signal == SignalKind::Absorbance {
+        if layer.max_signal.is_some() {
+            return Err(SettingsError::about(
+                "max-signal",
+                "max-signal bounds fluorescence or luminescence; for absorbance give --max-absorbance".into(),
+            ));
+        }
+        return Ok(());
+    }
+    if layer.extinction.is_some() {
+        return Err(SettingsError::about(
+            "extinction",
+            format!(
+                "extinction cannot convert {word}: Beer-Lambert relates absorbance to concentration, while {word} \
+                 depends on the instrument's gain, optics and the sample, so no coefficient carries from one \
+                 plate to another; put standards of known concentration on the plate (layout role `standard`)"
+            ),
+        ));
+    }
+    if layer.pathlength.is_some() {
+        return Err(SettingsError::about(
+            "pathlength",
+            format!("pathlength only serves Beer-Lambert for absorbance; a {word} read is converted by standards on the plate"),
+        ));
+    }
+    if layer.max_absorbance.is_some() {
+        return Err(SettingsError::about(
+            "max-absorbance",
+            format!("max-absorbance bounds absorbance; for {word} give --max-signal (or rely on the reader's over-range marker)"),
+        ));
+    }
+    Ok(())
+}
+
 /// Resolves the analysis part of a layer.
 pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, SettingsError> {
     let defaults = RateSettings::default();
+    let signal = parse_field::<SignalKind>("signal", &layer.signal)?.unwrap_or_default();
+    check_signal_settings(layer, signal)?;
     let extinction = positive_at_most("extinction", layer.extinction, MAX_EXTINCTION)?;
     let pathlength = positive_at_most("pathlength", layer.pathlength, MAX_PATHLENGTH_CM)?;
     if extinction.is_some() != pathlength.is_some() {
@@ -569,7 +616,15 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
             format!("alpha must lie in (0, 0.5), got {alpha}"),
         ));
     }
-    let max_absorbance = positive("max-absorbance", layer.max_absorbance)?.unwrap_or(defaults.max_absorbance);
+    let max_absorbance = match signal {
+        SignalKind::Absorbance => {
+            positive("max-absorbance", layer.max_absorbance)?.unwrap_or(defaults.max_absorbance)
+        }
+        // Without a limit only the reader's over-range marker ends the usable reads.
+        SignalKind::Fluorescence | SignalKind::Luminescence => {
+            positive("max-signal", layer.max_signal)?.unwrap_or(f64::INFINITY)
+        }
+    };
     let dead_time_s = layer.dead_time.unwrap_or(0.0);
     if !(dead_time_s.is_finite() && (0.0..=MAX_SECONDS).contains(&dead_time_s)) {
         return Err(SettingsError::about(
@@ -599,6 +654,7 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
             fixed_window_s,
             alpha,
             max_absorbance,
+            signal,
             dead_time_s,
         },
         initial_rate: parse_field::<InitialRateEstimator>("initial-rate", &layer.initial_rate)?
@@ -680,7 +736,13 @@ pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLa
         skip: Some(analysis.rates.skip_s),
         max_conversion: Some(analysis.rates.max_conversion),
         min_points: Some(analysis.rates.min_points),
-        max_absorbance: Some(analysis.rates.max_absorbance),
+        // Each kind of signal records its own limit, so that the settings run again unchanged.
+        max_absorbance: (analysis.rates.signal == SignalKind::Absorbance)
+            .then_some(analysis.rates.max_absorbance),
+        max_signal: (analysis.rates.signal != SignalKind::Absorbance
+            && analysis.rates.max_absorbance.is_finite())
+        .then_some(analysis.rates.max_absorbance),
+        signal: Some(analysis.rates.signal.word().into()),
         alpha: Some(analysis.rates.alpha),
         keep_flagged: Some(analysis.keep_flagged),
         allow_missing: Some(analysis.allow_missing),
@@ -760,6 +822,63 @@ mod tests {
         let text = toml::to_string(&run.used).unwrap();
         assert!(text.contains("max-conversion = 0.1"), "{text}");
         assert!(text.contains("progress = \"auto\""), "{text}");
+    }
+
+    #[test]
+    fn beer_lambert_settings_are_refused_for_fluorescence_with_the_reason() {
+        let layer = SettingLayer {
+            signal: Some("fluorescence".into()),
+            extinction: Some(5000.0),
+            pathlength: Some(0.5),
+            ..SettingLayer::default()
+        };
+        let message = resolve_analysis(&layer).unwrap_err().to_string();
+        assert!(
+            message.contains("extinction cannot convert fluorescence"),
+            "{message}"
+        );
+        assert!(message.contains("standard"), "{message}");
+        let layer = SettingLayer {
+            signal: Some("luminescence".into()),
+            max_absorbance: Some(2.0),
+            ..SettingLayer::default()
+        };
+        let message = resolve_analysis(&layer).unwrap_err().to_string();
+        assert!(message.contains("--max-signal"), "{message}");
+        let layer = SettingLayer {
+            max_signal: Some(60_000.0),
+            ..SettingLayer::default()
+        };
+        let message = resolve_analysis(&layer).unwrap_err().to_string();
+        assert!(message.contains("--max-absorbance"), "{message}");
+    }
+
+    #[test]
+    fn a_fluorescence_limit_comes_from_max_signal_or_none_and_is_recorded_as_such() {
+        let layer = SettingLayer {
+            signal: Some("Fluorescence".into()),
+            ..SettingLayer::default()
+        };
+        let analysis = resolve_analysis(&layer).unwrap();
+        assert_eq!(analysis.rates.signal, SignalKind::Fluorescence);
+        assert!(analysis.rates.max_absorbance.is_infinite());
+        let used = used_layer(layer, &analysis);
+        assert_eq!(used.max_absorbance, None);
+        assert_eq!(used.max_signal, None);
+        assert_eq!(used.signal.as_deref(), Some("fluorescence"));
+        let layer = SettingLayer {
+            signal: Some("fluorescence".into()),
+            max_signal: Some(60_000.0),
+            ..SettingLayer::default()
+        };
+        let analysis = resolve_analysis(&layer).unwrap();
+        assert_eq!(analysis.rates.max_absorbance, 60_000.0);
+        assert_eq!(used_layer(layer, &analysis).max_signal, Some(60_000.0));
+        let bad = SettingLayer {
+            signal: Some("phosphorescence".into()),
+            ..SettingLayer::default()
+        };
+        assert!(resolve_analysis(&bad).unwrap_err().to_string().contains("signal"));
     }
 
     #[test]

@@ -10,6 +10,7 @@ use crate::config::{
 };
 use crate::core::plate::WellId;
 use crate::files::input::InputFile;
+use crate::groups::calibration::{add_slope_uncertainty, curve_for_group};
 use crate::groups::{fit_groups_with, GroupFit, InitialRateOptions};
 use crate::import::{import_data, ImportError, KineticData};
 use crate::layout::{check_against_data, read_layout, wells_outside_layout, Layout, LayoutError};
@@ -102,7 +103,7 @@ pub fn analyse_inputs(
         estimator: settings.initial_rate,
         dead_time_s: settings.rates.dead_time_s,
     };
-    let fits = fit_groups_with(&analysis, &layout, fit_settings, &initial, progress);
+    let mut fits = fit_groups_with(&analysis, &layout, fit_settings, &initial, progress);
     // The group fits' depletion-corrected initial rates become the wells' rates, once.
     let corrected: std::collections::BTreeMap<WellId, (f64, f64)> = fits
         .iter()
@@ -114,7 +115,24 @@ pub fn analyse_inputs(
         .collect();
     analysis.apply_initial_rates(&corrected);
     let conditions = condition_table(&analysis, &layout)?;
-    let progress_curves = analyse_progress(&data, &layout, &analysis, &fits, settings);
+    let mut progress_curves = analyse_progress(&data, &layout, &analysis, &fits, settings);
+    // The standard curve's slope scales every converted rate of a group: its uncertainty joins
+    // the constants it scales, once the fits (and the progress fits that start from them) are made.
+    if let Some(calibration) = &analysis.signal.calibration {
+        for fit in &mut fits {
+            if let Some(curve) = curve_for_group(calibration, &fit.group) {
+                fit.warnings
+                    .extend(add_slope_uncertainty(&mut fit.parameters, curve));
+            }
+        }
+        for report in &mut progress_curves.groups {
+            if let Some(curve) = curve_for_group(calibration, &report.group) {
+                report
+                    .warnings
+                    .extend(add_slope_uncertainty(&mut report.parameters, curve));
+            }
+        }
+    }
     Ok(RunResults {
         data,
         layout,

@@ -50,7 +50,8 @@ fn role_order(role: Role) -> u8 {
         Role::Sample => 0,
         Role::NoEnzyme => 1,
         Role::Blank => 2,
-        Role::Empty => 3,
+        Role::Standard => 3,
+        Role::Empty => 4,
     }
 }
 

@@ -277,9 +277,18 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
         // Any read past the photometric limit marks the well: the reads before it still give a
         // window (used with --keep-flagged), but the well's optics are suspect.
         result.flag(Flag::Saturated);
+        let limit = match settings.signal {
+            crate::config::SignalKind::Absorbance => format!("absorbance above {}", settings.max_absorbance),
+            other if settings.max_absorbance.is_finite() => format!(
+                "{} above {} {} or over the reader's range",
+                other.word(),
+                settings.max_absorbance,
+                other.raw_unit()
+            ),
+            other => format!("{} over the reader's range", other.word()),
+        };
         result.notes.push(format!(
-            "absorbance above {} from read {} (t = {} s): later reads not used",
-            settings.max_absorbance,
+            "{limit} from read {} (t = {} s): later reads not used",
             index + 1,
             format_seconds(input.times_s[index])
         ));

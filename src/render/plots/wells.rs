@@ -165,7 +165,7 @@ pub fn plate_view(results: &RunResults) -> PlateView {
             (None | Some(Role::Empty), ..) => {}
             (Some(role), Some(result), Some(raw)) => {
                 view.state = WellState::Analysed;
-                view.trace = signal.product_formed(raw);
+                view.trace = signal.well_product_formed(well, raw);
                 view.window = result.rate.window_s;
                 view.line = result.rate.fit.map(|fit| (fit.intercept, fit.slope));
                 view.rate = result.rate_value.zip(result.rate_se);
@@ -324,6 +324,7 @@ fn role_tag(role: Option<Role>) -> &'static str {
     match role {
         Some(Role::Blank) => " blank",
         Some(Role::NoEnzyme) => " no-E",
+        Some(Role::Standard) => " std",
         _ => "",
     }
 }

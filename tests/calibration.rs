@@ -1,0 +1,278 @@
+//! Signal to concentration (issue 11): a simulated fluorescence plate with product standards
+//! (the plate simulator's Michaelis-Menten curves, RFU, a slight inner-filter bend at the top,
+//! standards in duplicate) recovers the truth through the library and the binary; the coverage of
+//! kcat's interval with the slope's uncertainty combined; and each new bad input refused, naming
+//! the file and the well.
+
+mod common;
+
+use common::{platekin, text};
+use platekin::config::{resolve_analysis, resolve_fit, SettingLayer};
+use platekin::files::sheet::read_text_cells;
+use platekin::import::{import_cells, ImportOptions};
+use platekin::layout::parse_layout;
+use platekin::pipeline::{analyse_inputs, RunResults};
+use platekin::simulate::fluorescence::{fluorescence_plate, KCAT_PER_S, KM_UM, RFU_PER_UM};
+
+/// A scratch folder holding the plate of `seed` as `plate.csv` and its layout as `layout.csv`.
+fn scratch_with_plate(
+    seed: u64,
+) -> (
+    tempfile::TempDir,
+    platekin::simulate::fluorescence::FluorescencePlate,
+) {
+    let scratch = tempfile::tempdir().unwrap();
+    let plate = fluorescence_plate(seed).unwrap();
+    std::fs::write(scratch.path().join("plate.csv"), &plate.export_csv).unwrap();
+    std::fs::write(scratch.path().join("layout.csv"), &plate.layout_csv).unwrap();
+    (scratch, plate)
+}
+
+fn fluorescence_layer() -> SettingLayer {
+    SettingLayer {
+        signal: Some("fluorescence".into()),
+        // Profile intervals are not needed for these checks and cost a refit per parameter.
+        profile: Some(false),
+        ..SettingLayer::default()
+    }
+}
+
+fn analyse(export: &str, layout: &str, layer: &SettingLayer) -> RunResults {
+    let grid = read_text_cells(export.as_bytes(), "hollin-moss.csv").unwrap();
+    let data = import_cells(&grid, &ImportOptions::default()).unwrap();
+    let layout_grid = read_text_cells(layout.as_bytes(), "hollin-moss-layout.csv").unwrap();
+    let layout = parse_layout(&layout_grid, data.plate).unwrap();
+    analyse_inputs(
+        data,
+        layout,
+        &resolve_analysis(layer).unwrap(),
+        &resolve_fit(layer).unwrap(),
+        &mut |_, _| {},
+    )
+    .unwrap()
+}
+
+/// kcat (value, interval, se) and Km of the plate's one group.
+fn constants(results: &RunResults) -> ((f64, [f64; 2], f64), f64) {
+    let fit = &results.fits[0];
+    let kcat = &fit.parameters["kcat"];
+    (
+        (kcat.value, kcat.ci95.unwrap(), kcat.se.unwrap()),
+        fit.parameters["Km"].value,
+    )
+}
+
+#[test]
+fn a_fluorescence_plate_with_standards_recovers_kcat_and_km_with_the_slope_in_the_interval() {
+    let plate = fluorescence_plate(11).unwrap();
+    let results = analyse(&plate.export_csv, &plate.layout_csv, &fluorescence_layer());
+    let calibration = results
+        .analysis
+        .signal
+        .calibration
+        .as_ref()
+        .expect("a standard curve");
+    assert_eq!(calibration.curves.len(), 1);
+    let curve = &calibration.curves[0];
+    // The inner-filter bend at the top is found and the line stops below it.
+    assert!(curve.curvature.bends, "{:?}", curve.curvature);
+    assert!(curve.range.1 < 16.0, "{:?}", curve.range);
+    assert_eq!(results.analysis.signal.rate_unit(), "uM/s");
+    let ((kcat, [lo, hi], _), km) = constants(&results);
+    assert!((kcat / KCAT_PER_S - 1.0).abs() < 0.05, "kcat {kcat}");
+    assert!((km / KM_UM - 1.0).abs() < 0.08, "Km {km}");
+    assert!(lo < KCAT_PER_S && KCAT_PER_S < hi, "[{lo}, {hi}]");
+    assert!(
+        results.fits[0]
+            .warnings
+            .iter()
+            .any(|w| w.contains("slope uncertainty") && w.contains("kcat")),
+        "{:?}",
+        results.fits[0].warnings
+    );
+}
+
+/// The coverage of kcat's 95% interval over simulated plates (each its own seed), with the
+/// slope's uncertainty combined. CI runs 40 plates; `PLATEKIN_CALIBRATION_PLATES=200 cargo test
+/// --release --test calibration -- --nocapture coverage` runs more and prints the figures.
+#[test]
+fn coverage_of_kcat_with_the_slope_uncertainty() {
+    let plates: usize = std::env::var("PLATEKIN_CALIBRATION_PLATES")
+        .ok()
+        .and_then(|text| text.parse().ok())
+        .unwrap_or(40);
+    let mut covered = 0;
+    let mut covered_without_slope = 0;
+    let mut errors = Vec::new();
+    for seed in 0..plates as u64 {
+        let plate = fluorescence_plate(1000 + seed).unwrap();
+        let results = analyse(&plate.export_csv, &plate.layout_csv, &fluorescence_layer());
+        let ((kcat, [lo, hi], se), _) = constants(&results);
+        if lo <= KCAT_PER_S && KCAT_PER_S <= hi {
+            covered += 1;
+        }
+        // The same interval without the slope's term: the fit's SE alone.
+        let curve = &results.analysis.signal.calibration.as_ref().unwrap().curves[0];
+        let fit_se = (se * se - (kcat * curve.slope_relative_se()).powi(2))
+            .max(0.0)
+            .sqrt();
+        let half = (hi - lo) / 2.0 * fit_se / se;
+        if (kcat - KCAT_PER_S).abs() <= half {
+            covered_without_slope += 1;
+        }
+        errors.push(kcat / KCAT_PER_S - 1.0);
+        if std::env::var_os("PLATEKIN_CALIBRATION_VERBOSE").is_some() {
+            println!(
+                "plate {seed}: kcat {:+.2}% (SE {:.2}%, fit alone {:.2}%), slope {:+.2}% of the linear response (SE {:.2}%), fitted to {} uM",
+                100.0 * (kcat / KCAT_PER_S - 1.0),
+                100.0 * se / kcat,
+                100.0 * fit_se / kcat,
+                100.0 * (curve.line.slope / RFU_PER_UM - 1.0),
+                100.0 * curve.slope_relative_se(),
+                curve.range.1
+            );
+        }
+    }
+    let bias = errors.iter().sum::<f64>() / plates as f64;
+    let rmse = (errors.iter().map(|e| e * e).sum::<f64>() / plates as f64).sqrt();
+    println!(
+        "coverage of kcat over {plates} plates: {covered} with the slope's uncertainty, {covered_without_slope} without; bias {:+.2}%, RMSE {:.2}%",
+        100.0 * bias,
+        100.0 * rmse
+    );
+    // 95% nominal. Measured (200 plates, see DEVELOPERS.md): below nominal, because the inner-filter
+    // bend leaves a bias in the slope that depends on where the curvature test ends the linear
+    // range (2, 4 or 8 uM on these plates), a choice the slope's SE cannot see. The check guards
+    // that the combined interval covers at least as often as the fit's alone and not far below
+    // what was measured.
+    assert!(
+        covered >= covered_without_slope,
+        "{covered} vs {covered_without_slope}"
+    );
+    assert!(covered * 100 >= plates * 70, "{covered} of {plates}");
+    assert!(bias.abs() < 0.05, "bias {bias}");
+}
+
+#[test]
+fn the_binary_writes_rates_in_concentration_units_from_the_standards() {
+    let (scratch, _) = scratch_with_plate(5);
+    let output = platekin(
+        &[
+            "run",
+            "plate.csv",
+            "--layout",
+            "layout.csv",
+            "--signal",
+            "fluorescence",
+            "--out",
+            "out",
+            "--report",
+            "none",
+        ],
+        scratch.path(),
+    );
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    let wells = std::fs::read_to_string(scratch.path().join("out/wells.csv")).unwrap();
+    assert!(wells.lines().next().unwrap().contains("rate [uM/s]"), "{wells}");
+    let settings = std::fs::read_to_string(scratch.path().join("out/settings.toml")).unwrap();
+    assert!(settings.contains("signal = \"fluorescence\""), "{settings}");
+}
+
+#[test]
+fn extinction_with_fluorescence_is_refused_with_the_reason() {
+    let (scratch, _) = scratch_with_plate(5);
+    let output = platekin(
+        &[
+            "run",
+            "plate.csv",
+            "--layout",
+            "layout.csv",
+            "--signal",
+            "fluorescence",
+            "--extinction",
+            "2e9",
+            "--pathlength",
+            "1",
+            "--out",
+            "out",
+        ],
+        scratch.path(),
+    );
+    assert_eq!(output.status.code(), Some(2));
+    let message = text(&output.stderr);
+    assert!(
+        message.contains("extinction cannot convert fluorescence"),
+        "{message}"
+    );
+    assert!(!scratch.path().join("out").exists());
+}
+
+/// Each bad layout is refused through the binary with exit 2, naming the file and the well (and
+/// nothing is written).
+#[test]
+fn bad_standards_are_refused_naming_the_file_and_the_well() {
+    let (scratch, plate) = scratch_with_plate(5);
+    let cases: [(&str, String, &[&str]); 3] = [
+        (
+            "one-level.csv",
+            plate
+                .layout_csv
+                .lines()
+                .map(|line| {
+                    // Every standard at 4 uM: one level.
+                    match line.split_once(",standard,,,") {
+                        Some((wells, _)) => format!("{wells},standard,,,4"),
+                        None => line.to_string(),
+                    }
+                })
+                .collect::<Vec<_>>()
+                .join("\n"),
+            &["one-level.csv", "A9", "1 concentration(s)"],
+        ),
+        (
+            "no-concentration.csv",
+            plate
+                .layout_csv
+                .replace("C9:C10,standard,,,1", "C9:C10,standard,,,"),
+            &["no-concentration.csv", "C9", "standard", "no concentration"],
+        ),
+        (
+            "no-curve.csv",
+            // The standards are made up in buffer B1, the samples in no buffer named.
+            plate
+                .layout_csv
+                .lines()
+                .map(|line| match line {
+                    _ if line.starts_with('#') => line.to_string(),
+                    _ if line.starts_with("well,") => format!("{line},buffer"),
+                    _ if line.contains(",standard,") => format!("{line},B1"),
+                    _ => format!("{line},"),
+                })
+                .collect::<Vec<_>>()
+                .join("\n"),
+            &["no-curve.csv", "A1", "no standard curve", "buffer = 'B1'"],
+        ),
+    ];
+    for (name, layout, expected) in cases {
+        std::fs::write(scratch.path().join(name), &layout).unwrap();
+        let output = platekin(
+            &[
+                "run",
+                "plate.csv",
+                "--layout",
+                name,
+                "--signal",
+                "fluorescence",
+                "--out",
+                "out",
+            ],
+            scratch.path(),
+        );
+        assert_eq!(output.status.code(), Some(2), "{name}");
+        let message = text(&output.stderr);
+        for part in expected {
+            assert!(message.contains(part), "{name}: {part} not in {message}");
+        }
+        assert!(!scratch.path().join("out").exists());
+    }
+}
