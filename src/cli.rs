@@ -164,6 +164,17 @@ pub struct RunArgs {
     /// over-range marker ends the usable reads).
     #[arg(long, value_name = "SIGNAL")]
     pub max_signal: Option<f64>,
+    /// Liquid volume in each well, uL: the pathlength becomes the liquid's height in the well
+    /// (meniscus ignored), with --well-diameter or --well-geometry.
+    #[arg(long, value_name = "UL")]
+    pub volume: Option<f64>,
+    /// Diameter of a round, flat-bottomed well, mm (for --volume).
+    #[arg(long, value_name = "MM")]
+    pub well_diameter: Option<f64>,
+    /// A named well shape for --volume: 96-round, 96-half-area, 384-square, 384-round or
+    /// 1536-square (typical dimensions; the plate's own drawing is better).
+    #[arg(long, value_name = "NAME")]
+    pub well_geometry: Option<String>,
     /// Dead time: reads before this many seconds are ignored.
     #[arg(long, value_name = "SECONDS")]
     pub skip: Option<f64>,
@@ -275,6 +286,9 @@ impl RunArgs {
             s0_from_signal: self.s0_from_signal.then_some(true),
             signal: self.signal.clone(),
             max_signal: self.max_signal,
+            volume: self.volume,
+            well_diameter: self.well_diameter,
+            well_geometry: self.well_geometry.clone(),
             ..self.models.layer().over(self.read.layer())
         }
     }

@@ -276,3 +276,110 @@ fn bad_standards_are_refused_naming_the_file_and_the_well() {
         assert!(!scratch.path().join("out").exists());
     }
 }
+
+/// kcat of the first group in a run folder's fit.json.
+fn first_kcat(folder: &std::path::Path) -> f64 {
+    let fit: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(folder.join("fit.json")).unwrap()).unwrap();
+    fit["groups"][0]["parameters"]["kcat"]["value"].as_f64().unwrap()
+}
+
+/// The demo plate (200 uL, 0.55 cm) run with the pathlength from its volume and a well diameter
+/// whose cylinder holds 200 uL at 5.5 mm (d = sqrt(4 x 200 / (pi x 5.5)) = 6.80438 mm, by hand)
+/// gives the same kcat as the pathlength typed, and records the pathlength it used.
+#[test]
+fn a_pathlength_from_volume_and_diameter_gives_the_same_constants_and_is_recorded() {
+    let scratch = tempfile::tempdir().unwrap();
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let (data, layout) = (data.to_str().unwrap(), layout.to_str().unwrap());
+    let common_args = [
+        "run",
+        data,
+        "--layout",
+        layout,
+        "--extinction",
+        "16800",
+        "--report",
+        "none",
+        "--progress",
+        "never",
+    ];
+    let typed = platekin(
+        &[&common_args[..], &["--pathlength", "0.55", "--out", "typed"]].concat(),
+        scratch.path(),
+    );
+    assert!(typed.status.success(), "{}", text(&typed.stderr));
+    let from_volume = platekin(
+        &[
+            &common_args[..],
+            &[
+                "--volume",
+                "200",
+                "--well-diameter",
+                "6.804382397290101",
+                "--out",
+                "volume",
+            ],
+        ]
+        .concat(),
+        scratch.path(),
+    );
+    assert!(from_volume.status.success(), "{}", text(&from_volume.stderr));
+    let (a, b) = (
+        first_kcat(&scratch.path().join("typed")),
+        first_kcat(&scratch.path().join("volume")),
+    );
+    assert!((a / b - 1.0).abs() < 1e-6, "{a} vs {b}");
+    let settings = std::fs::read_to_string(scratch.path().join("volume/settings.toml")).unwrap();
+    let recorded: toml::Value = toml::from_str(&settings).unwrap();
+    assert!(
+        (recorded["pathlength"].as_float().unwrap() - 0.55).abs() < 1e-12,
+        "{settings}"
+    );
+    assert_eq!(recorded["volume"].as_float(), Some(200.0), "{settings}");
+    let run = std::fs::read_to_string(scratch.path().join("volume/run.json")).unwrap();
+    assert!(
+        run.contains("\"pathlength\": 0.5499") || run.contains("\"pathlength\": 0.55"),
+        "{run}"
+    );
+    assert!(run.contains("\"volume\": 200"), "{run}");
+    // The recorded settings run again unchanged (pathlength and volume agree).
+    let again = platekin(
+        &[
+            "run",
+            data,
+            "--assay",
+            "volume/settings.toml",
+            "--out",
+            "again",
+            "--report",
+            "none",
+        ],
+        scratch.path(),
+    );
+    assert!(again.status.success(), "{}", text(&again.stderr));
+    // A volume larger than the well is refused, naming the setting and the well's capacity.
+    let overfull = platekin(
+        &[
+            &common_args[..],
+            &[
+                "--volume",
+                "50",
+                "--well-geometry",
+                "1536-square",
+                "--out",
+                "overfull",
+            ],
+        ]
+        .concat(),
+        scratch.path(),
+    );
+    assert_eq!(overfull.status.code(), Some(2));
+    let message = text(&overfull.stderr);
+    assert!(
+        message.contains("volume 50 uL is more than the well holds"),
+        "{message}"
+    );
+    assert!(!scratch.path().join("overfull").exists());
+}

@@ -85,6 +85,12 @@ pub struct SettingLayer {
     pub signal: Option<String>,
     /// Raw fluorescence or luminescence above which reads are not used.
     pub max_signal: Option<f64>,
+    /// Liquid volume in each well, uL (the pathlength is then the liquid height).
+    pub volume: Option<f64>,
+    /// Diameter of a round flat-bottomed well, mm.
+    pub well_diameter: Option<f64>,
+    /// A named well shape (`96-round`, `96-half-area`, `384-square`, `384-round`, `1536-square`).
+    pub well_geometry: Option<String>,
 }
 
 impl SettingLayer {
@@ -124,6 +130,9 @@ impl SettingLayer {
             s0_from_signal: self.s0_from_signal.or(below.s0_from_signal),
             signal: self.signal.or(below.signal),
             max_signal: self.max_signal.or(below.max_signal),
+            volume: self.volume.or(below.volume),
+            well_diameter: self.well_diameter.or(below.well_diameter),
+            well_geometry: self.well_geometry.or(below.well_geometry),
         }
     }
 
@@ -555,6 +564,12 @@ fn check_signal_settings(layer: &SettingLayer, signal: SignalKind) -> Result<(),
             ),
         ));
     }
+    if layer.volume.is_some() {
+        return Err(SettingsError::about(
+            "volume",
+            format!("volume gives a pathlength, which only serves Beer-Lambert for absorbance; a {word} read is converted by standards on the plate"),
+        ));
+    }
     if layer.pathlength.is_some() {
         return Err(SettingsError::about(
             "pathlength",
@@ -570,13 +585,80 @@ fn check_signal_settings(layer: &SettingLayer, signal: SignalKind) -> Result<(),
     Ok(())
 }
 
+/// The largest liquid volume accepted, uL: more than a deep-well plate's well holds (common
+/// practice), so only a slip is refused before the well's own capacity is checked.
+pub const MAX_VOLUME_UL: f64 = 5000.0;
+
+/// The pathlength (cm) from `volume` and the well's shape (`well-diameter` or `well-geometry`),
+/// the liquid height with the meniscus ignored (`core::geometry`); `None` without `volume`. A
+/// `pathlength` given too must be that height (so the settings a run records, which hold both,
+/// run again unchanged).
+fn pathlength_from_volume(layer: &SettingLayer) -> Result<Option<f64>, SettingsError> {
+    use crate::core::geometry::{WellGeometry, WellShape};
+    let Some(volume) = positive_at_most("volume", layer.volume, MAX_VOLUME_UL)? else {
+        for key in ["well-diameter", "well-geometry"] {
+            if layer_sets(layer, key) {
+                return Err(SettingsError::about(
+                    if key == "well-diameter" { "well-diameter" } else { "well-geometry" },
+                    format!("{key} only serves --volume (the pathlength from the liquid's volume); give --volume too"),
+                ));
+            }
+        }
+        return Ok(None);
+    };
+    let diameter = positive_at_most("well-diameter", layer.well_diameter, 100.0)?;
+    let geometry = parse_field::<WellGeometry>("well-geometry", &layer.well_geometry)?;
+    let shape = match (diameter, geometry) {
+        (Some(diameter_mm), None) => WellShape::Cylinder {
+            diameter_mm,
+            // A flat-bottomed round well of unknown depth: the capacity check uses the deepest
+            // standard-footprint well (14.35 mm plate height, ANSI/SLAS 2-2004).
+            depth_mm: 14.35,
+        },
+        (None, Some(geometry)) => geometry.shape(),
+        (Some(_), Some(_)) => {
+            return Err(SettingsError::about(
+                "well-diameter",
+                "give --well-diameter or --well-geometry, not both".into(),
+            ))
+        }
+        (None, None) => {
+            return Err(SettingsError::about(
+                "volume",
+                format!(
+                    "--volume needs the well's shape: --well-diameter MM (round, flat bottom) or --well-geometry NAME ({})",
+                    WellGeometry::ALL.map(WellGeometry::name).join(", ")
+                ),
+            ))
+        }
+    };
+    let height = shape
+        .pathlength_cm(volume)
+        .map_err(|message| SettingsError::about("volume", format!("volume: {message}")))?;
+    if let Some(given) = layer.pathlength {
+        if (given - height).abs() > 1e-9 * height.max(1.0) {
+            return Err(SettingsError::about(
+                "pathlength",
+                format!(
+                    "pathlength {given} cm differs from the liquid height of volume {volume} uL in this well ({} cm); give one of them",
+                    significant(height)
+                ),
+            ));
+        }
+    }
+    Ok(Some(height))
+}
+
 /// Resolves the analysis part of a layer.
 pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, SettingsError> {
     let defaults = RateSettings::default();
     let signal = parse_field::<SignalKind>("signal", &layer.signal)?.unwrap_or_default();
     check_signal_settings(layer, signal)?;
     let extinction = positive_at_most("extinction", layer.extinction, MAX_EXTINCTION)?;
-    let pathlength = positive_at_most("pathlength", layer.pathlength, MAX_PATHLENGTH_CM)?;
+    let pathlength = match pathlength_from_volume(layer)? {
+        Some(height) => Some(height),
+        None => positive_at_most("pathlength", layer.pathlength, MAX_PATHLENGTH_CM)?,
+    };
     if extinction.is_some() != pathlength.is_some() {
         // The setting given alone is at fault (so an assay file that gives it is named).
         return Err(SettingsError::about(
@@ -743,6 +825,8 @@ pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLa
             && analysis.rates.max_absorbance.is_finite())
         .then_some(analysis.rates.max_absorbance),
         signal: Some(analysis.rates.signal.word().into()),
+        // The pathlength used, also when it came from the volume (recorded beside it).
+        pathlength: analysis.pathlength_cm,
         alpha: Some(analysis.rates.alpha),
         keep_flagged: Some(analysis.keep_flagged),
         allow_missing: Some(analysis.allow_missing),

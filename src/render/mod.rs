@@ -6,6 +6,7 @@
 //! ([`tables`]), `fit.json`, `progress.json` ([`json`]), `settings.toml`, the report
 //! ([`report`], [`plots`]) and last `run.json`, which lists the others with their checksums.
 
+pub mod calibration;
 pub mod campaign;
 pub mod inspect;
 pub mod json;
@@ -121,6 +122,12 @@ pub fn render_run_outputs(results: &RunResults, record: &RunRecord) -> Result<Ve
         json::json_file("progress.json", &progress)?,
         settings_toml(record)?,
     ];
+    if let Some(calibration) = &results.analysis.signal.calibration {
+        files.push(json::json_file(
+            "calibration.json",
+            &calibration::calibration_document(calibration, results.analysis.signal.raw_unit),
+        )?);
+    }
     files.extend(report::report_files(results, record)?);
     files.push(json::run_json(
         &record.inputs,

@@ -185,8 +185,13 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
     }
     lines.push(String::new());
     lines.push(format!(
-        "outputs: {}/ (wells.csv, conditions.csv, fit.json, progress.json, settings.toml{}, run.json)",
+        "outputs: {}/ (wells.csv, conditions.csv, fit.json, progress.json, {}settings.toml{}, run.json)",
         out.display(),
+        if results.analysis.signal.calibration.is_some() {
+            "calibration.json, "
+        } else {
+            ""
+        },
         match report {
             ReportMode::Html => ", report.html",
             ReportMode::Full => ", report.html, plots/*.png",

@@ -231,6 +231,7 @@ pub fn report_html(parts: &ReportParts) -> String {
     page.push_str(&settings_section(parts));
     page.push_str(&overview_section(parts));
     page.push_str(&flagged_section(parts));
+    page.push_str(&super::calibration::calibration_section(results));
     page.push_str(&conditions_section(parts));
     page.push_str(&groups_section(parts));
     page.push_str(&progress_section(parts));
