@@ -175,6 +175,14 @@ pub struct RunArgs {
     /// 1536-square (typical dimensions; the plate's own drawing is better).
     #[arg(long, value_name = "NAME")]
     pub well_geometry: Option<String>,
+    /// A per-well pathlength table (CSV or spreadsheet): a `well` column and either
+    /// `pathlength [cm]` or the water-peak reads `A977` and `A900`; listed wells use their own.
+    #[arg(long, value_name = "FILE")]
+    pub pathlength_from: Option<PathBuf>,
+    /// The 1-cm (A977 - A900) of water for the water-peak method, AU (default 0.18, room
+    /// temperature; read your buffer at the assay temperature).
+    #[arg(long, value_name = "AU")]
+    pub water_reference: Option<f64>,
     /// Dead time: reads before this many seconds are ignored.
     #[arg(long, value_name = "SECONDS")]
     pub skip: Option<f64>,
@@ -289,6 +297,8 @@ impl RunArgs {
             volume: self.volume,
             well_diameter: self.well_diameter,
             well_geometry: self.well_geometry.clone(),
+            pathlength_from: self.pathlength_from.clone(),
+            water_reference: self.water_reference,
             ..self.models.layer().over(self.read.layer())
         }
     }

@@ -383,3 +383,88 @@ fn a_pathlength_from_volume_and_diameter_gives_the_same_constants_and_is_recorde
     );
     assert!(!scratch.path().join("overfull").exists());
 }
+
+/// The `window_slope` of `well` in a run folder's wells.csv.
+fn window_slope(folder: &std::path::Path, well: &str) -> f64 {
+    let wells = std::fs::read_to_string(folder.join("wells.csv")).unwrap();
+    let mut lines = wells.lines();
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let column = header.iter().position(|h| h.starts_with("window_slope")).unwrap();
+    let row = lines.find(|line| line.starts_with(&format!("{well},"))).unwrap();
+    row.split(',').nth(column).unwrap().parse().unwrap()
+}
+
+/// A water-peak table gives each listed well its own pathlength: (A977 - A900) / 0.18 is 0.55 cm
+/// for every well but the no-enzyme control A7, read at 0.5 cm (0.090 / 0.18, by hand), so A7's
+/// slope over a fixed window (controls have no background subtracted) is 0.55 / 0.5 = 1.1 times the
+/// slope with 0.55 cm typed, and B7's is unchanged.
+#[test]
+fn a_water_peak_table_gives_each_well_its_own_pathlength() {
+    let scratch = tempfile::tempdir().unwrap();
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let (data, layout) = (data.to_str().unwrap(), layout.to_str().unwrap());
+    let mut table = String::from("well,A977,A900\n");
+    for row in ["A", "B", "C", "D", "E", "F", "G", "H"] {
+        for column in 1..=12 {
+            let a977 = if (row, column) == ("A", 7) { 0.131 } else { 0.140 };
+            table.push_str(&format!("{row}{column},{a977},0.041\n"));
+        }
+    }
+    std::fs::write(scratch.path().join("water.csv"), table).unwrap();
+    let common_args = [
+        "run",
+        data,
+        "--layout",
+        layout,
+        "--extinction",
+        "16800",
+        "--report",
+        "none",
+        "--progress",
+        "never",
+        "--window",
+        "0:300",
+        "--initial-rate",
+        "chord",
+    ];
+    let typed = platekin(
+        &[&common_args[..], &["--pathlength", "0.55", "--out", "typed"]].concat(),
+        scratch.path(),
+    );
+    assert!(typed.status.success(), "{}", text(&typed.stderr));
+    let table_run = platekin(
+        &[
+            &common_args[..],
+            &["--pathlength-from", "water.csv", "--out", "table"],
+        ]
+        .concat(),
+        scratch.path(),
+    );
+    assert!(table_run.status.success(), "{}", text(&table_run.stderr));
+    let ratio =
+        window_slope(&scratch.path().join("table"), "A7") / window_slope(&scratch.path().join("typed"), "A7");
+    assert!((ratio - 1.1).abs() < 1e-9, "{ratio}");
+    let same =
+        window_slope(&scratch.path().join("table"), "B7") / window_slope(&scratch.path().join("typed"), "B7");
+    assert!((same - 1.0).abs() < 1e-9, "{same}");
+    let run = std::fs::read_to_string(scratch.path().join("table/run.json")).unwrap();
+    assert!(run.contains("water.csv"), "{run}");
+    // A bad cell is refused naming the file, row and column.
+    std::fs::write(scratch.path().join("bad.csv"), "well,A977,A900\nA1,0.14,n/a\n").unwrap();
+    let bad = platekin(
+        &[
+            &common_args[..],
+            &["--pathlength-from", "bad.csv", "--out", "bad"],
+        ]
+        .concat(),
+        scratch.path(),
+    );
+    assert_eq!(bad.status.code(), Some(2));
+    let message = text(&bad.stderr);
+    assert!(
+        message.contains("bad.csv") && message.contains("row 2") && message.contains("A900"),
+        "{message}"
+    );
+    assert!(!scratch.path().join("bad").exists());
+}

@@ -91,6 +91,10 @@ pub struct SettingLayer {
     pub well_diameter: Option<f64>,
     /// A named well shape (`96-round`, `96-half-area`, `384-square`, `384-round`, `1536-square`).
     pub well_geometry: Option<String>,
+    /// A per-well pathlength table: `pathlength [cm]`, or `A977` and `A900` water-peak reads.
+    pub pathlength_from: Option<PathBuf>,
+    /// The 1-cm (A977 - A900) of water for the water-peak method, AU.
+    pub water_reference: Option<f64>,
 }
 
 impl SettingLayer {
@@ -133,6 +137,8 @@ impl SettingLayer {
             volume: self.volume.or(below.volume),
             well_diameter: self.well_diameter.or(below.well_diameter),
             well_geometry: self.well_geometry.or(below.well_geometry),
+            pathlength_from: self.pathlength_from.or(below.pathlength_from),
+            water_reference: self.water_reference.or(below.water_reference),
         }
     }
 
@@ -178,6 +184,11 @@ impl SettingLayer {
         if let (Some(layout), Some(folder)) = (&layer.layout, path.parent()) {
             if layout.is_relative() {
                 layer.layout = Some(folder.join(layout));
+            }
+        }
+        if let (Some(table), Some(folder)) = (&layer.pathlength_from, path.parent()) {
+            if table.is_relative() {
+                layer.pathlength_from = Some(folder.join(table));
             }
         }
         Ok(layer)
@@ -306,6 +317,12 @@ pub struct AnalysisSettings {
     pub extinction_per_molar_cm: Option<f64>,
     /// cm, when known.
     pub pathlength_cm: Option<f64>,
+    /// The 1-cm (A977 - A900) of water for a water-peak pathlength table, AU.
+    pub water_reference: f64,
+    /// Pathlength of each well listed in a `--pathlength-from` table, cm (filled once the table is
+    /// read; wells not listed use `pathlength_cm`).
+    #[serde(skip)]
+    pub pathlength_by_well: std::collections::BTreeMap<crate::core::plate::WellId, f64>,
     /// Window rules (with the dead time).
     pub rates: RateSettings,
     /// How each well's initial rate is estimated.
@@ -324,6 +341,8 @@ impl Default for AnalysisSettings {
             readout: Readout::Product,
             extinction_per_molar_cm: None,
             pathlength_cm: None,
+            water_reference: DEFAULT_WATER_REFERENCE,
+            pathlength_by_well: std::collections::BTreeMap::new(),
             rates: RateSettings::default(),
             initial_rate: InitialRateEstimator::default(),
             keep_flagged: false,
@@ -344,6 +363,8 @@ pub struct RunSettings {
     pub import: ImportOptions,
     /// The sheet of a layout workbook.
     pub layout_sheet: Option<String>,
+    /// A per-well pathlength table, if given.
+    pub pathlength_from: Option<PathBuf>,
     /// The analysis.
     pub analysis: AnalysisSettings,
     /// How groups are fitted.
@@ -498,6 +519,7 @@ pub fn resolve_run(data: PathBuf, layer: SettingLayer) -> Result<RunSettings, Se
         SettingsError::new("no plate layout: give --layout LAYOUT (or `layout` in the assay file)".into())
     })?;
     let import = resolve_import(&layer)?;
+    let layer_pathlength_from = layer.pathlength_from.clone();
     let analysis = resolve_analysis(&layer)?;
     let fit = resolve_fit(&layer)?;
     let report = resolve_report(&layer)?;
@@ -517,6 +539,7 @@ pub fn resolve_run(data: PathBuf, layer: SettingLayer) -> Result<RunSettings, Se
         layout,
         import,
         layout_sheet: used.layout_sheet.clone(),
+        pathlength_from: layer_pathlength_from,
         analysis,
         fit,
         report,
@@ -584,6 +607,12 @@ fn check_signal_settings(layer: &SettingLayer, signal: SignalKind) -> Result<(),
     }
     Ok(())
 }
+
+/// The 1-cm (A977 - A900) of water at room temperature, AU, for the water-peak pathlength (from
+/// memory, common practice: about 0.18; not verified against a primary source; the band moves with
+/// temperature and solutes, so read the assay buffer in a 1 cm cuvette at the assay temperature
+/// and give it as `water-reference`).
+pub const DEFAULT_WATER_REFERENCE: f64 = 0.18;
 
 /// The largest liquid volume accepted, uL: more than a deep-well plate's well holds (common
 /// practice), so only a slip is refused before the well's own capacity is checked.
@@ -659,7 +688,16 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         Some(height) => Some(height),
         None => positive_at_most("pathlength", layer.pathlength, MAX_PATHLENGTH_CM)?,
     };
-    if extinction.is_some() != pathlength.is_some() {
+    let water_reference =
+        positive_at_most("water-reference", layer.water_reference, 10.0)?.unwrap_or(DEFAULT_WATER_REFERENCE);
+    let per_well_path = layer.pathlength_from.is_some();
+    if per_well_path && extinction.is_none() {
+        return Err(SettingsError::about(
+            "pathlength-from",
+            "pathlength-from serves Beer-Lambert: give --extinction too".into(),
+        ));
+    }
+    if extinction.is_some() != (pathlength.is_some() || per_well_path) {
         // The setting given alone is at fault (so an assay file that gives it is named).
         return Err(SettingsError::about(
             if extinction.is_some() { "extinction" } else { "pathlength" },
@@ -729,6 +767,8 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         readout: parse_field::<Readout>("readout", &layer.readout)?.unwrap_or(Readout::Product),
         extinction_per_molar_cm: extinction,
         pathlength_cm: pathlength,
+        water_reference,
+        pathlength_by_well: std::collections::BTreeMap::new(),
         rates: RateSettings {
             min_points,
             max_conversion,
@@ -825,6 +865,7 @@ pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLa
             && analysis.rates.max_absorbance.is_finite())
         .then_some(analysis.rates.max_absorbance),
         signal: Some(analysis.rates.signal.word().into()),
+        water_reference: layer.pathlength_from.as_ref().map(|_| analysis.water_reference),
         // The pathlength used, also when it came from the volume (recorded beside it).
         pathlength: analysis.pathlength_cm,
         alpha: Some(analysis.rates.alpha),

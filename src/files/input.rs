@@ -24,6 +24,8 @@ pub enum InputRole {
     Assay,
     /// A rate table given to `platekin fit`.
     Table,
+    /// A per-well pathlength table (`--pathlength-from`).
+    Pathlength,
 }
 
 impl InputRole {
@@ -34,6 +36,7 @@ impl InputRole {
             InputRole::Layout => "layout",
             InputRole::Assay => "assay",
             InputRole::Table => "table",
+            InputRole::Pathlength => "pathlength",
         }
     }
 }

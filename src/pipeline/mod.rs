@@ -12,6 +12,7 @@ use crate::core::plate::WellId;
 use crate::files::input::InputFile;
 use crate::groups::calibration::{add_slope_uncertainty, curve_for_group};
 use crate::groups::{fit_groups_with, GroupFit, InitialRateOptions};
+use crate::import::pathlength::{read_well_pathlengths, PathlengthFileError};
 use crate::import::{import_data, ImportError, KineticData};
 use crate::layout::{check_against_data, read_layout, wells_outside_layout, Layout, LayoutError};
 use crate::progress::analysis::{analyse_progress, ProgressAnalysis};
@@ -33,6 +34,9 @@ pub enum PipelineError {
     /// A setting cannot work on these inputs.
     #[error(transparent)]
     Settings(#[from] SettingsError),
+    /// The per-well pathlength table cannot be used.
+    #[error(transparent)]
+    Pathlength(#[from] PathlengthFileError),
 }
 
 /// Everything a run found.
@@ -65,6 +69,8 @@ pub struct PlateInputs {
     pub data: InputFile,
     /// The layout.
     pub layout: InputFile,
+    /// The per-well pathlength table (`--pathlength-from`), if given.
+    pub pathlengths: Option<InputFile>,
 }
 
 /// Parses the inputs' bytes and analyses them. `progress(done, total)` reports bootstrap
@@ -80,7 +86,14 @@ pub fn run_pipeline(
     let data = import_data(&inputs.data, import)?;
     let layout = read_layout(&inputs.layout, layout_sheet, data.plate)?;
     check_against_input(settings, &input_facts(&data, &layout))?;
-    analyse_inputs(data, layout, settings, fit_settings, progress)
+    let Some(table) = &inputs.pathlengths else {
+        return analyse_inputs(data, layout, settings, fit_settings, progress);
+    };
+    let settings = AnalysisSettings {
+        pathlength_by_well: read_well_pathlengths(table, data.plate, settings.water_reference)?,
+        ..settings.clone()
+    };
+    analyse_inputs(data, layout, &settings, fit_settings, progress)
 }
 
 /// Analyses inputs already parsed (tests and benchmarks start here).

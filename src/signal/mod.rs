@@ -534,7 +534,11 @@ fn beer_lambert_conversion(
 ) -> Conversion {
     let signal_kind = settings.rates.signal;
     let unit = layout.substrate_unit;
-    let per_absorbance = match (settings.extinction_per_molar_cm, settings.pathlength_cm, unit) {
+    // Wells without their own pathlength take the plate's, or else the median of those listed.
+    let plate_path = settings
+        .pathlength_cm
+        .or_else(|| crate::core::stats::median(settings.pathlength_by_well.values().copied()));
+    let per_absorbance = match (settings.extinction_per_molar_cm, plate_path, unit) {
         (Some(epsilon), Some(path), Some(unit)) => Some(1.0 / (epsilon * path) / unit.in_molar()),
         (Some(_), Some(_), None) => {
             warnings.push("the layout gives no substrate unit: rates stay in absorbance units".to_string());
@@ -555,11 +559,43 @@ fn beer_lambert_conversion(
             None
         }
     };
+    let well_conversions: BTreeMap<WellId, WellConversion> = match (settings.extinction_per_molar_cm, unit) {
+        (Some(epsilon), Some(unit)) if per_absorbance.is_some() => settings
+            .pathlength_by_well
+            .iter()
+            .map(|(well, path)| {
+                let conversion = WellConversion {
+                    per_signal: 1.0 / (epsilon * path) / unit.in_molar(),
+                    signal_offset: 0.0,
+                };
+                (*well, conversion)
+            })
+            .collect(),
+        _ => BTreeMap::new(),
+    };
+    if settings.pathlength_cm.is_none() && !settings.pathlength_by_well.is_empty() {
+        let unlisted: Vec<String> = layout
+            .wells
+            .iter()
+            .filter(|(well, setup)| {
+                matches!(setup.role, Role::Sample | Role::NoEnzyme)
+                    && !settings.pathlength_by_well.contains_key(well)
+            })
+            .map(|(well, _)| well.to_string())
+            .collect();
+        if !unlisted.is_empty() {
+            warnings.push(format!(
+                "{} sample or control well(s) have no pathlength of their own and take the table's median: {}",
+                unlisted.len(),
+                unlisted.join(", ")
+            ));
+        }
+    }
     Conversion {
         per_absorbance,
         concentration_unit: per_absorbance.and(unit),
         calibration: None,
-        well_conversions: BTreeMap::new(),
+        well_conversions,
     }
 }
 
