@@ -277,6 +277,27 @@ fn bad_standards_are_refused_naming_the_file_and_the_well() {
     }
 }
 
+/// Runs the binary in `scratch` on the Amber Fen demo plate (extinction 16,800, no report, no
+/// progress fits) with `extra` flags.
+fn run_demo_plate(scratch: &std::path::Path, extra: &[&str]) -> std::process::Output {
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let mut args = vec![
+        "run",
+        data.to_str().unwrap(),
+        "--layout",
+        layout.to_str().unwrap(),
+        "--extinction",
+        "16800",
+        "--report",
+        "none",
+        "--progress",
+        "never",
+    ];
+    args.extend_from_slice(extra);
+    platekin(&args, scratch)
+}
+
 /// kcat of the first group in a run folder's fit.json.
 fn first_kcat(folder: &std::path::Path) -> f64 {
     let fit: serde_json::Value =
@@ -290,40 +311,18 @@ fn first_kcat(folder: &std::path::Path) -> f64 {
 #[test]
 fn a_pathlength_from_volume_and_diameter_gives_the_same_constants_and_is_recorded() {
     let scratch = tempfile::tempdir().unwrap();
-    let data = common::project("demo-plates/amber-fen-wide.csv");
-    let layout = common::project("demo-plates/amber-fen-layout.csv");
-    let (data, layout) = (data.to_str().unwrap(), layout.to_str().unwrap());
-    let common_args = [
-        "run",
-        data,
-        "--layout",
-        layout,
-        "--extinction",
-        "16800",
-        "--report",
-        "none",
-        "--progress",
-        "never",
-    ];
-    let typed = platekin(
-        &[&common_args[..], &["--pathlength", "0.55", "--out", "typed"]].concat(),
-        scratch.path(),
-    );
+    let typed = run_demo_plate(scratch.path(), &["--pathlength", "0.55", "--out", "typed"]);
     assert!(typed.status.success(), "{}", text(&typed.stderr));
-    let from_volume = platekin(
-        &[
-            &common_args[..],
-            &[
-                "--volume",
-                "200",
-                "--well-diameter",
-                "6.804382397290101",
-                "--out",
-                "volume",
-            ],
-        ]
-        .concat(),
+    let from_volume = run_demo_plate(
         scratch.path(),
+        &[
+            "--volume",
+            "200",
+            "--well-diameter",
+            "6.804382397290101",
+            "--out",
+            "volume",
+        ],
     );
     assert!(from_volume.status.success(), "{}", text(&from_volume.stderr));
     let (a, b) = (
@@ -345,10 +344,11 @@ fn a_pathlength_from_volume_and_diameter_gives_the_same_constants_and_is_recorde
     );
     assert!(run.contains("\"volume\": 200"), "{run}");
     // The recorded settings run again unchanged (pathlength and volume agree).
+    let data = common::project("demo-plates/amber-fen-wide.csv");
     let again = platekin(
         &[
             "run",
-            data,
+            data.to_str().unwrap(),
             "--assay",
             "volume/settings.toml",
             "--out",
@@ -360,20 +360,16 @@ fn a_pathlength_from_volume_and_diameter_gives_the_same_constants_and_is_recorde
     );
     assert!(again.status.success(), "{}", text(&again.stderr));
     // A volume larger than the well is refused, naming the setting and the well's capacity.
-    let overfull = platekin(
-        &[
-            &common_args[..],
-            &[
-                "--volume",
-                "50",
-                "--well-geometry",
-                "1536-square",
-                "--out",
-                "overfull",
-            ],
-        ]
-        .concat(),
+    let overfull = run_demo_plate(
         scratch.path(),
+        &[
+            "--volume",
+            "50",
+            "--well-geometry",
+            "1536-square",
+            "--out",
+            "overfull",
+        ],
     );
     assert_eq!(overfull.status.code(), Some(2));
     let message = text(&overfull.stderr);
@@ -401,9 +397,6 @@ fn window_slope(folder: &std::path::Path, well: &str) -> f64 {
 #[test]
 fn a_water_peak_table_gives_each_well_its_own_pathlength() {
     let scratch = tempfile::tempdir().unwrap();
-    let data = common::project("demo-plates/amber-fen-wide.csv");
-    let layout = common::project("demo-plates/amber-fen-layout.csv");
-    let (data, layout) = (data.to_str().unwrap(), layout.to_str().unwrap());
     let mut table = String::from("well,A977,A900\n");
     for row in ["A", "B", "C", "D", "E", "F", "G", "H"] {
         for column in 1..=12 {
@@ -412,34 +405,15 @@ fn a_water_peak_table_gives_each_well_its_own_pathlength() {
         }
     }
     std::fs::write(scratch.path().join("water.csv"), table).unwrap();
-    let common_args = [
-        "run",
-        data,
-        "--layout",
-        layout,
-        "--extinction",
-        "16800",
-        "--report",
-        "none",
-        "--progress",
-        "never",
-        "--window",
-        "0:300",
-        "--initial-rate",
-        "chord",
-    ];
-    let typed = platekin(
-        &[&common_args[..], &["--pathlength", "0.55", "--out", "typed"]].concat(),
+    let fixed = ["--window", "0:300", "--initial-rate", "chord"];
+    let typed = run_demo_plate(
         scratch.path(),
+        &[&fixed[..], &["--pathlength", "0.55", "--out", "typed"]].concat(),
     );
     assert!(typed.status.success(), "{}", text(&typed.stderr));
-    let table_run = platekin(
-        &[
-            &common_args[..],
-            &["--pathlength-from", "water.csv", "--out", "table"],
-        ]
-        .concat(),
+    let table_run = run_demo_plate(
         scratch.path(),
+        &[&fixed[..], &["--pathlength-from", "water.csv", "--out", "table"]].concat(),
     );
     assert!(table_run.status.success(), "{}", text(&table_run.stderr));
     let ratio =
@@ -452,13 +426,9 @@ fn a_water_peak_table_gives_each_well_its_own_pathlength() {
     assert!(run.contains("water.csv"), "{run}");
     // A bad cell is refused naming the file, row and column.
     std::fs::write(scratch.path().join("bad.csv"), "well,A977,A900\nA1,0.14,n/a\n").unwrap();
-    let bad = platekin(
-        &[
-            &common_args[..],
-            &["--pathlength-from", "bad.csv", "--out", "bad"],
-        ]
-        .concat(),
+    let bad = run_demo_plate(
         scratch.path(),
+        &[&fixed[..], &["--pathlength-from", "bad.csv", "--out", "bad"]].concat(),
     );
     assert_eq!(bad.status.code(), Some(2));
     let message = text(&bad.stderr);
@@ -467,4 +437,42 @@ fn a_water_peak_table_gives_each_well_its_own_pathlength() {
         "{message}"
     );
     assert!(!scratch.path().join("bad").exists());
+}
+
+/// A fluorescence well whose export holds the reader's over-range marker from some read on is
+/// flagged `saturated` (not merely unreadable) and said so in its notes.
+#[test]
+fn an_over_range_marker_flags_a_fluorescence_well_saturated() {
+    let plate = fluorescence_plate(5).unwrap();
+    let mut lines: Vec<String> = plate.export_csv.lines().map(str::to_string).collect();
+    let header = lines.iter().position(|line| line.starts_with("Time")).unwrap();
+    let column = lines[header].split(',').position(|cell| cell == "H3").unwrap();
+    for line in lines.iter_mut().skip(header + 21).take(10) {
+        let mut cells: Vec<String> = line.split(',').map(str::to_string).collect();
+        if cells.len() > column {
+            cells[column] = "OVER".to_string();
+            *line = cells.join(",");
+        }
+    }
+    let export = lines.join("\n") + "\n";
+    let results = analyse(&export, &plate.layout_csv, &fluorescence_layer());
+    let well = results
+        .analysis
+        .wells
+        .iter()
+        .find(|well| well.well.to_string() == "H3")
+        .unwrap();
+    assert!(
+        well.rate.flags.contains(&platekin::rates::Flag::Saturated),
+        "{:?}",
+        well.rate.flags
+    );
+    assert!(
+        well.rate
+            .notes
+            .iter()
+            .any(|note| note.contains("fluorescence over the reader's range")),
+        "{:?}",
+        well.rate.notes
+    );
 }

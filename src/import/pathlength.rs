@@ -156,6 +156,18 @@ mod tests {
         assert_eq!(direct[&WellId::new(2, 2)], 0.61);
     }
 
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(128))]
+        /// Any table text: no panic, and a refusal names the file.
+        #[test]
+        fn any_table_is_read_or_refused_naming_the_file(body in "[A-H0-9a-z,. \n-]{0,120}") {
+            let text = format!("well,A977,A900\n{body}");
+            if let Err(error) = parse(&text) {
+                proptest::prop_assert!(error.to_string().contains("paths.csv"), "{}", error);
+            }
+        }
+    }
+
     #[test]
     fn bad_cells_name_the_file_row_and_column() {
         let message = parse("well,A977,A900\nA1,0.14,high\n").unwrap_err().to_string();

@@ -271,7 +271,8 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
     let first_saturated = input
         .raw_absorbance
         .iter()
-        .position(|value| value.is_some_and(|a| a > settings.max_absorbance));
+        // An over-range marker arrives as +infinity (`rates::plate`), past even "no limit".
+        .position(|value| value.is_some_and(|a| a > settings.max_absorbance || a == f64::INFINITY));
     let end = first_saturated.unwrap_or(input.times_s.len());
     if let Some(index) = first_saturated {
         // Any read past the photometric limit marks the well: the reads before it still give a

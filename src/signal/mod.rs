@@ -746,6 +746,36 @@ mod tests {
         assert_eq!(signal.value_label(), "product formed [uM]");
     }
 
+    /// A standard curve also converts absorbance, replacing extinction x pathlength: standards 0, 10
+    /// and 20 uM read 0.10, 0.30 and 0.50 AU above the blank (0.02 AU per uM, intercept 0.10 by
+    /// hand), so a sample at 0.70 AU is (0.70 - 0.10) / 0.02 = 30 uM.
+    #[test]
+    fn a_standard_curve_converts_absorbance_in_place_of_beer_lambert() {
+        let data = "Time [s],A1,A2,A3,A4,B1\n0,0.10,0.30,0.50,0.30,0.70\n10,0.10,0.30,0.50,0.30,0.70\n";
+        let layout = "well,role,substrate [uM],standard [uM]\nA1,standard,,0\nA2,standard,,10\nA3,standard,,20\nA4,standard,,10\nB1,sample,100,\n";
+        let data = import_cells(
+            &read_text_cells(data.as_bytes(), "d.csv").unwrap(),
+            &ImportOptions::default(),
+        )
+        .unwrap();
+        let layout = parse_layout(&read_text_cells(layout.as_bytes(), "l.csv").unwrap(), data.plate).unwrap();
+        let settings = AnalysisSettings {
+            extinction_per_molar_cm: Some(10_000.0),
+            pathlength_cm: Some(0.5),
+            ..AnalysisSettings::default()
+        };
+        let signal = PlateSignal::new(&data, &layout, &settings);
+        let curve = &signal.calibration.as_ref().unwrap().curves[0];
+        assert!((curve.line.slope - 0.02).abs() < 1e-12, "{:?}", curve.line);
+        let formed = signal.well_product_formed(WellId::new(1, 0), &[Some(0.70)]);
+        assert!((formed[0].unwrap() - 30.0).abs() < 1e-9, "{formed:?}");
+        assert!(signal
+            .warnings
+            .iter()
+            .any(|w| w.contains("extinction coefficient and pathlength are not used")));
+        assert_eq!(signal.rate_unit(), "uM/s");
+    }
+
     /// Issue class: every blank unreadable at one read must not blank-correct that read with 0.
     #[test]
     fn a_read_with_no_readable_blank_is_interpolated_not_zeroed() {
