@@ -183,6 +183,9 @@ pub struct RunArgs {
     /// temperature; read your buffer at the assay temperature).
     #[arg(long, value_name = "AU")]
     pub water_reference: Option<f64>,
+    /// The unit of kcat and kcat/Km in every output: 1/s (default) or 1/min.
+    #[arg(long, value_name = "1/s|1/min")]
+    pub kcat_unit: Option<String>,
     /// Dead time: reads before this many seconds are ignored.
     #[arg(long, value_name = "SECONDS")]
     pub skip: Option<f64>,
@@ -299,6 +302,7 @@ impl RunArgs {
             well_geometry: self.well_geometry.clone(),
             pathlength_from: self.pathlength_from.clone(),
             water_reference: self.water_reference,
+            kcat_unit: self.kcat_unit.clone(),
             ..self.models.layer().over(self.read.layer())
         }
     }

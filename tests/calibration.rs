@@ -476,3 +476,44 @@ fn an_over_range_marker_flags_a_fluorescence_well_saturated() {
         well.rate.notes
     );
 }
+
+/// `--kcat-unit 1/min` gives kcat and kcat/Km 60 times their per-second values (1 min = 60 s) with
+/// the unit written beside them in fit.json and the summary; an unknown unit is refused.
+#[test]
+fn kcat_per_minute_is_sixty_times_per_second_everywhere() {
+    let scratch = tempfile::tempdir().unwrap();
+    let seconds = run_demo_plate(scratch.path(), &["--pathlength", "0.55", "--out", "seconds"]);
+    assert!(seconds.status.success(), "{}", text(&seconds.stderr));
+    let minutes = run_demo_plate(
+        scratch.path(),
+        &["--pathlength", "0.55", "--kcat-unit", "1/min", "--out", "minutes"],
+    );
+    assert!(minutes.status.success(), "{}", text(&minutes.stderr));
+    let fit = |folder: &str| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(scratch.path().join(folder).join("fit.json")).unwrap())
+            .unwrap()
+    };
+    let (per_second, per_minute) = (fit("seconds"), fit("minutes"));
+    for (name, unit) in [("kcat", "1/min"), ("kcat_over_Km", "1/(M*min)")] {
+        let a = &per_second["groups"][0]["parameters"][name];
+        let b = &per_minute["groups"][0]["parameters"][name];
+        assert_eq!(b["unit"], unit);
+        let ratio = b["value"].as_f64().unwrap() / a["value"].as_f64().unwrap();
+        assert!((ratio - 60.0).abs() < 1e-9, "{name}: {ratio}");
+        // Back to seconds: the same number.
+        assert!((b["value"].as_f64().unwrap() / 60.0 / a["value"].as_f64().unwrap() - 1.0).abs() < 1e-12);
+        let (a_hi, b_hi) = (a["ci95"][1].as_f64().unwrap(), b["ci95"][1].as_f64().unwrap());
+        assert!((b_hi / a_hi - 60.0).abs() < 1e-9, "{name} interval");
+    }
+    assert!(
+        text(&minutes.stdout).contains("1/min"),
+        "{}",
+        text(&minutes.stdout)
+    );
+    let bad = run_demo_plate(
+        scratch.path(),
+        &["--pathlength", "0.55", "--kcat-unit", "1/h", "--out", "bad"],
+    );
+    assert_eq!(bad.status.code(), Some(2));
+    assert!(text(&bad.stderr).contains("kcat-unit"), "{}", text(&bad.stderr));
+}

@@ -96,6 +96,54 @@ impl std::str::FromStr for SignalKind {
     }
 }
 
+/// The time unit kcat (and kcat/Km) are reported in.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
+pub enum KcatUnit {
+    /// Per second (the default, as every earlier output).
+    #[default]
+    PerSecond,
+    /// Per minute.
+    PerMinute,
+}
+
+impl KcatUnit {
+    /// The word the settings write (`1/s`, `1/min`).
+    pub fn word(self) -> &'static str {
+        match self {
+            KcatUnit::PerSecond => "1/s",
+            KcatUnit::PerMinute => "1/min",
+        }
+    }
+
+    /// How many of this unit one per-second value is (1 or 60).
+    pub fn per_second_factor(self) -> f64 {
+        match self {
+            KcatUnit::PerSecond => 1.0,
+            KcatUnit::PerMinute => 60.0,
+        }
+    }
+
+    /// The time in a compound unit (`s`, `min`).
+    pub fn time_symbol(self) -> &'static str {
+        match self {
+            KcatUnit::PerSecond => "s",
+            KcatUnit::PerMinute => "min",
+        }
+    }
+}
+
+impl std::str::FromStr for KcatUnit {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().replace(' ', "").as_str() {
+            "1/s" | "s-1" | "/s" => Ok(KcatUnit::PerSecond),
+            "1/min" | "min-1" | "/min" => Ok(KcatUnit::PerMinute),
+            other => Err(format!("unknown kcat unit '{other}' (expected 1/s or 1/min)")),
+        }
+    }
+}
+
 /// When the progress-curve analysis runs for a group.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "kebab-case")]

@@ -95,6 +95,8 @@ pub struct SettingLayer {
     pub pathlength_from: Option<PathBuf>,
     /// The 1-cm (A977 - A900) of water for the water-peak method, AU.
     pub water_reference: Option<f64>,
+    /// The unit of kcat: `1/s` (default) or `1/min`.
+    pub kcat_unit: Option<String>,
 }
 
 impl SettingLayer {
@@ -139,6 +141,7 @@ impl SettingLayer {
             well_geometry: self.well_geometry.or(below.well_geometry),
             pathlength_from: self.pathlength_from.or(below.pathlength_from),
             water_reference: self.water_reference.or(below.water_reference),
+            kcat_unit: self.kcat_unit.or(below.kcat_unit),
         }
     }
 
@@ -319,6 +322,8 @@ pub struct AnalysisSettings {
     pub pathlength_cm: Option<f64>,
     /// The 1-cm (A977 - A900) of water for a water-peak pathlength table, AU.
     pub water_reference: f64,
+    /// The unit kcat and kcat/Km are reported in.
+    pub kcat_unit: KcatUnit,
     /// Pathlength of each well listed in a `--pathlength-from` table, cm (filled once the table is
     /// read; wells not listed use `pathlength_cm`).
     #[serde(skip)]
@@ -342,6 +347,7 @@ impl Default for AnalysisSettings {
             extinction_per_molar_cm: None,
             pathlength_cm: None,
             water_reference: DEFAULT_WATER_REFERENCE,
+            kcat_unit: KcatUnit::PerSecond,
             pathlength_by_well: std::collections::BTreeMap::new(),
             rates: RateSettings::default(),
             initial_rate: InitialRateEstimator::default(),
@@ -768,6 +774,7 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         extinction_per_molar_cm: extinction,
         pathlength_cm: pathlength,
         water_reference,
+        kcat_unit: parse_field::<KcatUnit>("kcat-unit", &layer.kcat_unit)?.unwrap_or_default(),
         pathlength_by_well: std::collections::BTreeMap::new(),
         rates: RateSettings {
             min_points,
@@ -866,6 +873,7 @@ pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLa
         .then_some(analysis.rates.max_absorbance),
         signal: Some(analysis.rates.signal.word().into()),
         water_reference: layer.pathlength_from.as_ref().map(|_| analysis.water_reference),
+        kcat_unit: Some(analysis.kcat_unit.word().into()),
         // The pathlength used, also when it came from the volume (recorded beside it).
         pathlength: analysis.pathlength_cm,
         alpha: Some(analysis.rates.alpha),

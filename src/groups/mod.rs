@@ -12,6 +12,7 @@
 pub mod calibration;
 pub mod initial_rate;
 pub mod rate_table;
+pub mod units;
 
 use std::collections::BTreeMap;
 

@@ -11,6 +11,7 @@ use crate::config::{
 use crate::core::plate::WellId;
 use crate::files::input::InputFile;
 use crate::groups::calibration::{add_slope_uncertainty, curve_for_group};
+use crate::groups::units::express_kcat_in;
 use crate::groups::{fit_groups_with, GroupFit, InitialRateOptions};
 use crate::import::pathlength::{read_well_pathlengths, PathlengthFileError};
 use crate::import::{import_data, ImportError, KineticData};
@@ -143,6 +144,19 @@ pub fn analyse_inputs(
                 report
                     .warnings
                     .extend(add_slope_uncertainty(&mut report.parameters, curve));
+            }
+        }
+    }
+    // kcat and kcat/Km in the unit asked for, once, after every step that computes with them.
+    for fit in &mut fits {
+        express_kcat_in(&mut fit.parameters, settings.kcat_unit);
+    }
+    for report in &mut progress_curves.groups {
+        express_kcat_in(&mut report.parameters, settings.kcat_unit);
+        // The initial-rate kcat shown beside it is the group fit's, as finally reported.
+        if let Some(summary) = &mut report.initial_rate_fit {
+            if let Some(fit) = fits.iter().find(|fit| fit.group == report.group) {
+                summary.kcat = fit.parameters.get("kcat").cloned();
             }
         }
     }
