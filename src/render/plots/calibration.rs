@@ -1,5 +1,7 @@
 //! The standard curve's plots: signal against concentration with the fitted line over its range
-//! (standards above the highest linear concentration drawn hollow), and the residuals.
+//! (standards above the highest linear concentration drawn hollow), and the residuals. Text sizes
+//! are chosen so that the SVG's text is at least 11 px (plotters writes a font of size f as
+//! about 0.806 f px: 14 -> 11.3 px).
 
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -50,7 +52,7 @@ impl Drawing for CalibrationPlot<'_> {
     }
 
     fn size(&self) -> (u32, u32) {
-        (560, 380)
+        (600, 400)
     }
 
     fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
@@ -69,7 +71,7 @@ impl Drawing for CalibrationPlot<'_> {
                 padded_range([-largest, largest], true)
             }
         };
-        let mut chart = titled_chart(root, self.title(), text_style(14.0, BLACK), x_range, y_range)?;
+        let mut chart = titled_chart(root, self.title(), text_style(17.0, BLACK), x_range, y_range)?;
         drawn(
             chart
                 .configure_mesh()
@@ -78,8 +80,8 @@ impl Drawing for CalibrationPlot<'_> {
                     CalibrationPlotKind::Curve => format!("blank-corrected signal [{}]", self.signal_unit),
                     CalibrationPlotKind::Residuals => format!("signal - line [{}]", self.signal_unit),
                 })
-                .label_style(text_style(11.0, BLACK))
-                .axis_desc_style(text_style(12.0, BLACK))
+                .label_style(text_style(14.0, BLACK))
+                .axis_desc_style(text_style(15.0, BLACK))
                 .y_label_formatter(&|v| significant(*v))
                 .max_light_lines(0)
                 .draw(),
@@ -115,5 +117,58 @@ impl Drawing for CalibrationPlot<'_> {
             ),
         )?;
         Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::render::plots::render_svg;
+    use crate::signal::calibration::{fit_standard_curve, StandardReads, WeightedStraightLine};
+
+    /// Every text of the SVG is at least 11 px (the report's rule for plot text).
+    #[test]
+    fn the_svg_text_is_at_least_eleven_pixels() {
+        let times = [0.0, 10.0, 20.0, 30.0];
+        let blank = [0.0; 4];
+        let raws: Vec<Vec<Option<f64>>> = (0..4)
+            .map(|i| vec![Some(100.0 * f64::from(i) + 1.0); 4])
+            .collect();
+        let reads: Vec<StandardReads> = raws
+            .iter()
+            .enumerate()
+            .map(|(i, raw)| StandardReads {
+                well: crate::core::plate::WellId::new(0, i as u16),
+                concentration: i as f64,
+                times_s: &times,
+                raw,
+                blank: &blank,
+            })
+            .collect();
+        let curve = fit_standard_curve(
+            Vec::new(),
+            &reads,
+            crate::core::units::ConcentrationUnit::Micromolar,
+            &WeightedStraightLine,
+        )
+        .unwrap();
+        for kind in [CalibrationPlotKind::Curve, CalibrationPlotKind::Residuals] {
+            let plot = render_svg(&CalibrationPlot {
+                curve: &curve,
+                index: 0,
+                kind,
+                unit: "uM".into(),
+                signal_unit: "RFU",
+            })
+            .unwrap();
+            let sizes: Vec<f64> = plot
+                .svg
+                .split("font-size=\"")
+                .skip(1)
+                .filter_map(|rest| rest.split('"').next()?.parse().ok())
+                .collect();
+            assert!(!sizes.is_empty());
+            assert!(sizes.iter().all(|size| *size >= 11.0), "{sizes:?}");
+        }
     }
 }
