@@ -520,6 +520,36 @@ mod tests {
         assert_eq!(line.degrees_of_freedom, 3);
     }
 
+    /// NIST StRD linear regression dataset Norris (Norris, J., NIST, "Calibration of Ozone
+    /// Monitors"; 36 observations, lower difficulty), a calibration problem with certified values:
+    /// B0 = -0.262323073774029 (SD 0.232818234301152), B1 = 1.00211681802045
+    /// (SD 0.429796848199937E-03), residual SD 0.884796396144373, R^2 0.999993745883712. Data and
+    /// certified values as published by NIST's Statistical Reference Datasets (itl.nist.gov
+    /// div898/strd, norris.dat), copied from the benchmark's transcription in the stata.com NIST
+    /// certification scripts (regression/norris.do).
+    #[test]
+    fn the_line_reproduces_the_nist_norris_certified_values() {
+        let y = [
+            0.1, 338.8, 118.1, 888.0, 9.2, 228.1, 668.5, 998.5, 449.1, 778.9, 559.2, 0.3, 0.1, 778.1, 668.8,
+            339.3, 448.9, 10.8, 557.7, 228.3, 998.0, 888.8, 119.6, 0.3, 0.6, 557.6, 339.3, 888.0, 998.5,
+            778.9, 10.2, 117.6, 228.9, 668.4, 449.2, 0.2,
+        ];
+        let x = [
+            0.2, 337.4, 118.2, 884.6, 10.1, 226.5, 666.3, 996.3, 448.6, 777.0, 558.2, 0.4, 0.6, 775.5, 666.9,
+            338.0, 447.5, 11.6, 556.0, 228.1, 995.8, 887.6, 120.2, 0.3, 0.3, 556.8, 339.1, 887.2, 999.0,
+            779.0, 11.1, 118.3, 229.2, 669.1, 448.9, 0.5,
+        ];
+        let points: Vec<CalibrationPoint> = x.iter().zip(&y).map(|(&x, &y)| point(x, y)).collect();
+        let line = WeightedStraightLine.fit(&points).unwrap();
+        assert_relative_eq!(line.intercept, -0.262_323_073_774_029, max_relative = 1e-9);
+        assert_relative_eq!(line.slope, 1.002_116_818_020_45, max_relative = 1e-12);
+        assert_relative_eq!(line.intercept_se, 0.232_818_234_301_152, max_relative = 1e-9);
+        assert_relative_eq!(line.slope_se, 0.429_796_848_199_937e-3, max_relative = 1e-9);
+        assert_relative_eq!(line.residual_sd, 0.884_796_396_144_373, max_relative = 1e-10);
+        assert_relative_eq!(line.r_squared, 0.999_993_745_883_712, max_relative = 1e-12);
+        assert_eq!(line.degrees_of_freedom, 34);
+    }
+
     /// Weights w_i = 1, 1, 4 on x = 0, 1, 2 and y = 0, 1, 3 (invented): by hand, W = 6,
     /// xbar = (0 + 1 + 8) / 6 = 1.5, ybar = (0 + 1 + 12) / 6 = 13/6, Sxx = 2.25 + 0.25 + 4(0.25) = 3.5,
     /// Sxy = (-1.5)(-13/6) + (-0.5)(1 - 13/6) + 4(0.5)(3 - 13/6) = 3.25 + 7/12 + 5/3 = 5.5,
