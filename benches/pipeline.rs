@@ -1,6 +1,8 @@
 //! Criterion benchmarks: import, per-well rates, the Michaelis-Menten fit, and the whole run
 //! (read, analyse, tables, fits, rendering; no disk writes) on a simulated 1536-well plate with
-//! 200 reads (a ~2 MB wide CSV). Run with `cargo bench`; timings never go into tests.
+//! 200 reads (a ~2 MB wide CSV), and the same plate with product standards in half its last
+//! column converting the signal instead of Beer-Lambert (`whole_run_with_standards`: what a
+//! standard curve adds). Run with `cargo bench`; timings never go into tests.
 
 use std::hint::black_box;
 
@@ -13,7 +15,10 @@ use platekin::import::{import_cells, ImportOptions};
 use platekin::layout::parse_layout;
 use platekin::pipeline::analyse_inputs;
 use platekin::render::{render_run_outputs, RunRecord};
-use platekin::simulate::{large_plate_spec, layout_tidy_csv, simulate, wide_csv, WideCsvOptions};
+use platekin::simulate::{
+    large_plate_spec, layout_tidy_csv, simulate, wide_csv, LayoutGroup, SimulatedReading, WellCondition,
+    WideCsvOptions,
+};
 
 struct LargePlate {
     data_csv: String,
@@ -32,6 +37,63 @@ fn large_plate() -> LargePlate {
     LargePlate {
         data_csv: wide_csv(&plate, &WideCsvOptions::default()),
         layout_csv: layout_tidy_csv(&plate),
+        analysis: resolve_analysis(&layer).expect("benchmark settings are valid"),
+    }
+}
+
+/// The large plate with its last column split: blanks in rows A-P, product standards 0-70 uM in
+/// duplicate in rows Q-AF (blank wells of the simulator with the product's absorbance added:
+/// 16,800 M^-1 cm^-1 x 0.55 cm, the plate's own chemistry).
+fn large_plate_with_standards() -> LargePlate {
+    let mut spec = large_plate_spec(PlateFormat::Wells1536, 200);
+    spec.layout.pop();
+    spec.layout.push(LayoutGroup {
+        selection: "A48:P48".to_string(),
+        condition: WellCondition::blank(),
+    });
+    spec.layout.push(LayoutGroup {
+        selection: "Q48:AF48".to_string(),
+        condition: WellCondition::blank(),
+    });
+    let mut plate = simulate(&spec).expect("the benchmark plate simulates");
+    let level_um = |row: u16| f64::from((row - 16) / 2) * 10.0;
+    let au_per_um = 16_800.0 * 0.55 * 1e-6;
+    for well in plate
+        .wells
+        .iter_mut()
+        .filter(|w| w.well.column == 47 && w.well.row >= 16)
+    {
+        let added = level_um(well.well.row) * au_per_um;
+        for reading in &mut well.readings {
+            if let SimulatedReading::Number(value) = reading {
+                *value += added;
+            }
+        }
+    }
+    plate.layout.pop();
+    let mut layout_csv: String = layout_tidy_csv(&plate)
+        .lines()
+        .enumerate()
+        .map(|(index, line)| {
+            if index == 0 {
+                format!("{line},standard [uM]\n")
+            } else {
+                format!("{line},\n")
+            }
+        })
+        .collect();
+    for row in 16..32u16 {
+        let label = platekin::core::plate::row_label(row);
+        layout_csv.push_str(&format!("{label}48,standard,,,,{}\n", level_um(row)));
+    }
+    let layer = SettingLayer {
+        extinction: Some(16_800.0),
+        pathlength: Some(0.55),
+        ..SettingLayer::default()
+    };
+    LargePlate {
+        data_csv: wide_csv(&plate, &WideCsvOptions::default()),
+        layout_csv,
         analysis: resolve_analysis(&layer).expect("benchmark settings are valid"),
     }
 }
@@ -75,6 +137,23 @@ fn benchmarks(c: &mut Criterion) {
     });
     group.bench_function("whole_run_without_disk", |b| {
         b.iter(|| whole_run(black_box(&plate)))
+    });
+    let with_standards = large_plate_with_standards();
+    // The standards must convert the signal, or the benchmark measures nothing new.
+    let grid = read_text_cells(with_standards.data_csv.as_bytes(), "large-plate.csv").expect("reads");
+    let data = import_cells(&grid, &ImportOptions::default()).expect("imports");
+    let layout_grid =
+        read_text_cells(with_standards.layout_csv.as_bytes(), "large-layout.csv").expect("reads");
+    let layout = parse_layout(&layout_grid, data.plate).expect("layout parses");
+    let signal = platekin::rates::analyse_plate(&data, &layout, &with_standards.analysis).signal;
+    assert_eq!(
+        signal.calibration.map(|c| c.curves.len()),
+        Some(1),
+        "{:?}",
+        signal.warnings
+    );
+    group.bench_function("whole_run_with_standards", |b| {
+        b.iter(|| whole_run(black_box(&with_standards)))
     });
     group.finish();
 

@@ -156,6 +156,36 @@ pub struct RunArgs {
     /// Optical pathlength, cm (the liquid height in a plate, not 1 cm).
     #[arg(long, value_name = "cm")]
     pub pathlength: Option<f64>,
+    /// What the reader measures: absorbance (default; Beer-Lambert with --extinction and
+    /// --pathlength), fluorescence or luminescence (converted by standards on the plate).
+    #[arg(long, value_name = "absorbance|fluorescence|luminescence")]
+    pub signal: Option<String>,
+    /// Fluorescence or luminescence above which reads are not used (default: only the reader's
+    /// over-range marker ends the usable reads).
+    #[arg(long, value_name = "SIGNAL")]
+    pub max_signal: Option<f64>,
+    /// Liquid volume in each well, uL: the pathlength becomes the liquid's height in the well
+    /// (meniscus ignored), with --well-diameter or --well-geometry.
+    #[arg(long, value_name = "UL")]
+    pub volume: Option<f64>,
+    /// Diameter of a round, flat-bottomed well, mm (for --volume).
+    #[arg(long, value_name = "MM")]
+    pub well_diameter: Option<f64>,
+    /// A named well shape for --volume: 96-round, 96-half-area, 384-square, 384-round or
+    /// 1536-square (typical dimensions; the plate's own drawing is better).
+    #[arg(long, value_name = "NAME")]
+    pub well_geometry: Option<String>,
+    /// A per-well pathlength table (CSV or spreadsheet): a `well` column and either
+    /// `pathlength [cm]` or the water-peak reads `A977` and `A900`; listed wells use their own.
+    #[arg(long, value_name = "FILE")]
+    pub pathlength_from: Option<PathBuf>,
+    /// The 1-cm (A977 - A900) of water for the water-peak method, AU (default 0.18, room
+    /// temperature; read your buffer at the assay temperature).
+    #[arg(long, value_name = "AU")]
+    pub water_reference: Option<f64>,
+    /// The unit of kcat and kcat/Km in every output: 1/s (default) or 1/min.
+    #[arg(long, value_name = "1/s|1/min")]
+    pub kcat_unit: Option<String>,
     /// Dead time: reads before this many seconds are ignored.
     #[arg(long, value_name = "SECONDS")]
     pub skip: Option<f64>,
@@ -274,6 +304,14 @@ impl RunArgs {
             initial_rate: self.initial_rate.clone(),
             fit_dead_time: self.fit_dead_time.then_some(true),
             s0_from_signal: self.s0_from_signal.then_some(true),
+            signal: self.signal.clone(),
+            max_signal: self.max_signal,
+            volume: self.volume,
+            well_diameter: self.well_diameter,
+            well_geometry: self.well_geometry.clone(),
+            pathlength_from: self.pathlength_from.clone(),
+            water_reference: self.water_reference,
+            kcat_unit: self.kcat_unit.clone(),
             ..self.models.layer().over(self.read.layer())
         }
     }

@@ -384,9 +384,20 @@ fn run_one_plate(
         .over(own);
         // The exclusion table's rows join the settings, so the result key sees them.
         let settings = with_exclusion_table(&resolve_run(entry.data.clone(), layer)?)?;
+        if settings.pathlength_from.is_some() {
+            // A kept plate is known by its data and layout only, so a changed table would go
+            // unseen: refused until the campaign's key holds it.
+            return Err(crate::config::SettingsError::Invalid {
+                key: Some("pathlength-from"),
+                message: "pathlength-from is not available in batch; give each plate's pathlength (or volume and well shape) in its assay file"
+                    .to_string(),
+            }
+            .into());
+        }
         let inputs = PlateInputs {
             data: InputFile::read(InputRole::Data, &settings.data)?,
             layout: InputFile::read(InputRole::Layout, &settings.layout)?,
+            pathlengths: None,
         };
         let key = ResultKey::new(
             inputs.data.sha256(),

@@ -26,7 +26,11 @@ pub fn run_demo(out: &Path, report: ReportMode) -> Result<RunOutcome, CommandErr
     let analysis = resolve_analysis(&layer)?;
     let fit = resolve_fit(&layer)?;
     let [data, layout, assay] = demo_files();
-    let inputs = PlateInputs { data, layout };
+    let inputs = PlateInputs {
+        data,
+        layout,
+        pathlengths: None,
+    };
     let results = run_pipeline(
         &inputs,
         &Default::default(),

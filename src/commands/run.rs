@@ -34,6 +34,11 @@ pub fn run_plate(
     let inputs = PlateInputs {
         data: InputFile::read(InputRole::Data, &settings.data)?,
         layout: InputFile::read(InputRole::Layout, &settings.layout)?,
+        pathlengths: settings
+            .pathlength_from
+            .as_ref()
+            .map(|path| InputFile::read(InputRole::Pathlength, path))
+            .transpose()?,
     };
     let settings = with_exclusion_table(settings)?;
     run_plate_inputs(&settings, inputs, out, force, progress)
@@ -79,8 +84,12 @@ pub fn run_plate_inputs(
         &settings.fit,
         progress,
     )?;
-    let input_records = vec![InputRecord::of(&inputs.data), InputRecord::of(&inputs.layout)];
-    let files_given = vec![inputs.data.name.clone(), inputs.layout.name.clone()];
+    let mut input_records = vec![InputRecord::of(&inputs.data), InputRecord::of(&inputs.layout)];
+    let mut files_given = vec![inputs.data.name.clone(), inputs.layout.name.clone()];
+    if let Some(table) = &inputs.pathlengths {
+        input_records.push(InputRecord::of(table));
+        files_given.push(table.name.clone());
+    }
     // The bytes were parsed and hashed: rendering (the run's largest need of memory) goes on
     // without them.
     drop(inputs);
@@ -96,7 +105,15 @@ pub fn run_plate_inputs(
         used: settings.used.clone(),
         report: settings.report,
     };
-    let input_paths = [settings.data.clone(), settings.layout.clone()];
+    let input_paths: Vec<PathBuf> = [
+        Some(&settings.data),
+        Some(&settings.layout),
+        settings.pathlength_from.as_ref(),
+    ]
+    .into_iter()
+    .flatten()
+    .cloned()
+    .collect();
     finish_run(results, &record, out, force, &input_paths)
 }
 

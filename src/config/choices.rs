@@ -45,6 +45,105 @@ impl std::str::FromStr for Readout {
     }
 }
 
+/// What the reader measures, which decides how a signal becomes a concentration and when a read
+/// is past the instrument's range.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum SignalKind {
+    /// Absorbance (AU): Beer-Lambert applies, and `max-absorbance` bounds the photometric range.
+    #[default]
+    Absorbance,
+    /// Fluorescence (relative fluorescence units): no extinction coefficient relates it to a
+    /// concentration; a standard curve does. The range ends at the reader's over-range marker or
+    /// at `max-signal`.
+    Fluorescence,
+    /// Luminescence (relative light units): as fluorescence.
+    Luminescence,
+}
+
+impl SignalKind {
+    /// The word the settings write.
+    pub fn word(self) -> &'static str {
+        match self {
+            SignalKind::Absorbance => "absorbance",
+            SignalKind::Fluorescence => "fluorescence",
+            SignalKind::Luminescence => "luminescence",
+        }
+    }
+
+    /// The unit of the raw signal, as outputs write it.
+    pub fn raw_unit(self) -> &'static str {
+        match self {
+            SignalKind::Absorbance => "AU",
+            SignalKind::Fluorescence => "RFU",
+            SignalKind::Luminescence => "RLU",
+        }
+    }
+}
+
+impl std::str::FromStr for SignalKind {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "absorbance" => Ok(SignalKind::Absorbance),
+            "fluorescence" => Ok(SignalKind::Fluorescence),
+            "luminescence" => Ok(SignalKind::Luminescence),
+            other => Err(format!(
+                "unknown signal '{other}' (expected absorbance, fluorescence or luminescence)"
+            )),
+        }
+    }
+}
+
+/// The time unit kcat (and kcat/Km) are reported in.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
+pub enum KcatUnit {
+    /// Per second (the default, as every earlier output).
+    #[default]
+    PerSecond,
+    /// Per minute.
+    PerMinute,
+}
+
+impl KcatUnit {
+    /// The word the settings write (`1/s`, `1/min`).
+    pub fn word(self) -> &'static str {
+        match self {
+            KcatUnit::PerSecond => "1/s",
+            KcatUnit::PerMinute => "1/min",
+        }
+    }
+
+    /// How many of this unit one per-second value is (1 or 60).
+    pub fn per_second_factor(self) -> f64 {
+        match self {
+            KcatUnit::PerSecond => 1.0,
+            KcatUnit::PerMinute => 60.0,
+        }
+    }
+
+    /// The time in a compound unit (`s`, `min`).
+    pub fn time_symbol(self) -> &'static str {
+        match self {
+            KcatUnit::PerSecond => "s",
+            KcatUnit::PerMinute => "min",
+        }
+    }
+}
+
+impl std::str::FromStr for KcatUnit {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().replace(' ', "").as_str() {
+            "1/s" | "s-1" | "/s" => Ok(KcatUnit::PerSecond),
+            "1/min" | "min-1" | "/min" => Ok(KcatUnit::PerMinute),
+            other => Err(format!("unknown kcat unit '{other}' (expected 1/s or 1/min)")),
+        }
+    }
+}
+
 /// When the progress-curve analysis runs for a group.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "kebab-case")]
@@ -418,8 +517,11 @@ pub struct RateSettings {
     pub fixed_window_s: Option<(f64, f64)>,
     /// Level of the straightness tests.
     pub alpha: f64,
-    /// Raw absorbance above which reads are not used.
+    /// Raw signal above which reads are not used: `max-absorbance` for absorbance, `max-signal`
+    /// (infinite when not given) for fluorescence and luminescence.
     pub max_absorbance: f64,
+    /// What the reader measures (the words of the saturation note; over-range markers).
+    pub signal: SignalKind,
     /// Time from mixing (the reaction's start) to the export's time zero, s: counted in the
     /// conversion limit and in the extrapolation of initial rates to mixing time.
     pub dead_time_s: f64,
@@ -434,6 +536,7 @@ impl Default for RateSettings {
             fixed_window_s: None,
             alpha: 0.01,
             max_absorbance: 3.0,
+            signal: SignalKind::Absorbance,
             dead_time_s: 0.0,
         }
     }

@@ -88,6 +88,22 @@ pub struct SettingLayer {
     pub initial_rate: Option<String>,
     /// Take S0 from each well's first signal (substrate readout) in the progress-curve fits.
     pub s0_from_signal: Option<bool>,
+    /// What the reader measures: `absorbance` (default), `fluorescence` or `luminescence`.
+    pub signal: Option<String>,
+    /// Raw fluorescence or luminescence above which reads are not used.
+    pub max_signal: Option<f64>,
+    /// Liquid volume in each well, uL (the pathlength is then the liquid height).
+    pub volume: Option<f64>,
+    /// Diameter of a round flat-bottomed well, mm.
+    pub well_diameter: Option<f64>,
+    /// A named well shape (`96-round`, `96-half-area`, `384-square`, `384-round`, `1536-square`).
+    pub well_geometry: Option<String>,
+    /// A per-well pathlength table: `pathlength [cm]`, or `A977` and `A900` water-peak reads.
+    pub pathlength_from: Option<PathBuf>,
+    /// The 1-cm (A977 - A900) of water for the water-peak method, AU.
+    pub water_reference: Option<f64>,
+    /// The unit of kcat: `1/s` (default) or `1/min`.
+    pub kcat_unit: Option<String>,
 }
 
 impl SettingLayer {
@@ -128,6 +144,14 @@ impl SettingLayer {
             fit_dead_time: self.fit_dead_time.or(below.fit_dead_time),
             initial_rate: self.initial_rate.or(below.initial_rate),
             s0_from_signal: self.s0_from_signal.or(below.s0_from_signal),
+            signal: self.signal.or(below.signal),
+            max_signal: self.max_signal.or(below.max_signal),
+            volume: self.volume.or(below.volume),
+            well_diameter: self.well_diameter.or(below.well_diameter),
+            well_geometry: self.well_geometry.or(below.well_geometry),
+            pathlength_from: self.pathlength_from.or(below.pathlength_from),
+            water_reference: self.water_reference.or(below.water_reference),
+            kcat_unit: self.kcat_unit.or(below.kcat_unit),
         }
     }
 
@@ -178,6 +202,11 @@ impl SettingLayer {
         if let (Some(exclude), Some(folder)) = (&layer.exclude, path.parent()) {
             if exclude.is_relative() {
                 layer.exclude = Some(folder.join(exclude));
+            }
+        }
+        if let (Some(table), Some(folder)) = (&layer.pathlength_from, path.parent()) {
+            if table.is_relative() {
+                layer.pathlength_from = Some(folder.join(table));
             }
         }
         Ok(layer)
@@ -306,6 +335,14 @@ pub struct AnalysisSettings {
     pub extinction_per_molar_cm: Option<f64>,
     /// cm, when known.
     pub pathlength_cm: Option<f64>,
+    /// The 1-cm (A977 - A900) of water for a water-peak pathlength table, AU.
+    pub water_reference: f64,
+    /// The unit kcat and kcat/Km are reported in.
+    pub kcat_unit: KcatUnit,
+    /// Pathlength of each well listed in a `--pathlength-from` table, cm (filled once the table is
+    /// read; wells not listed use `pathlength_cm`).
+    #[serde(skip)]
+    pub pathlength_by_well: std::collections::BTreeMap<crate::core::plate::WellId, f64>,
     /// Window rules (with the dead time).
     pub rates: RateSettings,
     /// How each well's initial rate is estimated.
@@ -394,6 +431,9 @@ impl Default for AnalysisSettings {
             readout: Readout::Product,
             extinction_per_molar_cm: None,
             pathlength_cm: None,
+            water_reference: DEFAULT_WATER_REFERENCE,
+            kcat_unit: KcatUnit::PerSecond,
+            pathlength_by_well: std::collections::BTreeMap::new(),
             rates: RateSettings::default(),
             initial_rate: InitialRateEstimator::default(),
             keep_flagged: false,
@@ -415,6 +455,8 @@ pub struct RunSettings {
     pub import: ImportOptions,
     /// The sheet of a layout workbook.
     pub layout_sheet: Option<String>,
+    /// A per-well pathlength table, if given.
+    pub pathlength_from: Option<PathBuf>,
     /// The analysis.
     pub analysis: AnalysisSettings,
     /// How groups are fitted.
@@ -569,6 +611,7 @@ pub fn resolve_run(data: PathBuf, layer: SettingLayer) -> Result<RunSettings, Se
         SettingsError::new("no plate layout: give --layout LAYOUT (or `layout` in the assay file)".into())
     })?;
     let import = resolve_import(&layer)?;
+    let layer_pathlength_from = layer.pathlength_from.clone();
     let analysis = resolve_analysis(&layer)?;
     let fit = resolve_fit(&layer)?;
     let report = resolve_report(&layer)?;
@@ -588,6 +631,7 @@ pub fn resolve_run(data: PathBuf, layer: SettingLayer) -> Result<RunSettings, Se
         layout,
         import,
         layout_sheet: used.layout_sheet.clone(),
+        pathlength_from: layer_pathlength_from,
         analysis,
         fit,
         report,
@@ -611,12 +655,141 @@ pub fn resolve_import(layer: &SettingLayer) -> Result<ImportOptions, SettingsErr
     })
 }
 
+/// Refuses the settings that belong to another kind of signal than the one read, saying why:
+/// Beer-Lambert (`extinction`, `pathlength`) and `max-absorbance` describe absorbance only, and
+/// `max-signal` describes the others.
+fn check_signal_settings(layer: &SettingLayer, signal: SignalKind) -> Result<(), SettingsError> {
+    let word = signal.word();
+    if signal == SignalKind::Absorbance {
+        if layer.max_signal.is_some() {
+            return Err(SettingsError::about(
+                "max-signal",
+                "max-signal bounds fluorescence or luminescence; for absorbance give --max-absorbance".into(),
+            ));
+        }
+        return Ok(());
+    }
+    if layer.extinction.is_some() {
+        return Err(SettingsError::about(
+            "extinction",
+            format!(
+                "extinction cannot convert {word}: Beer-Lambert relates absorbance to concentration, while {word} \
+                 depends on the instrument's gain, optics and the sample, so no coefficient carries from one \
+                 plate to another; put standards of known concentration on the plate (layout role `standard`)"
+            ),
+        ));
+    }
+    if layer.volume.is_some() {
+        return Err(SettingsError::about(
+            "volume",
+            format!("volume gives a pathlength, which only serves Beer-Lambert for absorbance; a {word} read is converted by standards on the plate"),
+        ));
+    }
+    if layer.pathlength.is_some() {
+        return Err(SettingsError::about(
+            "pathlength",
+            format!("pathlength only serves Beer-Lambert for absorbance; a {word} read is converted by standards on the plate"),
+        ));
+    }
+    if layer.max_absorbance.is_some() {
+        return Err(SettingsError::about(
+            "max-absorbance",
+            format!("max-absorbance bounds absorbance; for {word} give --max-signal (or rely on the reader's over-range marker)"),
+        ));
+    }
+    Ok(())
+}
+
+/// The 1-cm (A977 - A900) of water at room temperature, AU, for the water-peak pathlength (from
+/// memory, common practice: about 0.18; not verified against a primary source; the band moves with
+/// temperature and solutes, so read the assay buffer in a 1 cm cuvette at the assay temperature
+/// and give it as `water-reference`).
+pub const DEFAULT_WATER_REFERENCE: f64 = 0.18;
+
+/// The largest liquid volume accepted, uL: more than a deep-well plate's well holds (common
+/// practice), so only a slip is refused before the well's own capacity is checked.
+pub const MAX_VOLUME_UL: f64 = 5000.0;
+
+/// The pathlength (cm) from `volume` and the well's shape (`well-diameter` or `well-geometry`),
+/// the liquid height with the meniscus ignored (`core::geometry`); `None` without `volume`. A
+/// `pathlength` given too must be that height (so the settings a run records, which hold both,
+/// run again unchanged).
+fn pathlength_from_volume(layer: &SettingLayer) -> Result<Option<f64>, SettingsError> {
+    use crate::core::geometry::{WellGeometry, WellShape};
+    let Some(volume) = positive_at_most("volume", layer.volume, MAX_VOLUME_UL)? else {
+        for key in ["well-diameter", "well-geometry"] {
+            if layer_sets(layer, key) {
+                return Err(SettingsError::about(
+                    if key == "well-diameter" { "well-diameter" } else { "well-geometry" },
+                    format!("{key} only serves --volume (the pathlength from the liquid's volume); give --volume too"),
+                ));
+            }
+        }
+        return Ok(None);
+    };
+    let diameter = positive_at_most("well-diameter", layer.well_diameter, 100.0)?;
+    let geometry = parse_field::<WellGeometry>("well-geometry", &layer.well_geometry)?;
+    let shape = match (diameter, geometry) {
+        (Some(diameter_mm), None) => WellShape::Cylinder {
+            diameter_mm,
+            // A flat-bottomed round well of unknown depth: the capacity check uses the deepest
+            // standard-footprint well (14.35 mm plate height, ANSI/SLAS 2-2004).
+            depth_mm: 14.35,
+        },
+        (None, Some(geometry)) => geometry.shape(),
+        (Some(_), Some(_)) => {
+            return Err(SettingsError::about(
+                "well-diameter",
+                "give --well-diameter or --well-geometry, not both".into(),
+            ))
+        }
+        (None, None) => {
+            return Err(SettingsError::about(
+                "volume",
+                format!(
+                    "--volume needs the well's shape: --well-diameter MM (round, flat bottom) or --well-geometry NAME ({})",
+                    WellGeometry::ALL.map(WellGeometry::name).join(", ")
+                ),
+            ))
+        }
+    };
+    let height = shape
+        .pathlength_cm(volume)
+        .map_err(|message| SettingsError::about("volume", format!("volume: {message}")))?;
+    if let Some(given) = layer.pathlength {
+        if (given - height).abs() > 1e-9 * height.max(1.0) {
+            return Err(SettingsError::about(
+                "pathlength",
+                format!(
+                    "pathlength {given} cm differs from the liquid height of volume {volume} uL in this well ({} cm); give one of them",
+                    significant(height)
+                ),
+            ));
+        }
+    }
+    Ok(Some(height))
+}
+
 /// Resolves the analysis part of a layer.
 pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, SettingsError> {
     let defaults = RateSettings::default();
+    let signal = parse_field::<SignalKind>("signal", &layer.signal)?.unwrap_or_default();
+    check_signal_settings(layer, signal)?;
     let extinction = positive_at_most("extinction", layer.extinction, MAX_EXTINCTION)?;
-    let pathlength = positive_at_most("pathlength", layer.pathlength, MAX_PATHLENGTH_CM)?;
-    if extinction.is_some() != pathlength.is_some() {
+    let pathlength = match pathlength_from_volume(layer)? {
+        Some(height) => Some(height),
+        None => positive_at_most("pathlength", layer.pathlength, MAX_PATHLENGTH_CM)?,
+    };
+    let water_reference =
+        positive_at_most("water-reference", layer.water_reference, 10.0)?.unwrap_or(DEFAULT_WATER_REFERENCE);
+    let per_well_path = layer.pathlength_from.is_some();
+    if per_well_path && extinction.is_none() {
+        return Err(SettingsError::about(
+            "pathlength-from",
+            "pathlength-from serves Beer-Lambert: give --extinction too".into(),
+        ));
+    }
+    if extinction.is_some() != (pathlength.is_some() || per_well_path) {
         // The setting given alone is at fault (so an assay file that gives it is named).
         return Err(SettingsError::about(
             if extinction.is_some() { "extinction" } else { "pathlength" },
@@ -655,7 +828,15 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
             format!("alpha must lie in (0, 0.5), got {alpha}"),
         ));
     }
-    let max_absorbance = positive("max-absorbance", layer.max_absorbance)?.unwrap_or(defaults.max_absorbance);
+    let max_absorbance = match signal {
+        SignalKind::Absorbance => {
+            positive("max-absorbance", layer.max_absorbance)?.unwrap_or(defaults.max_absorbance)
+        }
+        // Without a limit only the reader's over-range marker ends the usable reads.
+        SignalKind::Fluorescence | SignalKind::Luminescence => {
+            positive("max-signal", layer.max_signal)?.unwrap_or(f64::INFINITY)
+        }
+    };
     let dead_time_s = layer.dead_time.unwrap_or(0.0);
     if !(dead_time_s.is_finite() && (0.0..=MAX_SECONDS).contains(&dead_time_s)) {
         return Err(SettingsError::about(
@@ -678,6 +859,9 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         readout: parse_field::<Readout>("readout", &layer.readout)?.unwrap_or(Readout::Product),
         extinction_per_molar_cm: extinction,
         pathlength_cm: pathlength,
+        water_reference,
+        kcat_unit: parse_field::<KcatUnit>("kcat-unit", &layer.kcat_unit)?.unwrap_or_default(),
+        pathlength_by_well: std::collections::BTreeMap::new(),
         rates: RateSettings {
             min_points,
             max_conversion,
@@ -685,6 +869,7 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
             fixed_window_s,
             alpha,
             max_absorbance,
+            signal,
             dead_time_s,
         },
         initial_rate: parse_field::<InitialRateEstimator>("initial-rate", &layer.initial_rate)?
@@ -793,7 +978,17 @@ pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLa
         skip: Some(analysis.rates.skip_s),
         max_conversion: Some(analysis.rates.max_conversion),
         min_points: Some(analysis.rates.min_points),
-        max_absorbance: Some(analysis.rates.max_absorbance),
+        // Each kind of signal records its own limit, so that the settings run again unchanged.
+        max_absorbance: (analysis.rates.signal == SignalKind::Absorbance)
+            .then_some(analysis.rates.max_absorbance),
+        max_signal: (analysis.rates.signal != SignalKind::Absorbance
+            && analysis.rates.max_absorbance.is_finite())
+        .then_some(analysis.rates.max_absorbance),
+        signal: Some(analysis.rates.signal.word().into()),
+        water_reference: layer.pathlength_from.as_ref().map(|_| analysis.water_reference),
+        kcat_unit: Some(analysis.kcat_unit.word().into()),
+        // The pathlength used, also when it came from the volume (recorded beside it).
+        pathlength: analysis.pathlength_cm,
         alpha: Some(analysis.rates.alpha),
         keep_flagged: Some(analysis.keep_flagged),
         allow_missing: Some(analysis.allow_missing),
@@ -874,6 +1069,63 @@ mod tests {
         let text = toml::to_string(&run.used).unwrap();
         assert!(text.contains("max-conversion = 0.1"), "{text}");
         assert!(text.contains("progress = \"auto\""), "{text}");
+    }
+
+    #[test]
+    fn beer_lambert_settings_are_refused_for_fluorescence_with_the_reason() {
+        let layer = SettingLayer {
+            signal: Some("fluorescence".into()),
+            extinction: Some(5000.0),
+            pathlength: Some(0.5),
+            ..SettingLayer::default()
+        };
+        let message = resolve_analysis(&layer).unwrap_err().to_string();
+        assert!(
+            message.contains("extinction cannot convert fluorescence"),
+            "{message}"
+        );
+        assert!(message.contains("standard"), "{message}");
+        let layer = SettingLayer {
+            signal: Some("luminescence".into()),
+            max_absorbance: Some(2.0),
+            ..SettingLayer::default()
+        };
+        let message = resolve_analysis(&layer).unwrap_err().to_string();
+        assert!(message.contains("--max-signal"), "{message}");
+        let layer = SettingLayer {
+            max_signal: Some(60_000.0),
+            ..SettingLayer::default()
+        };
+        let message = resolve_analysis(&layer).unwrap_err().to_string();
+        assert!(message.contains("--max-absorbance"), "{message}");
+    }
+
+    #[test]
+    fn a_fluorescence_limit_comes_from_max_signal_or_none_and_is_recorded_as_such() {
+        let layer = SettingLayer {
+            signal: Some("Fluorescence".into()),
+            ..SettingLayer::default()
+        };
+        let analysis = resolve_analysis(&layer).unwrap();
+        assert_eq!(analysis.rates.signal, SignalKind::Fluorescence);
+        assert!(analysis.rates.max_absorbance.is_infinite());
+        let used = used_layer(layer, &analysis);
+        assert_eq!(used.max_absorbance, None);
+        assert_eq!(used.max_signal, None);
+        assert_eq!(used.signal.as_deref(), Some("fluorescence"));
+        let layer = SettingLayer {
+            signal: Some("fluorescence".into()),
+            max_signal: Some(60_000.0),
+            ..SettingLayer::default()
+        };
+        let analysis = resolve_analysis(&layer).unwrap();
+        assert_eq!(analysis.rates.max_absorbance, 60_000.0);
+        assert_eq!(used_layer(layer, &analysis).max_signal, Some(60_000.0));
+        let bad = SettingLayer {
+            signal: Some("phosphorescence".into()),
+            ..SettingLayer::default()
+        };
+        assert!(resolve_analysis(&bad).unwrap_err().to_string().contains("signal"));
     }
 
     #[test]

@@ -5,6 +5,7 @@
 
 pub mod cells;
 pub mod format;
+pub mod geometry;
 pub mod plate;
 pub mod stats;
 pub mod units;

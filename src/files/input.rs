@@ -26,6 +26,8 @@ pub enum InputRole {
     Table,
     /// A table of wells left out by hand (`--exclude`).
     Exclusions,
+    /// A per-well pathlength table (`--pathlength-from`).
+    Pathlength,
 }
 
 impl InputRole {
@@ -37,6 +39,7 @@ impl InputRole {
             InputRole::Assay => "assay",
             InputRole::Table => "table",
             InputRole::Exclusions => "exclusions",
+            InputRole::Pathlength => "pathlength",
         }
     }
 }

@@ -9,8 +9,10 @@
 //! once by the general rate-law fit, and its Michaelis-Menten description (design warnings, Vmax/Km
 //! by the reparametrised Jacobian, linearised diagnostics) is made from that same fit.
 
+pub mod calibration;
 pub mod initial_rate;
 pub mod rate_table;
+pub mod units;
 
 use std::collections::BTreeMap;
 
@@ -632,7 +634,11 @@ fn fit_one_group(
         blank: analysis.signal.blank_uncertainty.clone(),
         read_times_s: analysis.signal.read_times_s.clone(),
         sign: analysis.signal.sign,
-        per_absorbance: analysis.signal.per_absorbance.unwrap_or(1.0),
+        // A group's wells share one standard curve (the curves are keyed by the grouping factors).
+        per_absorbance: wells
+            .first()
+            .and_then(|well| analysis.signal.conversion_of(well.well))
+            .unwrap_or(1.0),
         dead_time_s: initial.dead_time_s,
     };
     let mut report = fit_points(

@@ -15,6 +15,7 @@
 
 mod grid;
 mod long;
+pub mod pathlength;
 mod rows;
 #[cfg(test)]
 mod tests;

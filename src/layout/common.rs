@@ -131,7 +131,7 @@ pub(super) fn header_unit(
 
 /// Records the unit of a quantity, refusing a second, different one.
 pub(super) fn note_unit(
-    units: &mut [Option<(ConcentrationUnit, Position)>; 3],
+    units: &mut [Option<(ConcentrationUnit, Position)>; 4],
     quantity: Quantity,
     unit: ConcentrationUnit,
     position: &Position,
@@ -263,5 +263,7 @@ pub(super) fn finish_layout(layout: Layout) -> Result<Layout, LayoutError> {
             also,
         });
     }
+    let mut layout = layout;
+    layout.standard_groups = super::standards::standard_groups(&layout)?;
     Ok(layout)
 }

@@ -178,6 +178,54 @@ pub enum LayoutError {
         also: String,
     },
 
+    /// A standard well without its known concentration.
+    #[error(
+        "{position}: well {well} is a standard but has no concentration{also}: give it one in a \
+         standard column or block (e.g. 'standard [uM]')"
+    )]
+    MissingStandardConcentration {
+        /// The first such well.
+        well: WellId,
+        /// Where it was set.
+        position: Box<Position>,
+        /// The other wells with the same problem, as " (likewise: ...)", or "".
+        also: String,
+    },
+
+    /// The standards of one curve hold fewer than two concentrations (or fewer than three wells).
+    #[error(
+        "{position}: the standards of {group} ({wells}) hold {levels} concentration(s) in {n_wells} well(s); \
+         a standard curve needs at least two concentrations and three wells"
+    )]
+    TooFewStandards {
+        /// The curve's group in words (`the plate`, `variant = 'A'`).
+        group: String,
+        /// The standard wells.
+        wells: String,
+        /// Distinct concentrations.
+        levels: usize,
+        /// Standard wells.
+        n_wells: usize,
+        /// Where the first of them was set.
+        position: Box<Position>,
+    },
+
+    /// A well whose factor values match no standard curve.
+    #[error(
+        "{position}: well {well} ({group}) has no standard curve: the standards give curves for {available}; \
+         add standards for it or give the standards' factors the same values"
+    )]
+    NoStandardCurve {
+        /// The well.
+        well: WellId,
+        /// Its values of the factors that key the curves.
+        group: String,
+        /// The curves there are.
+        available: String,
+        /// Where the well was set.
+        position: Box<Position>,
+    },
+
     /// Two factors that would be written under one header (`flags` becomes `factor:flags`,
     /// which another factor already is).
     #[error(

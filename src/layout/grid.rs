@@ -20,7 +20,7 @@ pub(super) enum BlockVariable {
 #[derive(Debug, Clone)]
 pub(super) struct WellDraft {
     role: Option<(Role, Position)>,
-    quantities: [Option<(f64, Position)>; 3],
+    quantities: [Option<(f64, Position)>; 4],
     factors: BTreeMap<String, (String, Position)>,
     first: Position,
 }
@@ -32,7 +32,7 @@ pub(super) struct GridBuilder {
     factor_names: Vec<String>,
     factor_positions: Vec<Position>,
     factor_name_by_key: HashMap<String, String>,
-    units: [Option<(ConcentrationUnit, Position)>; 3],
+    units: [Option<(ConcentrationUnit, Position)>; 4],
 }
 
 impl GridBuilder {
@@ -85,7 +85,7 @@ impl GridBuilder {
         let well_name = well.to_string();
         let draft = self.drafts.entry(well).or_insert_with(|| WellDraft {
             role: None,
-            quantities: [None, None, None],
+            quantities: [None, None, None, None],
             factors: BTreeMap::new(),
             first: position.clone(),
         });
@@ -175,6 +175,7 @@ impl GridBuilder {
                     substrate: amount(Quantity::Substrate),
                     enzyme: amount(Quantity::Enzyme),
                     inhibitor: amount(Quantity::Inhibitor),
+                    standard: amount(Quantity::Standard),
                     factors,
                     position: draft.first,
                 };
@@ -189,6 +190,8 @@ impl GridBuilder {
             substrate_unit: unit(Quantity::Substrate),
             enzyme_unit: unit(Quantity::Enzyme),
             inhibitor_unit: unit(Quantity::Inhibitor),
+            standard_unit: unit(Quantity::Standard),
+            standard_groups: None,
             factor_names,
             notes,
         })

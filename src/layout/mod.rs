@@ -26,6 +26,7 @@ mod common;
 mod error;
 pub mod exclusions;
 mod grid;
+mod standards;
 #[cfg(test)]
 mod tests;
 mod tidy;
@@ -42,13 +43,14 @@ use crate::files::sheet::{read_input_cells, MergedCells};
 
 pub use check::{check_against_data, wells_outside_layout};
 pub use error::LayoutError;
+pub use standards::StandardGroups;
 
 use common::detect_form;
 use grid::parse_grid;
 use tidy::parse_tidy;
 
 /// The known roles, as listed in error messages.
-pub const KNOWN_ROLES: &str = "sample, blank, no-enzyme, empty, uninhibited, inhibited";
+pub const KNOWN_ROLES: &str = "sample, blank, no-enzyme, standard, empty, uninhibited, inhibited";
 
 /// The known concentration units, as listed in error messages.
 pub const KNOWN_CONCENTRATION_UNITS: &str = "M, mM, uM (or \u{b5}M), nM, pM";
@@ -118,6 +120,8 @@ pub enum Role {
     Blank,
     /// Substrate without enzyme: the non-enzymatic background rate.
     NoEnzyme,
+    /// A known concentration of the species read (`standard [uM]`), for the standard curve.
+    Standard,
     /// Not used; ignored by the analysis.
     Empty,
     /// Screening control: enzyme, substrate and vehicle without inhibitor (100% activity).
@@ -128,10 +132,11 @@ pub enum Role {
 
 impl Role {
     /// Every role, in the order they are listed to users.
-    pub const ALL: [Role; 6] = [
+    pub const ALL: [Role; 7] = [
         Role::Sample,
         Role::Blank,
         Role::NoEnzyme,
+        Role::Standard,
         Role::Empty,
         Role::Uninhibited,
         Role::Inhibited,
@@ -143,6 +148,7 @@ impl Role {
             Role::Sample => "sample",
             Role::Blank => "blank",
             Role::NoEnzyme => "no-enzyme",
+            Role::Standard => "standard",
             Role::Empty => "empty",
             Role::Uninhibited => "uninhibited",
             Role::Inhibited => "inhibited",
@@ -179,6 +185,7 @@ impl FromStr for Role {
             "sample" => Ok(Role::Sample),
             "blank" => Ok(Role::Blank),
             "no-enzyme" | "noenzyme" => Ok(Role::NoEnzyme),
+            "standard" => Ok(Role::Standard),
             "empty" => Ok(Role::Empty),
             "uninhibited" => Ok(Role::Uninhibited),
             "inhibited" => Ok(Role::Inhibited),
@@ -190,7 +197,7 @@ impl FromStr for Role {
     }
 }
 
-/// The three concentrations a layout may give a well.
+/// The concentrations a layout may give a well.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
 pub enum Quantity {
     /// Substrate concentration.
@@ -199,11 +206,18 @@ pub enum Quantity {
     Enzyme,
     /// Inhibitor concentration.
     Inhibitor,
+    /// The known concentration of a standard well (of the species read).
+    Standard,
 }
 
 impl Quantity {
     /// Every quantity, in the order they are stored.
-    pub const ALL: [Quantity; 3] = [Quantity::Substrate, Quantity::Enzyme, Quantity::Inhibitor];
+    pub const ALL: [Quantity; 4] = [
+        Quantity::Substrate,
+        Quantity::Enzyme,
+        Quantity::Inhibitor,
+        Quantity::Standard,
+    ];
 
     /// The header name (lower case).
     pub fn name(self) -> &'static str {
@@ -211,6 +225,7 @@ impl Quantity {
             Quantity::Substrate => "substrate",
             Quantity::Enzyme => "enzyme",
             Quantity::Inhibitor => "inhibitor",
+            Quantity::Standard => "standard",
         }
     }
 
@@ -220,6 +235,7 @@ impl Quantity {
             Quantity::Substrate => "substrate [uM]",
             Quantity::Enzyme => "enzyme [nM]",
             Quantity::Inhibitor => "inhibitor [uM]",
+            Quantity::Standard => "standard [uM]",
         }
     }
 
@@ -236,6 +252,7 @@ impl Quantity {
             Quantity::Substrate => 0,
             Quantity::Enzyme => 1,
             Quantity::Inhibitor => 2,
+            Quantity::Standard => 3,
         }
     }
 }
@@ -276,6 +293,8 @@ pub struct WellSetup {
     pub enzyme: Option<f64>,
     /// Inhibitor concentration in [`Layout::inhibitor_unit`].
     pub inhibitor: Option<f64>,
+    /// A standard's known concentration in [`Layout::standard_unit`].
+    pub standard: Option<f64>,
     /// Every factor of the layout (see [`Layout::factor_names`]) with this well's value, "" when
     /// the well was given none.
     pub factors: BTreeMap<String, String>,
@@ -290,6 +309,7 @@ impl WellSetup {
             Quantity::Substrate => self.substrate,
             Quantity::Enzyme => self.enzyme,
             Quantity::Inhibitor => self.inhibitor,
+            Quantity::Standard => self.standard,
         }
     }
 
@@ -298,6 +318,7 @@ impl WellSetup {
             Quantity::Substrate => &mut self.substrate,
             Quantity::Enzyme => &mut self.enzyme,
             Quantity::Inhibitor => &mut self.inhibitor,
+            Quantity::Standard => &mut self.standard,
         }
     }
 }
@@ -317,6 +338,10 @@ pub struct Layout {
     pub enzyme_unit: Option<ConcentrationUnit>,
     /// The unit of every inhibitor value, if the layout gives any inhibitor column or block.
     pub inhibitor_unit: Option<ConcentrationUnit>,
+    /// The unit of every standard's concentration, if the layout gives a standard column or block.
+    pub standard_unit: Option<ConcentrationUnit>,
+    /// The standard curves the layout asks for and the curve of each well (`None`: no standards).
+    pub standard_groups: Option<StandardGroups>,
     /// The free factors, in the order they first appear.
     pub factor_names: Vec<String>,
     /// What the reader did that the user should know (factors written under another header),
@@ -343,6 +368,7 @@ impl Layout {
             Quantity::Substrate => self.substrate_unit,
             Quantity::Enzyme => self.enzyme_unit,
             Quantity::Inhibitor => self.inhibitor_unit,
+            Quantity::Standard => self.standard_unit,
         }
     }
 }

@@ -40,7 +40,10 @@ fn roles_parse_in_every_accepted_spelling() {
     assert_eq!(Role::from_str("BLANK"), Ok(Role::Blank));
     assert_eq!(Role::from_str("empty"), Ok(Role::Empty));
     let error = Role::from_str("control").unwrap_err();
-    assert_mentions(&error, &["'control'", "sample, blank, no-enzyme, empty"]);
+    assert_mentions(
+        &error,
+        &["'control'", "sample, blank, no-enzyme, standard, empty"],
+    );
     for role in Role::ALL {
         assert_eq!(Role::from_str(&role.to_string()), Ok(role));
     }
@@ -182,7 +185,7 @@ fn xlsx_errors_name_the_sheet_and_cell() {
     sheet.write_string(0, 1, "role").unwrap();
     sheet.write_string(0, 2, "substrate [uM]").unwrap();
     sheet.write_string(1, 0, "C7").unwrap();
-    sheet.write_string(1, 1, "standard").unwrap();
+    sheet.write_string(1, 1, "reference").unwrap();
     sheet.write_number(1, 2, 5.0).unwrap();
     workbook.save(&path).unwrap();
     let message = read_layout(
@@ -196,7 +199,7 @@ fn xlsx_errors_name_the_sheet_and_cell() {
         &message,
         &[
             "sheet 'Plate 2', row 2, column 2 (B)",
-            "'standard'",
+            "'reference'",
             "C7",
             KNOWN_ROLES,
         ],

@@ -30,7 +30,7 @@ pub(super) fn tidy_columns(grid: &CellGrid, header_row: usize) -> Result<Vec<Tid
     let mut columns: Vec<TidyColumn> = Vec::new();
     // Header names are matched ignoring case, so `Variant` and `variant` are one column twice.
     let mut column_by_key: HashMap<String, usize> = HashMap::new();
-    let mut units: [Option<(ConcentrationUnit, Position)>; 3] = [None, None, None];
+    let mut units: [Option<(ConcentrationUnit, Position)>; 4] = [None, None, None, None];
     for index in 0..grid.row_width(header_row) {
         let cell = grid.cell(header_row, index);
         if cell.is_empty() {
@@ -159,6 +159,7 @@ pub(super) fn parse_tidy(
             substrate: None,
             enzyme: None,
             inhibitor: None,
+            standard: None,
             factors: BTreeMap::new(),
             position: well_position,
         };
@@ -211,6 +212,8 @@ pub(super) fn parse_tidy(
         substrate_unit: unit_of(Quantity::Substrate),
         enzyme_unit: unit_of(Quantity::Enzyme),
         inhibitor_unit: unit_of(Quantity::Inhibitor),
+        standard_unit: unit_of(Quantity::Standard),
+        standard_groups: None,
         factor_names,
         notes,
     })

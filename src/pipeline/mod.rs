@@ -11,7 +11,10 @@ use crate::config::{
 };
 use crate::core::plate::WellId;
 use crate::files::input::InputFile;
+use crate::groups::calibration::{add_slope_uncertainty, curve_for_group};
+use crate::groups::units::express_kcat_in;
 use crate::groups::{fit_groups_with, GroupFit, InitialRateOptions};
+use crate::import::pathlength::{read_well_pathlengths, PathlengthFileError};
 use crate::import::{import_data, ImportError, KineticData};
 use crate::layout::exclusions::{check_exclusions, take_exclude_column, ExclusionError};
 use crate::layout::{check_against_data, read_layout, wells_outside_layout, Layout, LayoutError};
@@ -41,6 +44,9 @@ pub enum PipelineError {
     /// A screening plate's layout cannot give % activity or dose-response curves.
     #[error(transparent)]
     Screen(#[from] Box<ScreenError>),
+    /// The per-well pathlength table cannot be used.
+    #[error(transparent)]
+    Pathlength(#[from] PathlengthFileError),
 }
 
 /// Everything a run found.
@@ -77,6 +83,8 @@ pub struct PlateInputs {
     pub data: InputFile,
     /// The layout.
     pub layout: InputFile,
+    /// The per-well pathlength table (`--pathlength-from`), if given.
+    pub pathlengths: Option<InputFile>,
 }
 
 /// Parses the inputs' bytes and analyses them. `progress(done, total)` reports bootstrap
@@ -92,7 +100,14 @@ pub fn run_pipeline(
     let data = import_data(&inputs.data, import)?;
     let layout = read_layout(&inputs.layout, layout_sheet, data.plate)?;
     check_against_input(settings, &input_facts(&data, &layout))?;
-    analyse_inputs(data, layout, settings, fit_settings, progress)
+    let Some(table) = &inputs.pathlengths else {
+        return analyse_inputs(data, layout, settings, fit_settings, progress);
+    };
+    let settings = AnalysisSettings {
+        pathlength_by_well: read_well_pathlengths(table, data.plate, settings.water_reference)?,
+        ..settings.clone()
+    };
+    analyse_inputs(data, layout, &settings, fit_settings, progress)
 }
 
 /// Analyses inputs already parsed (tests and benchmarks start here).
@@ -125,7 +140,7 @@ pub fn analyse_inputs(
     // A screening plate's samples are described by their compound's dose-response curve on %
     // activity (`screen`), not by rate-law fits of raw rates: the group fits and the
     // progress-curve analysis are not run, and each well keeps its window's rate.
-    let fits = if screening {
+    let mut fits = if screening {
         Vec::new()
     } else {
         fit_groups_with(&analysis, &layout, fit_settings, &initial, progress)
@@ -141,7 +156,7 @@ pub fn analyse_inputs(
         .collect();
     analysis.apply_initial_rates(&corrected);
     let conditions = condition_table(&analysis, &layout)?;
-    let (progress_curves, screen) = if screening {
+    let (mut progress_curves, screen) = if screening {
         let screen = analyse_screen(
             &analysis,
             &layout,
@@ -158,6 +173,36 @@ pub fn analyse_inputs(
     } else {
         (analyse_progress(&data, &layout, &analysis, &fits, settings), None)
     };
+    // The standard curve's slope scales every converted rate of a group: its uncertainty joins
+    // the constants it scales, once the fits (and the progress fits that start from them) are made.
+    if let Some(calibration) = &analysis.signal.calibration {
+        for fit in &mut fits {
+            if let Some(curve) = curve_for_group(calibration, &fit.group) {
+                fit.warnings
+                    .extend(add_slope_uncertainty(&mut fit.parameters, curve));
+            }
+        }
+        for report in &mut progress_curves.groups {
+            if let Some(curve) = curve_for_group(calibration, &report.group) {
+                report
+                    .warnings
+                    .extend(add_slope_uncertainty(&mut report.parameters, curve));
+            }
+        }
+    }
+    // kcat and kcat/Km in the unit asked for, once, after every step that computes with them.
+    for fit in &mut fits {
+        express_kcat_in(&mut fit.parameters, settings.kcat_unit);
+    }
+    for report in &mut progress_curves.groups {
+        express_kcat_in(&mut report.parameters, settings.kcat_unit);
+        // The initial-rate kcat shown beside it is the group fit's, as finally reported.
+        if let Some(summary) = &mut report.initial_rate_fit {
+            if let Some(fit) = fits.iter().find(|fit| fit.group == report.group) {
+                summary.kcat = fit.parameters.get("kcat").cloned();
+            }
+        }
+    }
     Ok(RunResults {
         data,
         layout,

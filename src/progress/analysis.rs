@@ -410,6 +410,8 @@ struct SubstrateStart {
     layout: f64,
     from_signal: Option<f64>,
     background: Option<Background>,
+    /// Concentration per signal unit of the well (its standard curve's, or Beer-Lambert's).
+    per_absorbance: f64,
 }
 
 /// The errors the group's signals share, from the plate's estimated corrections (the blank and the
@@ -444,10 +446,10 @@ fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSigna
         }
     }
     // The background drift (rate x t, in AU) is subtracted from each well it serves.
-    let Some(per_absorbance) = signal.per_absorbance else {
+    if signal.per_absorbance.is_none() {
         return assemble(errors, &blocks);
-    };
-    let to_au = -signal.sign / per_absorbance;
+    }
+    let to_au = |start: &SubstrateStart| -signal.sign / start.per_absorbance;
     let linear = ErrorShape::Power {
         power: 1,
         t_scale: 1.0,
@@ -468,14 +470,20 @@ fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSigna
         errors.push(SharedSignalError {
             well_weights: starts
                 .iter()
-                .map(|start| if serves(start) { to_au * start.layout } else { 0.0 })
+                .map(|start| {
+                    if serves(start) {
+                        to_au(start) * start.layout
+                    } else {
+                        0.0
+                    }
+                })
                 .collect(),
             shape: linear,
         });
         errors.push(SharedSignalError {
             well_weights: starts
                 .iter()
-                .map(|start| if serves(start) { to_au } else { 0.0 })
+                .map(|start| if serves(start) { to_au(start) } else { 0.0 })
                 .collect(),
             shape: linear,
         });
@@ -486,7 +494,9 @@ fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSigna
             well_weights: starts
                 .iter()
                 .map(|start| match &start.background {
-                    Some(Background::Matched { rate: r, se: s, .. }) if (*r, *s) == (rate, se) => to_au,
+                    Some(Background::Matched { rate: r, se: s, .. }) if (*r, *s) == (rate, se) => {
+                        to_au(start)
+                    }
                     _ => 0.0,
                 })
                 .collect(),
@@ -536,9 +546,6 @@ fn well_curves(
         .layout
         .enzyme_unit
         .ok_or("the layout gives no enzyme concentration, so kcat cannot be separated from Vmax")?;
-    // AU per substrate unit; the signal falls with S for a product read.
-    let per_unit = 1.0 / per_absorbance;
-    let signal_per_substrate = -signal.sign * per_unit;
     let mut curves = Vec::new();
     let mut disagreements = Vec::new();
     for well in input.wells {
@@ -572,6 +579,11 @@ fn well_curves(
             leave(ProgressLeftOutReason::NoTrace);
             continue;
         };
+        // Signal per substrate unit (the well's own standard curve where it has one); the signal
+        // falls with S for a product read.
+        let per_absorbance = signal.conversion_of(well.well).unwrap_or(per_absorbance);
+        let per_unit = 1.0 / per_absorbance;
+        let signal_per_substrate = -signal.sign * per_unit;
         // The background is in product formed per second; back to AU/s, in the signal's sign.
         let drift = well.background.unwrap_or(0.0) * signal.sign * per_unit;
         let mut times_s = Vec::new();
@@ -618,6 +630,7 @@ fn well_curves(
             layout: s0,
             from_signal: s0_signal,
             background: well.correction.background.clone(),
+            per_absorbance,
         });
         let s0_used = match (settings.progress.s0_from_signal, s0_signal) {
             (true, Some(from_signal)) => from_signal,

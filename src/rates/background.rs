@@ -306,6 +306,7 @@ mod tests {
             substrate: Some(substrate),
             enzyme: None,
             inhibitor: None,
+            standard: None,
             factors,
             position: Position {
                 source: Source {

@@ -50,9 +50,10 @@ fn role_order(role: Role) -> u8 {
         Role::Sample => 0,
         Role::NoEnzyme => 1,
         Role::Blank => 2,
-        Role::Empty => 3,
-        Role::Uninhibited => 4,
-        Role::Inhibited => 5,
+        Role::Standard => 3,
+        Role::Empty => 4,
+        Role::Uninhibited => 5,
+        Role::Inhibited => 6,
     }
 }
 

@@ -17,7 +17,7 @@ use super::well::{
     apply_noise_flag, apply_weak_flag, flag_words, well_rate, CriticalValues, Flag, PlateNoise, TraceInput,
     WellRate,
 };
-use crate::config::{AnalysisSettings, InitialRateEstimator};
+use crate::config::{AnalysisSettings, InitialRateEstimator, SignalKind};
 use crate::core::plate::WellId;
 use crate::core::stats::summary;
 use crate::import::KineticData;
@@ -132,6 +132,33 @@ impl PlateAnalysis {
     }
 }
 
+/// For fluorescence and luminescence, the wells whose export holds text where a reading belongs
+/// (the reader writes a marker there when the light passes the detector's range; common
+/// practice), as raw traces with those reads set to infinity, so that the saturation limit ends
+/// the usable reads there. Absorbance keeps such cells unreadable, as before.
+fn over_range_traces(data: &KineticData, signal_kind: SignalKind) -> BTreeMap<WellId, Vec<Option<f64>>> {
+    if signal_kind == SignalKind::Absorbance {
+        return BTreeMap::new();
+    }
+    data.wells
+        .iter()
+        .filter(|trace| trace.unreadable.iter().any(|read| !read.text.trim().is_empty()))
+        .map(|trace| {
+            let mut limited = trace.values.clone();
+            for read in trace
+                .unreadable
+                .iter()
+                .filter(|read| !read.text.trim().is_empty())
+            {
+                if let Some(value) = limited.get_mut(read.read_index) {
+                    *value = Some(f64::INFINITY);
+                }
+            }
+            (trace.well, limited)
+        })
+        .collect()
+}
+
 /// Analyses a plate: every layout well present in the data gets a rate, flags and corrections.
 pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSettings) -> PlateAnalysis {
     let n_reads = data.times_s.len();
@@ -142,6 +169,7 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
         .iter()
         .map(|trace| (trace.well, trace.values.as_slice()))
         .collect();
+    let over_range = over_range_traces(data, settings.rates.signal);
 
     let critical = CriticalValues::new(settings.rates.alpha, n_reads);
     let wells_in_play: Vec<(WellId, &WellSetup, &[Option<f64>])> = layout
@@ -152,13 +180,13 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
         .collect();
     let mut rates: Vec<WellRate> = wells_in_play
         .par_iter()
-        .map(|(_, setup, raw)| {
-            let values = signal.product_formed(raw);
+        .map(|(well, setup, raw)| {
+            let values = signal.well_product_formed(*well, raw);
             let substrate_start = signal.per_absorbance.and(setup.substrate);
             let input = TraceInput {
                 times_s: &data.times_s,
                 values: &values,
-                raw_absorbance: raw,
+                raw_absorbance: over_range.get(well).map_or(*raw, Vec::as_slice),
                 substrate_start,
             };
             well_rate(input, &settings.rates, &critical)

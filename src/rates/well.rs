@@ -271,15 +271,25 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
     let first_saturated = input
         .raw_absorbance
         .iter()
-        .position(|value| value.is_some_and(|a| a > settings.max_absorbance));
+        // An over-range marker arrives as +infinity (`rates::plate`), past even "no limit".
+        .position(|value| value.is_some_and(|a| a > settings.max_absorbance || a == f64::INFINITY));
     let end = first_saturated.unwrap_or(input.times_s.len());
     if let Some(index) = first_saturated {
         // Any read past the photometric limit marks the well: the reads before it still give a
         // window (used with --keep-flagged), but the well's optics are suspect.
         result.flag(Flag::Saturated);
+        let limit = match settings.signal {
+            crate::config::SignalKind::Absorbance => format!("absorbance above {}", settings.max_absorbance),
+            other if settings.max_absorbance.is_finite() => format!(
+                "{} above {} {} or over the reader's range",
+                other.word(),
+                settings.max_absorbance,
+                other.raw_unit()
+            ),
+            other => format!("{} over the reader's range", other.word()),
+        };
         result.notes.push(format!(
-            "absorbance above {} from read {} (t = {} s): later reads not used",
-            settings.max_absorbance,
+            "{limit} from read {} (t = {} s): later reads not used",
             index + 1,
             format_seconds(input.times_s[index])
         ));

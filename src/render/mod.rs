@@ -6,6 +6,7 @@
 //! ([`tables`]), `fit.json`, `progress.json` ([`json`]), `settings.toml`, the report
 //! ([`report`], [`plots`]) and last `run.json`, which lists the others with their checksums.
 
+pub mod calibration;
 pub mod campaign;
 pub mod display;
 pub mod inspect;
@@ -131,6 +132,12 @@ pub fn render_run_outputs(results: &RunResults, record: &RunRecord) -> Result<Ve
         files.extend(screen::screen_files(
             screen_results,
             &results.analysis.signal.rate_unit(),
+        )?);
+    }
+    if let Some(calibration) = &results.analysis.signal.calibration {
+        files.push(json::json_file(
+            "calibration.json",
+            &calibration::calibration_document(calibration, results.analysis.signal.raw_unit),
         )?);
     }
     files.extend(report::report_files(results, record)?);

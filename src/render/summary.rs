@@ -184,13 +184,34 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
     ));
     let count = |role: Role| analysis.wells.iter().filter(|w| w.setup.role == role).count();
     lines.push(format!(
-        "wells analysed: {} ({} samples, {} no-enzyme, {} blanks); rates in {}",
+        "wells analysed: {} ({} samples, {} no-enzyme, {} blanks{}); rates in {}",
         analysis.wells.len(),
         count(Role::Sample),
         count(Role::NoEnzyme),
         count(Role::Blank),
+        match count(Role::Standard) {
+            0 => String::new(),
+            n => format!(", {n} standards"),
+        },
         analysis.signal.rate_unit()
     ));
+    if let Some(calibration) = &analysis.signal.calibration {
+        for curve in &calibration.curves {
+            lines.push(format!(
+                "standard curve ({}): slope {} {}/{} (SE {:.2}%), fitted {} to {} {}, LOD {} {}",
+                curve.group_label(),
+                significant(curve.line.slope),
+                analysis.signal.raw_unit,
+                calibration.unit,
+                100.0 * curve.slope_relative_se(),
+                significant(curve.range.0),
+                significant(curve.range.1),
+                calibration.unit,
+                significant(curve.lod),
+                calibration.unit
+            ));
+        }
+    }
     let flagged = analysis.wells.iter().filter(|w| !w.rate.flags.is_empty()).count();
     let counts = flag_counts(&analysis.wells);
     let reasons = counts
@@ -227,8 +248,13 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
     }
     lines.push(String::new());
     lines.push(format!(
-        "outputs: {}/ (wells.csv, conditions.csv, fit.json, progress.json, settings.toml{}, run.json)",
+        "outputs: {}/ (wells.csv, conditions.csv, fit.json, progress.json, {}settings.toml{}, run.json)",
         out.display(),
+        if results.analysis.signal.calibration.is_some() {
+            "calibration.json, "
+        } else {
+            ""
+        },
         match report {
             ReportMode::Html => ", report.html",
             ReportMode::Full => ", report.html, plots/*.png",

@@ -19,7 +19,12 @@
 //! and the plate's warnings name those reads. A blank well with no readable read at all does not
 //! count as a blank, and the warnings say so.
 
-use crate::config::{AnalysisSettings, Readout};
+pub mod calibration;
+
+use std::collections::BTreeMap;
+
+use crate::config::{AnalysisSettings, Readout, SignalKind};
+use crate::core::plate::WellId;
 use crate::core::units::ConcentrationUnit;
 use crate::import::KineticData;
 use crate::layout::{Layout, Role};
@@ -79,11 +84,27 @@ pub struct PlateSignal {
     pub per_absorbance: Option<f64>,
     /// The unit of product formed when the signal is converted; `None`: the signal stays in AU.
     pub concentration_unit: Option<ConcentrationUnit>,
+    /// The standard curves, when the layout has standards (they then convert the signal).
+    pub calibration: Option<calibration::Calibration>,
+    /// Conversions that differ from the plate's (a well's own standard curve), by well.
+    pub well_conversions: BTreeMap<WellId, WellConversion>,
+    /// The unit of the raw signal (`AU`, `RFU`, `RLU`).
+    pub raw_unit: &'static str,
     /// Plate-level remarks (no blanks, no extinction coefficient...).
     pub warnings: Vec<String>,
     /// Zero-based reads at which no blank well was readable: their blank comes from the smooth
     /// curve or is interpolated from the neighbouring reads, never 0.
     pub reads_without_blank: Vec<usize>,
+}
+
+/// How one well's blank-corrected signal becomes product formed:
+/// `sign * (signal - signal_offset) * per_signal`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct WellConversion {
+    /// Concentration per signal unit (1 / slope of a standard curve, or 1 / (epsilon l)).
+    pub per_signal: f64,
+    /// The signal at zero concentration (a standard curve's intercept; 0 for Beer-Lambert).
+    pub signal_offset: f64,
 }
 
 /// The smooth blank (module docs): the degree and the curve at every read, or `None` when the blank
@@ -336,24 +357,32 @@ impl PlateSignal {
             }
             filled
         };
+        let signal_kind = settings.rates.signal;
         if blank_wells.is_empty() {
-            warnings.push("no blank wells: absorbance is not blank-corrected".to_string());
+            warnings.push(format!(
+                "no blank wells: {} is not blank-corrected",
+                signal_kind.word()
+            ));
         }
-        let unit = layout.substrate_unit;
-        let per_absorbance = match (settings.extinction_per_molar_cm, settings.pathlength_cm, unit) {
-            (Some(epsilon), Some(path), Some(unit)) => Some(1.0 / (epsilon * path) / unit.in_molar()),
-            (Some(_), Some(_), None) => {
-                warnings
-                    .push("the layout gives no substrate unit: rates stay in absorbance units".to_string());
-                None
-            }
-            _ => {
-                warnings.push(
-                    "no extinction coefficient and pathlength: rates are in absorbance units and the conversion limit is not checked"
-                        .to_string(),
-                );
-                None
-            }
+        let sign = match settings.readout {
+            Readout::Product => 1.0,
+            Readout::Substrate => -1.0,
+        };
+        let calibration = layout
+            .standard_groups
+            .as_ref()
+            .and_then(|groups| standard_curves(data, layout, groups, &blank_per_read, &mut warnings));
+        let conversion = match (calibration, layout.substrate_unit.or(layout.standard_unit)) {
+            (Some(calibration), Some(unit)) => curve_conversion(
+                data,
+                layout,
+                settings,
+                calibration,
+                &blank_per_read,
+                unit,
+                &mut warnings,
+            ),
+            _ => beer_lambert_conversion(layout, settings, &mut warnings),
         };
         PlateSignal {
             read_times_s: data.times_s.clone(),
@@ -362,30 +391,71 @@ impl PlateSignal {
             blank_per_read,
             reads_without_blank,
             n_blank_wells: blank_wells.len(),
-            sign: match settings.readout {
-                Readout::Product => 1.0,
-                Readout::Substrate => -1.0,
-            },
-            per_absorbance,
-            concentration_unit: per_absorbance.and(unit),
+            sign,
+            per_absorbance: conversion.per_absorbance,
+            concentration_unit: conversion.concentration_unit,
+            calibration: conversion.calibration,
+            well_conversions: conversion.well_conversions,
+            raw_unit: signal_kind.raw_unit(),
             warnings,
         }
     }
 
-    /// A well's readings as product formed at each read: blank-corrected, signed and converted
-    /// (`None` where a read is unreadable).
+    /// A well's readings as product formed at each read by the plate's conversion: blank-corrected,
+    /// signed and converted (`None` where a read is unreadable).
     pub fn product_formed(&self, raw: &[Option<f64>]) -> Vec<Option<f64>> {
-        let scale = self.per_absorbance.unwrap_or(1.0);
+        self.convert(raw, self.plate_conversion())
+    }
+
+    /// A well's readings as product formed, by the well's own conversion (its standard curve)
+    /// where it has one.
+    pub fn well_product_formed(&self, well: WellId, raw: &[Option<f64>]) -> Vec<Option<f64>> {
+        let conversion = self
+            .well_conversions
+            .get(&well)
+            .copied()
+            .unwrap_or_else(|| self.plate_conversion());
+        self.convert(raw, conversion)
+    }
+
+    /// Concentration per signal unit for `well` (its own curve's, else the plate's), when the
+    /// signal is converted.
+    pub fn conversion_of(&self, well: WellId) -> Option<f64> {
+        self.per_absorbance?;
+        Some(
+            self.well_conversions
+                .get(&well)
+                .map_or_else(|| self.plate_conversion().per_signal, |c| c.per_signal),
+        )
+    }
+
+    /// The plate's conversion: the first standard curve's, or Beer-Lambert's (1 when the signal
+    /// stays in its own units).
+    fn plate_conversion(&self) -> WellConversion {
+        let signal_offset = self
+            .calibration
+            .as_ref()
+            .and_then(|c| c.curves.first())
+            .map_or(0.0, |curve| curve.line.intercept);
+        WellConversion {
+            per_signal: self.per_absorbance.unwrap_or(1.0),
+            signal_offset,
+        }
+    }
+
+    fn convert(&self, raw: &[Option<f64>], conversion: WellConversion) -> Vec<Option<f64>> {
         raw.iter()
             .zip(&self.blank_per_read)
-            .map(|(value, blank)| value.map(|a| self.sign * (a - blank) * scale))
+            .map(|(value, blank)| {
+                value.map(|a| self.sign * (a - blank - conversion.signal_offset) * conversion.per_signal)
+            })
             .collect()
     }
 
     /// The unit of product formed: `uM` (the layout's substrate unit) or `AU`.
     pub fn amount_unit(&self) -> String {
         self.concentration_unit
-            .map_or_else(|| "AU".to_string(), |unit| unit.to_string())
+            .map_or_else(|| self.raw_unit.to_string(), |unit| unit.to_string())
     }
 
     /// The unit of rates: `uM/s` or `AU/s`.
@@ -397,9 +467,247 @@ impl PlateSignal {
     pub fn value_label(&self) -> String {
         match self.concentration_unit {
             Some(unit) => format!("product formed [{unit}]"),
-            None => "blank-corrected signal [AU]".to_string(),
+            None => format!("blank-corrected signal [{}]", self.raw_unit),
         }
     }
+}
+
+/// How a plate's signal is converted: the fields of [`PlateSignal`] that say so.
+struct Conversion {
+    per_absorbance: Option<f64>,
+    concentration_unit: Option<crate::core::units::ConcentrationUnit>,
+    calibration: Option<calibration::Calibration>,
+    well_conversions: BTreeMap<WellId, WellConversion>,
+}
+
+/// Conversion by the standard curves (each well by its own curve), into `unit`.
+fn curve_conversion(
+    data: &KineticData,
+    layout: &Layout,
+    settings: &AnalysisSettings,
+    calibration: calibration::Calibration,
+    blank_per_read: &[f64],
+    unit: crate::core::units::ConcentrationUnit,
+    warnings: &mut Vec<String>,
+) -> Conversion {
+    if settings.extinction_per_molar_cm.is_some() {
+        warnings.push(
+            "the standard curve converts the signal: the extinction coefficient and pathlength are not used"
+                .to_string(),
+        );
+    }
+    let factor = calibration.unit.factor_to(unit);
+    let conversions: Vec<WellConversion> = calibration
+        .curves
+        .iter()
+        .map(|curve| WellConversion {
+            per_signal: factor / curve.line.slope,
+            signal_offset: curve.line.intercept,
+        })
+        .collect();
+    let well_conversions = calibration
+        .curve_of_well
+        .iter()
+        .map(|(well, curve)| (*well, conversions[*curve]))
+        .collect();
+    warnings.extend(out_of_calibrated_range(
+        data,
+        layout,
+        &calibration,
+        blank_per_read,
+        unit,
+    ));
+    Conversion {
+        per_absorbance: conversions.first().map(|c| c.per_signal),
+        concentration_unit: Some(unit),
+        calibration: Some(calibration),
+        well_conversions,
+    }
+}
+
+/// Conversion by Beer-Lambert (absorbance with an extinction coefficient and pathlength), or
+/// none, with the warning that says why.
+fn beer_lambert_conversion(
+    layout: &Layout,
+    settings: &AnalysisSettings,
+    warnings: &mut Vec<String>,
+) -> Conversion {
+    let signal_kind = settings.rates.signal;
+    let unit = layout.substrate_unit;
+    // Wells without their own pathlength take the plate's, or else the median of those listed.
+    let plate_path = settings
+        .pathlength_cm
+        .or_else(|| crate::core::stats::median(settings.pathlength_by_well.values().copied()));
+    let per_absorbance = match (settings.extinction_per_molar_cm, plate_path, unit) {
+        (Some(epsilon), Some(path), Some(unit)) => Some(1.0 / (epsilon * path) / unit.in_molar()),
+        (Some(_), Some(_), None) => {
+            warnings.push("the layout gives no substrate unit: rates stay in absorbance units".to_string());
+            None
+        }
+        _ if signal_kind == SignalKind::Absorbance => {
+            warnings.push(
+                "no extinction coefficient and pathlength: rates are in absorbance units and the conversion limit is not checked"
+                    .to_string(),
+            );
+            None
+        }
+        _ => {
+            warnings.push(format!(
+                "no standard curve: rates are in {} per second and the conversion limit is not checked",
+                signal_kind.raw_unit()
+            ));
+            None
+        }
+    };
+    let well_conversions: BTreeMap<WellId, WellConversion> = match (settings.extinction_per_molar_cm, unit) {
+        (Some(epsilon), Some(unit)) if per_absorbance.is_some() => settings
+            .pathlength_by_well
+            .iter()
+            .map(|(well, path)| {
+                let conversion = WellConversion {
+                    per_signal: 1.0 / (epsilon * path) / unit.in_molar(),
+                    signal_offset: 0.0,
+                };
+                (*well, conversion)
+            })
+            .collect(),
+        _ => BTreeMap::new(),
+    };
+    if settings.pathlength_cm.is_none() && !settings.pathlength_by_well.is_empty() {
+        let unlisted: Vec<String> = layout
+            .wells
+            .iter()
+            .filter(|(well, setup)| {
+                matches!(setup.role, Role::Sample | Role::NoEnzyme)
+                    && !settings.pathlength_by_well.contains_key(well)
+            })
+            .map(|(well, _)| well.to_string())
+            .collect();
+        if !unlisted.is_empty() {
+            warnings.push(format!(
+                "{} sample or control well(s) have no pathlength of their own and take the table's median: {}",
+                unlisted.len(),
+                unlisted.join(", ")
+            ));
+        }
+    }
+    Conversion {
+        per_absorbance,
+        concentration_unit: per_absorbance.and(unit),
+        calibration: None,
+        well_conversions,
+    }
+}
+
+/// The plate's standard curves, fitted from the standard wells' blank-corrected reads; `None`
+/// (rates stay in signal units, said in the warnings) when a curve cannot be made.
+fn standard_curves(
+    data: &KineticData,
+    layout: &Layout,
+    groups: &crate::layout::StandardGroups,
+    blank_per_read: &[f64],
+    warnings: &mut Vec<String>,
+) -> Option<calibration::Calibration> {
+    let unit = layout.standard_unit?;
+    let mut curves = Vec::new();
+    for (group, wells) in &groups.curves {
+        let reads: Vec<calibration::StandardReads> = wells
+            .iter()
+            .filter_map(|well| {
+                let trace = data.wells.iter().find(|trace| trace.well == *well)?;
+                let concentration = layout.wells.get(well)?.standard?;
+                Some(calibration::StandardReads {
+                    well: *well,
+                    concentration,
+                    times_s: &data.times_s,
+                    raw: &trace.values,
+                    blank: blank_per_read,
+                })
+            })
+            .collect();
+        match calibration::fit_standard_curve(group.clone(), &reads, unit, &calibration::WeightedStraightLine)
+        {
+            Ok(curve) => {
+                let label = curve.group_label();
+                warnings.extend(
+                    curve
+                        .warnings
+                        .iter()
+                        .map(|w| format!("standard curve ({label}): {w}")),
+                );
+                curves.push(curve);
+            }
+            Err(reason) => {
+                warnings.push(format!("no standard curve: {reason}; rates stay in signal units"));
+                return None;
+            }
+        }
+    }
+    Some(calibration::Calibration {
+        curves,
+        curve_of_well: groups.curve_of_well.clone(),
+        unit,
+    })
+}
+
+/// A warning naming the sample and control wells whose signal leaves their curve's fitted range
+/// (by more than 3 residual SDs): their concentrations there are extrapolated.
+fn out_of_calibrated_range(
+    data: &KineticData,
+    layout: &Layout,
+    calibration: &calibration::Calibration,
+    blank_per_read: &[f64],
+    unit: crate::core::units::ConcentrationUnit,
+) -> Option<String> {
+    let mut leaving = Vec::new();
+    for trace in &data.wells {
+        let Some(setup) = layout.wells.get(&trace.well) else {
+            continue;
+        };
+        if !matches!(setup.role, Role::Sample | Role::NoEnzyme) {
+            continue;
+        }
+        let Some(curve) = calibration
+            .curve_of_well
+            .get(&trace.well)
+            .and_then(|index| calibration.curves.get(*index))
+        else {
+            continue;
+        };
+        let (a, b) = curve.signal_range;
+        let margin = 3.0 * curve.line.residual_sd;
+        let (low, high) = (a.min(b) - margin, a.max(b) + margin);
+        let leaves = trace.values.iter().zip(blank_per_read).any(|(value, blank)| {
+            value.is_some_and(|v| v.is_finite() && (v - blank < low || v - blank > high))
+        });
+        if leaves {
+            leaving.push(trace.well.to_string());
+        }
+    }
+    if leaving.is_empty() {
+        return None;
+    }
+    let ranges: Vec<String> = calibration
+        .curves
+        .iter()
+        .map(|curve| {
+            format!(
+                "{}: {} to {} {}",
+                curve.group_label(),
+                crate::core::format::significant(curve.range.0),
+                crate::core::format::significant(curve.range.1),
+                calibration.unit
+            )
+        })
+        .collect();
+    let shown = leaving.len().min(24);
+    Some(format!(
+        "the signal of {} well(s) leaves the calibrated range ({}), so their concentrations there are extrapolated (in {unit}): {}{}",
+        leaving.len(),
+        ranges.join("; "),
+        leaving[..shown].join(", "),
+        if leaving.len() > shown { format!(" and {} more", leaving.len() - shown) } else { String::new() }
+    ))
 }
 
 #[cfg(test)]
@@ -436,6 +744,36 @@ mod tests {
         assert_eq!(formed[1], None);
         assert_eq!(signal.rate_unit(), "uM/s");
         assert_eq!(signal.value_label(), "product formed [uM]");
+    }
+
+    /// A standard curve also converts absorbance, replacing extinction x pathlength: standards 0, 10
+    /// and 20 uM read 0.10, 0.30 and 0.50 AU above the blank (0.02 AU per uM, intercept 0.10 by
+    /// hand), so a sample at 0.70 AU is (0.70 - 0.10) / 0.02 = 30 uM.
+    #[test]
+    fn a_standard_curve_converts_absorbance_in_place_of_beer_lambert() {
+        let data = "Time [s],A1,A2,A3,A4,B1\n0,0.10,0.30,0.50,0.30,0.70\n10,0.10,0.30,0.50,0.30,0.70\n";
+        let layout = "well,role,substrate [uM],standard [uM]\nA1,standard,,0\nA2,standard,,10\nA3,standard,,20\nA4,standard,,10\nB1,sample,100,\n";
+        let data = import_cells(
+            &read_text_cells(data.as_bytes(), "d.csv").unwrap(),
+            &ImportOptions::default(),
+        )
+        .unwrap();
+        let layout = parse_layout(&read_text_cells(layout.as_bytes(), "l.csv").unwrap(), data.plate).unwrap();
+        let settings = AnalysisSettings {
+            extinction_per_molar_cm: Some(10_000.0),
+            pathlength_cm: Some(0.5),
+            ..AnalysisSettings::default()
+        };
+        let signal = PlateSignal::new(&data, &layout, &settings);
+        let curve = &signal.calibration.as_ref().unwrap().curves[0];
+        assert!((curve.line.slope - 0.02).abs() < 1e-12, "{:?}", curve.line);
+        let formed = signal.well_product_formed(WellId::new(1, 0), &[Some(0.70)]);
+        assert!((formed[0].unwrap() - 30.0).abs() < 1e-9, "{formed:?}");
+        assert!(signal
+            .warnings
+            .iter()
+            .any(|w| w.contains("extinction coefficient and pathlength are not used")));
+        assert_eq!(signal.rate_unit(), "uM/s");
     }
 
     /// Issue class: every blank unreadable at one read must not blank-correct that read with 0.

@@ -31,6 +31,7 @@
 
 pub mod campaign;
 pub mod demo;
+pub mod fluorescence;
 pub mod kinetics;
 pub mod screen;
 pub mod study;

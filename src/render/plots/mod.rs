@@ -13,6 +13,7 @@
 //! figures and presentations that are friendly to colorblind people, https://jfly.uni-koeln.de/color/;
 //! Wong B (2011), Points of view: color blindness, Nature Methods 8:441.
 
+mod calibration;
 mod groups;
 mod inhibition;
 mod progress;
@@ -25,6 +26,7 @@ use plotters::coord::Shift;
 use plotters::prelude::*;
 use plotters::style::FontStyle;
 
+pub use calibration::{CalibrationPlot, CalibrationPlotKind};
 pub use groups::{group_plots, mean_band, GroupPlot, GroupPlotKind, GroupPoint, GroupView};
 pub(crate) use inhibition::draw_markers;
 pub use inhibition::{

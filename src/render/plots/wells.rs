@@ -161,7 +161,7 @@ pub fn plate_view(results: &RunResults) -> PlateView {
             (None | Some(Role::Empty), ..) => {}
             (Some(role), Some(result), Some(raw)) => {
                 view.state = WellState::Analysed;
-                view.trace = signal.product_formed(raw);
+                view.trace = signal.well_product_formed(well, raw);
                 view.window = result.rate.window_s;
                 view.line = result.rate.fit.map(|fit| (fit.intercept, fit.slope));
                 view.rate = result.rate_value.zip(result.rate_se);
@@ -323,6 +323,7 @@ fn role_tag(role: Option<Role>) -> &'static str {
         Some(Role::NoEnzyme) => " no-E",
         Some(Role::Uninhibited) => " 100%",
         Some(Role::Inhibited) => " 0%",
+        Some(Role::Standard) => " std",
         _ => "",
     }
 }

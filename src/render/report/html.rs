@@ -243,6 +243,7 @@ pub fn report_html(parts: &ReportParts) -> String {
     page.push_str(&overview_section(parts));
     page.push_str(&super::screen::screen_section(results));
     page.push_str(&flagged_section(parts));
+    page.push_str(&super::calibration::calibration_section(results));
     page.push_str(&groups_section(parts));
     page.push_str(&progress_section(parts));
     page.push_str(&trust_section(parts));

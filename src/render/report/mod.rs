@@ -7,6 +7,7 @@
 //! later add their own sections and their own candidates in [`trust_verdicts`] without changing
 //! the others. `run.json` itself is made in [`super::json`].
 
+mod calibration;
 pub(crate) mod html;
 mod screen;
 

@@ -1,0 +1,121 @@
+//! The report's "Standard curves" section, shown only when the layout has standards: each curve's
+//! plot and residuals, its statistics and warnings, and how its slope's uncertainty enters kcat.
+
+use std::fmt::Write as _;
+
+use super::html::escape;
+use crate::core::format::significant;
+use crate::pipeline::RunResults;
+use crate::render::plots::{render_svg, CalibrationPlot, CalibrationPlotKind};
+use crate::signal::calibration::{CURVATURE_ALPHA, LOD_FACTOR, LOQ_FACTOR};
+
+/// The section's HTML, or "" without standards.
+pub fn calibration_section(results: &RunResults) -> String {
+    let signal = &results.analysis.signal;
+    let Some(calibration) = &signal.calibration else {
+        return String::new();
+    };
+    let unit = calibration.unit.to_string();
+    let mut html = String::from("<section id=\"calibration\">\n<h2>Standard curves</h2>\n");
+    let _ = writeln!(
+        html,
+        "<p>Each standard's signal is its mean blank-corrected {} over the reads; the line is fitted by {}. \
+         LOD = {LOD_FACTOR} s/b and LOQ = {LOQ_FACTOR} s/b (ICH Q2(R1)); a quadratic term significant at the {:.0}% \
+         level ends the linear range (hollow points are above it). The slope's relative SE is combined into the \
+         SEs and intervals of Vmax, kcat and kcat/Km. Standards are only as good as their stock: \
+         check them against your lab's validated procedure.</p>",
+        signal.raw_unit,
+        escape(calibration.curves.first().map_or("", |c| c.estimator)),
+        100.0 * CURVATURE_ALPHA
+    );
+    for (index, curve) in calibration.curves.iter().enumerate() {
+        let _ = writeln!(
+            html,
+            "<h3>Curve {}: {}</h3>",
+            index + 1,
+            escape(&curve.group_label())
+        );
+        for kind in [CalibrationPlotKind::Curve, CalibrationPlotKind::Residuals] {
+            let plot = CalibrationPlot {
+                curve,
+                index,
+                kind,
+                unit: unit.clone(),
+                signal_unit: signal.raw_unit,
+            };
+            match render_svg(&plot) {
+                Ok(plot) => {
+                    let _ = writeln!(
+                        html,
+                        "<figure class=\"group\">\n{}\n<figcaption>{}</figcaption>\n</figure>",
+                        plot.svg,
+                        escape(&plot.title)
+                    );
+                }
+                Err(error) => {
+                    let _ = writeln!(html, "<p>{}</p>", escape(&format!("plot not drawn: {error}")));
+                }
+            }
+        }
+        let line = &curve.line;
+        let rows = [
+            (
+                "slope",
+                format!(
+                    "{} &plusmn; {} {}/{unit}",
+                    significant(line.slope),
+                    significant(line.slope_se),
+                    signal.raw_unit
+                ),
+            ),
+            (
+                "intercept",
+                format!(
+                    "{} &plusmn; {} {}",
+                    significant(line.intercept),
+                    significant(line.intercept_se),
+                    signal.raw_unit
+                ),
+            ),
+            ("R^2", format!("{:.5}", line.r_squared)),
+            (
+                "residual SD",
+                format!("{} {}", significant(line.residual_sd), signal.raw_unit),
+            ),
+            (
+                "LOD / LOQ",
+                format!("{} / {} {unit}", significant(curve.lod), significant(curve.loq)),
+            ),
+            (
+                "range fitted",
+                format!(
+                    "{} to {} {unit}",
+                    significant(curve.range.0),
+                    significant(curve.range.1)
+                ),
+            ),
+            (
+                "standards",
+                format!(
+                    "{} wells, {} fitted",
+                    curve.wells.len(),
+                    curve.wells.iter().filter(|w| w.used).count()
+                ),
+            ),
+        ];
+        html.push_str("<table class=\"calibration\">\n");
+        for (name, value) in rows {
+            let _ = writeln!(html, "<tr><th>{}</th><td>{value}</td></tr>", escape(name));
+        }
+        html.push_str("</table>\n");
+        if !curve.warnings.is_empty() {
+            html.push_str("<ul>\n");
+            for warning in &curve.warnings {
+                let _ = writeln!(html, "<li>{}</li>", escape(warning));
+            }
+            html.push_str("</ul>\n");
+        }
+    }
+    html.push_str("</section>\n");
+    html
+}

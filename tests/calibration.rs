@@ -1,0 +1,519 @@
+//! Signal to concentration (issue 11): a simulated fluorescence plate with product standards
+//! (the plate simulator's Michaelis-Menten curves, RFU, a slight inner-filter bend at the top,
+//! standards in duplicate) recovers the truth through the library and the binary; the coverage of
+//! kcat's interval with the slope's uncertainty combined; and each new bad input refused, naming
+//! the file and the well.
+
+mod common;
+
+use common::{platekin, text};
+use platekin::config::{resolve_analysis, resolve_fit, SettingLayer};
+use platekin::files::sheet::read_text_cells;
+use platekin::import::{import_cells, ImportOptions};
+use platekin::layout::parse_layout;
+use platekin::pipeline::{analyse_inputs, RunResults};
+use platekin::simulate::fluorescence::{fluorescence_plate, KCAT_PER_S, KM_UM, RFU_PER_UM};
+
+/// A scratch folder holding the plate of `seed` as `plate.csv` and its layout as `layout.csv`.
+fn scratch_with_plate(
+    seed: u64,
+) -> (
+    tempfile::TempDir,
+    platekin::simulate::fluorescence::FluorescencePlate,
+) {
+    let scratch = tempfile::tempdir().unwrap();
+    let plate = fluorescence_plate(seed).unwrap();
+    std::fs::write(scratch.path().join("plate.csv"), &plate.export_csv).unwrap();
+    std::fs::write(scratch.path().join("layout.csv"), &plate.layout_csv).unwrap();
+    (scratch, plate)
+}
+
+fn fluorescence_layer() -> SettingLayer {
+    SettingLayer {
+        signal: Some("fluorescence".into()),
+        // Profile intervals are not needed for these checks and cost a refit per parameter.
+        profile: Some(false),
+        ..SettingLayer::default()
+    }
+}
+
+fn analyse(export: &str, layout: &str, layer: &SettingLayer) -> RunResults {
+    let grid = read_text_cells(export.as_bytes(), "hollin-moss.csv").unwrap();
+    let data = import_cells(&grid, &ImportOptions::default()).unwrap();
+    let layout_grid = read_text_cells(layout.as_bytes(), "hollin-moss-layout.csv").unwrap();
+    let layout = parse_layout(&layout_grid, data.plate).unwrap();
+    analyse_inputs(
+        data,
+        layout,
+        &resolve_analysis(layer).unwrap(),
+        &resolve_fit(layer).unwrap(),
+        &mut |_, _| {},
+    )
+    .unwrap()
+}
+
+/// kcat (value, interval, se) and Km of the plate's one group.
+fn constants(results: &RunResults) -> ((f64, [f64; 2], f64), f64) {
+    let fit = &results.fits[0];
+    let kcat = &fit.parameters["kcat"];
+    (
+        (kcat.value, kcat.ci95.unwrap(), kcat.se.unwrap()),
+        fit.parameters["Km"].value,
+    )
+}
+
+#[test]
+fn a_fluorescence_plate_with_standards_recovers_kcat_and_km_with_the_slope_in_the_interval() {
+    let plate = fluorescence_plate(11).unwrap();
+    let results = analyse(&plate.export_csv, &plate.layout_csv, &fluorescence_layer());
+    let calibration = results
+        .analysis
+        .signal
+        .calibration
+        .as_ref()
+        .expect("a standard curve");
+    assert_eq!(calibration.curves.len(), 1);
+    let curve = &calibration.curves[0];
+    // The inner-filter bend at the top is found and the line stops below it.
+    assert!(curve.curvature.bends, "{:?}", curve.curvature);
+    assert!(curve.range.1 < 16.0, "{:?}", curve.range);
+    assert_eq!(results.analysis.signal.rate_unit(), "uM/s");
+    let ((kcat, [lo, hi], _), km) = constants(&results);
+    assert!((kcat / KCAT_PER_S - 1.0).abs() < 0.05, "kcat {kcat}");
+    assert!((km / KM_UM - 1.0).abs() < 0.08, "Km {km}");
+    assert!(lo < KCAT_PER_S && KCAT_PER_S < hi, "[{lo}, {hi}]");
+    assert!(
+        results.fits[0]
+            .warnings
+            .iter()
+            .any(|w| w.contains("slope uncertainty") && w.contains("kcat")),
+        "{:?}",
+        results.fits[0].warnings
+    );
+}
+
+/// The coverage of kcat's 95% interval over simulated plates (each its own seed), with the
+/// slope's uncertainty combined. CI runs 40 plates; `PLATEKIN_CALIBRATION_PLATES=200 cargo test
+/// --release --test calibration -- --nocapture coverage` runs more and prints the figures.
+#[test]
+fn coverage_of_kcat_with_the_slope_uncertainty() {
+    let plates: usize = std::env::var("PLATEKIN_CALIBRATION_PLATES")
+        .ok()
+        .and_then(|text| text.parse().ok())
+        .unwrap_or(40);
+    let mut covered = 0;
+    let mut covered_without_slope = 0;
+    let mut errors = Vec::new();
+    for seed in 0..plates as u64 {
+        let plate = fluorescence_plate(1000 + seed).unwrap();
+        let results = analyse(&plate.export_csv, &plate.layout_csv, &fluorescence_layer());
+        let ((kcat, [lo, hi], se), _) = constants(&results);
+        if lo <= KCAT_PER_S && KCAT_PER_S <= hi {
+            covered += 1;
+        }
+        // The same interval without the slope's term: the fit's SE alone.
+        let curve = &results.analysis.signal.calibration.as_ref().unwrap().curves[0];
+        let fit_se = (se * se - (kcat * curve.slope_relative_se()).powi(2))
+            .max(0.0)
+            .sqrt();
+        let half = (hi - lo) / 2.0 * fit_se / se;
+        if (kcat - KCAT_PER_S).abs() <= half {
+            covered_without_slope += 1;
+        }
+        errors.push(kcat / KCAT_PER_S - 1.0);
+        if std::env::var_os("PLATEKIN_CALIBRATION_VERBOSE").is_some() {
+            println!(
+                "plate {seed}: kcat {:+.2}% (SE {:.2}%, fit alone {:.2}%), slope {:+.2}% of the linear response (SE {:.2}%), fitted to {} uM",
+                100.0 * (kcat / KCAT_PER_S - 1.0),
+                100.0 * se / kcat,
+                100.0 * fit_se / kcat,
+                100.0 * (curve.line.slope / RFU_PER_UM - 1.0),
+                100.0 * curve.slope_relative_se(),
+                curve.range.1
+            );
+        }
+    }
+    let bias = errors.iter().sum::<f64>() / plates as f64;
+    let rmse = (errors.iter().map(|e| e * e).sum::<f64>() / plates as f64).sqrt();
+    println!(
+        "coverage of kcat over {plates} plates: {covered} with the slope's uncertainty, {covered_without_slope} without; bias {:+.2}%, RMSE {:.2}%",
+        100.0 * bias,
+        100.0 * rmse
+    );
+    // 95% nominal. Measured (200 plates, see DEVELOPERS.md): below nominal, because the inner-filter
+    // bend leaves a bias in the slope that depends on where the curvature test ends the linear
+    // range (2, 4 or 8 uM on these plates), a choice the slope's SE cannot see. The check guards
+    // that the combined interval covers at least as often as the fit's alone and not far below
+    // what was measured.
+    assert!(
+        covered >= covered_without_slope,
+        "{covered} vs {covered_without_slope}"
+    );
+    assert!(covered * 100 >= plates * 70, "{covered} of {plates}");
+    assert!(bias.abs() < 0.05, "bias {bias}");
+}
+
+#[test]
+fn the_binary_writes_rates_in_concentration_units_from_the_standards() {
+    let (scratch, _) = scratch_with_plate(5);
+    let output = platekin(
+        &[
+            "run",
+            "plate.csv",
+            "--layout",
+            "layout.csv",
+            "--signal",
+            "fluorescence",
+            "--out",
+            "out",
+            "--report",
+            "none",
+        ],
+        scratch.path(),
+    );
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    let wells = std::fs::read_to_string(scratch.path().join("out/wells.csv")).unwrap();
+    assert!(wells.lines().next().unwrap().contains("rate [uM/s]"), "{wells}");
+    let settings = std::fs::read_to_string(scratch.path().join("out/settings.toml")).unwrap();
+    assert!(settings.contains("signal = \"fluorescence\""), "{settings}");
+}
+
+#[test]
+fn extinction_with_fluorescence_is_refused_with_the_reason() {
+    let (scratch, _) = scratch_with_plate(5);
+    let output = platekin(
+        &[
+            "run",
+            "plate.csv",
+            "--layout",
+            "layout.csv",
+            "--signal",
+            "fluorescence",
+            "--extinction",
+            "2e9",
+            "--pathlength",
+            "1",
+            "--out",
+            "out",
+        ],
+        scratch.path(),
+    );
+    assert_eq!(output.status.code(), Some(2));
+    let message = text(&output.stderr);
+    assert!(
+        message.contains("extinction cannot convert fluorescence"),
+        "{message}"
+    );
+    assert!(!scratch.path().join("out").exists());
+}
+
+/// Each bad layout is refused through the binary with exit 2, naming the file and the well (and
+/// nothing is written).
+#[test]
+fn bad_standards_are_refused_naming_the_file_and_the_well() {
+    let (scratch, plate) = scratch_with_plate(5);
+    let cases: [(&str, String, &[&str]); 3] = [
+        (
+            "one-level.csv",
+            plate
+                .layout_csv
+                .lines()
+                .map(|line| {
+                    // Every standard at 4 uM: one level.
+                    match line.split_once(",standard,,,") {
+                        Some((wells, _)) => format!("{wells},standard,,,4"),
+                        None => line.to_string(),
+                    }
+                })
+                .collect::<Vec<_>>()
+                .join("\n"),
+            &["one-level.csv", "A9", "1 concentration(s)"],
+        ),
+        (
+            "no-concentration.csv",
+            plate
+                .layout_csv
+                .replace("C9:C10,standard,,,1", "C9:C10,standard,,,"),
+            &["no-concentration.csv", "C9", "standard", "no concentration"],
+        ),
+        (
+            "no-curve.csv",
+            // The standards are made up in buffer B1, the samples in no buffer named.
+            plate
+                .layout_csv
+                .lines()
+                .map(|line| match line {
+                    _ if line.starts_with('#') => line.to_string(),
+                    _ if line.starts_with("well,") => format!("{line},buffer"),
+                    _ if line.contains(",standard,") => format!("{line},B1"),
+                    _ => format!("{line},"),
+                })
+                .collect::<Vec<_>>()
+                .join("\n"),
+            &["no-curve.csv", "A1", "no standard curve", "buffer = 'B1'"],
+        ),
+    ];
+    for (name, layout, expected) in cases {
+        std::fs::write(scratch.path().join(name), &layout).unwrap();
+        let output = platekin(
+            &[
+                "run",
+                "plate.csv",
+                "--layout",
+                name,
+                "--signal",
+                "fluorescence",
+                "--out",
+                "out",
+            ],
+            scratch.path(),
+        );
+        assert_eq!(output.status.code(), Some(2), "{name}");
+        let message = text(&output.stderr);
+        for part in expected {
+            assert!(message.contains(part), "{name}: {part} not in {message}");
+        }
+        assert!(!scratch.path().join("out").exists());
+    }
+}
+
+/// Runs the binary in `scratch` on the Amber Fen demo plate (extinction 16,800, no report, no
+/// progress fits) with `extra` flags.
+fn run_demo_plate(scratch: &std::path::Path, extra: &[&str]) -> std::process::Output {
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let mut args = vec![
+        "run",
+        data.to_str().unwrap(),
+        "--layout",
+        layout.to_str().unwrap(),
+        "--extinction",
+        "16800",
+        "--report",
+        "none",
+        "--progress",
+        "never",
+    ];
+    args.extend_from_slice(extra);
+    platekin(&args, scratch)
+}
+
+/// kcat of the first group in a run folder's fit.json.
+fn first_kcat(folder: &std::path::Path) -> f64 {
+    let fit: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(folder.join("fit.json")).unwrap()).unwrap();
+    fit["groups"][0]["parameters"]["kcat"]["value"].as_f64().unwrap()
+}
+
+/// The demo plate (200 uL, 0.55 cm) run with the pathlength from its volume and a well diameter
+/// whose cylinder holds 200 uL at 5.5 mm (d = sqrt(4 x 200 / (pi x 5.5)) = 6.80438 mm, by hand)
+/// gives the same kcat as the pathlength typed, and records the pathlength it used.
+#[test]
+fn a_pathlength_from_volume_and_diameter_gives_the_same_constants_and_is_recorded() {
+    let scratch = tempfile::tempdir().unwrap();
+    let typed = run_demo_plate(scratch.path(), &["--pathlength", "0.55", "--out", "typed"]);
+    assert!(typed.status.success(), "{}", text(&typed.stderr));
+    let from_volume = run_demo_plate(
+        scratch.path(),
+        &[
+            "--volume",
+            "200",
+            "--well-diameter",
+            "6.804382397290101",
+            "--out",
+            "volume",
+        ],
+    );
+    assert!(from_volume.status.success(), "{}", text(&from_volume.stderr));
+    let (a, b) = (
+        first_kcat(&scratch.path().join("typed")),
+        first_kcat(&scratch.path().join("volume")),
+    );
+    assert!((a / b - 1.0).abs() < 1e-6, "{a} vs {b}");
+    let settings = std::fs::read_to_string(scratch.path().join("volume/settings.toml")).unwrap();
+    let recorded: toml::Value = toml::from_str(&settings).unwrap();
+    assert!(
+        (recorded["pathlength"].as_float().unwrap() - 0.55).abs() < 1e-12,
+        "{settings}"
+    );
+    assert_eq!(recorded["volume"].as_float(), Some(200.0), "{settings}");
+    let run = std::fs::read_to_string(scratch.path().join("volume/run.json")).unwrap();
+    assert!(
+        run.contains("\"pathlength\": 0.5499") || run.contains("\"pathlength\": 0.55"),
+        "{run}"
+    );
+    assert!(run.contains("\"volume\": 200"), "{run}");
+    // The recorded settings run again unchanged (pathlength and volume agree).
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let again = platekin(
+        &[
+            "run",
+            data.to_str().unwrap(),
+            "--assay",
+            "volume/settings.toml",
+            "--out",
+            "again",
+            "--report",
+            "none",
+        ],
+        scratch.path(),
+    );
+    assert!(again.status.success(), "{}", text(&again.stderr));
+    // A volume larger than the well is refused, naming the setting and the well's capacity.
+    let overfull = run_demo_plate(
+        scratch.path(),
+        &[
+            "--volume",
+            "50",
+            "--well-geometry",
+            "1536-square",
+            "--out",
+            "overfull",
+        ],
+    );
+    assert_eq!(overfull.status.code(), Some(2));
+    let message = text(&overfull.stderr);
+    assert!(
+        message.contains("volume 50 uL is more than the well holds"),
+        "{message}"
+    );
+    assert!(!scratch.path().join("overfull").exists());
+}
+
+/// The `window_slope` of `well` in a run folder's wells.csv.
+fn window_slope(folder: &std::path::Path, well: &str) -> f64 {
+    let wells = std::fs::read_to_string(folder.join("wells.csv")).unwrap();
+    let mut lines = wells.lines();
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let column = header.iter().position(|h| h.starts_with("window_slope")).unwrap();
+    let row = lines.find(|line| line.starts_with(&format!("{well},"))).unwrap();
+    row.split(',').nth(column).unwrap().parse().unwrap()
+}
+
+/// A water-peak table gives each listed well its own pathlength: (A977 - A900) / 0.18 is 0.55 cm
+/// for every well but the no-enzyme control A7, read at 0.5 cm (0.090 / 0.18, by hand), so A7's
+/// slope over a fixed window (controls have no background subtracted) is 0.55 / 0.5 = 1.1 times the
+/// slope with 0.55 cm typed, and B7's is unchanged.
+#[test]
+fn a_water_peak_table_gives_each_well_its_own_pathlength() {
+    let scratch = tempfile::tempdir().unwrap();
+    let mut table = String::from("well,A977,A900\n");
+    for row in ["A", "B", "C", "D", "E", "F", "G", "H"] {
+        for column in 1..=12 {
+            let a977 = if (row, column) == ("A", 7) { 0.131 } else { 0.140 };
+            table.push_str(&format!("{row}{column},{a977},0.041\n"));
+        }
+    }
+    std::fs::write(scratch.path().join("water.csv"), table).unwrap();
+    let fixed = ["--window", "0:300", "--initial-rate", "chord"];
+    let typed = run_demo_plate(
+        scratch.path(),
+        &[&fixed[..], &["--pathlength", "0.55", "--out", "typed"]].concat(),
+    );
+    assert!(typed.status.success(), "{}", text(&typed.stderr));
+    let table_run = run_demo_plate(
+        scratch.path(),
+        &[&fixed[..], &["--pathlength-from", "water.csv", "--out", "table"]].concat(),
+    );
+    assert!(table_run.status.success(), "{}", text(&table_run.stderr));
+    let ratio =
+        window_slope(&scratch.path().join("table"), "A7") / window_slope(&scratch.path().join("typed"), "A7");
+    assert!((ratio - 1.1).abs() < 1e-9, "{ratio}");
+    let same =
+        window_slope(&scratch.path().join("table"), "B7") / window_slope(&scratch.path().join("typed"), "B7");
+    assert!((same - 1.0).abs() < 1e-9, "{same}");
+    let run = std::fs::read_to_string(scratch.path().join("table/run.json")).unwrap();
+    assert!(run.contains("water.csv"), "{run}");
+    // A bad cell is refused naming the file, row and column.
+    std::fs::write(scratch.path().join("bad.csv"), "well,A977,A900\nA1,0.14,n/a\n").unwrap();
+    let bad = run_demo_plate(
+        scratch.path(),
+        &[&fixed[..], &["--pathlength-from", "bad.csv", "--out", "bad"]].concat(),
+    );
+    assert_eq!(bad.status.code(), Some(2));
+    let message = text(&bad.stderr);
+    assert!(
+        message.contains("bad.csv") && message.contains("row 2") && message.contains("A900"),
+        "{message}"
+    );
+    assert!(!scratch.path().join("bad").exists());
+}
+
+/// A fluorescence well whose export holds the reader's over-range marker from some read on is
+/// flagged `saturated` (not merely unreadable) and said so in its notes.
+#[test]
+fn an_over_range_marker_flags_a_fluorescence_well_saturated() {
+    let plate = fluorescence_plate(5).unwrap();
+    let mut lines: Vec<String> = plate.export_csv.lines().map(str::to_string).collect();
+    let header = lines.iter().position(|line| line.starts_with("Time")).unwrap();
+    let column = lines[header].split(',').position(|cell| cell == "H3").unwrap();
+    for line in lines.iter_mut().skip(header + 21).take(10) {
+        let mut cells: Vec<String> = line.split(',').map(str::to_string).collect();
+        if cells.len() > column {
+            cells[column] = "OVER".to_string();
+            *line = cells.join(",");
+        }
+    }
+    let export = lines.join("\n") + "\n";
+    let results = analyse(&export, &plate.layout_csv, &fluorescence_layer());
+    let well = results
+        .analysis
+        .wells
+        .iter()
+        .find(|well| well.well.to_string() == "H3")
+        .unwrap();
+    assert!(
+        well.rate.flags.contains(&platekin::rates::Flag::Saturated),
+        "{:?}",
+        well.rate.flags
+    );
+    assert!(
+        well.rate
+            .notes
+            .iter()
+            .any(|note| note.contains("fluorescence over the reader's range")),
+        "{:?}",
+        well.rate.notes
+    );
+}
+
+/// `--kcat-unit 1/min` gives kcat and kcat/Km 60 times their per-second values (1 min = 60 s) with
+/// the unit written beside them in fit.json and the summary; an unknown unit is refused.
+#[test]
+fn kcat_per_minute_is_sixty_times_per_second_everywhere() {
+    let scratch = tempfile::tempdir().unwrap();
+    let seconds = run_demo_plate(scratch.path(), &["--pathlength", "0.55", "--out", "seconds"]);
+    assert!(seconds.status.success(), "{}", text(&seconds.stderr));
+    let minutes = run_demo_plate(
+        scratch.path(),
+        &["--pathlength", "0.55", "--kcat-unit", "1/min", "--out", "minutes"],
+    );
+    assert!(minutes.status.success(), "{}", text(&minutes.stderr));
+    let fit = |folder: &str| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(scratch.path().join(folder).join("fit.json")).unwrap())
+            .unwrap()
+    };
+    let (per_second, per_minute) = (fit("seconds"), fit("minutes"));
+    for (name, unit) in [("kcat", "1/min"), ("kcat_over_Km", "1/(M*min)")] {
+        let a = &per_second["groups"][0]["parameters"][name];
+        let b = &per_minute["groups"][0]["parameters"][name];
+        assert_eq!(b["unit"], unit);
+        let ratio = b["value"].as_f64().unwrap() / a["value"].as_f64().unwrap();
+        assert!((ratio - 60.0).abs() < 1e-9, "{name}: {ratio}");
+        // Back to seconds: the same number.
+        assert!((b["value"].as_f64().unwrap() / 60.0 / a["value"].as_f64().unwrap() - 1.0).abs() < 1e-12);
+        let (a_hi, b_hi) = (a["ci95"][1].as_f64().unwrap(), b["ci95"][1].as_f64().unwrap());
+        assert!((b_hi / a_hi - 60.0).abs() < 1e-9, "{name} interval");
+    }
+    assert!(
+        text(&minutes.stdout).contains("1/min"),
+        "{}",
+        text(&minutes.stdout)
+    );
+    let bad = run_demo_plate(
+        scratch.path(),
+        &["--pathlength", "0.55", "--kcat-unit", "1/h", "--out", "bad"],
+    );
+    assert_eq!(bad.status.code(), Some(2));
+    assert!(text(&bad.stderr).contains("kcat-unit"), "{}", text(&bad.stderr));
+}
