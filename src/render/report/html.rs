@@ -216,6 +216,7 @@ figure{display:inline-block;margin:.5em 1em .5em 0;vertical-align:top}figcaption
 .thumbs svg{margin:2px;border:1px solid #eee}
 .details figure{margin:.3em}.details figure:target{outline:3px solid #0072B2}
 code{background:#f3f3f3;padding:0 .2em}
+@media print{nav{display:none}body{max-width:none;margin:0}.scroll{overflow:visible;border:0}figure,table,tr,.caution{break-inside:avoid}article.group{break-before:page}h2,h3{break-after:avoid}a{color:inherit;text-decoration:none}}
 ";
 
 /// The page.
@@ -628,12 +629,23 @@ fn conditions_section(parts: &ReportParts) -> String {
     html
 }
 
+/// A plot with its caption; the SVG is marked as an image whose text alternative says what it
+/// shows (its title; the numbers it draws are in the tables beside it).
 fn figure(plot: &Plot, class: &str) -> String {
     format!(
         "<figure class=\"{class}\">\n{}\n<figcaption>{}</figcaption>\n</figure>\n",
-        plot.svg,
+        labelled_svg(plot),
         escape(&plot.title)
     )
+}
+
+/// The plot's SVG with `role="img"` and an `aria-label` naming what it shows.
+fn labelled_svg(plot: &Plot) -> String {
+    let label = format!(
+        "role=\"img\" aria-label=\"Plot: {} (the values drawn are in the tables of this section)\" ",
+        escape(&plot.title)
+    );
+    plot.svg.replacen("<svg ", &format!("<svg {label}"), 1)
 }
 
 fn groups_section(parts: &ReportParts) -> String {

@@ -115,8 +115,18 @@ pub(crate) fn smallest_font_px(svg: &str) -> Option<f64> {
 /// Issue 14: no plot text below 11 px at the page's natural width (plots are drawn at their own
 /// size and never scaled up or down on a wide screen).
 #[test]
-fn no_plot_text_is_smaller_than_eleven_pixels() {
+fn no_plot_text_is_smaller_than_eleven_pixels_and_plots_have_text_alternatives() {
     let (_, page) = demo_page();
+    // Every group plot is an image with a text alternative.
+    let figures = all_between(section(&page, "fits"), "<figure class=\"", "</figure>");
+    assert!(!figures.is_empty());
+    for figure in figures {
+        assert!(
+            figure.contains("<svg role=\"img\" aria-label=\"Plot: "),
+            "{}",
+            &figure[..80.min(figure.len())]
+        );
+    }
     let smallest = smallest_font_px(&page).unwrap();
     assert!(smallest >= 11.0, "smallest plot text {smallest} px");
     let (results, layer) = inhibition_results();
