@@ -399,7 +399,7 @@ fn the_ic50_interval_covers_the_truth_over_200_simulated_compounds() {
 #[test]
 fn the_screening_demo_runs_from_its_files_and_reports_for_a_screener() {
     let folder = tempfile::tempdir().unwrap();
-    for (name, text) in platekin::simulate::screen::heron_quay_demo_files() {
+    for (name, text) in platekin::simulate::screen::heron_quay_demo_files().unwrap() {
         let committed = std::fs::read_to_string(common::project(&format!("demo-plates/{name}"))).unwrap();
         assert!(
             committed == text,

@@ -5,6 +5,7 @@
 
 use super::display::DisplayUnit;
 use super::words::group_label;
+pub use super::words::trust_word;
 use crate::groups::{GroupFit, ParameterReport};
 use crate::pipeline::RunResults;
 use crate::progress::analysis::ProgressGroupReport;
@@ -217,16 +218,6 @@ pub fn other_constants<'r>(
         .filter(|(name, _)| !columns.iter().any(|(c, _)| c == name))
         .map(|(name, p)| (name.as_str(), *p, DisplayUnit::for_values(&p.unit, [p.value])))
         .collect()
-}
-
-/// The verdict in a word or two (`either`, `progress curves`).
-pub fn trust_word(trust: Trust) -> &'static str {
-    match trust {
-        Trust::InitialRate => "initial rates",
-        Trust::ProgressCurve => "progress curves",
-        Trust::Either => "either",
-        Trust::Neither => "neither",
-    }
 }
 
 /// The words of an analysis for the results (`initial rates`, `progress curves`).

@@ -157,9 +157,17 @@ pub fn verdict_words(tried: &ModelTried) -> String {
 /// The trust decision's analysis in the report's words.
 pub fn trust_analysis_words(trust: Trust) -> &'static str {
     match trust {
-        Trust::ProgressCurve => "progress curves",
-        Trust::InitialRate => "initial rates",
         Trust::Either => "either (they agree)",
+        other => trust_word(other),
+    }
+}
+
+/// The verdict in a word or two (`either`, `progress curves`).
+pub fn trust_word(trust: Trust) -> &'static str {
+    match trust {
+        Trust::InitialRate => "initial rates",
+        Trust::ProgressCurve => "progress curves",
+        Trust::Either => "either",
         Trust::Neither => "neither",
     }
 }

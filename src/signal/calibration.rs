@@ -524,9 +524,8 @@ mod tests {
     /// Monitors"; 36 observations, lower difficulty), a calibration problem with certified values:
     /// B0 = -0.262323073774029 (SD 0.232818234301152), B1 = 1.00211681802045
     /// (SD 0.429796848199937E-03), residual SD 0.884796396144373, R^2 0.999993745883712. Data and
-    /// certified values as published by NIST's Statistical Reference Datasets (itl.nist.gov
-    /// div898/strd, norris.dat), copied from the benchmark's transcription in the stata.com NIST
-    /// certification scripts (regression/norris.do).
+    /// certified values as published by NIST's Statistical Reference Datasets (Linear Regression,
+    /// dataset Norris).
     #[test]
     fn the_line_reproduces_the_nist_norris_certified_values() {
         let y = [

@@ -717,17 +717,23 @@ mod tests {
     use crate::import::{import_cells, ImportOptions};
     use crate::layout::parse_layout;
 
-    #[test]
-    fn blank_is_the_mean_of_readable_blanks_and_a_substrate_read_is_negated() {
-        // Invented numbers: two blanks (A2 unreadable at the second read) and one sample.
-        let data = "Time [s],A1,A2,B1\n0,0.10,0.12,1.0\n10,0.20,OVER,0.9\n";
-        let layout = "well,role,substrate [uM]\nA1,blank,\nA2,blank,\nB1,sample,10\n";
+    /// An invented export and layout, read as `run` reads them.
+    fn plate_of(data: &str, layout: &str) -> (crate::import::KineticData, crate::layout::Layout) {
         let data = import_cells(
             &read_text_cells(data.as_bytes(), "d.csv").unwrap(),
             &ImportOptions::default(),
         )
         .unwrap();
         let layout = parse_layout(&read_text_cells(layout.as_bytes(), "l.csv").unwrap(), data.plate).unwrap();
+        (data, layout)
+    }
+
+    #[test]
+    fn blank_is_the_mean_of_readable_blanks_and_a_substrate_read_is_negated() {
+        // Invented numbers: two blanks (A2 unreadable at the second read) and one sample.
+        let data = "Time [s],A1,A2,B1\n0,0.10,0.12,1.0\n10,0.20,OVER,0.9\n";
+        let layout = "well,role,substrate [uM]\nA1,blank,\nA2,blank,\nB1,sample,10\n";
+        let (data, layout) = plate_of(data, layout);
         let settings = AnalysisSettings {
             readout: Readout::Substrate,
             extinction_per_molar_cm: Some(10_000.0),
@@ -753,12 +759,7 @@ mod tests {
     fn a_standard_curve_converts_absorbance_in_place_of_beer_lambert() {
         let data = "Time [s],A1,A2,A3,A4,B1\n0,0.10,0.30,0.50,0.30,0.70\n10,0.10,0.30,0.50,0.30,0.70\n";
         let layout = "well,role,substrate [uM],standard [uM]\nA1,standard,,0\nA2,standard,,10\nA3,standard,,20\nA4,standard,,10\nB1,sample,100,\n";
-        let data = import_cells(
-            &read_text_cells(data.as_bytes(), "d.csv").unwrap(),
-            &ImportOptions::default(),
-        )
-        .unwrap();
-        let layout = parse_layout(&read_text_cells(layout.as_bytes(), "l.csv").unwrap(), data.plate).unwrap();
+        let (data, layout) = plate_of(data, layout);
         let settings = AnalysisSettings {
             extinction_per_molar_cm: Some(10_000.0),
             pathlength_cm: Some(0.5),
@@ -781,12 +782,7 @@ mod tests {
     fn a_read_with_no_readable_blank_is_interpolated_not_zeroed() {
         let data = "Time [s],A1,A2,B1\n0,0.10,0.10,1.0\n10,OVER,OVER,1.1\n20,0.12,0.12,1.2\n";
         let layout = "well,role,substrate [uM]\nA1,blank,\nA2,blank,\nB1,sample,10\n";
-        let data = import_cells(
-            &read_text_cells(data.as_bytes(), "d.csv").unwrap(),
-            &ImportOptions::default(),
-        )
-        .unwrap();
-        let layout = parse_layout(&read_text_cells(layout.as_bytes(), "l.csv").unwrap(), data.plate).unwrap();
+        let (data, layout) = plate_of(data, layout);
         let signal = PlateSignal::new(&data, &layout, &AnalysisSettings::default());
         assert!(
             (signal.blank_per_read[1] - 0.11).abs() < 1e-12,
@@ -810,12 +806,7 @@ mod tests {
     fn a_blank_unreadable_throughout_is_not_a_blank() {
         let data = "Time [s],A1,A2,B1\n0,OVER,0.10,1.0\n10,OVER,0.10,1.1\n";
         let layout = "well,role,substrate [uM]\nA1,blank,\nA2,blank,\nB1,sample,10\n";
-        let data = import_cells(
-            &read_text_cells(data.as_bytes(), "d.csv").unwrap(),
-            &ImportOptions::default(),
-        )
-        .unwrap();
-        let layout = parse_layout(&read_text_cells(layout.as_bytes(), "l.csv").unwrap(), data.plate).unwrap();
+        let (data, layout) = plate_of(data, layout);
         let signal = PlateSignal::new(&data, &layout, &AnalysisSettings::default());
         assert_eq!(signal.n_blank_wells, 1);
         assert!(signal

@@ -206,7 +206,7 @@ pub fn screen_plate(
 /// fragments against the invented hydrolase "quaylase"), a 384-well plate read every 20 s for
 /// 10 min. One sample well carries extra noise (a bubble the screener saw and excluded), another
 /// a smaller noise burst left to platekin's flags.
-pub fn heron_quay_demo_files() -> Vec<(&'static str, String)> {
+pub fn heron_quay_demo_files() -> Result<Vec<(&'static str, String)>, super::SimulationError> {
     let mut screen = screen_plate(PlateFormat::Wells384, 40, 8, 31, 20_261_203);
     let rename = |text: &str| text.replace("CPD-", "HQF-");
     screen.layout_csv = format!(
@@ -244,10 +244,9 @@ pub fn heron_quay_demo_files() -> Vec<(&'static str, String)> {
             super::PlantedDefect::ExtraNoise { factor: 3.0 },
         ),
     ];
-    let plate =
-        super::simulate(&screen.spec).unwrap_or_else(|error| panic!("the demo screen simulates: {error}"));
+    let plate = super::simulate(&screen.spec)?;
     let data = super::wide_csv(&plate, &super::WideCsvOptions::default());
-    vec![
+    Ok(vec![
         ("heron-quay-screen-wide.csv", data),
         ("heron-quay-screen-layout.csv", screen.layout_csv),
         (
@@ -258,5 +257,5 @@ pub fn heron_quay_demo_files() -> Vec<(&'static str, String)> {
             "heron-quay-screen-assay.toml",
             "# Heron Quay quaylase fragment screen (invented): run with\n# platekin run heron-quay-screen-wide.csv --assay heron-quay-screen-assay.toml --out heron-quay-results\nlayout = \"heron-quay-screen-layout.csv\"\nexclude = \"heron-quay-screen-exclude.csv\"\n# Km of quaylase for its substrate under the screen's conditions (uM, the layout's substrate unit):\n# gives the Cheng-Prusoff Ki, an assumption that each fragment competes with the substrate\ncheng-prusoff-km = 40\n".to_string(),
         ),
-    ]
+    ])
 }

@@ -7,8 +7,7 @@ use plotters::coord::Shift;
 use plotters::prelude::*;
 
 use super::palette::{BLACK, BLUE, FRAME_GREY, VERMILLION};
-use super::{drawn, padded_range, text_style, titled_chart, Drawing};
-use crate::core::format::significant;
+use super::{drawn, padded_range, titled_chart, Drawing};
 use crate::signal::calibration::StandardCurve;
 
 /// Which of the two plots.
@@ -71,20 +70,18 @@ impl Drawing for CalibrationPlot<'_> {
                 padded_range([-largest, largest], true)
             }
         };
-        let mut chart = titled_chart(root, self.title(), text_style(17.0, BLACK), x_range, y_range)?;
-        drawn(
-            chart
-                .configure_mesh()
-                .x_desc(format!("concentration [{}]", self.unit))
-                .y_desc(match self.kind {
+        let mut chart = titled_chart(
+            root,
+            self.title(),
+            BLACK,
+            (x_range, y_range),
+            (
+                format!("concentration [{}]", self.unit),
+                match self.kind {
                     CalibrationPlotKind::Curve => format!("blank-corrected signal [{}]", self.signal_unit),
                     CalibrationPlotKind::Residuals => format!("signal - line [{}]", self.signal_unit),
-                })
-                .label_style(text_style(14.0, BLACK))
-                .axis_desc_style(text_style(15.0, BLACK))
-                .y_label_formatter(&|v| significant(*v))
-                .max_light_lines(0)
-                .draw(),
+                },
+            ),
         )?;
         match self.kind {
             CalibrationPlotKind::Curve => {

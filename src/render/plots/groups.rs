@@ -259,21 +259,9 @@ impl GroupPlot<'_> {
         let mut chart = titled_chart(
             root,
             self.title(),
-            text_style(super::text_px::TITLE, BLACK),
-            x_range,
-            y_range,
-        )?;
-        drawn(
-            chart
-                .configure_mesh()
-                .x_desc(self.substrate_axis())
-                .y_desc(format!("rate [{}]", view.rate_unit))
-                .label_style(text_style(super::text_px::TICK, BLACK))
-                .axis_desc_style(text_style(super::text_px::AXIS, BLACK))
-                .x_label_formatter(&super::tick_label)
-                .y_label_formatter(&super::tick_label)
-                .max_light_lines(0)
-                .draw(),
+            BLACK,
+            (x_range, y_range),
+            (self.substrate_axis(), format!("rate [{}]", view.rate_unit)),
         )?;
         let has_band = curve.iter().any(|p| p.3 > p.2);
         if has_band {
@@ -336,21 +324,12 @@ impl GroupPlot<'_> {
         let mut chart = titled_chart(
             root,
             self.title(),
-            text_style(super::text_px::TITLE, BLACK),
-            x_range,
-            y_range,
-        )?;
-        drawn(
-            chart
-                .configure_mesh()
-                .x_desc(self.substrate_axis())
-                .y_desc(format!("observed - fitted [{}]", view.rate_unit))
-                .label_style(text_style(super::text_px::TICK, BLACK))
-                .axis_desc_style(text_style(super::text_px::AXIS, BLACK))
-                .x_label_formatter(&super::tick_label)
-                .y_label_formatter(&super::tick_label)
-                .max_light_lines(0)
-                .draw(),
+            BLACK,
+            (x_range, y_range),
+            (
+                self.substrate_axis(),
+                format!("observed - fitted [{}]", view.rate_unit),
+            ),
         )?;
         drawn(chart.draw_series(LineSeries::new([(x_range.0, 0.0), (x_range.1, 0.0)], FRAME_GREY)))?;
         drawn(chart.draw_series(residuals.iter().map(|p| Circle::new(*p, 4, BLUE.filled()))))?;
@@ -386,21 +365,12 @@ impl GroupPlot<'_> {
         let mut chart = titled_chart(
             root,
             self.title(),
-            text_style(super::text_px::TITLE, VERMILLION),
-            x_range,
-            y_range,
-        )?;
-        drawn(
-            chart
-                .configure_mesh()
-                .x_desc(format!("1/[S] [1/{}]", view.substrate_unit))
-                .y_desc(format!("1/rate [1/({})]", view.rate_unit))
-                .label_style(text_style(super::text_px::TICK, BLACK))
-                .axis_desc_style(text_style(super::text_px::AXIS, BLACK))
-                .x_label_formatter(&super::tick_label)
-                .y_label_formatter(&super::tick_label)
-                .max_light_lines(0)
-                .draw(),
+            VERMILLION,
+            (x_range, y_range),
+            (
+                format!("1/[S] [1/{}]", view.substrate_unit),
+                format!("1/rate [1/({})]", view.rate_unit),
+            ),
         )?;
         if let Some(line) = nonlinear_line {
             drawn(chart.draw_series(LineSeries::new(line, BLACK.stroke_width(2))))?

@@ -199,23 +199,38 @@ pub(crate) fn drawn<T, E: std::fmt::Display>(result: Result<T, E>) -> Result<T, 
     result.map_err(|error| error.to_string())
 }
 
-/// A chart over plain f64 axes with the caption, margin and label areas every group-level plot
-/// uses (one place, so the plots keep one look).
+/// A chart over plain f64 axes with the caption, margin, label areas and axes every group-level
+/// plot uses (one place, so the plots keep one look): the title in `title_colour`, the axes
+/// described by `(x_desc, y_desc)`, tick labels in [`text_px`] sizes without trailing zeros, no
+/// light grid lines.
 pub(crate) fn titled_chart<'a, DB: DrawingBackend>(
     root: &'a DrawingArea<DB, Shift>,
     title: String,
-    title_style: TextStyle<'static>,
-    x_range: (f64, f64),
-    y_range: (f64, f64),
+    title_colour: RGBColor,
+    (x_range, y_range): ((f64, f64), (f64, f64)),
+    (x_desc, y_desc): (String, String),
 ) -> Result<ChartContext<'a, DB, Cartesian2d<RangedCoordf64, RangedCoordf64>>, String> {
-    drawn(
+    let mut chart = drawn(
         ChartBuilder::on(root)
-            .caption(title, title_style)
+            .caption(title, text_style(text_px::TITLE, title_colour))
             .margin(10)
             .x_label_area_size(48)
             .y_label_area_size(80)
             .build_cartesian_2d(x_range.0..x_range.1, y_range.0..y_range.1),
-    )
+    )?;
+    drawn(
+        chart
+            .configure_mesh()
+            .x_desc(x_desc)
+            .y_desc(y_desc)
+            .label_style(text_style(text_px::TICK, palette::BLACK))
+            .axis_desc_style(text_style(text_px::AXIS, palette::BLACK))
+            .x_label_formatter(&tick_label)
+            .y_label_formatter(&tick_label)
+            .max_light_lines(0)
+            .draw(),
+    )?;
+    Ok(chart)
 }
 
 /// plotters' SVG backend writes a font size of the size asked divided by 1.24 (its bitmap backend

@@ -169,21 +169,9 @@ impl Drawing for ProgressPlot<'_> {
         let mut chart = titled_chart(
             root,
             self.title(),
-            text_style(super::text_px::TITLE, BLACK),
-            x_range,
-            y_range,
-        )?;
-        drawn(
-            chart
-                .configure_mesh()
-                .x_desc("time [s]")
-                .y_desc(y_desc)
-                .label_style(text_style(super::text_px::TICK, BLACK))
-                .axis_desc_style(text_style(super::text_px::AXIS, BLACK))
-                .x_label_formatter(&super::tick_label)
-                .y_label_formatter(&super::tick_label)
-                .max_light_lines(0)
-                .draw(),
+            BLACK,
+            (x_range, y_range),
+            ("time [s]".to_string(), y_desc),
         )?;
         if self.kind == ProgressPlotKind::Residuals {
             drawn(chart.draw_series(LineSeries::new([(x_range.0, 0.0), (x_range.1, 0.0)], FRAME_GREY)))?;
