@@ -50,6 +50,7 @@ use super::least_squares::{
     asymptotic_covariance, fit_least_squares, FitError, LeastSquaresFit, LeastSquaresOptions, ResidualModel,
     StopReason,
 };
+use crate::core::format::significant;
 use crate::core::stats::{median, straight_line, t_quantile_975, Line};
 
 /// `Vmax S / (Km + S)`.
@@ -568,8 +569,10 @@ pub fn describe_michaelis_menten(
     }
     if km_value <= 0.0 || vmax_value <= 0.0 {
         warnings.push(format!(
-            "The fit gave Vmax = {vmax_value:.4e} and Km = {km_value:.4e}; a value that is not \
-             positive has no physical meaning."
+            "The fit gave Vmax = {} and Km = {}; a value that is not positive has no physical \
+             meaning.",
+            significant(vmax_value),
+            significant(km_value)
         ));
         vmax_determined = false;
         km_determined = false;
@@ -580,29 +583,31 @@ pub fn describe_michaelis_menten(
                 value,
                 standard_error: Some(se),
                 ..
-            }) => format!("{value:.4e} (SE {se:.2e})"),
-            Some(estimate) => format!("{:.4e}", estimate.value),
+            }) => format!("{} (SE {})", significant(*value), significant(*se)),
+            Some(estimate) => significant(estimate.value),
             None => "not available".to_string(),
         };
         if data.highest_substrate < SUBSTRATE_BELOW_KM_FACTOR * km_value {
             warnings.push(format!(
-                "Every substrate concentration is below half of Km (highest [S] = {:.4e}, fitted Km \
-                 about {km_value:.3e}). Such rates mainly show the initial slope Vmax/Km = \
+                "Every substrate concentration is below half of Km (highest [S] = {}, fitted Km \
+                 about {}). Such rates mainly show the initial slope Vmax/Km = \
                  {slope_text}; Km and Vmax are not determined by this design, and their standard \
                  errors hold only if the Michaelis-Menten form is exact beyond the measured range. \
                  Measure up to several times Km (a range of about 0.2 to 5 Km is common practice).",
-                data.highest_substrate
+                significant(data.highest_substrate),
+                significant(km_value)
             ));
             vmax_determined = false;
             km_determined = false;
         }
         if data.lowest_positive_substrate > SUBSTRATE_ABOVE_KM_FACTOR * km_value {
             warnings.push(format!(
-                "Every substrate concentration is above twice Km (lowest [S] = {:.4e}, fitted Km \
-                 about {km_value:.3e}): the rates are near saturation, so Vmax is determined but Km is \
+                "Every substrate concentration is above twice Km (lowest [S] = {}, fitted Km \
+                 about {}): the rates are near saturation, so Vmax is determined but Km is \
                  not; add concentrations at and below Km (a range of about 0.2 to 5 Km is common \
                  practice).",
-                data.lowest_positive_substrate
+                significant(data.lowest_positive_substrate),
+                significant(km_value)
             ));
             km_determined = false;
         }

@@ -51,7 +51,7 @@ use std::fmt;
 
 use super::window_fit::{LineFit, WindowSums};
 pub use crate::config::RateSettings;
-use crate::core::format::format_seconds;
+use crate::core::format::{format_seconds, significant};
 use crate::core::stats::{median, t_critical, third_difference_noise};
 
 /// A reason not to trust a well's rate.
@@ -486,10 +486,10 @@ pub fn apply_noise_flag(rate: &mut WellRate, noise: &PlateNoise) {
             if own.sd > NOISY_FACTOR * expected {
                 rate.flag(Flag::Noisy);
                 rate.notes.push(format!(
-                    "read noise {:.3e} is {:.0}x the plate's {:.3e} at {:.2} AU",
-                    own.sd,
+                    "read noise {} is {:.0}x the plate's {} at {:.2} AU",
+                    significant(own.sd),
                     own.sd / expected,
-                    expected,
+                    significant(expected),
                     own.absorbance
                 ));
             }

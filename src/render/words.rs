@@ -27,8 +27,9 @@ pub fn group_json(key: &GroupKey) -> serde_json::Map<String, serde_json::Value> 
         .collect()
 }
 
-/// A short label for a group: `variant=FenA-wt, enzyme [nM]=4.0`.
-pub fn group_label(key: &GroupKey) -> String {
+/// A group key as `name=value` pairs in the layout's order, for the campaign tables whose
+/// `group` column scripts match on: `enzyme [nM]=4.0, variant=FenA-wt`.
+pub fn group_key_text(key: &GroupKey) -> String {
     if key.values.is_empty() {
         return "all samples".to_string();
     }
@@ -40,6 +41,29 @@ pub fn group_label(key: &GroupKey) -> String {
         })
         .collect::<Vec<_>>()
         .join(", ")
+}
+
+/// A group's label as a reader scans it: the named factors first (`variant FenA-wt`), then the
+/// numeric ones with their unit after the number (`enzyme 4 nM`), so that what tells the groups
+/// apart comes first.
+pub fn group_label(key: &GroupKey) -> String {
+    if key.values.is_empty() {
+        return "all samples".to_string();
+    }
+    let named = key.values.iter().filter_map(|(name, value)| match value {
+        GroupValue::Text(text) => Some(format!("{name} {text}")),
+        GroupValue::Number(_) => None,
+    });
+    let numeric = key.values.iter().filter_map(|(name, value)| match value {
+        GroupValue::Number(number) => Some(match name.split_once(" [") {
+            Some((bare, unit)) if unit.ends_with(']') => {
+                format!("{bare} {} {}", number, &unit[..unit.len() - 1])
+            }
+            _ => format!("{name} {number}"),
+        }),
+        GroupValue::Text(_) => None,
+    });
+    named.chain(numeric).collect::<Vec<_>>().join(", ")
 }
 
 /// Why a point was left out of a group fit, in words.
@@ -300,7 +324,8 @@ pub fn correction_words(correction: &Correction, signal: &PlateSignal, rate_unit
     match &correction.background {
         None => {}
         Some(Background::Matched { rate, controls, .. }) => text.push_str(&format!(
-            "; background {rate:.4e} {rate_unit} from {controls} no-enzyme well{}",
+            "; background {} {rate_unit} from {controls} no-enzyme well{}",
+            significant(*rate),
             if *controls == 1 { "" } else { "s" }
         )),
         Some(Background::Modelled {
@@ -310,7 +335,8 @@ pub fn correction_words(correction: &Correction, signal: &PlateSignal, rate_unit
             with_intercept,
             ..
         }) => text.push_str(&format!(
-            "; background {rate:.4e} {rate_unit} from a first-order fit in [S]{} to {controls} no-enzyme wells at {levels} [S] levels",
+            "; background {} {rate_unit} from a first-order fit in [S]{} to {controls} no-enzyme wells at {levels} [S] levels",
+            significant(*rate),
             if *with_intercept { " with an intercept" } else { "" }
         )),
         Some(Background::None(NoBackground::NoControls)) => {
@@ -339,13 +365,23 @@ mod tests {
     use std::collections::BTreeMap;
 
     #[test]
-    fn group_labels_print_numbers_as_json_does() {
+    fn group_key_text_prints_numbers_as_json_does_and_labels_put_named_factors_first() {
         let mut values = BTreeMap::new();
         values.insert("variant".to_string(), GroupValue::Text("wt".into()));
         values.insert("enzyme [nM]".to_string(), GroupValue::Number(4.0));
+        values.insert("inhibitor [uM]".to_string(), GroupValue::Number(2.5));
+        values.insert("batch".to_string(), GroupValue::Number(3.0));
         let key = GroupKey { values };
-        assert_eq!(group_label(&key), "enzyme [nM]=4.0, variant=wt");
+        assert_eq!(
+            group_key_text(&key),
+            "batch=3.0, enzyme [nM]=4.0, inhibitor [uM]=2.5, variant=wt"
+        );
+        assert_eq!(
+            group_label(&key),
+            "variant wt, batch 3, enzyme 4 nM, inhibitor 2.5 uM"
+        );
         assert_eq!(group_label(&GroupKey::default()), "all samples");
+        assert_eq!(group_key_text(&GroupKey::default()), "all samples");
     }
 
     #[test]

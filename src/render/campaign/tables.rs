@@ -6,7 +6,7 @@
 use polars::prelude::*;
 
 use super::super::tables::{conditions_table, wells_table, TableError};
-use super::super::words::group_label;
+use super::super::words::group_key_text;
 use crate::campaign::{PlateOutcome, PlateStatus};
 use crate::files::output::OutputFile;
 use crate::groups::ParameterReport;
@@ -67,7 +67,7 @@ pub fn fits_table(results: &RunResults) -> Result<DataFrame, TableError> {
     for fit in &results.fits {
         for (name, report) in &fit.parameters {
             rows.push(FitRow {
-                group: group_label(&fit.group),
+                group: group_key_text(&fit.group),
                 analysis: "initial-rate",
                 model: fit.model.name(),
                 parameter: name,
@@ -79,7 +79,7 @@ pub fn fits_table(results: &RunResults) -> Result<DataFrame, TableError> {
         let Some(model) = group.model else { continue };
         for (name, report) in &group.parameters {
             rows.push(FitRow {
-                group: group_label(&group.group),
+                group: group_key_text(&group.group),
                 analysis: "progress-curve",
                 model: model.name(),
                 parameter: name,

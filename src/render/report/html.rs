@@ -216,7 +216,7 @@ figure{display:inline-block;margin:.5em 1em .5em 0;vertical-align:top}figcaption
 .thumbs svg{margin:2px;border:1px solid #eee}
 .details figure{margin:.3em}.details figure:target{outline:3px solid #0072B2}
 code{background:#f3f3f3;padding:0 .2em}
-@media print{nav{display:none}body{max-width:none;margin:0}.scroll{overflow:visible;border:0}figure,table,tr,.caution{break-inside:avoid}article.group{break-before:page}h2,h3{break-after:avoid}a{color:inherit;text-decoration:none}}
+@media print{nav{display:none}details::details-content{content-visibility:visible;display:block}body{max-width:none;margin:0}.scroll{overflow:visible;border:0}figure,table,tr,.caution{break-inside:avoid}article.group{break-before:page}h2,h3{break-after:avoid}a{color:inherit;text-decoration:none}}
 ";
 
 /// The page.
