@@ -498,10 +498,18 @@ fn overview_with_links(parts: &ReportParts) -> String {
         }
     }
     overlay.push_str("</g>\n");
-    let svg = &parts.overview.svg;
+    // A group, not an image: the wells inside are links a keyboard or screen reader reaches.
+    let svg = with_text_alternative(
+        &parts.overview.svg,
+        "group",
+        &format!(
+            "{}: one cell per well; each well's title gives its rate and flags, and links to its detail",
+            parts.overview.title
+        ),
+    );
     match svg.rfind("</svg>") {
         Some(end) => format!("{}{overlay}{}", &svg[..end], &svg[end..]),
-        None => svg.clone(),
+        None => svg,
     }
 }
 
@@ -641,11 +649,24 @@ fn figure(plot: &Plot, class: &str) -> String {
 
 /// The plot's SVG with `role="img"` and an `aria-label` naming what it shows.
 fn labelled_svg(plot: &Plot) -> String {
-    let label = format!(
-        "role=\"img\" aria-label=\"Plot: {} (the values drawn are in the tables of this section)\" ",
-        escape(&plot.title)
-    );
-    plot.svg.replacen("<svg ", &format!("<svg {label}"), 1)
+    with_text_alternative(
+        &plot.svg,
+        "img",
+        &format!(
+            "Plot: {} (the values drawn are in the tables of this section)",
+            plot.title
+        ),
+    )
+}
+
+/// An SVG marked with a role and its text alternative (`img` for a picture, `group` for one
+/// whose parts are links a reader can reach).
+fn with_text_alternative(svg: &str, role: &str, text: &str) -> String {
+    svg.replacen(
+        "<svg ",
+        &format!("<svg role=\"{role}\" aria-label=\"{}\" ", escape(text)),
+        1,
+    )
 }
 
 fn groups_section(parts: &ReportParts) -> String {
@@ -1110,7 +1131,14 @@ fn details_section(parts: &ReportParts) -> String {
             html,
             "<figure id=\"{}\" class=\"well\">\n{}\n<figcaption>{}</figcaption>\n</figure>",
             well.anchor(),
-            plot.svg,
+            with_text_alternative(
+                &plot.svg,
+                "img",
+                &format!(
+                    "Plot: well {} reads against time with its initial-rate window and line; {}",
+                    well.well, well.hover
+                )
+            ),
             escape(&well.hover)
         );
     }

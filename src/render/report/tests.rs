@@ -127,6 +127,20 @@ fn no_plot_text_is_smaller_than_eleven_pixels_and_plots_have_text_alternatives()
             &figure[..80.min(figure.len())]
         );
     }
+    // Every drawing on the page (the plate overview and every well's miniature too) has a role
+    // and a text alternative that says what it shows.
+    let openings: Vec<&str> = page.split("<svg").skip(1).collect();
+    assert!(openings.len() > 60, "{} drawings", openings.len());
+    for opening in openings {
+        let tag = &opening[..opening.find('>').unwrap_or(opening.len())];
+        assert!(
+            (tag.contains(" role=\"img\"") || tag.contains(" role=\"group\""))
+                && tag.contains(" aria-label=\""),
+            "a drawing without a text alternative: <svg{}",
+            &tag[..120.min(tag.len())]
+        );
+    }
+    assert!(page.contains("aria-label=\"Plot: well A1 reads against time"));
     let smallest = smallest_font_px(&page).unwrap();
     assert!(smallest >= 11.0, "smallest plot text {smallest} px");
     let (results, layer) = inhibition_results();
