@@ -298,9 +298,46 @@ pub(crate) fn padded_range(values: impl IntoIterator<Item = f64>, include_zero: 
     (low - 0.05 * span, high + 0.05 * span)
 }
 
+/// At most `max` of `points`, evenly spaced by index and always keeping the first and the last:
+/// what a plot draws of a long trace. A figure a few hundred pixels wide cannot show more points
+/// than it has pixels, and drawing every read of a 2000-read export made a 1536-well report
+/// 425 MB; the numbers themselves stay in the CSV and JSON tables.
+pub(crate) fn thinned<T: Copy>(points: &[T], max: usize) -> Vec<T> {
+    let n = points.len();
+    if n <= max {
+        return points.to_vec();
+    }
+    if max < 2 {
+        return points.iter().take(max).copied().collect();
+    }
+    (0..max)
+        .map(|i| points[(i * (n - 1) + (max - 1) / 2) / (max - 1)])
+        .collect()
+}
+
+/// Of a plot's `total` budget of points shared by `series` series, each series' share (never
+/// below `floor`).
+pub(crate) fn share_of(total: usize, series: usize, floor: usize) -> usize {
+    (total / series.max(1)).max(floor)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn thinned_keeps_short_traces_whole_and_long_ones_evenly_with_both_ends() {
+        let short: Vec<usize> = (0..49).collect();
+        assert_eq!(thinned(&short, 120), short);
+        let long: Vec<usize> = (0..2000).collect();
+        let kept = thinned(&long, 100);
+        assert_eq!(kept.len(), 100);
+        assert_eq!((kept[0], kept[99]), (0, 1999));
+        let gaps: Vec<usize> = kept.windows(2).map(|w| w[1] - w[0]).collect();
+        assert!(gaps.iter().all(|g| (20..=21).contains(g)), "{gaps:?}");
+        assert_eq!(share_of(6000, 736, 8), 8);
+        assert_eq!(share_of(6000, 24, 8), 250);
+    }
 
     #[test]
     fn padded_range_widens_flat_and_empty_sets() {

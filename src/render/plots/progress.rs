@@ -102,6 +102,15 @@ impl ProgressPlotKind {
     pub const ALL: [ProgressPlotKind; 2] = [Self::Curves, Self::Residuals];
 }
 
+/// Markers one progress plot draws at most, shared among its curves.
+const MARKERS_PER_PLOT: usize = 6000;
+/// Fewest markers a curve keeps however many curves share the plot.
+const MARKER_FLOOR: usize = 8;
+/// Points of the fitted lines one progress plot draws at most, shared among its curves.
+const LINE_POINTS_PER_PLOT: usize = 30_000;
+/// Fewest points a fitted line keeps (enough for a smooth curve at this size).
+const LINE_POINT_FLOOR: usize = 40;
+
 /// One plot of a progress-curve fit.
 pub struct ProgressPlot<'a> {
     /// The group.
@@ -176,6 +185,12 @@ impl Drawing for ProgressPlot<'_> {
         if self.kind == ProgressPlotKind::Residuals {
             drawn(chart.draw_series(LineSeries::new([(x_range.0, 0.0), (x_range.1, 0.0)], FRAME_GREY)))?;
         }
+        // A plate of 700 wells x 2000 reads per group would draw 1.4 million markers: each plot
+        // shares a budget of markers and line points among its curves (every read stays in
+        // progress.json).
+        let markers_per_curve = super::share_of(MARKERS_PER_PLOT, view.curves.len(), MARKER_FLOOR);
+        let line_points_per_curve =
+            super::share_of(LINE_POINTS_PER_PLOT, view.curves.len(), LINE_POINT_FLOOR);
         for curve in &view.curves {
             let (colour, shape) = level_style(view.level_of(curve));
             match self.kind {
@@ -188,21 +203,27 @@ impl Drawing for ProgressPlot<'_> {
                         .collect();
                     draw_markers(
                         &mut chart,
-                        &observed,
+                        &super::thinned(&observed, markers_per_curve),
                         shape,
                         colour.mix(0.55).rgb_colour(),
                         false,
                         3,
                     )?;
+                    let fitted: Vec<(f64, f64)> = curve
+                        .times_s
+                        .iter()
+                        .copied()
+                        .zip(curve.fitted.iter().copied())
+                        .collect();
                     drawn(chart.draw_series(LineSeries::new(
-                        curve.times_s.iter().copied().zip(curve.fitted.iter().copied()),
+                        super::thinned(&fitted, line_points_per_curve),
                         colour.stroke_width(2),
                     )))?;
                 }
                 ProgressPlotKind::Residuals => {
                     draw_markers(
                         &mut chart,
-                        &ProgressView::residuals(curve),
+                        &super::thinned(&ProgressView::residuals(curve), markers_per_curve),
                         shape,
                         colour,
                         false,

@@ -19,6 +19,9 @@ use crate::layout::Role;
 use crate::pipeline::RunResults;
 use crate::rates::Flag;
 
+/// Points of a well's curve one overview miniature (at most about 90 px wide) draws.
+const MINIATURE_LINE_POINTS: usize = 150;
+
 /// Every flag, for legends.
 pub const ALL_FLAGS: [Flag; 7] = [
     Flag::Nonlinear,
@@ -461,7 +464,10 @@ impl Overview<'_> {
                     BLACK.stroke_width(3),
                 )))?;
             }
-            drawn(chart.draw_series(LineSeries::new(points, BLUE.stroke_width(1))))?;
+            drawn(chart.draw_series(LineSeries::new(
+                super::thinned(&points, MINIATURE_LINE_POINTS),
+                BLUE.stroke_width(1),
+            )))?;
         } else if well.state == WellState::NoData {
             drawn(cell.draw_text("no data", &text_style(font, BLACK), (3, hi / 2)))?;
         }
@@ -673,17 +679,23 @@ impl Drawing for WellDetail<'_> {
             .collect();
         // Up to MARKED_READS reads each get a marker; longer traces are a line with markers only
         // inside the window, which keeps a 384-well page's 384 detail plots to a few MB.
+        // A plot 420 px wide shows no more than DETAIL_LINE_POINTS of a long trace.
         const MARKED_READS: usize = 120;
+        const DETAIL_LINE_POINTS: usize = 600;
         let marked: Vec<(f64, f64)> = if points.len() <= MARKED_READS {
             points.clone()
         } else {
-            drawn(chart.draw_series(LineSeries::new(points.iter().copied(), BLUE.stroke_width(1))))?;
+            drawn(chart.draw_series(LineSeries::new(
+                super::thinned(&points, DETAIL_LINE_POINTS),
+                BLUE.stroke_width(1),
+            )))?;
             let (start, end) = well.window.unwrap_or((f64::NAN, f64::NAN));
-            points
+            let in_window: Vec<(f64, f64)> = points
                 .iter()
                 .copied()
                 .filter(|p| p.0 >= start && p.0 <= end)
-                .collect()
+                .collect();
+            super::thinned(&in_window, MARKED_READS)
         };
         drawn(chart.draw_series(marked.iter().map(|p| Circle::new(*p, 2, BLUE.filled()))))?
             .label("reads")
