@@ -21,7 +21,7 @@ pub const ACTIVITY_HEADER: &str = "activity [%]";
 /// The rule for fixed plateaus, as the report and summary state it.
 pub fn plateau_rule_words() -> String {
     format!(
-        "Top and bottom are fitted free when a tested dose lies on each plateau (the fitted curve within {:.0}% of the span of it at the lowest, resp. highest dose); a plateau no dose reaches is fixed at 100% (top) or 0% (bottom) and flagged no-plateau. An IC50 outside the tested doses is reported as a bound (> the highest dose, < the lowest), never extrapolated. Flags: shallow (Hill below {SHALLOW_HILL}), steep (above {STEEP_HILL}), single-dose (leaving out one dose moves the IC50 more than two-fold).",
+        "Top and bottom are fitted free when a tested dose lies on each plateau (the fitted curve within {:.0}% of the span of it at the lowest, resp. highest dose); a plateau no dose reaches is fixed at 100% (top) or 0% (bottom) and flagged no-plateau. An IC50 outside the tested doses is reported as a bound (> the highest dose, < the lowest), never extrapolated; when the mean activity at every dose stays above 50% (or below it) the bound stands on the data alone, with or without a converged curve. Flags: shallow (Hill below {SHALLOW_HILL}), steep (above {STEEP_HILL}), single-dose (leaving out one dose moves the IC50 more than two-fold), no-fit (no curve converged while the doses' means lie on both sides of 50%).",
         100.0 * PLATEAU_FRACTION
     )
 }
