@@ -435,9 +435,35 @@ fn the_screening_demo_runs_from_its_files_and_reports_for_a_screener() {
     assert!(output.status.success(), "{}", text(&output.stderr));
     let summary = text(&output.stdout);
     assert!(
-        summary.contains("Screen: Z'") && summary.contains("G9 (bubble"),
+        summary.contains("Plate quality: Z'") && summary.contains("G9 (bubble"),
         "{summary}"
     );
+    // The answer first: the screen's results block (compounds, actives with IC50 [interval], Z')
+    // before the plate's quality details; no empty rate-law or progress-curve blocks.
+    let answer = summary
+        .find("Results (screen; IC50 [95% interval]): 40 compounds: ")
+        .unwrap_or_else(|| panic!("{summary}"));
+    assert!(answer < summary.find("Plate quality: Z'").unwrap(), "{summary}");
+    assert!(summary[answer..].contains("Z' 0.9"), "{summary}");
+    let first_active = summary[answer..].lines().nth(1).unwrap();
+    assert!(
+        first_active.starts_with("  HQF-")
+            && first_active.contains(" IC50 = ")
+            && first_active.contains(" uM"),
+        "{first_active}"
+    );
+    assert!(
+        summary.contains("inactive (IC50 > the highest dose): "),
+        "{summary}"
+    );
+    for empty in [
+        "Initial-rate fits",
+        "Progress-curve analysis",
+        "no group was fitted",
+    ] {
+        assert!(!summary.contains(empty), "{empty} in {summary}");
+    }
+    assert!(summary.contains("compounds.csv, plate_qc.json"), "{summary}");
     assert!(summary.contains("assumes a competitive inhibitor"), "{summary}");
     let out = folder.path().join("heron-quay-results");
     let compounds = csv_rows(&out.join("compounds.csv"));
@@ -454,6 +480,17 @@ fn the_screening_demo_runs_from_its_files_and_reports_for_a_screener() {
         assert!(report.contains(heading), "{heading} missing");
     }
     assert_eq!(report.matches("<svg id=\"cpd-").count(), 40);
+    // The report's results block leads with the same answer; the sections a screen has nothing for
+    // are left out, and so are their links.
+    let results_part = &report
+        [report.find("<section id=\"results\">").unwrap()..report.find("<section id=\"overview\">").unwrap()];
+    assert!(results_part.contains("40 compounds: "), "{results_part}");
+    assert!(results_part.contains("<a href=\"#cpd-1\">"), "{results_part}");
+    for id in ["fits", "progress", "trust"] {
+        assert!(!report.contains(&format!("<section id=\"{id}\">")), "{id}");
+        assert!(!report.contains(&format!("href=\"#{id}\"")), "{id}");
+    }
+    assert!(report.contains("<a href=\"#screen\">Screen</a>"));
     let screen_part = &report
         [report.find("<section id=\"screen\">").unwrap()..report.find("<section id=\"flagged\">").unwrap()];
     for size in screen_part.split("font-size=\"").skip(1) {
