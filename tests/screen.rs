@@ -491,6 +491,7 @@ fn the_screening_demo_runs_from_its_files_and_reports_for_a_screener() {
         assert!(!report.contains(&format!("href=\"#{id}\"")), "{id}");
     }
     assert!(report.contains("<a href=\"#screen\">Screen</a>"));
+    assert!(report.contains("<a href=\"#excluded\">Wells excluded by hand</a>"));
     let screen_part = &report
         [report.find("<section id=\"screen\">").unwrap()..report.find("<section id=\"flagged\">").unwrap()];
     for size in screen_part.split("font-size=\"").skip(1) {

@@ -248,9 +248,29 @@ pub fn report_html(parts: &ReportParts) -> String {
         .copied()
         .filter(|(id, _)| !(screen_only && ["fits", "progress", "trust"].contains(id)))
         .flat_map(|section| {
-            let screen =
-                (section.0 == "overview" && results.screen.is_some()).then_some(("screen", "Screen"));
-            std::iter::once(section).chain(screen)
+            // The sections only some plates have, in page order after the one they follow.
+            let optional: &[(&str, &str, bool)] = match section.0 {
+                "overview" => &[
+                    ("screen", "Screen", results.screen.is_some()),
+                    (
+                        "excluded",
+                        "Wells excluded by hand",
+                        !results.exclusions.is_empty(),
+                    ),
+                ],
+                "flagged" => &[(
+                    "calibration",
+                    "Standard curves",
+                    results.analysis.signal.calibration.is_some(),
+                )],
+                _ => &[],
+            };
+            let shown_after: Vec<(&str, &str)> = optional
+                .iter()
+                .filter(|(_, _, present)| *present)
+                .map(|(id, title, _)| (*id, *title))
+                .collect();
+            std::iter::once(section).chain(shown_after)
         })
         .collect();
     page.push_str(&contents(&shown));

@@ -326,6 +326,11 @@ fn screen_report_structure_matches_the_golden_file() {
     assert!(results_part.contains("8 compounds: "), "{results_part}");
     assert!(results_part.contains("Z&#39; 0."), "{results_part}");
     assert!(!results_part.contains("No group was fitted"));
+    // Every link of the contents leads to a section on the page.
+    let nav = all_between(&page, "<nav>", "</nav>").concat();
+    for id in all_between(&nav, "<a href=\"#", "\"") {
+        assert!(page.contains(&format!("<section id=\"{id}\">")), "{id}");
+    }
     assert_matches_golden("screen-report-structure.txt", &structure(&page));
 }
 
