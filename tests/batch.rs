@@ -100,6 +100,8 @@ fn thirty_plates_with_one_cut_short_give_29_ok_1_failed_and_exit_3() {
     assert_eq!(wells.height(), 29 * 76);
     assert_eq!(strings(&wells, "lot")[29 * 76 - 1], "L-0402");
     assert!(!strings(&wells, "plate").contains(&"d2-p04".to_string()));
+    // No plate is a screen: no campaign compounds table.
+    assert!(!out.join("compounds.csv").exists() && !out.join("compounds.parquet").exists());
     assert!(out.join("plates/d1-p01/wells.csv").exists());
     assert!(
         !out.join("plates/d2-p04").exists(),

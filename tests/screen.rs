@@ -97,10 +97,17 @@ fn a_simulated_384_well_screen_recovers_ic50s_bounds_and_z_prime() {
     let mut worst: f64 = 0.0;
     let mut inside = 0;
     let mut active = 0;
+    let mut flat_without_curve = 0;
     for truth in &screen.compounds {
         let row = by_name[truth.name.as_str()];
         if truth.inactive {
+            // Flat compounds (activity near 100% at every dose): the `>` bound stands without a
+            // `no-fit` flag, whether or not the curve converged (fit::dose_response, "Bounds
+            // without a curve").
             assert_eq!(row["IC50_qualifier"], ">", "{}: {row:?}", truth.name);
+            assert!(!row["flags"].contains("no-fit"), "{}: {row:?}", truth.name);
+            assert_eq!(row["IC50 [uM]"], "21.87", "{}: {row:?}", truth.name);
+            flat_without_curve += usize::from(row["hill"].is_empty());
             continue;
         }
         active += 1;
@@ -121,8 +128,15 @@ fn a_simulated_384_well_screen_recovers_ic50s_bounds_and_z_prime() {
             inside += 1;
         }
     }
-    eprintln!("worst |log10 IC50 error| {worst:.3}; {inside} of {active} intervals hold the truth");
+    eprintln!(
+        "worst |log10 IC50 error| {worst:.3}; {inside} of {active} intervals hold the truth; {flat_without_curve} flat compound(s) without a converged curve"
+    );
     assert!(inside * 10 >= active * 8, "{inside} of {active}");
+    // The plate has flat compounds whose curve does not converge, so the rule above is exercised.
+    assert!(
+        flat_without_curve > 0,
+        "every flat compound converged: the no-curve bound is untested"
+    );
 
     // Z' equals the formula applied to the control rates of wells.csv.
     let wells = csv_rows(&out.join("wells.csv"));
@@ -421,9 +435,35 @@ fn the_screening_demo_runs_from_its_files_and_reports_for_a_screener() {
     assert!(output.status.success(), "{}", text(&output.stderr));
     let summary = text(&output.stdout);
     assert!(
-        summary.contains("Screen: Z'") && summary.contains("G9 (bubble"),
+        summary.contains("Plate quality: Z'") && summary.contains("G9 (bubble"),
         "{summary}"
     );
+    // The answer first: the screen's results block (compounds, actives with IC50 [interval], Z')
+    // before the plate's quality details; no empty rate-law or progress-curve blocks.
+    let answer = summary
+        .find("Results (screen; IC50 [95% interval]): 40 compounds: ")
+        .unwrap_or_else(|| panic!("{summary}"));
+    assert!(answer < summary.find("Plate quality: Z'").unwrap(), "{summary}");
+    assert!(summary[answer..].contains("Z' 0.9"), "{summary}");
+    let first_active = summary[answer..].lines().nth(1).unwrap();
+    assert!(
+        first_active.starts_with("  HQF-")
+            && first_active.contains(" IC50 = ")
+            && first_active.contains(" uM"),
+        "{first_active}"
+    );
+    assert!(
+        summary.contains("inactive (IC50 > the highest dose): "),
+        "{summary}"
+    );
+    for empty in [
+        "Initial-rate fits",
+        "Progress-curve analysis",
+        "no group was fitted",
+    ] {
+        assert!(!summary.contains(empty), "{empty} in {summary}");
+    }
+    assert!(summary.contains("compounds.csv, plate_qc.json"), "{summary}");
     assert!(summary.contains("assumes a competitive inhibitor"), "{summary}");
     let out = folder.path().join("heron-quay-results");
     let compounds = csv_rows(&out.join("compounds.csv"));
@@ -440,6 +480,18 @@ fn the_screening_demo_runs_from_its_files_and_reports_for_a_screener() {
         assert!(report.contains(heading), "{heading} missing");
     }
     assert_eq!(report.matches("<svg id=\"cpd-").count(), 40);
+    // The report's results block leads with the same answer; the sections a screen has nothing for
+    // are left out, and so are their links.
+    let results_part = &report
+        [report.find("<section id=\"results\">").unwrap()..report.find("<section id=\"overview\">").unwrap()];
+    assert!(results_part.contains("40 compounds: "), "{results_part}");
+    assert!(results_part.contains("<a href=\"#cpd-1\">"), "{results_part}");
+    for id in ["fits", "progress", "trust"] {
+        assert!(!report.contains(&format!("<section id=\"{id}\">")), "{id}");
+        assert!(!report.contains(&format!("href=\"#{id}\"")), "{id}");
+    }
+    assert!(report.contains("<a href=\"#screen\">Screen</a>"));
+    assert!(report.contains("<a href=\"#excluded\">Wells excluded by hand</a>"));
     let screen_part = &report
         [report.find("<section id=\"screen\">").unwrap()..report.find("<section id=\"flagged\">").unwrap()];
     for size in screen_part.split("font-size=\"").skip(1) {
@@ -450,32 +502,95 @@ fn the_screening_demo_runs_from_its_files_and_reports_for_a_screener() {
     assert!(report.len() < 1_500_000, "report of {} bytes", report.len());
 }
 
-/// A screening plate in a campaign: `platekin batch` writes the plate's screen outputs and carries
-/// its Z' (from the `uninhibited`/`inhibited` controls, computed once) into `plates.csv`.
+/// Screening plates in a campaign: `platekin batch` writes each plate's screen outputs, carries its
+/// Z' (from the `uninhibited`/`inhibited` controls, computed once) into `plates.csv`, and stacks the
+/// plates' `compounds.csv` into the campaign's `compounds.csv` and `compounds.parquet` (each row
+/// with `plate` and the manifest's factors, then the per-plate columns); a second run keeps both
+/// plates and writes the same table.
 #[test]
-fn a_screen_in_a_campaign_keeps_its_outputs_and_z_prime() {
+fn screens_in_a_campaign_keep_their_outputs_z_prime_and_a_combined_compounds_table() {
     let folder = tempfile::tempdir().unwrap();
-    write_screen(folder.path(), &screen_plate(PlateFormat::Wells384, 8, 4, 21, 33));
+    for (name, seed) in [("s1", 33), ("s2", 34)] {
+        let plate_folder = folder.path().join(name);
+        std::fs::create_dir(&plate_folder).unwrap();
+        write_screen(
+            &plate_folder,
+            &screen_plate(PlateFormat::Wells384, 8, 4, 21, seed),
+        );
+    }
     std::fs::write(
         folder.path().join("manifest.csv"),
-        "plate,data,layout\ns1,plate.csv,layout.csv\n",
+        "plate,data,layout,day\ns1,s1/plate.csv,s1/layout.csv,1\ns2,s2/plate.csv,s2/layout.csv,2\n",
     )
     .unwrap();
-    let output = platekin(
-        &["batch", "manifest.csv", "--out", "campaign", "--report", "none"],
-        folder.path(),
-    );
+    let batch = || {
+        platekin(
+            &["batch", "manifest.csv", "--out", "campaign", "--report", "none"],
+            folder.path(),
+        )
+    };
+    let output = batch();
     assert!(output.status.success(), "{}", text(&output.stderr));
-    let plate = folder.path().join("campaign/plates/s1");
+    assert!(text(&output.stdout).contains("wells/conditions/fits/compounds"));
+    let campaign = folder.path().join("campaign");
+    let plate = campaign.join("plates/s1");
     assert!(plate.join("compounds.csv").exists());
     let qc: Value =
         serde_json::from_str(&std::fs::read_to_string(plate.join("plate_qc.json")).unwrap()).unwrap();
-    let rows = csv_rows(&folder.path().join("campaign/plates.csv"));
+    let rows = csv_rows(&campaign.join("plates.csv"));
     let z: f64 = rows[0]["z_prime"].parse().unwrap();
     // The same number, written by two writers (the CSV one may round the last digit).
     let from_plate = qc["z_prime"].as_f64().unwrap();
     assert!(
         (z - from_plate).abs() <= 1e-12 * from_plate.abs(),
         "{z} against {from_plate}"
+    );
+
+    // The combined table: the plates' own rows, in run order, behind `plate` and `day`.
+    let combined_text = std::fs::read_to_string(campaign.join("compounds.csv")).unwrap();
+    let mut expected = String::new();
+    for (name, day) in [("s1", "1"), ("s2", "2")] {
+        let own = std::fs::read_to_string(campaign.join(format!("plates/{name}/compounds.csv"))).unwrap();
+        let mut lines = own.lines();
+        let header = lines.next().unwrap();
+        if expected.is_empty() {
+            assert!(
+                header.starts_with("compound,IC50 [uM],IC50_qualifier,"),
+                "{header}"
+            );
+            expected.push_str(&format!("plate,day,{header}\n"));
+        }
+        for line in lines {
+            expected.push_str(&format!("{name},{day},{line}\n"));
+        }
+    }
+    assert_eq!(combined_text, expected);
+    assert_eq!(combined_text.lines().count(), 1 + 2 * 8);
+    // The Parquet twin holds the same rows with typed columns.
+    let parquet = std::fs::read(campaign.join("compounds.parquet")).unwrap();
+    let frame = platekin::render::campaign::tables::read_parquet_bytes(parquet).unwrap();
+    assert_eq!(frame.height(), 16);
+    let names: Vec<&str> = frame.get_column_names().iter().map(|n| n.as_str()).collect();
+    assert_eq!(&names[..4], &["plate", "day", "compound", "IC50 [uM]"]);
+    assert_eq!(
+        frame.column("IC50 [uM]").unwrap().dtype(),
+        &polars::prelude::DataType::Float64
+    );
+    assert_eq!(
+        frame.column("n_points").unwrap().dtype(),
+        &polars::prelude::DataType::UInt32
+    );
+
+    // A second run keeps both plates (their kept rows include the compounds) and writes the same.
+    let again = batch();
+    assert!(again.status.success(), "{}", text(&again.stderr));
+    assert!(
+        text(&again.stdout).contains("(2 kept from the previous run)"),
+        "{}",
+        text(&again.stdout)
+    );
+    assert_eq!(
+        std::fs::read_to_string(campaign.join("compounds.csv")).unwrap(),
+        combined_text
     );
 }

@@ -26,7 +26,9 @@ use crate::pipeline::PlateInputs;
 use crate::render::campaign::store::{
     kept_digest, kept_files, kept_tables, run_record_matches, ResultKey, DIGEST_FILE, STORE_FOLDER,
 };
-use crate::render::campaign::tables::{plate_tables, read_parquet_bytes, PlateTables, TABLE_NAMES};
+use crate::render::campaign::tables::{
+    plate_tables, read_parquet_bytes, PlateTables, TABLE_COUNT, TABLE_NAMES,
+};
 use crate::render::campaign::{campaign_outputs, CampaignRecord};
 use crate::render::tables::TableError;
 use polars::prelude::{PolarsError, Schema};
@@ -79,7 +81,7 @@ pub struct PlateFinished<'a> {
 
 /// A plate as a worker hands it back: its place in the manifest, how it ended, and its tables'
 /// schemas when it ended well.
-type FinishedPlate = (usize, PlateOutcome, Option<[Schema; 3]>);
+type FinishedPlate = (usize, PlateOutcome, Option<[Schema; TABLE_COUNT]>);
 
 /// What a completed campaign hands back.
 #[derive(Debug, Clone)]
@@ -230,7 +232,8 @@ pub fn run_batch(
         .iter()
         .filter(|p| matches!(p.status, PlateStatus::Failed { .. }))
         .count();
-    let summary = batch_summary(&plates, &pooled, &unknown, &request.out, report);
+    let compounds = files.iter().any(|file| file.name == "compounds.csv");
+    let summary = batch_summary(&plates, &pooled, &unknown, &request.out, report, compounds);
     Ok(BatchOutcome {
         plates,
         failed: n_failed,
@@ -246,6 +249,7 @@ fn batch_summary(
     unknown: &[String],
     out: &Path,
     report: crate::config::ReportMode,
+    compounds: bool,
 ) -> String {
     let failed: Vec<&PlateOutcome> = plates
         .iter()
@@ -298,8 +302,9 @@ fn batch_summary(
         ));
     }
     text.push_str(&format!(
-        "outputs in {}: plates.csv, wells/conditions/fits (.parquet and .csv){}{}, batch.json; each plate in {}/PLATE/\n",
+        "outputs in {}: plates.csv, wells/conditions/fits{} (.parquet and .csv){}{}, batch.json; each plate in {}/PLATE/\n",
         out.display(),
+        if compounds { "/compounds" } else { "" },
         if pooled.is_empty() && unknown.is_empty() { "" } else { ", pooled.json" },
         if report == crate::config::ReportMode::None { "" } else { ", report.html" },
         PLATES_FOLDER
@@ -346,10 +351,10 @@ fn kept_results(
     }
     let digest = kept_digest(&std::fs::read(store_folder.join(DIGEST_FILE)).ok()?, key)?;
     let bytes = TABLE_NAMES.map(|name| std::fs::read(store_folder.join(format!("{name}.parquet"))).ok());
-    let [Some(wells), Some(conditions), Some(fits)] = bytes else {
+    let [Some(wells), Some(conditions), Some(fits), Some(compounds)] = bytes else {
         return None;
     };
-    Some((digest, kept_tables([wells, conditions, fits])?))
+    Some((digest, kept_tables([wells, conditions, fits, compounds])?))
 }
 
 /// One plate from its files to its outputs, digest and kept rows (their schemas returned); any error becomes the plate's
@@ -358,7 +363,7 @@ fn run_one_plate(
     entry: &PlateEntry,
     manifest: &Manifest,
     request: &BatchRequest,
-) -> (PlateOutcome, Option<[Schema; 3]>) {
+) -> (PlateOutcome, Option<[Schema; TABLE_COUNT]>) {
     let factors: BTreeMap<String, String> = manifest
         .factors_of(entry)
         .map(|(name, value)| (name.to_string(), value.to_string()))

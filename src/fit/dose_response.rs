@@ -29,6 +29,15 @@
 //! highest dose; when it is already below 50% at the lowest dose (or the IC50 lies below it), `<`
 //! the lowest. A bound has no interval and no extrapolated value.
 //!
+//! # Bounds without a curve
+//! A flat series (an inactive compound whose activity stays near 100% at every dose) leaves the
+//! IC50 and the slope undetermined, and the fit may not converge. The bound does not need the
+//! curve: when the mean activity at every tested dose is above 50%, the result is `>` the highest
+//! dose, and when every dose's mean is below 50%, `<` the lowest, without the `no-fit` flag (the
+//! data alone decide the bound; there are no curve parameters). Only when no fit converges and the
+//! dose means straddle 50% is the result flagged `no-fit` (and reported `>` the highest dose, the
+//! cautious side, since an IC50 between the doses is not claimed without a curve).
+//!
 //! # Interval
 //! The profile-likelihood 95% interval of `log_ic50`: every value whose best fit of the other free
 //! parameters keeps `RSS <= RSS_min (1 + F(0.95; 1, n - p) / (n - p))` (Bates and Watts 1988, ch.
@@ -416,7 +425,7 @@ pub fn fit_dose_response(doses: &[f64], responses: &[f64]) -> Result<DoseRespons
     let Some((parameters, rss, p, top_fixed, bottom_fixed)) =
         fit_with_rule(&series, distinct.len(), low, high)
     else {
-        return Ok(unfitted(&series, low, high, distinct.len()));
+        return Ok(unfitted(&series, &distinct));
     };
     let qualifier = qualify(&parameters, low, high);
     let hill = parameters[HILL];
@@ -464,15 +473,35 @@ pub fn fit_dose_response(doses: &[f64], responses: &[f64]) -> Result<DoseRespons
     })
 }
 
-/// No fit converged: a bound from the observed activities when every dose's mean lies on one side
-/// of 50%, else an IC50 between the doses whose means straddle 50% is not claimed (`>` with
-/// `no-fit`, the cautious side).
-fn unfitted(series: &Series<'_>, low: f64, high: f64, n_doses: usize) -> DoseResponseFit {
-    let all_below = series.responses.iter().all(|y| *y < 50.0);
-    let (qualifier, log_ic50) = if all_below {
-        (Ic50Qualifier::Below, low)
+/// The mean response at each distinct dose, in the order of `distinct`.
+fn dose_means(series: &Series<'_>, distinct: &[f64]) -> Vec<f64> {
+    distinct
+        .iter()
+        .map(|dose| {
+            let (sum, n) = series
+                .log_doses
+                .iter()
+                .zip(series.responses)
+                .filter(|(x, _)| (**x - dose).abs() < 1e-12)
+                .fold((0.0, 0usize), |(sum, n), (_, y)| (sum + y, n + 1));
+            sum / n.max(1) as f64
+        })
+        .collect()
+}
+
+/// No fit converged (module docs, "Bounds without a curve"): when every dose's mean activity lies
+/// on one side of 50% the bound is read from the data and needs no curve (`>` the highest dose
+/// when all are above, `<` the lowest when all are below; no `no-fit` flag). Otherwise the means
+/// straddle 50% and an IC50 between them is not claimed: `>` with `no-fit`, the cautious side.
+fn unfitted(series: &Series<'_>, distinct: &[f64]) -> DoseResponseFit {
+    let (low, high) = (distinct[0], distinct[distinct.len() - 1]);
+    let means = dose_means(series, distinct);
+    let (qualifier, log_ic50, flags) = if means.iter().all(|y| *y > 50.0) {
+        (Ic50Qualifier::Above, high, Vec::new())
+    } else if means.iter().all(|y| *y < 50.0) {
+        (Ic50Qualifier::Below, low, Vec::new())
     } else {
-        (Ic50Qualifier::Above, high)
+        (Ic50Qualifier::Above, high, vec![CurveFlag::NoFit])
     };
     DoseResponseFit {
         parameters: None,
@@ -481,9 +510,9 @@ fn unfitted(series: &Series<'_>, low: f64, high: f64, n_doses: usize) -> DoseRes
         qualifier,
         log_ic50,
         log_ic50_ci95: [None, None],
-        flags: vec![CurveFlag::NoFit],
+        flags,
         n_points: series.responses.len(),
-        n_doses,
+        n_doses: distinct.len(),
         residual_sd: None,
     }
 }
@@ -719,6 +748,51 @@ mod tests {
         let fit = fit_dose_response(&doses, &potent).unwrap();
         assert_eq!(fit.qualifier, Ic50Qualifier::Below);
         assert_relative_eq!(fit.log_ic50, doses[0].log10(), epsilon = 1e-12);
+    }
+
+    #[test]
+    fn bounds_without_a_curve_come_from_the_dose_means() {
+        // Invented series (truth known): flat near 100% in duplicate, one replicate dipping below
+        // 50% at one dose while that dose's mean stays above.
+        let doses = eight_doses();
+        let log_doses: Vec<f64> = doses.iter().chain(&doses).map(|d| d.log10()).collect();
+        let mut distinct: Vec<f64> = doses.iter().map(|d| d.log10()).collect();
+        distinct.sort_by(f64::total_cmp);
+        let mut flat: Vec<f64> = (0..16).map(|i| 100.0 + (i % 5) as f64 - 2.0).collect();
+        flat[3] = 45.0;
+        flat[11] = 70.0;
+        let bound = |responses: &[f64]| {
+            unfitted(
+                &Series {
+                    log_doses: &log_doses,
+                    responses,
+                },
+                &distinct,
+            )
+        };
+        let fit = bound(&flat);
+        assert_eq!(fit.qualifier, Ic50Qualifier::Above);
+        assert!(fit.flags.is_empty(), "{:?}", fit.flags);
+        assert_relative_eq!(fit.log_ic50, distinct[7], epsilon = 1e-12);
+        assert_eq!((fit.n_points, fit.n_doses), (16, 8));
+        // Every dose below half activity: `<` the lowest, no flag.
+        let low: Vec<f64> = flat.iter().map(|y| (110.0 - y).min(40.0)).collect();
+        let fit = bound(&low);
+        assert_eq!(fit.qualifier, Ic50Qualifier::Below);
+        assert!(fit.flags.is_empty(), "{:?}", fit.flags);
+        // Means on both sides of 50% without a curve: the cautious `>` with `no-fit`.
+        let straddle: Vec<f64> = (0..16).map(|i| if i % 8 < 4 { 90.0 } else { 10.0 }).collect();
+        let fit = bound(&straddle);
+        assert_eq!(fit.qualifier, Ic50Qualifier::Above);
+        assert_eq!(fit.flags, vec![CurveFlag::NoFit]);
+        // Through the whole fit: a flat series is `>` without `no-fit`, converged or not.
+        let fit = fit_dose_response(
+            &doses.iter().chain(&doses).copied().collect::<Vec<_>>(),
+            &flat[..].iter().map(|y| y.max(60.0)).collect::<Vec<_>>(),
+        )
+        .unwrap();
+        assert_eq!(fit.qualifier, Ic50Qualifier::Above);
+        assert!(!fit.flags.contains(&CurveFlag::NoFit), "{:?}", fit.flags);
     }
 
     #[test]

@@ -21,7 +21,7 @@ pub const ACTIVITY_HEADER: &str = "activity [%]";
 /// The rule for fixed plateaus, as the report and summary state it.
 pub fn plateau_rule_words() -> String {
     format!(
-        "Top and bottom are fitted free when a tested dose lies on each plateau (the fitted curve within {:.0}% of the span of it at the lowest, resp. highest dose); a plateau no dose reaches is fixed at 100% (top) or 0% (bottom) and flagged no-plateau. An IC50 outside the tested doses is reported as a bound (> the highest dose, < the lowest), never extrapolated. Flags: shallow (Hill below {SHALLOW_HILL}), steep (above {STEEP_HILL}), single-dose (leaving out one dose moves the IC50 more than two-fold).",
+        "Top and bottom are fitted free when a tested dose lies on each plateau (the fitted curve within {:.0}% of the span of it at the lowest, resp. highest dose); a plateau no dose reaches is fixed at 100% (top) or 0% (bottom) and flagged no-plateau. An IC50 outside the tested doses is reported as a bound (> the highest dose, < the lowest), never extrapolated; when the mean activity at every dose stays above 50% (or below it) the bound stands on the data alone, with or without a converged curve. Flags: shallow (Hill below {SHALLOW_HILL}), steep (above {STEEP_HILL}), single-dose (leaving out one dose moves the IC50 more than two-fold), no-fit (no curve converged while the doses' means lie on both sides of 50%).",
         100.0 * PLATEAU_FRACTION
     )
 }
@@ -204,50 +204,177 @@ pub fn screen_files(screen: &ScreenAnalysis, rate_unit: &str) -> Result<Vec<Outp
     ])
 }
 
-/// One line per compound for the summary: name, IC50 with qualifier, flags.
+/// One line per compound for the summary: name, IC50 with its qualifier and 95% interval (the
+/// summary's `value [95% interval]`), flags.
 pub fn compound_line(compound: &CompoundResult, unit: &str) -> String {
     let ic50 = crate::core::format::significant(compound.ic50());
     let flags = flag_words(&compound.fit.flags);
+    let interval = match compound.ic50_ci95() {
+        [Some(low), Some(high)] => format!(
+            " [{}, {}]",
+            crate::core::format::significant(low),
+            crate::core::format::significant(high)
+        ),
+        [low, high] if compound.fit.qualifier == crate::fit::dose_response::Ic50Qualifier::Equal => {
+            let end = |x: Option<f64>| x.map_or("open".to_string(), crate::core::format::significant);
+            format!(" [{}, {}]", end(low), end(high))
+        }
+        _ => String::new(),
+    };
     let mut line = format!(
-        "{} IC50 {} {ic50} {unit}",
+        "{} IC50 {} {ic50}{interval} {unit}",
         compound.name,
         compound.fit.qualifier.sign()
     );
-    if let (Some(low), Some(high)) = (compound.ic50_ci95()[0], compound.ic50_ci95()[1]) {
-        line.push_str(&format!(
-            " (95% {} to {})",
-            crate::core::format::significant(low),
-            crate::core::format::significant(high)
-        ));
-    }
     if !flags.is_empty() {
-        line.push_str(&format!(" [{flags}]"));
+        line.push_str(&format!("; flags: {flags}"));
     }
     line
 }
 
-/// The summary's lines for wells excluded by hand and for a screening plate: the plate's quality,
-/// the compounds (ranked, at most [`SUMMARY_COMPOUNDS`]) and the cautions.
-pub fn summary_lines(results: &RunResults) -> Vec<String> {
-    let mut lines = Vec::new();
-    if !results.exclusions.is_empty() {
-        let listed: Vec<String> = results
-            .exclusions
-            .iter()
-            .map(|exclusion| format!("{} ({})", exclusion.well, exclusion.reason))
-            .collect();
-        lines.push(format!("excluded by hand: {}", listed.join(", ")));
+/// A screen's answer, as the summary's and the report's results blocks both give it first: how
+/// many compounds, how many inhibit within the tested doses (`=`), already below half activity
+/// at the lowest dose (`<`) or not down to half activity at the highest (`>`), and Z'.
+#[derive(Debug, Clone)]
+pub struct ScreenAnswer<'a> {
+    /// Every compound, most potent first.
+    pub compounds: &'a [CompoundResult],
+    /// Compounds with an IC50 within the tested doses or below them (`=` and `<`), in rank order.
+    pub actives: Vec<&'a CompoundResult>,
+    /// Compounds reported `=`.
+    pub within: usize,
+    /// Compounds reported `<` the lowest dose.
+    pub below: usize,
+    /// Compounds reported `>` the highest dose.
+    pub above: Vec<&'a CompoundResult>,
+    /// Compounds with any flag.
+    pub flagged: usize,
+    /// Z', when the controls give one.
+    pub z_prime: Option<f64>,
+    /// The dose unit.
+    pub unit: String,
+}
+
+impl<'a> ScreenAnswer<'a> {
+    /// The answer of a screen.
+    pub fn of(screen: &'a ScreenAnalysis) -> ScreenAnswer<'a> {
+        use crate::fit::dose_response::Ic50Qualifier;
+        let count = |q: Ic50Qualifier| screen.compounds.iter().filter(|c| c.fit.qualifier == q).count();
+        ScreenAnswer {
+            compounds: &screen.compounds,
+            actives: screen
+                .compounds
+                .iter()
+                .filter(|c| c.fit.qualifier != Ic50Qualifier::Above)
+                .collect(),
+            within: count(Ic50Qualifier::Equal),
+            below: count(Ic50Qualifier::Below),
+            above: screen
+                .compounds
+                .iter()
+                .filter(|c| c.fit.qualifier == Ic50Qualifier::Above)
+                .collect(),
+            flagged: screen
+                .compounds
+                .iter()
+                .filter(|c| !c.fit.flags.is_empty())
+                .count(),
+            z_prime: screen.quality.z_prime.as_ref().map(|z| z.value),
+            unit: screen
+                .inhibitor_unit
+                .map_or_else(|| "dose unit".to_string(), |unit| unit.to_string()),
+        }
     }
-    let Some(screen) = &results.screen else {
-        return lines;
-    };
+
+    /// The answer in one sentence: compounds, actives by qualifier, inactive, flagged, Z'.
+    pub fn headline(&self) -> String {
+        let z = self.z_prime.map_or_else(
+            || "Z' not computed".to_string(),
+            |z| {
+                format!(
+                    "Z' {z:.2} ({})",
+                    if z < Z_PRIME_BAR {
+                        "below 0.5: not screen-ready"
+                    } else {
+                        "screen-ready: 0.5 or more"
+                    }
+                )
+            },
+        );
+        format!(
+            "{} compounds: {} active ({} with an IC50 within the tested doses, {} below the lowest dose), {} inactive up to the highest dose (>), {} flagged; {z}",
+            self.compounds.len(),
+            self.actives.len(),
+            self.within,
+            self.below,
+            self.above.len(),
+            self.flagged
+        )
+    }
+}
+
+/// The summary's results block of a screen: the answer first, then the actives (most potent first,
+/// at most [`SUMMARY_COMPOUNDS`]) with their IC50 and interval, then the inactive compounds by name.
+pub fn results_lines(screen: &ScreenAnalysis) -> Vec<String> {
+    let answer = ScreenAnswer::of(screen);
+    let mut lines = vec![format!(
+        "Results (screen; IC50 [95% interval]): {}",
+        answer.headline()
+    )];
+    for compound in answer.actives.iter().take(SUMMARY_COMPOUNDS) {
+        lines.push(format!("  {}", compound_line(compound, &answer.unit)));
+    }
+    if answer.actives.len() > SUMMARY_COMPOUNDS {
+        lines.push(format!(
+            "  ... and {} more active (all in compounds.csv)",
+            answer.actives.len() - SUMMARY_COMPOUNDS
+        ));
+    }
+    if !answer.above.is_empty() {
+        let names: Vec<&str> = answer
+            .above
+            .iter()
+            .take(SUMMARY_COMPOUNDS)
+            .map(|c| c.name.as_str())
+            .collect();
+        lines.push(format!(
+            "  inactive (IC50 > the highest dose): {}{}",
+            names.join(", "),
+            if answer.above.len() > SUMMARY_COMPOUNDS {
+                format!(" and {} more", answer.above.len() - SUMMARY_COMPOUNDS)
+            } else {
+                String::new()
+            }
+        ));
+    }
+    if screen.cheng_prusoff.is_some() {
+        lines.push(format!("  note: {CHENG_PRUSOFF_WORDS}"));
+    }
+    lines
+}
+
+/// The summary's line for wells excluded by hand (on any plate; empty when there are none).
+pub fn exclusion_lines(results: &RunResults) -> Vec<String> {
+    if results.exclusions.is_empty() {
+        return Vec::new();
+    }
+    let listed: Vec<String> = results
+        .exclusions
+        .iter()
+        .map(|exclusion| format!("{} ({})", exclusion.well, exclusion.reason))
+        .collect();
+    vec![format!("excluded by hand: {}", listed.join(", "))]
+}
+
+/// The summary's lines of a screening plate's quality: its figures and warnings (the compounds
+/// are in the results block, [`results_lines`]).
+pub fn quality_lines(screen: &ScreenAnalysis) -> Vec<String> {
     let quality = &screen.quality;
     let figure = |value: Option<f64>| value.map_or("-".to_string(), |v| format!("{v:.2}"));
     // A CV over a mean near zero is not given (see `screen::quality`); say so instead of "-%".
     let cv = |value: Option<f64>| value.map_or("none: mean near zero".to_string(), |v| format!("{v:.2}%"));
-    lines.push(String::new());
-    lines.push(format!(
-        "Screen: Z' {}, signal window {}, signal-to-background {}; uninhibited n {} (CV {}), inhibited n {} (CV {})",
+    let mut lines = vec![format!(
+        "Plate quality: Z' {}, signal window {}, signal-to-background {}; uninhibited n {} (CV {}), inhibited n {} (CV {})",
         figure(quality.z_prime.as_ref().map(|z| z.value)),
         figure(quality.signal_window),
         figure(quality.signal_to_background),
@@ -255,30 +382,10 @@ pub fn summary_lines(results: &RunResults) -> Vec<String> {
         cv(quality.uninhibited.cv_percent),
         quality.inhibited.n,
         cv(quality.inhibited.cv_percent),
-    ));
+    )];
     for warning in quality_warnings(screen) {
         lines.push(format!("warning: {warning}"));
     }
-    let unit = screen
-        .inhibitor_unit
-        .map_or_else(|| "dose unit".to_string(), |unit| unit.to_string());
-    lines.push(format!(
-        "Compounds ({}, most potent first; all in compounds.csv):",
-        screen.compounds.len()
-    ));
-    for compound in screen.compounds.iter().take(SUMMARY_COMPOUNDS) {
-        lines.push(format!("  {}", compound_line(compound, &unit)));
-    }
-    if screen.compounds.len() > SUMMARY_COMPOUNDS {
-        lines.push(format!(
-            "  ... and {} more",
-            screen.compounds.len() - SUMMARY_COMPOUNDS
-        ));
-    }
-    if screen.cheng_prusoff.is_some() {
-        lines.push(format!("note: {CHENG_PRUSOFF_WORDS}"));
-    }
-    lines.push("screen outputs: compounds.csv, plate_qc.json, and `activity [%]` in wells.csv".to_string());
     lines
 }
 

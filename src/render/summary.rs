@@ -231,13 +231,25 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
             lines.push(format!("left out of means and fits: {}", excluded.join(", ")));
         }
     }
-    lines.extend(super::screen::summary_lines(results));
+    lines.extend(super::screen::exclusion_lines(results));
     lines.push(String::new());
-    lines.extend(results_lines(results));
-    lines.push(String::new());
-    lines.push("Initial-rate fits (value [95% interval]):".to_string());
-    lines.extend(group_fit_lines(&results.fits));
-    lines.extend(progress_summary(&results.progress));
+    if let Some(screen) = &results.screen {
+        // A screen's answer is its compounds and its plate quality; it fits no rate law and no
+        // progress curve, so those blocks are left out rather than shown empty.
+        lines.extend(super::screen::results_lines(screen));
+        lines.push(String::new());
+        lines.extend(super::screen::quality_lines(screen));
+    } else {
+        lines.extend(results_lines(results));
+    }
+    if !results.fits.is_empty() {
+        lines.push(String::new());
+        lines.push("Initial-rate fits (value [95% interval]):".to_string());
+        lines.extend(group_fit_lines(&results.fits));
+    }
+    if !results.progress.groups.is_empty() {
+        lines.extend(progress_summary(&results.progress));
+    }
     let mut warnings: Vec<&String> = results.input_warnings.iter().collect();
     warnings.extend(&analysis.warnings);
     if !warnings.is_empty() {
@@ -248,8 +260,18 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
     }
     lines.push(String::new());
     lines.push(format!(
-        "outputs: {}/ (wells.csv, conditions.csv, fit.json, progress.json, {}settings.toml{}, run.json)",
+        "outputs: {}/ (wells.csv{}, conditions.csv, fit.json, progress.json, {}{}settings.toml{}, run.json)",
         out.display(),
+        if results.screen.is_some() {
+            " with `activity [%]`"
+        } else {
+            ""
+        },
+        if results.screen.is_some() {
+            "compounds.csv, plate_qc.json, "
+        } else {
+            ""
+        },
         if results.analysis.signal.calibration.is_some() {
             "calibration.json, "
         } else {

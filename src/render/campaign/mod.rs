@@ -1,6 +1,6 @@
 //! The campaign's outputs (`platekin batch`), made in memory from the typed outcomes of its
-//! plates: `plates.csv`, the combined `wells`, `conditions` and `fits` tables as Parquet with CSV
-//! twins ([`tables`]), `pooled.json`, `report.html` ([`report`]) and `batch.json`; and what each
+//! plates: `plates.csv`, the combined `wells`, `conditions` and `fits` tables (and `compounds`
+//! when a plate is a screen) as Parquet with CSV twins ([`tables`]), `pooled.json`, `report.html` ([`report`]) and `batch.json`; and what each
 //! plate keeps for the next run ([`store`]).
 
 pub mod report;
@@ -19,7 +19,7 @@ use crate::files::output::OutputFile;
 use polars::prelude::{DataFrame, Schema};
 use tables::{
     plates_table, schema_with_plate_columns, stacked_table_files, with_plate_columns, StackedColumns,
-    TABLE_NAMES,
+    SCREEN_ONLY_TABLES, TABLE_COUNT, TABLE_NAMES,
 };
 
 /// Everything the campaign's outputs are made from.
@@ -95,7 +95,7 @@ fn batch_document(record: &CampaignRecord<'_>) -> Result<Value, RenderError> {
 /// written, so that the campaign's tables pass through memory one row group at a time.
 pub fn campaign_outputs(
     record: &CampaignRecord<'_>,
-    schemas: &[(usize, [Schema; 3])],
+    schemas: &[(usize, [Schema; TABLE_COUNT])],
     load: &dyn Fn(usize, usize) -> Result<DataFrame, TableError>,
 ) -> Result<Vec<OutputFile>, RenderError> {
     let mut files = Vec::new();
@@ -118,6 +118,11 @@ pub fn campaign_outputs(
             .collect()
     };
     for (kind, name) in TABLE_NAMES.iter().enumerate() {
+        // `compounds` only when some plate is a screen (its table has columns); a campaign of
+        // rate-law plates keeps the three tables it always had.
+        if SCREEN_ONLY_TABLES.contains(&kind) && schemas.iter().all(|(_, plate)| plate[kind].is_empty()) {
+            continue;
+        }
         let mut columns = StackedColumns::default();
         for (index, plate_schemas) in schemas {
             columns.add(&schema_with_plate_columns(

@@ -1,7 +1,7 @@
 //! What a campaign keeps of each plate between runs, so that a plate whose inputs and settings did
 //! not change is not analysed again: beside the plate's own outputs, in the campaign's
 //! `.platekin-batch/PLATE/` folder, its digest with the key it was made under (`digest.json`) and
-//! its rows of the three campaign tables (Parquet, which keeps every column's type). The digest
+//! its rows of the campaign tables (Parquet, which keeps every column's type). The digest
 //! and tables are typed values stored for the next run, read back only under an equal key: no
 //! decision is made from a text made for people. A plate is
 //! reused only when its `run.json` and the kept key both match the inputs' SHA-256, the settings
@@ -12,7 +12,7 @@ use serde::{Deserialize, Serialize};
 
 use super::super::json::json_file;
 use super::super::RenderError;
-use super::tables::{parquet_bytes, read_parquet_bytes, PlateTables, TABLE_NAMES};
+use super::tables::{parquet_bytes, read_parquet_bytes, PlateTables, TABLE_COUNT, TABLE_NAMES};
 use crate::campaign::PlateDigest;
 use crate::config::SettingLayer;
 use crate::files::output::OutputFile;
@@ -85,12 +85,13 @@ pub fn kept_digest(bytes: &[u8], key: &ResultKey) -> Option<PlateDigest> {
 }
 
 /// The kept tables from their Parquet bytes, in [`TABLE_NAMES`] order.
-pub fn kept_tables(bytes: [Vec<u8>; 3]) -> Option<PlateTables> {
-    let [wells, conditions, fits] = bytes;
+pub fn kept_tables(bytes: [Vec<u8>; TABLE_COUNT]) -> Option<PlateTables> {
+    let [wells, conditions, fits, compounds] = bytes;
     Some(PlateTables::from_frames([
         read_parquet_bytes(wells).ok()?,
         read_parquet_bytes(conditions).ok()?,
         read_parquet_bytes(fits).ok()?,
+        read_parquet_bytes(compounds).ok()?,
     ]))
 }
 
@@ -185,6 +186,7 @@ mod tests {
             polars::df!("well" => ["A1"]).unwrap(),
             polars::df!("role" => ["sample"]).unwrap(),
             polars::df!("group" => ["g"]).unwrap(),
+            polars::prelude::DataFrame::empty(),
         ]);
         let files = kept_files(&key(), &digest, &tables).unwrap();
         assert_eq!(kept_digest(&files[0].bytes, &key()), Some(digest));
@@ -197,8 +199,11 @@ mod tests {
             files[1].bytes.clone(),
             files[2].bytes.clone(),
             files[3].bytes.clone(),
+            files[4].bytes.clone(),
         ])
         .unwrap();
         assert!(back.wells.equals_missing(&tables.wells));
+        // A plate without compounds keeps an empty table, read back empty.
+        assert_eq!(back.compounds.shape(), (0, 0));
     }
 }

@@ -1,10 +1,11 @@
-//! The campaign's tables: each plate's `wells`, `conditions` and `fits` rows (the first two the
-//! same tables its own `wells.csv` and `conditions.csv` hold), with `plate` and the manifest's
-//! factors in front, stacked into one table per kind and written as Parquet and CSV; and
-//! `plates.csv`, one row per plate with how it ended.
+//! The campaign's tables: each plate's `wells`, `conditions`, `fits` and (on screening plates)
+//! `compounds` rows (the same tables its own `wells.csv`, `conditions.csv` and `compounds.csv`
+//! hold), with `plate` and the manifest's factors in front, stacked into one table per kind and
+//! written as Parquet and CSV; and `plates.csv`, one row per plate with how it ended.
 
 use polars::prelude::*;
 
+use super::super::screen::compounds_table;
 use super::super::tables::{conditions_table, wells_table, TableError};
 use super::super::words::group_key_text;
 use crate::campaign::{PlateOutcome, PlateStatus};
@@ -12,7 +13,7 @@ use crate::files::output::OutputFile;
 use crate::groups::ParameterReport;
 use crate::pipeline::RunResults;
 
-/// One plate's rows of the three campaign tables, without the plate's columns.
+/// One plate's rows of the campaign tables, without the plate's columns.
 #[derive(Debug, Clone)]
 pub struct PlateTables {
     /// The rows of its `wells.csv`.
@@ -21,23 +22,33 @@ pub struct PlateTables {
     pub conditions: DataFrame,
     /// One row per group, analysis and parameter.
     pub fits: DataFrame,
+    /// The rows of its `compounds.csv` on a screening plate; no columns and no rows otherwise.
+    pub compounds: DataFrame,
 }
 
-/// The names of the three tables, in the order [`PlateTables::frames`] gives them.
-pub const TABLE_NAMES: [&str; 3] = ["wells", "conditions", "fits"];
+/// How many tables a plate gives the campaign.
+pub const TABLE_COUNT: usize = 4;
+
+/// The names of the tables, in the order [`PlateTables::frames`] gives them.
+pub const TABLE_NAMES: [&str; TABLE_COUNT] = ["wells", "conditions", "fits", "compounds"];
+
+/// The table kinds (places in [`TABLE_NAMES`]) a campaign writes only when some plate has
+/// columns for them: `compounds`, which only screening plates have.
+pub const SCREEN_ONLY_TABLES: [usize; 1] = [3];
 
 impl PlateTables {
-    /// The three tables, in [`TABLE_NAMES`] order.
-    pub fn frames(&self) -> [&DataFrame; 3] {
-        [&self.wells, &self.conditions, &self.fits]
+    /// The tables, in [`TABLE_NAMES`] order.
+    pub fn frames(&self) -> [&DataFrame; TABLE_COUNT] {
+        [&self.wells, &self.conditions, &self.fits, &self.compounds]
     }
 
     /// The tables from frames in [`TABLE_NAMES`] order.
-    pub fn from_frames([wells, conditions, fits]: [DataFrame; 3]) -> PlateTables {
+    pub fn from_frames([wells, conditions, fits, compounds]: [DataFrame; TABLE_COUNT]) -> PlateTables {
         PlateTables {
             wells,
             conditions,
             fits,
+            compounds,
         }
     }
 }
@@ -48,6 +59,10 @@ pub fn plate_tables(results: &RunResults) -> Result<PlateTables, TableError> {
         wells: wells_table(&results.analysis, &results.layout)?,
         conditions: conditions_table(&results.conditions, &results.layout, &results.analysis)?,
         fits: fits_table(results)?,
+        compounds: match &results.screen {
+            Some(screen) => compounds_table(screen)?,
+            None => DataFrame::empty(),
+        },
     })
 }
 

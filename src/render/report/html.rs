@@ -239,15 +239,51 @@ pub fn report_html(parts: &ReportParts) -> String {
         escape(&results.analysis.signal.rate_unit())
     );
     let _ = writeln!(page, "<p class=\"caution\">{}</p>", escape(CAUTION));
-    page.push_str(&contents());
+    // A screen fits no rate law and no progress curve: those sections are left out rather than
+    // shown empty, and the contents list only the sections on the page.
+    let screen_only =
+        results.screen.is_some() && results.fits.is_empty() && results.progress.groups.is_empty();
+    let shown: Vec<(&str, &str)> = SECTIONS
+        .iter()
+        .copied()
+        .filter(|(id, _)| !(screen_only && ["fits", "progress", "trust"].contains(id)))
+        .flat_map(|section| {
+            // The sections only some plates have, in page order after the one they follow.
+            let optional: &[(&str, &str, bool)] = match section.0 {
+                "overview" => &[
+                    ("screen", "Screen", results.screen.is_some()),
+                    (
+                        "excluded",
+                        "Wells excluded by hand",
+                        !results.exclusions.is_empty(),
+                    ),
+                ],
+                "flagged" => &[(
+                    "calibration",
+                    "Standard curves",
+                    results.analysis.signal.calibration.is_some(),
+                )],
+                _ => &[],
+            };
+            let shown_after: Vec<(&str, &str)> = optional
+                .iter()
+                .filter(|(_, _, present)| *present)
+                .map(|(id, title, _)| (*id, *title))
+                .collect();
+            std::iter::once(section).chain(shown_after)
+        })
+        .collect();
+    page.push_str(&contents(&shown));
     page.push_str(&results_section(parts));
     page.push_str(&overview_section(parts));
     page.push_str(&super::screen::screen_section(results));
     page.push_str(&flagged_section(parts));
     page.push_str(&super::calibration::calibration_section(results));
-    page.push_str(&groups_section(parts));
-    page.push_str(&progress_section(parts));
-    page.push_str(&trust_section(parts));
+    if !screen_only {
+        page.push_str(&groups_section(parts));
+        page.push_str(&progress_section(parts));
+        page.push_str(&trust_section(parts));
+    }
     page.push_str(&conditions_section(parts));
     page.push_str(&checklist_section(parts));
     page.push_str(&details_section(parts));
@@ -283,8 +319,8 @@ fn heading(id: &str) -> String {
     format!("<section id=\"{id}\">\n<h2>{title}</h2>\n")
 }
 
-fn contents() -> String {
-    let links: Vec<String> = SECTIONS
+fn contents(sections: &[(&str, &str)]) -> String {
+    let links: Vec<String> = sections
         .iter()
         .map(|(id, title)| format!("<a href=\"#{id}\">{title}</a>"))
         .collect();
@@ -299,7 +335,9 @@ fn results_section(parts: &ReportParts) -> String {
     let rows = run_results(results);
     let columns = result_columns(&rows);
     let mut html = heading("results");
-    if rows.is_empty() {
+    if let Some(screen) = &results.screen {
+        html.push_str(&super::screen::screen_results_html(screen));
+    } else if rows.is_empty() {
         html.push_str("<p>No group was fitted: see the conditions and the flagged wells below.</p>\n");
     } else {
         html.push_str("<p>Per group, the constants of the analysis to trust (value and 95% interval); the details of every fit follow below.</p>\n");
@@ -949,7 +987,9 @@ fn fitting_method_text(results: &RunResults) -> String {
         push(&mut weightings, fit.weighting.name());
         push(&mut estimators, fit.estimator.word());
     }
-    let mut text = if equations.is_empty() {
+    let mut text = if results.screen.is_some() && equations.is_empty() {
+        "Per compound, the four-parameter logistic of % activity on log10 dose by unweighted least squares (Levenberg-Marquardt), top and bottom by the plateau rule stated in Screen, IC50 intervals by profile likelihood; initial rates from straight-line windows.".to_string()
+    } else if equations.is_empty() {
         "No rate law was fitted.".to_string()
     } else {
         format!(
@@ -1012,11 +1052,18 @@ fn checklist_section(parts: &ReportParts) -> String {
         (
             "Kinetic parameters with units and uncertainty",
             supplied.into(),
-            format!(
-                "Vmax and Km{} with standard errors and 95% intervals for {fitted} of {} groups (Group fits).",
-                if has_kcat { ", kcat and kcat/Km" } else { "" },
-                results.fits.len()
-            ),
+            match &results.screen {
+                // A screen reports IC50s, not rate-law constants.
+                Some(screen) => format!(
+                    "IC50 (or its bound) with profile 95% intervals, Hill slope, top and bottom for {} compounds, and the plate's Z' (Screen).",
+                    screen.compounds.len()
+                ),
+                None => format!(
+                    "Vmax and Km{} with standard errors and 95% intervals for {fitted} of {} groups (Group fits).",
+                    if has_kcat { ", kcat and kcat/Km" } else { "" },
+                    results.fits.len()
+                ),
+            },
         ),
         (
             "Equation fitted and fitting method",

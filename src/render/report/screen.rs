@@ -12,7 +12,9 @@ use crate::core::plate::{row_label, WellId};
 use crate::fit::dose_response::{DoseResponseCurve, FourParameterLogistic, Ic50Qualifier};
 use crate::layout::Role;
 use crate::pipeline::RunResults;
-use crate::render::screen::{flag_words, plateau_rule_words, quality_warnings, CHENG_PRUSOFF_WORDS};
+use crate::render::screen::{
+    flag_words, plateau_rule_words, quality_warnings, ScreenAnswer, CHENG_PRUSOFF_WORDS, SUMMARY_COMPOUNDS,
+};
 use crate::screen::{CompoundResult, ScreenAnalysis};
 
 /// Smallest text in the drawings, px.
@@ -46,6 +48,63 @@ pub fn screen_section(results: &RunResults) -> String {
             );
         }
         html.push_str("</table>\n<p>These wells are in <code>wells.csv</code> with <code>used</code> false and the reason in <code>notes</code>; <code>settings.toml</code> records them so the run repeats.</p>\n</section>\n");
+    }
+    html
+}
+
+/// The results block of a screening plate (inside the page's Results section): the screen's answer
+/// in a sentence (compounds, actives, inactive, flagged, Z'), the most potent actives with their
+/// IC50 and 95% interval, and the inactive compounds by name; the full table follows in the
+/// Screen section.
+pub fn screen_results_html(screen: &ScreenAnalysis) -> String {
+    let answer = ScreenAnswer::of(screen);
+    let unit = escape(&answer.unit);
+    let mut html = format!(
+        "<p><strong>{}</strong>.</p>
+",
+        escape(&answer.headline())
+    );
+    if !answer.actives.is_empty() {
+        let _ = writeln!(
+            html,
+            "<p>The {} most potent active compounds (IC50 and profile 95% interval); every compound, the plate quality and the curves are in <a href=\"#screen\">Screen</a>.</p>",
+            answer.actives.len().min(SUMMARY_COMPOUNDS)
+        );
+        let _ = writeln!(
+            html,
+            "<table class=\"results\">\n<thead><tr><th scope=\"col\">compound</th><th scope=\"col\">IC50 [{unit}]</th><th scope=\"col\">95% interval</th><th scope=\"col\">flags</th></tr></thead>\n<tbody>"
+        );
+        for compound in answer.actives.iter().take(SUMMARY_COMPOUNDS) {
+            let rank = screen
+                .compounds
+                .iter()
+                .position(|c| std::ptr::eq(c, *compound))
+                .map_or(0, |at| at + 1);
+            let interval = match compound.ic50_ci95() {
+                [None, None] => "-".to_string(),
+                [low, high] => format!(
+                    "{} to {}",
+                    low.map_or("open".to_string(), significant),
+                    high.map_or("open".to_string(), significant)
+                ),
+            };
+            let _ = writeln!(
+                html,
+                "<tr><th scope=\"row\"><a href=\"#cpd-{rank}\">{}</a></th><td class=\"num\">{}</td><td class=\"num\">{interval}</td><td>{}</td></tr>",
+                escape(&compound.name),
+                escape(&ic50_text(compound)),
+                escape(&flag_words(&compound.fit.flags))
+            );
+        }
+        html.push_str("</tbody>\n</table>\n");
+    }
+    if !answer.above.is_empty() {
+        let names: Vec<String> = answer.above.iter().map(|c| escape(&c.name)).collect();
+        let _ = writeln!(
+            html,
+            "<p>Inactive (activity above 50% up to the highest dose; IC50 reported as &gt; that dose): {}.</p>",
+            names.join(", ")
+        );
     }
     html
 }

@@ -163,11 +163,25 @@ fn section<'a>(page: &'a str, id: &str) -> &'a str {
     &page[start..end]
 }
 
+/// A section of the page, or "" when the page leaves it out.
+fn section_if_shown<'a>(page: &'a str, id: &str) -> &'a str {
+    if page.contains(&format!("<section id=\"{id}\">")) {
+        section(page, id)
+    } else {
+        ""
+    }
+}
+
 /// A summary of the page that harmless changes (wording, styling, plot details, numbers in the
 /// last digits) leave alone: section headings, group headings, row counts of each table, the
 /// flagged wells with their flags, and the wells the overview links.
 fn structure(page: &str) -> String {
     let mut lines = Vec::new();
+    let nav = all_between(page, "<nav>", "</nav>").concat();
+    lines.push(format!(
+        "nav {}",
+        all_between(&nav, "<a href=\"#", "\"").join(" ")
+    ));
     for heading in all_between(page, "<h2>", "</h2>") {
         lines.push(format!("h2 {heading}"));
     }
@@ -175,37 +189,54 @@ fn structure(page: &str) -> String {
         lines.push(format!("h3 {heading}"));
     }
     for id in ["results", "about", "conditions", "trust", "checklist"] {
-        lines.push(format!("rows {id} {}", table_rows(section(page, id))));
+        lines.push(format!("rows {id} {}", table_rows(section_if_shown(page, id))));
     }
-    for row in all_between(section(page, "results"), "<tr><th scope=\"row\">", "</tr>") {
-        let group = row.split('<').next().unwrap_or("");
+    for row in all_between(
+        section_if_shown(page, "results"),
+        "<tr><th scope=\"row\">",
+        "</tr>",
+    ) {
+        // A screen's rows name the compound inside a link to its curve.
+        let group = row
+            .strip_prefix("<a href=\"")
+            .and_then(|linked| linked.split('>').nth(1))
+            .unwrap_or(row)
+            .split('<')
+            .next()
+            .unwrap_or("");
         let analysis = all_between(row, "<strong>", "</strong>");
         lines.push(format!(
             "result {group}: trust {}",
             analysis.first().copied().unwrap_or("")
         ));
     }
-    for row in all_between(section(page, "flagged"), "<tr data-well=\"", "</tr>") {
+    for row in all_between(section_if_shown(page, "flagged"), "<tr data-well=\"", "</tr>") {
         let well = row.split('"').next().unwrap_or("");
         let cells = all_between(row, "<td>", "</td>");
         lines.push(format!("flagged {well} {}", cells.get(2).copied().unwrap_or("")));
     }
-    let overview = section(page, "overview");
+    let overview = section_if_shown(page, "overview");
     let linked = overview.matches("<a href=\"#well-").count();
     let cells = overview.matches("data-well=").count();
     lines.push(format!("overview cells {cells} linked {linked}"));
     lines.push(format!(
         "details {}",
-        section(page, "details").matches("<figure id=\"well-").count()
+        section_if_shown(page, "details")
+            .matches("<figure id=\"well-")
+            .count()
     ));
     lines.push(format!(
         "group figures {}",
-        section(page, "fits").matches("<figure").count()
+        section_if_shown(page, "fits").matches("<figure").count()
     ));
-    for table in all_between(section(page, "fits"), "<table class=\"models\">", "</table>") {
+    for table in all_between(
+        section_if_shown(page, "fits"),
+        "<table class=\"models\">",
+        "</table>",
+    ) {
         lines.push(format!("models tried rows {}", table_rows(table)));
     }
-    let progress = section(page, "progress");
+    let progress = section_if_shown(page, "progress");
     for article in all_between(progress, "<article class=\"group\" id=\"progress-", "</article>") {
         let number = article.split('"').next().unwrap_or("");
         let tables: Vec<String> = ["progress-parameters", "progress-models", "runs"]
@@ -276,6 +307,45 @@ fn demo_progress_report_structure_matches_the_golden_file() {
         "demo-progress-report-structure.txt",
         &structure(&report_html(&parts)),
     );
+}
+
+/// Golden file: `fixtures/golden/screen-report-structure.txt`, a simulated 384-well screen of
+/// eight compounds (every fourth inactive): the results block leads with the screen's answer, and
+/// the group-fit, progress-curve and trust sections, which have nothing to show on a screen, are
+/// left out of the page and its contents. Rewrite it as the tests above.
+#[test]
+fn screen_report_structure_matches_the_golden_file() {
+    use crate::simulate::screen::screen_plate;
+    let screen = screen_plate(PlateFormat::Wells384, 8, 4, 21, 33);
+    let plate = simulate(&screen.spec).unwrap();
+    let grid = read_text_cells(
+        wide_csv(&plate, &WideCsvOptions::default()).as_bytes(),
+        "screen.csv",
+    )
+    .unwrap();
+    let data = import_cells(&grid, &ImportOptions::default()).unwrap();
+    let layout_grid = read_text_cells(screen.layout_csv.as_bytes(), "screen-layout.csv").unwrap();
+    let layout = parse_layout(&layout_grid, data.plate).unwrap();
+    let layer = SettingLayer::default();
+    let results = analyse(data, layout, &layer);
+    assert!(results.screen.is_some() && results.fits.is_empty());
+    let record = record(&layer);
+    let parts = ReportParts::build(&results, &record).unwrap();
+    let page = report_html(&parts);
+    for id in ["fits", "progress", "trust"] {
+        assert!(!page.contains(&format!("<section id=\"{id}\">")), "{id} shown");
+        assert!(!page.contains(&format!("href=\"#{id}\"")), "{id} in the contents");
+    }
+    let results_part = section(&page, "results");
+    assert!(results_part.contains("8 compounds: "), "{results_part}");
+    assert!(results_part.contains("Z&#39; 0."), "{results_part}");
+    assert!(!results_part.contains("No group was fitted"));
+    // Every link of the contents leads to a section on the page.
+    let nav = all_between(&page, "<nav>", "</nav>").concat();
+    for id in all_between(&nav, "<a href=\"#", "\"") {
+        assert!(page.contains(&format!("<section id=\"{id}\">")), "{id}");
+    }
+    assert_matches_golden("screen-report-structure.txt", &structure(&page));
 }
 
 /// Independent of the golden file: one miniature cell per plate position, a link and a detail plot
