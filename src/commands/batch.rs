@@ -431,9 +431,25 @@ fn run_one_plate(
             (outcome, Some(schemas))
         }
         Err(error) => {
-            outcome.status = PlateStatus::Failed {
-                error: error_chain(&error),
-            };
+            let mut error = error_chain(&error);
+            // A failed plate leaves nothing from an earlier run that could pass for its results:
+            // its outputs and what the campaign kept of it are removed (the folder is platekin's,
+            // checked before any plate ran; a plate id never starts with '.').
+            let mut removed = false;
+            for folder in [&plate_folder, &store_folder] {
+                match std::fs::remove_dir_all(folder) {
+                    Ok(()) => removed |= folder == &plate_folder,
+                    Err(cause) if cause.kind() == std::io::ErrorKind::NotFound => {}
+                    Err(cause) => error.push_str(&format!(
+                        " (its earlier outputs in {} could not be removed: {cause}; they are not this run's)",
+                        folder.display()
+                    )),
+                }
+            }
+            if removed {
+                error.push_str(" (the outputs of its earlier run were removed)");
+            }
+            outcome.status = PlateStatus::Failed { error };
             (outcome, None)
         }
     }
