@@ -25,7 +25,11 @@ fn main() -> ExitCode {
         campaigns,
         plates,
         reads,
-        first_seed: 7_000,
+        // PLATEKIN_FIRST_SEED=20240917 with one campaign of 30 plates repeats the demo campaign.
+        first_seed: std::env::var("PLATEKIN_FIRST_SEED")
+            .ok()
+            .and_then(|seed| seed.parse().ok())
+            .unwrap_or(7_000),
         estimator,
     };
     let start = std::time::Instant::now();

@@ -271,7 +271,7 @@ fn batch_summary(
         let key: Vec<String> = fit.key.iter().map(|(n, v)| format!("{n}={v}")).collect();
         match (&fit.km, &fit.error) {
             (Some(km), _) => text.push_str(&format!(
-                "  pooled {}: {} plate(s), Km {} {}{}{}\n",
+                "  pooled {}: {} plate(s), Km {} {}{}{}{}\n",
                 key.join(", "),
                 fit.plates.len(),
                 crate::core::format::significant(km.value),
@@ -281,6 +281,11 @@ fn batch_summary(
                     crate::core::format::significant(low),
                     crate::core::format::significant(high)
                 )),
+                match fit.km_interval {
+                    Some(crate::campaign::pooled::KmInterval::ClusteredByPlate) => ", clustered by plate",
+                    Some(crate::campaign::pooled::KmInterval::ModelBased) => ", model-based: too few plates",
+                    None => "",
+                },
                 fit.scale_cv.map_or(String::new(), |cv| format!(
                     ", between-plate CV of {} {:.1}%",
                     fit.scale_name,
