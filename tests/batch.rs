@@ -167,6 +167,22 @@ fn thirty_plates_with_one_cut_short_give_29_ok_1_failed_and_exit_3() {
     assert_eq!(output.status.code(), Some(3));
     let reused = strings(&read_csv(&out.join("plates.csv")), "reused");
     assert_eq!(reused.iter().filter(|r| *r == "false").count(), 29, "{reused:?}");
+    // A plate that ran before and fails now leaves no stale results behind: its folder and what
+    // the campaign kept of it are removed, and its row says so.
+    assert!(out.join("plates/d1-p02/fit.json").exists());
+    cut_short(&root.path().join("exports/d1-p02.csv"));
+    let output = platekin(&args, root.path());
+    assert_eq!(output.status.code(), Some(3));
+    assert!(!out.join("plates/d1-p02").exists());
+    assert!(!out.join(".platekin-batch/d1-p02").exists());
+    let table = read_csv(&out.join("plates.csv"));
+    assert_eq!(strings(&table, "status")[1], "failed");
+    assert!(
+        strings(&table, "error")[1].contains("the outputs of its earlier run were removed"),
+        "{}",
+        strings(&table, "error")[1]
+    );
+    assert_eq!(read_parquet(&out.join("wells.parquet")).height(), 28 * 76);
 }
 
 /// Each group's parameters in a `fit.json`, by group and name: (value, se, ci95).
@@ -191,6 +207,30 @@ fn per_plate_constants_from_batch_equal_those_of_run_bit_for_bit() {
     args.extend(["--jobs", "2"]);
     let batch = platekin(&args, root.path());
     assert_eq!(batch.status.code(), Some(0), "{}", text(&batch.stderr));
+    // Positive and negative controls (the layout's `control` column) are no Michaelis-Menten
+    // group: each plate fits its two variants only, and the controls keep their rates for Z'.
+    let table = read_csv(&root.path().join("results/plates.csv"));
+    assert_eq!(strings(&table, "groups_fitted"), vec!["2", "2", "2"]);
+    assert!(strings(&table, "z_prime").iter().all(|z| !z.is_empty()));
+    let fit: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(root.path().join("results/plates/d1-p01/fit.json")).unwrap())
+            .unwrap();
+    let groups: Vec<String> = fit["groups"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|group| group["group"].to_string())
+        .collect();
+    assert_eq!(groups.len(), 2, "{groups:?}");
+    assert!(groups.iter().all(|g| !g.contains("positive")), "{groups:?}");
+    let wells = read_csv(&root.path().join("results/plates/d1-p01/wells.csv"));
+    let controls: Vec<String> = strings(&wells, "well")
+        .into_iter()
+        .zip(strings(&wells, "control"))
+        .filter(|(_, control)| control == "positive")
+        .map(|(well, _)| well)
+        .collect();
+    assert_eq!(controls.len(), 8, "{controls:?}");
     for plate in ["d1-p01", "d3-p01"] {
         let run = platekin(
             &[

@@ -9,12 +9,7 @@ use platekin::groups::rate_table::read_rate_table;
 
 fuzz_target!(|bytes: &[u8]| {
     const FILE: &str = "fuzz-table.csv";
-    let input = InputFile {
-        role: InputRole::Table,
-        name: FILE.to_string(),
-        path: None,
-        bytes: bytes.to_vec(),
-    };
+    let input = InputFile::new(InputRole::Table, FILE.to_string(), None, bytes.to_vec());
     match read_rate_table(&input, None, &FitSettings::default()) {
         Err(error) => platekin_fuzz::assert_error_names_a_place(&error.to_string(), FILE),
         Ok(table) => {

@@ -9,10 +9,9 @@ use std::collections::BTreeMap;
 
 use serde::{Deserialize, Serialize};
 
-use super::screening::{z_prime, ControlKind, ZPrime, CONTROL_FACTOR};
+use super::screening::{z_prime, ControlKind, ZPrime};
 use crate::core::units::ConcentrationUnit;
 use crate::groups::{GroupKey, GroupValue, ParameterReport};
-use crate::layout::Role;
 use crate::pipeline::RunResults;
 use crate::rates::flag_words;
 
@@ -162,12 +161,7 @@ pub fn digest(results: &RunResults) -> PlateDigest {
     let mut positive = Vec::new();
     let mut negative = Vec::new();
     for well in &analysis.wells {
-        let kind = well
-            .setup
-            .factors
-            .get(CONTROL_FACTOR)
-            .and_then(|value| ControlKind::from_factor(value));
-        match (kind, well.rate_value) {
+        match (well.setup.control(), well.rate_value) {
             (Some(ControlKind::Positive), Some(rate)) if rate.is_finite() => positive.push(rate),
             (Some(ControlKind::Negative), Some(rate)) if rate.is_finite() => negative.push(rate),
             _ => {}
@@ -181,7 +175,7 @@ pub fn digest(results: &RunResults) -> PlateDigest {
     let pool_points = analysis
         .wells
         .iter()
-        .filter(|well| well.setup.role == Role::Sample && well.used)
+        .filter(|well| well.setup.is_fit_sample() && well.used)
         .filter(|well| well.setup.inhibitor.is_none_or(|inhibitor| inhibitor == 0.0))
         .filter_map(|well| {
             let substrate = well.setup.substrate.filter(|s| s.is_finite() && *s > 0.0)?;

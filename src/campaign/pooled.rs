@@ -5,9 +5,7 @@
 //! Model: y_pi = k_p S_pi / (Km + S_pi) for well i of plate p, with y the rate per enzyme
 //! (rate / [E], 1/s, so k_p is the plate's kcat) where every well's rate is a concentration per
 //! second and its enzyme is known, else the rate itself (k_p is the plate's Vmax). Unweighted least
-//! squares (Levenberg-Marquardt, [`crate::fit::least_squares`]), all parameters kept positive;
-//! standard errors from s^2 (J'J)^-1 and intervals value +- t(0.975, n - P - 1) SE (Bates and
-//! Watts 1988, "Nonlinear Regression Analysis and Its Applications", Wiley).
+//! squares (Levenberg-Marquardt, [`crate::fit::least_squares`]), all parameters kept positive.
 //!
 //! Why a kcat per plate and a shared Km: the active enzyme in a well differs from day to day
 //! (dilution, storage, a new aliquot), which scales every rate of a plate by one factor; that
@@ -15,8 +13,25 @@
 //! substrate under the assay's conditions. One scale per plate absorbs the plate-to-plate activity
 //! so that it neither inflates the residuals nor leans on Km, and every plate's substrate series
 //! informs the one Km. The between-plate CV of the per-plate kcat (sample SD over mean) then
-//! measures the activity's reproducibility. Assumptions: Km truly the same on every plate (check
-//! the per-plate Km in the report), independent rate errors of equal variance, S known exactly.
+//! measures the activity's reproducibility.
+//!
+//! Km's interval is clustered by plate: a plate's wells share more than their activity (its
+//! substrate stock and dilution series, its temperature, its reader run, the rate estimator's
+//! correction made from the plate's own fit), so its residuals are not independent evidence, and
+//! the plates' Km may differ a little from each other beyond their wells' noise. The cluster-robust
+//! (sandwich) covariance V = G/(G - 1) B (sum_p J_p' r_p r_p' J_p) B, B = (J'J)^-1, with plates as
+//! clusters and the interval Km +- t(0.975, G - 1) SE, lets the plates' own scatter set the width
+//! (Liang and Zeger 1986, Biometrika 73:13; Cameron and Miller 2015, J Human Resources 50:317;
+//! from memory). It also holds when the wells' errors differ in size (the fit is unweighted). The
+//! per-plate scales' own scores vanish at the optimum, so the sandwich says nothing of them: their
+//! intervals stay the model-based s^2 (J'J)^-1 with t(n - P - 1) (Bates and Watts 1988, "Nonlinear
+//! Regression Analysis and Its Applications", Wiley), which `km_model_based` also gives for Km.
+//! The sandwich needs plates: below [`MIN_CLUSTERED_PLATES`] Km keeps the model-based interval
+//! with a warning. Checked by simulation (`simulate::pooled_study`: bias and coverage over many
+//! simulated campaigns; figures in DEVELOPERS.md).
+//!
+//! Assumptions: Km the same on every plate up to a scatter the clustering absorbs (check the
+//! per-plate Km in the report), plates independent, S known up to pipetting noise.
 
 use std::collections::BTreeMap;
 
@@ -25,10 +40,26 @@ use serde::{Deserialize, Serialize};
 
 use super::digest::{Estimate, PlateDigest, PoolPoint};
 use crate::core::stats::{median, summary, t_quantile_975};
-use crate::fit::least_squares::{fit_least_squares, LeastSquaresOptions, ResidualModel};
+use crate::fit::least_squares::{
+    cluster_robust_covariance, fit_least_squares, LeastSquaresOptions, ResidualModel,
+};
 
 /// The most pool factors `--pool-by` takes.
 pub const MAX_POOL_FACTORS: usize = 8;
+
+/// The fewest plates whose scatter sets Km's interval (the cluster-robust covariance); with fewer,
+/// the sandwich's meat rests on too few plates to be trusted and Km keeps the model-based interval.
+pub const MIN_CLUSTERED_PLATES: usize = 5;
+
+/// How Km's reported interval was made.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum KmInterval {
+    /// Cluster-robust by plate, t(G - 1).
+    ClusteredByPlate,
+    /// Model-based s^2 (J'J)^-1, t(n - P - 1): too few plates for the clustered one.
+    ModelBased,
+}
 
 /// One plate of a campaign as the pooled fits see it.
 #[derive(Debug, Clone, Copy)]
@@ -61,8 +92,13 @@ pub struct PooledFit {
     pub scale_name: String,
     /// The plates fitted, in run order.
     pub plates: Vec<PooledPlate>,
-    /// The shared Km.
+    /// The shared Km, with its interval clustered by plate (see `km_interval`).
     pub km: Option<Estimate>,
+    /// How `km`'s interval was made.
+    pub km_interval: Option<KmInterval>,
+    /// The shared Km with the model-based interval (every well independent evidence), for
+    /// comparison: narrower than the plates' scatter allows when plates differ.
+    pub km_model_based: Option<Estimate>,
     /// Mean of the per-plate scales.
     pub scale_mean: Option<f64>,
     /// Between-plate CV of the per-plate scales (sample SD / mean); `None` below two plates.
@@ -152,6 +188,8 @@ pub fn fit_shared_km(
         scale_name: scale_name.to_string(),
         plates: Vec::new(),
         km: None,
+        km_interval: None,
+        km_model_based: None,
         scale_mean: None,
         scale_cv: None,
         n: kept.iter().map(|p| p.substrate.len()).sum(),
@@ -235,7 +273,42 @@ pub fn fit_shared_km(
             n: plate.substrate.len(),
         })
         .collect();
-    let km = estimate(n_plates, substrate_unit);
+    let km_model_based = estimate(n_plates, substrate_unit);
+    let mut jacobian = DMatrix::zeros(fit.n, n_plates + 1);
+    model.jacobian(&result.parameters, &mut jacobian);
+    let clusters: Vec<std::ops::Range<usize>> = kept
+        .iter()
+        .scan(0, |first, plate| {
+            let range = *first..*first + plate.substrate.len();
+            *first = range.end;
+            Some(range)
+        })
+        .collect();
+    let clustered_se = (n_plates >= MIN_CLUSTERED_PLATES)
+        .then(|| cluster_robust_covariance(&jacobian, &result.residuals, &clusters))
+        .flatten()
+        .map(|covariance| covariance[(n_plates, n_plates)])
+        .filter(|variance| variance.is_finite() && *variance > 0.0)
+        .map(f64::sqrt);
+    let km = match (clustered_se, t_quantile_975(n_plates - 1).ok()) {
+        (Some(se), Some(quantile)) => {
+            fit.km_interval = Some(KmInterval::ClusteredByPlate);
+            let value = result.parameters[n_plates];
+            Estimate {
+                value,
+                se: Some(se),
+                ci95: Some([value - quantile * se, value + quantile * se]),
+                unit: substrate_unit.to_string(),
+            }
+        }
+        _ => {
+            fit.km_interval = Some(KmInterval::ModelBased);
+            fit.warnings.push(format!(
+                "Km's interval is model-based (every well independent evidence): {n_plates} plate(s) are too few for one that reflects the plate-to-plate scatter (needs {MIN_CLUSTERED_PLATES}); it is likely too narrow"
+            ));
+            km_model_based.clone()
+        }
+    };
     let highest = substrate.iter().copied().fold(f64::MIN, f64::max);
     if km.value > highest {
         fit.warnings.push(format!(
@@ -243,6 +316,8 @@ pub fn fit_shared_km(
         ));
     }
     fit.km = Some(km);
+    fit.km_model_based = Some(km_model_based);
+
     let scales: Vec<f64> = result.parameters[..n_plates].to_vec();
     let scale_summary = summary(&scales);
     fit.scale_mean = scale_summary.map(|s| s.mean);
@@ -431,6 +506,63 @@ mod tests {
         );
         let interval = km.ci95.unwrap();
         assert!(interval[0] < km.value && km.value < interval[1]);
+    }
+
+    #[test]
+    fn km_varying_from_plate_to_plate_widens_the_clustered_interval() {
+        // Six copies of the Puromycin series, each plate with its own scale and a Km that differs
+        // by a few percent (rates recomputed from the published fit's curve plus the published
+        // residuals): the wells of each plate agree with each other better than the plates do.
+        let (vmax, km) = (212.68370711, 0.06412123);
+        let series: Vec<PlateSeries> = (0..6)
+            .map(|plate| {
+                let scale = 1.0 + 0.05 * plate as f64;
+                let plate_km = km * (1.0 + 0.06 * (plate as f64 - 2.5));
+                let values: Vec<f64> = PUROMYCIN_SUBSTRATE
+                    .iter()
+                    .zip(PUROMYCIN_RATE)
+                    .map(|(&s, observed)| {
+                        let residual = observed - vmax * s / (km + s);
+                        scale * (vmax * s / (plate_km + s) + 0.2 * residual)
+                    })
+                    .collect();
+                series(&format!("p{plate}"), &PUROMYCIN_SUBSTRATE, &values)
+            })
+            .collect();
+        let fit = fit_shared_km(&series, "Vmax", "u", "ppm");
+        assert!(fit.error.is_none(), "{:?}", fit.error);
+        assert_eq!(fit.km_interval, Some(KmInterval::ClusteredByPlate));
+        let clustered = fit.km.unwrap();
+        let model_based = fit.km_model_based.unwrap();
+        assert_eq!(clustered.value, model_based.value, "one estimate, two intervals");
+        assert!(
+            clustered.se.unwrap() > model_based.se.unwrap(),
+            "{clustered:?} against {model_based:?}"
+        );
+        // t(0.975, 5) = 2.5706 (any t table, e.g. NIST/SEMATECH e-Handbook 1.3.6.7.2).
+        let [low, high] = clustered.ci95.unwrap();
+        assert_relative_eq!(
+            (high - low) / 2.0,
+            2.5706 * clustered.se.unwrap(),
+            max_relative = 1e-4
+        );
+    }
+
+    #[test]
+    fn few_plates_keep_the_model_based_interval_and_say_so() {
+        let fit = fit_shared_km(
+            &[series("treated", &PUROMYCIN_SUBSTRATE, &PUROMYCIN_RATE)],
+            "Vmax",
+            "u",
+            "ppm",
+        );
+        assert_eq!(fit.km_interval, Some(KmInterval::ModelBased));
+        assert_eq!(fit.km, fit.km_model_based);
+        assert!(
+            fit.warnings.iter().any(|w| w.contains("too few")),
+            "{:?}",
+            fit.warnings
+        );
     }
 
     #[test]

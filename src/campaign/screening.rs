@@ -10,28 +10,8 @@
 // The formula lives with the single-plate screen's quality figures; a campaign reuses it.
 pub use crate::screen::quality::{z_prime, ZPrime};
 
-/// The layout factor that marks control wells.
-pub const CONTROL_FACTOR: &str = "control";
-
-/// Which control a well is, from its `control` factor (case and spaces ignored).
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum ControlKind {
-    /// Full activity.
-    Positive,
-    /// No activity.
-    Negative,
-}
-
-impl ControlKind {
-    /// The kind a factor value names, if any.
-    pub fn from_factor(value: &str) -> Option<ControlKind> {
-        match value.trim().to_ascii_lowercase().as_str() {
-            "positive" | "pos" | "+" => Some(ControlKind::Positive),
-            "negative" | "neg" | "-" => Some(ControlKind::Negative),
-            _ => None,
-        }
-    }
-}
+// The control marks belong to the layout: the group fits leave such wells out as well.
+pub use crate::layout::{ControlKind, CONTROL_FACTOR};
 
 #[cfg(test)]
 mod tests {

@@ -275,7 +275,7 @@ fn batch_summary(
         let key: Vec<String> = fit.key.iter().map(|(n, v)| format!("{n}={v}")).collect();
         match (&fit.km, &fit.error) {
             (Some(km), _) => text.push_str(&format!(
-                "  pooled {}: {} plate(s), Km {} {}{}{}\n",
+                "  pooled {}: {} plate(s), Km {} {}{}{}{}\n",
                 key.join(", "),
                 fit.plates.len(),
                 crate::core::format::significant(km.value),
@@ -285,6 +285,11 @@ fn batch_summary(
                     crate::core::format::significant(low),
                     crate::core::format::significant(high)
                 )),
+                match fit.km_interval {
+                    Some(crate::campaign::pooled::KmInterval::ClusteredByPlate) => ", clustered by plate",
+                    Some(crate::campaign::pooled::KmInterval::ModelBased) => ", model-based: too few plates",
+                    None => "",
+                },
                 fit.scale_cv.map_or(String::new(), |cv| format!(
                     ", between-plate CV of {} {:.1}%",
                     fit.scale_name,
@@ -436,9 +441,25 @@ fn run_one_plate(
             (outcome, Some(schemas))
         }
         Err(error) => {
-            outcome.status = PlateStatus::Failed {
-                error: error_chain(&error),
-            };
+            let mut error = error_chain(&error);
+            // A failed plate leaves nothing from an earlier run that could pass for its results:
+            // its outputs and what the campaign kept of it are removed (the folder is platekin's,
+            // checked before any plate ran; a plate id never starts with '.').
+            let mut removed = false;
+            for folder in [&plate_folder, &store_folder] {
+                match std::fs::remove_dir_all(folder) {
+                    Ok(()) => removed |= folder == &plate_folder,
+                    Err(cause) if cause.kind() == std::io::ErrorKind::NotFound => {}
+                    Err(cause) => error.push_str(&format!(
+                        " (its earlier outputs in {} could not be removed: {cause}; they are not this run's)",
+                        folder.display()
+                    )),
+                }
+            }
+            if removed {
+                error.push_str(" (the outputs of its earlier run were removed)");
+            }
+            outcome.status = PlateStatus::Failed { error };
             (outcome, None)
         }
     }

@@ -55,6 +55,9 @@ pub struct InputFile {
     pub path: Option<PathBuf>,
     /// Its contents.
     pub bytes: Vec<u8>,
+    /// Lowercase hex SHA-256 of `bytes`, computed once when the file is read (a campaign's result
+    /// key and `run.json` both need it; hashing a large export twice costs a second pass).
+    sha256: String,
 }
 
 /// Why an input could not be read.
@@ -105,22 +108,23 @@ impl InputFile {
                 limit: MAX_INPUT_BYTES / (1024 * 1024),
             });
         }
-        Ok(InputFile {
+        Ok(InputFile::new(role, name, Some(path.to_path_buf()), bytes))
+    }
+
+    /// An input from bytes already in memory, hashed once here.
+    pub fn new(role: InputRole, name: String, path: Option<PathBuf>, bytes: Vec<u8>) -> InputFile {
+        InputFile {
             role,
             name,
-            path: Some(path.to_path_buf()),
+            path,
+            sha256: sha256_hex(&bytes),
             bytes,
-        })
+        }
     }
 
     /// A file compiled into the program (the demo's).
     pub fn embedded(role: InputRole, name: &str, text: &str) -> InputFile {
-        InputFile {
-            role,
-            name: name.to_string(),
-            path: None,
-            bytes: text.as_bytes().to_vec(),
-        }
+        InputFile::new(role, name.to_string(), None, text.as_bytes().to_vec())
     }
 
     /// Whether the file is a spreadsheet (XLSX, XLSM, XLSB, XLS, ODS), judged by its name.
@@ -128,9 +132,9 @@ impl InputFile {
         is_spreadsheet_name(&self.name)
     }
 
-    /// Lowercase hex SHA-256 of the bytes.
+    /// Lowercase hex SHA-256 of the bytes (computed when the file was read).
     pub fn sha256(&self) -> String {
-        sha256_hex(&self.bytes)
+        self.sha256.clone()
     }
 }
 
@@ -157,6 +161,13 @@ pub fn sha256_hex(bytes: &[u8]) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_files_hash_is_made_once_and_matches_its_bytes() {
+        let file = InputFile::embedded(InputRole::Data, "abc.csv", "abc");
+        assert_eq!(file.sha256(), sha256_hex(b"abc"));
+        assert_eq!(file.sha256, file.sha256());
+    }
 
     #[test]
     fn sha256_matches_the_fips_example() {

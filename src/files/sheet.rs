@@ -1051,17 +1051,19 @@ mod tests {
 
     #[test]
     fn spreadsheets_are_known_by_their_first_bytes_too() {
-        let zip = InputFile {
-            role: crate::files::input::InputRole::Data,
-            name: "/dev/fd/63".into(),
-            path: None,
-            bytes: b"PK\x03\x04rest".to_vec(),
-        };
+        let zip = InputFile::new(
+            crate::files::input::InputRole::Data,
+            "/dev/fd/63".into(),
+            None,
+            b"PK\x03\x04rest".to_vec(),
+        );
         assert!(looks_like_spreadsheet(&zip));
-        let text = InputFile {
-            bytes: b"Time [s],A1\n".to_vec(),
-            ..zip
-        };
+        let text = InputFile::new(
+            crate::files::input::InputRole::Data,
+            "/dev/fd/63".into(),
+            None,
+            b"Time [s],A1\n".to_vec(),
+        );
         assert!(!looks_like_spreadsheet(&text));
     }
 }

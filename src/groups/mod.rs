@@ -29,7 +29,7 @@ use crate::fit::{
     LinearisedEstimates,
 };
 use crate::fit::{ParameterEstimate, StartMethod};
-use crate::layout::{Layout, Role};
+use crate::layout::Layout;
 use crate::rates::background::{Background, BackgroundLaw};
 use crate::rates::{Flag, PlateAnalysis, WellResult};
 use crate::signal::BlankUncertainty;
@@ -300,7 +300,7 @@ pub fn sample_groups<'a>(
         analysis
             .wells
             .iter()
-            .filter(|w| w.setup.role == Role::Sample)
+            .filter(|w| w.setup.is_fit_sample())
             .map(|well| (group_key(well, layout, true), well)),
     )
 }
@@ -328,7 +328,7 @@ pub fn fit_groups_with(
         analysis
             .wells
             .iter()
-            .filter(|w| w.setup.role == Role::Sample)
+            .filter(|w| w.setup.is_fit_sample())
             .map(|well| (group_key(well, layout, false), well)),
     );
     // A group that varies the inhibitor stays whole only for an inhibitor model (or auto).

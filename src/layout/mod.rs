@@ -197,6 +197,31 @@ impl FromStr for Role {
     }
 }
 
+/// The layout factor that marks control wells (`positive` or `negative`): wells run for the
+/// plate's quality (Z'), at one condition each, so they are never a Michaelis-Menten fit group nor
+/// points of one.
+pub const CONTROL_FACTOR: &str = "control";
+
+/// Which control a well is, from its `control` factor (case and spaces ignored).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ControlKind {
+    /// Full activity.
+    Positive,
+    /// No activity.
+    Negative,
+}
+
+impl ControlKind {
+    /// The kind a factor value names, if any.
+    pub fn from_factor(value: &str) -> Option<ControlKind> {
+        match value.trim().to_ascii_lowercase().as_str() {
+            "positive" | "pos" | "+" => Some(ControlKind::Positive),
+            "negative" | "neg" | "-" => Some(ControlKind::Negative),
+            _ => None,
+        }
+    }
+}
+
 /// The concentrations a layout may give a well.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
 pub enum Quantity {
@@ -303,6 +328,19 @@ pub struct WellSetup {
 }
 
 impl WellSetup {
+    /// The control the well's `control` factor marks, if any.
+    pub fn control(&self) -> Option<ControlKind> {
+        self.factors
+            .get(CONTROL_FACTOR)
+            .and_then(|value| ControlKind::from_factor(value))
+    }
+
+    /// Whether the well is a sample of a Michaelis-Menten group: a `sample` that is not a
+    /// positive or negative control.
+    pub fn is_fit_sample(&self) -> bool {
+        self.role == Role::Sample && self.control().is_none()
+    }
+
     /// The well's concentration of `quantity`, in the layout's unit for it.
     pub fn quantity(&self, quantity: Quantity) -> Option<f64> {
         match quantity {

@@ -32,6 +32,28 @@ fn assert_mentions(message: &str, parts: &[&str]) {
 }
 
 #[test]
+fn control_wells_are_marked_and_are_no_fit_samples() {
+    let layout = parse_csv(
+        "well,role,substrate [uM],enzyme [nM],variant,control\nA1:A3,sample,10,5,EstX,\nB1,sample,500,5,EstX, Positive \nB2,no-enzyme,500,,,neg\nB3,sample,500,5,EstX,batch-2\n",
+        PlateFormat::Wells96,
+    )
+    .unwrap();
+    let setup = |text: &str| &layout.wells[&well(text)];
+    assert_eq!(setup("A1").control(), None);
+    assert!(setup("A1").is_fit_sample());
+    assert_eq!(setup("B1").control(), Some(ControlKind::Positive));
+    assert!(
+        !setup("B1").is_fit_sample(),
+        "a positive control is no fit sample"
+    );
+    assert_eq!(setup("B2").control(), Some(ControlKind::Negative));
+    assert!(!setup("B2").is_fit_sample());
+    // Another value of the column is an ordinary factor: the well stays a sample.
+    assert_eq!(setup("B3").control(), None);
+    assert!(setup("B3").is_fit_sample());
+}
+
+#[test]
 fn roles_parse_in_every_accepted_spelling() {
     for text in ["no-enzyme", "No Enzyme", "no_enzyme", "NOENZYME", " no  enzyme "] {
         assert_eq!(Role::from_str(text), Ok(Role::NoEnzyme), "{text}");

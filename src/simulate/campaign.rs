@@ -109,7 +109,13 @@ fn layout_groups() -> Vec<LayoutGroup> {
 
 /// The campaign's plates: `n_plates` spread evenly over three days, `n_reads` reads every 10 s.
 pub fn campaign_plates(n_plates: usize, n_reads: usize) -> Vec<CampaignPlate> {
-    let mut generator = ChaCha8Rng::seed_from_u64(CAMPAIGN_SEED);
+    campaign_plates_seeded(n_plates, n_reads, CAMPAIGN_SEED)
+}
+
+/// The plates of another campaign of the same design, drawn from `seed` (plate activities,
+/// pipetting and noise), for simulation studies over many campaigns.
+pub fn campaign_plates_seeded(n_plates: usize, n_reads: usize, seed: u64) -> Vec<CampaignPlate> {
+    let mut generator = ChaCha8Rng::seed_from_u64(seed);
     let jitter = Normal::new(1.0, 0.04).ok();
     let per_day = n_plates.div_ceil(3).max(1);
     (0..n_plates)

@@ -33,6 +33,7 @@ pub mod campaign;
 pub mod demo;
 pub mod fluorescence;
 pub mod kinetics;
+pub mod pooled_study;
 pub mod screen;
 pub mod study;
 pub mod writers;

@@ -386,7 +386,7 @@ fn true_value(truths: &[Truth], variant: &str, parameter: &str) -> Option<f64> {
 /// a rayon worker, lets the waiting worker steal further plates onto the same stack, nesting
 /// hundreds of plates deep until the stack overflows (seen at 400 plates). Plain threads wait
 /// without stealing.
-fn analyse_plates_on_threads<T: Send>(plates: usize, analyse: impl Fn(u64) -> T + Sync) -> Vec<T> {
+pub(super) fn analyse_plates_on_threads<T: Send>(plates: usize, analyse: impl Fn(u64) -> T + Sync) -> Vec<T> {
     let next_plate = std::sync::atomic::AtomicUsize::new(0);
     let workers = std::thread::available_parallelism()
         .map_or(1, |n| n.get())

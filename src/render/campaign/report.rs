@@ -291,7 +291,7 @@ fn pooled_section(record: &CampaignRecord<'_>, html: &mut String) {
     }
     let _ = writeln!(
         html,
-        "<h2 id=\"pooled\">Pooled fits across plates (by {})</h2>\n<p>The wells of every plate sharing the values below are fitted together to v = k<sub>plate</sub> S / (Km + S): one Km shared by the plates and one kcat per plate (rates divided by the enzyme concentration; Vmax where the enzyme or the rate's unit is unknown), since the active enzyme varies from day to day while Km should not. The between-plate CV is the sample SD of the per-plate kcat over their mean. Check that the per-plate Km above agree before relying on a pooled Km.</p>",
+        "<h2 id=\"pooled\">Pooled fits across plates (by {})</h2>\n<p>The wells of every plate sharing the values below are fitted together to v = k<sub>plate</sub> S / (Km + S): one Km shared by the plates and one kcat per plate (rates divided by the enzyme concentration; Vmax where the enzyme or the rate's unit is unknown), since the active enzyme varies from day to day while Km should not. The between-plate CV is the sample SD of the per-plate kcat over their mean. Km's 95% interval is clustered by plate (a cluster-robust sandwich covariance with t(plates - 1)), so the plates' own scatter sets its width; with fewer than 5 plates it is model-based and says so. Positive and negative controls are left out. Check that the per-plate Km above agree before relying on a pooled Km.</p>",
         escape(&record.pool_by.join(", "))
     );
     if !record.unknown_pool_factors.is_empty() {
