@@ -45,14 +45,12 @@ pub fn group_key_text(key: &GroupKey) -> String {
 
 /// A group's label as a reader scans it: the named factors first (`variant FenA-wt`), then the
 /// numeric ones with their unit after the number (`enzyme 4 nM`), so that what tells the groups
-/// apart comes first.
+/// apart comes first. A factor the group's wells leave empty (a `control` column filled only on
+/// the control wells) says nothing and is left out.
 pub fn group_label(key: &GroupKey) -> String {
-    if key.values.is_empty() {
-        return "all samples".to_string();
-    }
     let named = key.values.iter().filter_map(|(name, value)| match value {
-        GroupValue::Text(text) => Some(format!("{name} {text}")),
-        GroupValue::Number(_) => None,
+        GroupValue::Text(text) if !text.trim().is_empty() => Some(format!("{name} {text}")),
+        GroupValue::Text(_) | GroupValue::Number(_) => None,
     });
     let numeric = key.values.iter().filter_map(|(name, value)| match value {
         GroupValue::Number(number) => Some(match name.split_once(" [") {
@@ -63,7 +61,11 @@ pub fn group_label(key: &GroupKey) -> String {
         }),
         GroupValue::Text(_) => None,
     });
-    named.chain(numeric).collect::<Vec<_>>().join(", ")
+    let parts: Vec<String> = named.chain(numeric).collect();
+    if parts.is_empty() {
+        return "all samples".to_string();
+    }
+    parts.join(", ")
 }
 
 /// Why a point was left out of a group fit, in words.
@@ -371,10 +373,11 @@ mod tests {
         values.insert("enzyme [nM]".to_string(), GroupValue::Number(4.0));
         values.insert("inhibitor [uM]".to_string(), GroupValue::Number(2.5));
         values.insert("batch".to_string(), GroupValue::Number(3.0));
+        values.insert("control".to_string(), GroupValue::Text(String::new()));
         let key = GroupKey { values };
         assert_eq!(
             group_key_text(&key),
-            "batch=3.0, enzyme [nM]=4.0, inhibitor [uM]=2.5, variant=wt"
+            "batch=3.0, control=, enzyme [nM]=4.0, inhibitor [uM]=2.5, variant=wt"
         );
         assert_eq!(
             group_label(&key),
