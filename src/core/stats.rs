@@ -1,6 +1,7 @@
 //! The statistics every layer shares, written once: median, mean and sample standard deviation,
 //! the ordinary least-squares straight line, Student's t and Fisher's F quantiles, AICc and the
-//! extra-sum-of-squares F test of nested models, and percentiles of a sorted sample.
+//! extra-sum-of-squares F test of nested models, percentiles of a sorted sample, and evenly spaced
+//! picks from a long series.
 //!
 //! # Formulas
 //! * Sample SD `s = sqrt(sum (x - mean)^2 / (n - 1))`, standard error of the mean `s / sqrt(n)`.
@@ -279,6 +280,21 @@ pub fn extra_replicate_variance(groups: &[Vec<(f64, f64)>]) -> Option<(f64, usiz
     ))
 }
 
+/// `count` indices evenly spaced over `0..len`: the first and the last among them, increasing and
+/// distinct; every index when `count >= len`, and the first `count` when `count < 2`. Index `i` is
+/// `round(i (len - 1) / (count - 1))`, so steps differ by at most one.
+pub fn evenly_spaced_indices(len: usize, count: usize) -> Vec<usize> {
+    if count >= len {
+        return (0..len).collect();
+    }
+    if count < 2 {
+        return (0..count).collect();
+    }
+    (0..count)
+        .map(|i| (i * (len - 1) + (count - 1) / 2) / (count - 1))
+        .collect()
+}
+
 /// The `fraction` percentile of an ascending sample by linear interpolation between order
 /// statistics (position `fraction (n - 1)`); NaN for an empty sample.
 pub fn percentile(sorted: &[f64], fraction: f64) -> f64 {
@@ -419,5 +435,25 @@ mod tests {
         assert_eq!(percentile(&sorted, 0.25), 2.0);
         assert_relative_eq!(percentile(&sorted, 0.1), 1.4, max_relative = 1e-14);
         assert!(percentile(&[], 0.5).is_nan());
+    }
+
+    #[test]
+    fn evenly_spaced_indices_keep_both_ends_and_are_distinct_and_increasing() {
+        for len in 0..300 {
+            for count in [0, 1, 2, 3, 7, 120, 299] {
+                let kept = evenly_spaced_indices(len, count);
+                assert_eq!(kept.len(), count.min(len), "len {len} count {count}");
+                assert!(
+                    kept.windows(2).all(|pair| pair[0] < pair[1]),
+                    "len {len} count {count}"
+                );
+                if count >= 2 && len >= 2 {
+                    assert_eq!((kept[0], kept[kept.len() - 1]), (0, len - 1));
+                }
+            }
+        }
+        // 2000 reads thinned to 250: steps of 8 or 9 reads (2000 / 250 = 8.0 by hand).
+        let kept = evenly_spaced_indices(2000, 250);
+        assert!(kept.windows(2).all(|pair| (8..=9).contains(&(pair[1] - pair[0]))));
     }
 }

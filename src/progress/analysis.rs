@@ -31,7 +31,7 @@ use super::trust::{
 use crate::config::{AnalysisSettings, ProgressMode, Readout};
 use crate::core::format::significant;
 use crate::core::plate::WellId;
-use crate::core::stats::{median, straight_line, t_quantile_975};
+use crate::core::stats::{evenly_spaced_indices, median, straight_line, t_quantile_975};
 use crate::groups::{sample_groups, GroupFit, GroupKey, ParameterReport};
 use crate::import::KineticData;
 use crate::layout::Layout;
@@ -45,6 +45,14 @@ pub const S0_DISAGREEMENT: f64 = 0.10;
 
 /// Correlation above which a pair of parameters is reported as not separable.
 pub const CORRELATION_WARNING: f64 = 0.99;
+
+/// The most reads of one well a progress-curve fit takes. A longer trace is fitted on this many
+/// reads evenly spaced over it (the first and last always among them). Why: the fit's cost and
+/// memory grow with the reads (a 1536-well x 2000-read plate held 1.5 million points per group and
+/// took 640 MB and 97 s), while a curve's shape is fixed by far fewer; the interval is clustered by
+/// well, so it stays honest whatever the number of reads (a well's reads are not independent
+/// evidence about kcat and Km anyway). Every read stays in the tables and the initial rates.
+pub const PROGRESS_READS_PER_WELL: usize = 250;
 
 /// Why a sample well is left out of its group's progress-curve fit.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -548,6 +556,8 @@ fn well_curves(
         .ok_or("the layout gives no enzyme concentration, so kcat cannot be separated from Vmax")?;
     let mut curves = Vec::new();
     let mut disagreements = Vec::new();
+    // The read counts of the wells whose traces were thinned for the fit.
+    let mut thinned_wells: Vec<usize> = Vec::new();
     for well in input.wells {
         let mut leave = |reason: ProgressLeftOutReason| {
             left_out.push(ProgressLeftOut {
@@ -626,6 +636,12 @@ fn well_curves(
                 ));
             }
         }
+        if times_s.len() > PROGRESS_READS_PER_WELL {
+            thinned_wells.push(times_s.len());
+            let kept = evenly_spaced_indices(times_s.len(), PROGRESS_READS_PER_WELL);
+            times_s = kept.iter().map(|&i| times_s[i]).collect();
+            values = kept.iter().map(|&i| values[i]).collect();
+        }
         starts.push(SubstrateStart {
             layout: s0,
             from_signal: s0_signal,
@@ -651,6 +667,17 @@ fn well_curves(
             100.0 * S0_DISAGREEMENT,
             disagreements.len(),
             disagreements.join(", ")
+        ));
+    }
+    if let (Some(fewest), Some(most)) = (thinned_wells.iter().min(), thinned_wells.iter().max()) {
+        let reads = if fewest == most {
+            fewest.to_string()
+        } else {
+            format!("{fewest}-{most}")
+        };
+        warnings.push(format!(
+            "{} well(s) hold {reads} reads: the progress fit used {PROGRESS_READS_PER_WELL} of each, evenly spaced from the first to the last (the interval is clustered by well; every read stays in the tables and the initial rates)",
+            thinned_wells.len()
         ));
     }
     if settings.progress.s0_from_signal && settings.readout != Readout::Substrate {

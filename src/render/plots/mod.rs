@@ -303,15 +303,9 @@ pub(crate) fn padded_range(values: impl IntoIterator<Item = f64>, include_zero: 
 /// than it has pixels, and drawing every read of a 2000-read export made a 1536-well report
 /// 425 MB; the numbers themselves stay in the CSV and JSON tables.
 pub(crate) fn thinned<T: Copy>(points: &[T], max: usize) -> Vec<T> {
-    let n = points.len();
-    if n <= max {
-        return points.to_vec();
-    }
-    if max < 2 {
-        return points.iter().take(max).copied().collect();
-    }
-    (0..max)
-        .map(|i| points[(i * (n - 1) + (max - 1) / 2) / (max - 1)])
+    crate::core::stats::evenly_spaced_indices(points.len(), max)
+        .into_iter()
+        .map(|i| points[i])
         .collect()
 }
 

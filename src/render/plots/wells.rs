@@ -55,8 +55,11 @@ pub struct WellView {
     pub role: Option<Role>,
     /// Substrate concentration, layout unit.
     pub substrate: Option<f64>,
-    /// Product formed at each read (None where unreadable), in the fit's units.
-    pub trace: Vec<Option<f64>>,
+    /// The readable reads a figure draws, (time s, product formed in the fit's units): every read
+    /// of a trace up to [`DETAIL_LINE_POINTS`], else those evenly spaced, the window's reads (up to
+    /// [`MARKED_READS`]) and the lowest and highest read. Why not every read: a 1536-well plate of
+    /// 2000 reads held 49 MB of converted traces for figures that draw at most 600 points each.
+    pub trace: Vec<(f64, f64)>,
     /// Initial-rate window (s).
     pub window: Option<(f64, f64)>,
     /// The window's straight line: (intercept, slope) in the trace's units.
@@ -120,6 +123,40 @@ impl PlateView {
     }
 }
 
+/// A detail plot marks every read of a trace up to this many; a longer trace is drawn as a line
+/// with markers on (up to this many of) the window's reads only, which keeps a 384-well page's
+/// 384 detail plots to a few MB.
+const MARKED_READS: usize = 120;
+
+/// A plot 420 px wide shows no more than this many points of a long trace's line.
+const DETAIL_LINE_POINTS: usize = 600;
+
+/// The reads of one well a figure draws (see [`WellView::trace`]), in time order.
+fn drawn_reads(times_s: &[f64], formed: &[Option<f64>], window: Option<(f64, f64)>) -> Vec<(f64, f64)> {
+    let readable: Vec<(f64, f64)> = times_s
+        .iter()
+        .zip(formed)
+        .filter_map(|(t, value)| value.map(|v| (*t, v)))
+        .collect();
+    if readable.len() <= DETAIL_LINE_POINTS {
+        return readable;
+    }
+    let mut kept = crate::core::stats::evenly_spaced_indices(readable.len(), DETAIL_LINE_POINTS);
+    if let Some((start, end)) = window {
+        let in_window: Vec<usize> = (0..readable.len())
+            .filter(|&i| readable[i].0 >= start && readable[i].0 <= end)
+            .collect();
+        kept.extend(super::thinned(&in_window, MARKED_READS));
+    }
+    // The axis spans every read, so the lowest and highest stay.
+    let by_value = |a: &usize, b: &usize| readable[*a].1.total_cmp(&readable[*b].1);
+    kept.extend((0..readable.len()).min_by(by_value));
+    kept.extend((0..readable.len()).max_by(by_value));
+    kept.sort_unstable();
+    kept.dedup();
+    kept.into_iter().map(|i| readable[i]).collect()
+}
+
 /// Builds the plate view of a run.
 pub fn plate_view(results: &RunResults) -> PlateView {
     let data = &results.data;
@@ -164,7 +201,11 @@ pub fn plate_view(results: &RunResults) -> PlateView {
             (None | Some(Role::Empty), ..) => {}
             (Some(role), Some(result), Some(raw)) => {
                 view.state = WellState::Analysed;
-                view.trace = signal.well_product_formed(well, raw);
+                view.trace = drawn_reads(
+                    &data.times_s,
+                    &signal.well_product_formed(well, raw),
+                    result.rate.window_s,
+                );
                 view.window = result.rate.window_s;
                 view.line = result.rate.fit.map(|fit| (fit.intercept, fit.slope));
                 view.rate = result.rate_value.zip(result.rate_se);
@@ -440,7 +481,7 @@ impl Overview<'_> {
                 .clone()
                 .shrink((3, font as u32 + 5), (w - 6, h - font as u32 - 8 - foot));
             let t_range = padded_range(self.view.times_s.iter().copied(), false);
-            let y_range = padded_range(well.trace.iter().flatten().copied(), false);
+            let y_range = padded_range(well.trace.iter().map(|p| p.1), false);
             let mut chart = drawn(
                 ChartBuilder::on(&plot_area).build_cartesian_2d(t_range.0..t_range.1, y_range.0..y_range.1),
             )?;
@@ -450,13 +491,7 @@ impl Overview<'_> {
                     ORANGE.mix(0.3).filled(),
                 ))))?;
             }
-            let points: Vec<(f64, f64)> = self
-                .view
-                .times_s
-                .iter()
-                .zip(&well.trace)
-                .filter_map(|(t, value)| value.map(|v| (*t, v)))
-                .collect();
+            let points = &well.trace;
             // The fitted line goes under the curve so the reads in the window stay visible.
             if let (Some((start, end)), Some((intercept, slope))) = (well.window, well.line) {
                 drawn(chart.draw_series(LineSeries::new(
@@ -465,7 +500,7 @@ impl Overview<'_> {
                 )))?;
             }
             drawn(chart.draw_series(LineSeries::new(
-                super::thinned(&points, MINIATURE_LINE_POINTS),
+                super::thinned(points, MINIATURE_LINE_POINTS),
                 BLUE.stroke_width(1),
             )))?;
         } else if well.state == WellState::NoData {
@@ -630,7 +665,7 @@ impl Drawing for WellDetail<'_> {
         };
         let caption = format!("Well {} ({role}{substrate}){flags}", well.well);
         let t_range = padded_range(self.view.times_s.iter().copied(), false);
-        let y_range = padded_range(well.trace.iter().flatten().copied(), false);
+        let y_range = padded_range(well.trace.iter().map(|p| p.1), false);
         let mut chart = drawn(
             ChartBuilder::on(root)
                 .caption(caption, text_style(super::text_px::TITLE, BLACK))
@@ -670,23 +705,12 @@ impl Drawing for WellDetail<'_> {
             .label("fitted straight line")
             .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 16, y)], BLACK.stroke_width(2)));
         }
-        let points: Vec<(f64, f64)> = self
-            .view
-            .times_s
-            .iter()
-            .zip(&well.trace)
-            .filter_map(|(t, value)| value.map(|v| (*t, v)))
-            .collect();
-        // Up to MARKED_READS reads each get a marker; longer traces are a line with markers only
-        // inside the window, which keeps a 384-well page's 384 detail plots to a few MB.
-        // A plot 420 px wide shows no more than DETAIL_LINE_POINTS of a long trace.
-        const MARKED_READS: usize = 120;
-        const DETAIL_LINE_POINTS: usize = 600;
+        let points = &well.trace;
         let marked: Vec<(f64, f64)> = if points.len() <= MARKED_READS {
             points.clone()
         } else {
             drawn(chart.draw_series(LineSeries::new(
-                super::thinned(&points, DETAIL_LINE_POINTS),
+                super::thinned(points, DETAIL_LINE_POINTS),
                 BLUE.stroke_width(1),
             )))?;
             let (start, end) = well.window.unwrap_or((f64::NAN, f64::NAN));
@@ -758,12 +782,11 @@ mod tests {
                 continue;
             };
             let well = view.get(result.well).unwrap();
-            let points: Vec<(f64, f64)> = view
-                .times_s
+            let points: Vec<(f64, f64)> = well
+                .trace
                 .iter()
-                .zip(&well.trace)
-                .filter(|(t, _)| **t >= start - 1e-9 && **t <= end + 1e-9)
-                .filter_map(|(t, v)| v.map(|v| (*t, v)))
+                .copied()
+                .filter(|(t, _)| *t >= start - 1e-9 && *t <= end + 1e-9)
                 .collect();
             let (times, values): (Vec<f64>, Vec<f64>) = points.iter().copied().unzip();
             let refit = crate::core::stats::straight_line(&times, &values).unwrap();
