@@ -18,6 +18,7 @@ fn main() -> ExitCode {
             "clean" => Some(StudyDesign::Clean),
             "realistic" => Some(StudyDesign::Realistic),
             "inhibition" => Some(StudyDesign::Inhibition),
+            "dense" => Some(StudyDesign::DenseReads),
             _ => None,
         })
         .collect();

@@ -14,6 +14,9 @@
 //! * `inhibition`: one variant (kcat 10 /s, Km 50 uM, 5 nM) with a competitive inhibitor (Ki
 //!   5 uM): seven [S] from 10 to 640 uM by four [I] (0 to 10 uM) in duplicate, realistic errors,
 //!   fitted with the competitive model.
+//! * `dense`: the clean design read every 2 s for 15 min (451 reads), so that the progress-curve
+//!   fit takes 250 of each well's reads, evenly spaced
+//!   (`PROGRESS_READS_PER_WELL` in `progress::analysis`): its coverage checks the thinned fit.
 
 use std::collections::BTreeMap;
 
@@ -39,6 +42,8 @@ pub enum StudyDesign {
     Realistic,
     /// A competitive-inhibition [S] x [I] plate with realistic errors.
     Inhibition,
+    /// The clean plate read every 2 s (more reads than a progress fit takes).
+    DenseReads,
 }
 
 impl StudyDesign {
@@ -48,6 +53,7 @@ impl StudyDesign {
             StudyDesign::Clean => "clean",
             StudyDesign::Realistic => "realistic",
             StudyDesign::Inhibition => "inhibition",
+            StudyDesign::DenseReads => "dense",
         }
     }
 }
@@ -166,11 +172,11 @@ const REALISTIC_DEAD_TIME_S: f64 = 30.0;
 fn design_spec(design: StudyDesign, seed: u64) -> (SimulationSpec, Vec<Truth>) {
     let mut layout = Vec::new();
     let variants: Vec<Truth> = match design {
-        StudyDesign::Clean | StudyDesign::Realistic => CLEAN_VARIANTS.to_vec(),
+        StudyDesign::Clean | StudyDesign::Realistic | StudyDesign::DenseReads => CLEAN_VARIANTS.to_vec(),
         StudyDesign::Inhibition => vec![INHIBITED],
     };
     match design {
-        StudyDesign::Clean | StudyDesign::Realistic => {
+        StudyDesign::Clean | StudyDesign::Realistic | StudyDesign::DenseReads => {
             // Eight [S] from 0.1 to 13 x Km, geometric; columns 1-3 and 4-6 the variants in
             // triplicate, 7 and 8 no-enzyme controls at each variant's levels, 9 blanks.
             for (index, variant) in variants.iter().enumerate() {
@@ -218,12 +224,17 @@ fn design_spec(design: StudyDesign, seed: u64) -> (SimulationSpec, Vec<Truth>) {
             });
         }
     }
-    let realistic = design != StudyDesign::Clean;
+    let realistic = matches!(design, StudyDesign::Realistic | StudyDesign::Inhibition);
+    let (reads, read_interval_s) = if design == StudyDesign::DenseReads {
+        (451, 2.0)
+    } else {
+        (46, 20.0)
+    };
     let spec = SimulationSpec {
         run_name: format!("coverage study, {} design, plate {seed}", design.name()),
         metadata: Vec::new(),
         format: crate::core::plate::PlateFormat::Wells96,
-        read_times_s: (0..46).map(|read| 20.0 * f64::from(read)).collect(),
+        read_times_s: (0..reads).map(|read| read_interval_s * f64::from(read)).collect(),
         wavelength_nm: 405.0,
         temperature_set_point_c: 30.0,
         temperature_jitter_sd_c: 0.0,
@@ -277,7 +288,7 @@ fn analysis_settings(
         },
         ..AnalysisSettings::default()
     };
-    if design != StudyDesign::Clean {
+    if matches!(design, StudyDesign::Realistic | StudyDesign::Inhibition) {
         settings.rates.dead_time_s = REALISTIC_DEAD_TIME_S;
     }
     settings
