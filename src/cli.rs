@@ -186,6 +186,14 @@ pub struct RunArgs {
     /// The unit of kcat and kcat/Km in every output: 1/s (default) or 1/min.
     #[arg(long, value_name = "1/s|1/min")]
     pub kcat_unit: Option<String>,
+    /// The unit of every rate (tables, fit.json, summary, report): a concentration per s, min or
+    /// h, such as uM/min or nM/s (default: the layout's unit per second, uM/s for a layout in uM).
+    #[arg(long, value_name = "UNIT")]
+    pub rate_unit: Option<String>,
+    /// The enzyme's molecular weight in kDa: with an enzyme given as mg/mL or ug/mL in the
+    /// layout, kcat is computed beside the specific activity (U/mg).
+    #[arg(long, value_name = "KDA")]
+    pub enzyme_mw: Option<f64>,
     /// Dead time: reads before this many seconds are ignored.
     #[arg(long, value_name = "SECONDS")]
     pub skip: Option<f64>,
@@ -312,6 +320,8 @@ impl RunArgs {
             pathlength_from: self.pathlength_from.clone(),
             water_reference: self.water_reference,
             kcat_unit: self.kcat_unit.clone(),
+            rate_unit: self.rate_unit.clone(),
+            enzyme_mw: self.enzyme_mw,
             ..self.models.layer().over(self.read.layer())
         }
     }

@@ -517,3 +517,157 @@ fn kcat_per_minute_is_sixty_times_per_second_everywhere() {
     assert_eq!(bad.status.code(), Some(2));
     assert!(text(&bad.stderr).contains("kcat-unit"), "{}", text(&bad.stderr));
 }
+
+/// The column of `header` in a run's CSV table, as numbers (empty cells as `None`). The columns
+/// read here stand before any free text, so splitting at commas is safe.
+fn csv_column(path: &std::path::Path, header: &str) -> Vec<Option<f64>> {
+    let table = std::fs::read_to_string(path).unwrap();
+    let mut lines = table.lines();
+    let headers: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let index = headers
+        .iter()
+        .position(|h| *h == header)
+        .unwrap_or_else(|| panic!("no column {header} in {headers:?}"));
+    lines
+        .map(|line| line.split(',').nth(index).and_then(|cell| cell.parse().ok()))
+        .collect()
+}
+
+/// `--rate-unit nM/min` writes every rate 1000 x 60 times its uM/s value: nano is 1e-9 and micro
+/// 1e-6, one minute is 60 s (SI Brochure, 9th edition, 2019, tables 7 and 8). The wells' and the
+/// conditions' rates, Vmax with its SE and intervals, the headers, fit.json's unit and the summary
+/// line all change together; Km and kcat do not; settings.toml repeats the unit, and the assay
+/// file's `rate-unit` key does what the flag does.
+#[test]
+fn rates_in_nanomolar_per_minute_everywhere() {
+    let scratch = tempfile::tempdir().unwrap();
+    let base = ["--pathlength", "0.55"];
+    let run = |extra: &[&str]| {
+        let mut args = base.to_vec();
+        args.extend_from_slice(extra);
+        let output = run_demo_plate(scratch.path(), &args);
+        assert!(output.status.success(), "{}", text(&output.stderr));
+        output
+    };
+    run(&["--out", "default"]);
+    let asked = run(&["--rate-unit", "nM/min", "--out", "asked"]);
+    assert!(
+        text(&asked.stdout).contains("rates in nM/min"),
+        "{}",
+        text(&asked.stdout)
+    );
+    let folder = |name: &str| scratch.path().join(name);
+    let factor = 1e-6 / 1e-9 * 60.0;
+    for (table, internal, written) in [
+        ("wells.csv", "rate [uM/s]", "rate [nM/min]"),
+        ("wells.csv", "rate_se [uM/s]", "rate_se [nM/min]"),
+        ("wells.csv", "background [uM/s]", "background [nM/min]"),
+        ("conditions.csv", "rate_mean [uM/s]", "rate_mean [nM/min]"),
+        ("conditions.csv", "rate_sd [uM/s]", "rate_sd [nM/min]"),
+    ] {
+        let before = csv_column(&folder("default").join(table), internal);
+        let after = csv_column(&folder("asked").join(table), written);
+        assert_eq!(before.len(), after.len());
+        assert!(before.iter().flatten().count() > 4, "{table} {internal}");
+        for (b, a) in before.iter().zip(&after) {
+            match (b, a) {
+                (Some(b), Some(a)) => assert!(
+                    (a - b * factor).abs() <= 1e-9 * (b * factor).abs().max(1e-12),
+                    "{table} {written}: {a} against {b}"
+                ),
+                (None, None) => {}
+                other => panic!("{table} {written}: {other:?}"),
+            }
+        }
+    }
+    let fit = |name: &str| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(folder(name).join("fit.json")).unwrap()).unwrap()
+    };
+    let (before, after) = (fit("default"), fit("asked"));
+    for group in 0..2 {
+        let (b, a) = (
+            &before["groups"][group]["parameters"],
+            &after["groups"][group]["parameters"],
+        );
+        assert_eq!(b["Vmax"]["unit"], "uM/s");
+        assert_eq!(a["Vmax"]["unit"], "nM/min");
+        for field in ["value", "se"] {
+            let ratio = a["Vmax"][field].as_f64().unwrap() / b["Vmax"][field].as_f64().unwrap();
+            assert!((ratio / factor - 1.0).abs() < 1e-12, "Vmax {field}: {ratio}");
+        }
+        for end in 0..2 {
+            let ratio = a["Vmax"]["ci95"][end].as_f64().unwrap() / b["Vmax"]["ci95"][end].as_f64().unwrap();
+            assert!((ratio / factor - 1.0).abs() < 1e-12, "Vmax interval: {ratio}");
+        }
+        // Converting back gives the per-second value again.
+        let back = a["Vmax"]["value"].as_f64().unwrap() / factor;
+        assert!((back / b["Vmax"]["value"].as_f64().unwrap() - 1.0).abs() < 1e-12);
+        assert_eq!(a["Km"], b["Km"]);
+        assert_eq!(a["kcat"], b["kcat"]);
+    }
+    let settings = std::fs::read_to_string(folder("asked").join("settings.toml")).unwrap();
+    assert!(settings.contains("rate-unit = \"nM/min\""), "{settings}");
+
+    // The assay file's key, as a lab would keep it.
+    std::fs::write(scratch.path().join("assay.toml"), "rate-unit = \"uM/min\"\n").unwrap();
+    run(&["--assay", "assay.toml", "--out", "from-assay"]);
+    let per_minute = csv_column(&folder("from-assay").join("wells.csv"), "rate [uM/min]");
+    let per_second = csv_column(&folder("default").join("wells.csv"), "rate [uM/s]");
+    for (m, s) in per_minute.iter().zip(&per_second) {
+        if let (Some(m), Some(s)) = (m, s) {
+            assert!((m / s - 60.0).abs() < 1e-9, "{m} {s}");
+        }
+    }
+}
+
+/// A rate unit that is not one is refused naming it and the accepted forms; a concentration per
+/// time on rates that stay in absorbance units is refused naming both; nothing is written.
+#[test]
+fn bad_rate_units_are_refused_with_the_accepted_list() {
+    let scratch = tempfile::tempdir().unwrap();
+    let bad = run_demo_plate(
+        scratch.path(),
+        &[
+            "--pathlength",
+            "0.55",
+            "--rate-unit",
+            "uM/fortnight",
+            "--out",
+            "bad",
+        ],
+    );
+    assert_eq!(bad.status.code(), Some(2));
+    let message = text(&bad.stderr);
+    assert!(message.contains("'uM/fortnight'"), "{message}");
+    assert!(
+        message.contains("uM/min") && message.contains("nM/s"),
+        "{message}"
+    );
+    assert!(!scratch.path().join("bad").exists());
+
+    // Without a pathlength the rates stay in AU/s: no concentration to express.
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let unconverted = platekin(
+        &[
+            "run",
+            data.to_str().unwrap(),
+            "--layout",
+            layout.to_str().unwrap(),
+            "--report",
+            "none",
+            "--rate-unit",
+            "uM/min",
+            "--out",
+            "absorbance",
+        ],
+        scratch.path(),
+    );
+    assert_eq!(unconverted.status.code(), Some(2));
+    let message = text(&unconverted.stderr);
+    assert!(
+        message.contains("uM/min") && message.contains("AU/s"),
+        "{message}"
+    );
+    assert!(!scratch.path().join("absorbance").exists());
+}
