@@ -671,3 +671,163 @@ fn bad_rate_units_are_refused_with_the_accepted_list() {
     );
     assert!(!scratch.path().join("absorbance").exists());
 }
+
+/// The demo layout with the enzyme written as a mass concentration of a protein of `kda`:
+/// ug/mL = nM x kDa x 1e-3 (1 nM = 1e-9 mol/L; 1 kDa = 1000 g/mol; 1 g/L = 1000 ug/mL).
+fn demo_layout_in_micrograms_per_millilitre(kda: f64) -> String {
+    let layout = std::fs::read_to_string(common::project("demo-plates/amber-fen-layout.csv")).unwrap();
+    let mut lines = layout.lines();
+    let mut text = lines.next().unwrap().replace("enzyme [nM]", "enzyme [ug/mL]") + "\n";
+    for line in lines {
+        let mut cells: Vec<String> = line.split(',').map(str::to_string).collect();
+        if let Ok(nanomolar) = cells[3].parse::<f64>() {
+            cells[3] = format!("{}", nanomolar * kda * 1e-3);
+        }
+        text.push_str(&cells.join(","));
+        text.push('\n');
+    }
+    text
+}
+
+/// An enzyme given in ug/mL gives the specific activity in U/mg (1 U = 1 umol/min: IUBMB,
+/// Enzyme Nomenclature 1992, and the 1961 International Union of Biochemistry definition) and,
+/// without the molecular weight, no kcat with the reason; with `--enzyme-mw` the same kcat as
+/// the molar layout, and kcat = specific activity x MW / 60 (U/mg x kDa = umol/min per umol).
+#[test]
+fn an_enzyme_in_micrograms_per_millilitre_gives_specific_activity_and_with_its_weight_kcat() {
+    let scratch = tempfile::tempdir().unwrap();
+    let kda = 52.3;
+    std::fs::write(
+        scratch.path().join("mass-layout.csv"),
+        demo_layout_in_micrograms_per_millilitre(kda),
+    )
+    .unwrap();
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let run = |extra: &[&str]| {
+        let mut args = vec![
+            "run",
+            data.to_str().unwrap(),
+            "--extinction",
+            "16800",
+            "--pathlength",
+            "0.55",
+            "--report",
+            "none",
+            "--progress",
+            "never",
+        ];
+        args.extend_from_slice(extra);
+        platekin(&args, scratch.path())
+    };
+    let molar = run(&[
+        "--layout",
+        common::project("demo-plates/amber-fen-layout.csv")
+            .to_str()
+            .unwrap(),
+        "--out",
+        "molar",
+    ]);
+    assert!(molar.status.success(), "{}", text(&molar.stderr));
+    let without_weight = run(&["--layout", "mass-layout.csv", "--out", "mass"]);
+    assert!(
+        without_weight.status.success(),
+        "{}",
+        text(&without_weight.stderr)
+    );
+    let with_weight = run(&[
+        "--layout",
+        "mass-layout.csv",
+        "--enzyme-mw",
+        "52.3",
+        "--out",
+        "weighed",
+    ]);
+    assert!(with_weight.status.success(), "{}", text(&with_weight.stderr));
+    let fit = |name: &str| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(scratch.path().join(name).join("fit.json")).unwrap())
+            .unwrap()
+    };
+    let (molar, mass, weighed) = (fit("molar"), fit("mass"), fit("weighed"));
+    let summary = text(&without_weight.stdout);
+    assert!(
+        summary.contains("U/mg") && summary.contains("--enzyme-mw"),
+        "{summary}"
+    );
+    let wells = std::fs::read_to_string(scratch.path().join("mass").join("wells.csv")).unwrap();
+    assert!(
+        wells.starts_with("well,role,substrate [uM],enzyme [ug/mL],"),
+        "{wells}"
+    );
+    for group in 0..2 {
+        let parameters = &mass["groups"][group]["parameters"];
+        assert!(parameters.get("kcat").is_none(), "{parameters}");
+        let warnings = mass["groups"][group]["warnings"].to_string();
+        assert!(
+            warnings.contains("no kcat") && warnings.contains("--enzyme-mw"),
+            "{warnings}"
+        );
+        let activity = &parameters["specific_activity"];
+        assert_eq!(activity["unit"], "U/mg");
+        // By hand: Vmax [uM/s] x 60 s/min = umol/(L min); the enzyme [ug/mL] = mg/L.
+        let vmax = parameters["Vmax"]["value"].as_f64().unwrap();
+        let enzyme_mg_per_l = if group == 0 { 4.0 } else { 40.0 } * kda * 1e-3;
+        let by_hand = vmax * 60.0 / enzyme_mg_per_l;
+        let value = activity["value"].as_f64().unwrap();
+        assert!((value / by_hand - 1.0).abs() < 1e-12, "{value} against {by_hand}");
+        let ratio_se = activity["se"].as_f64().unwrap() / parameters["Vmax"]["se"].as_f64().unwrap();
+        assert!((ratio_se / (value / vmax) - 1.0).abs() < 1e-12);
+        // With the weight: kcat equals the molar layout's, and kcat = U/mg x kDa / 60.
+        let kcat = weighed["groups"][group]["parameters"]["kcat"]["value"]
+            .as_f64()
+            .unwrap();
+        let molar_kcat = molar["groups"][group]["parameters"]["kcat"]["value"]
+            .as_f64()
+            .unwrap();
+        assert!(
+            (kcat / molar_kcat - 1.0).abs() < 1e-9,
+            "{kcat} against {molar_kcat}"
+        );
+        assert!((kcat / (value * kda / 60.0) - 1.0).abs() < 1e-9);
+    }
+    let settings = std::fs::read_to_string(scratch.path().join("weighed").join("settings.toml")).unwrap();
+    assert!(settings.contains("enzyme-mw = 52.3"), "{settings}");
+    // A weight in Da instead of kDa, or none at all, is refused naming the setting.
+    for bad in ["--enzyme-mw=52300", "--enzyme-mw=0", "--enzyme-mw=-1"] {
+        let refused = run(&["--layout", "mass-layout.csv", bad, "--out", "bad"]);
+        assert_eq!(refused.status.code(), Some(2), "{bad}");
+        assert!(
+            text(&refused.stderr).contains("enzyme-mw"),
+            "{}",
+            text(&refused.stderr)
+        );
+        assert!(!scratch.path().join("bad").exists());
+    }
+}
+
+/// A layout's enzyme in a unit that is neither molar nor a mass concentration is refused naming
+/// the unit, the header cell and every unit the enzyme column accepts.
+#[test]
+fn an_unknown_enzyme_unit_names_the_accepted_units() {
+    let scratch = tempfile::tempdir().unwrap();
+    let layout = demo_layout_in_micrograms_per_millilitre(50.0).replace("enzyme [ug/mL]", "enzyme [U/mL]");
+    std::fs::write(scratch.path().join("layout.csv"), layout).unwrap();
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let refused = platekin(
+        &[
+            "run",
+            data.to_str().unwrap(),
+            "--layout",
+            "layout.csv",
+            "--out",
+            "bad",
+        ],
+        scratch.path(),
+    );
+    assert_eq!(refused.status.code(), Some(2));
+    let message = text(&refused.stderr);
+    assert!(
+        message.contains("'U/mL'") && message.contains("mg/mL") && message.contains("nM"),
+        "{message}"
+    );
+    assert!(message.contains("layout.csv"), "{message}");
+}

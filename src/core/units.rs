@@ -152,6 +152,11 @@ impl MassConcentrationUnit {
         }
     }
 
+    /// mol/L of a protein of molecular weight `kda` (kDa, 1 kDa = 1000 g/mol) at one of this unit.
+    pub fn molar_per_unit(self, kda: f64) -> f64 {
+        self.in_grams_per_litre() / (kda * 1000.0)
+    }
+
     /// The ASCII spelling used in output headers.
     pub fn symbol(self) -> &'static str {
         match self {
@@ -178,6 +183,42 @@ impl FromStr for MassConcentrationUnit {
             other => Err(format!(
                 "unknown mass concentration unit '{other}' (expected mg/mL or ug/mL)"
             )),
+        }
+    }
+}
+
+/// The unit of a layout's quantity column: molar, or (for the enzyme) a mass concentration.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum AmountUnit {
+    /// A molar concentration.
+    Molar(ConcentrationUnit),
+    /// A mass concentration.
+    Mass(MassConcentrationUnit),
+}
+
+impl AmountUnit {
+    /// The molar unit, if this is one.
+    pub fn molar(self) -> Option<ConcentrationUnit> {
+        match self {
+            Self::Molar(unit) => Some(unit),
+            Self::Mass(_) => None,
+        }
+    }
+
+    /// The mass concentration unit, if this is one.
+    pub fn mass(self) -> Option<MassConcentrationUnit> {
+        match self {
+            Self::Molar(_) => None,
+            Self::Mass(unit) => Some(unit),
+        }
+    }
+}
+
+impl fmt::Display for AmountUnit {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::Molar(unit) => unit.fmt(f),
+            Self::Mass(unit) => unit.fmt(f),
         }
     }
 }

@@ -424,6 +424,7 @@ pub fn read_rate_table(
             inhibitor_unit,
             missing_unit_text: String::new(),
             enzyme: None,
+            enzyme_mass: None,
         },
         enzyme_unit,
     })

@@ -127,7 +127,7 @@ pub fn express_kcat_in(parameters: &mut BTreeMap<String, ParameterReport>, unit:
 }
 
 /// Multiplies a parameter's value, SE and every interval by `factor` (> 0).
-fn scale(parameter: &mut ParameterReport, factor: f64) {
+pub fn scale(parameter: &mut ParameterReport, factor: f64) {
     parameter.value *= factor;
     parameter.se = parameter.se.map(|se| se * factor);
     parameter.ci95 = parameter.ci95.map(|[lo, hi]| [lo * factor, hi * factor]);

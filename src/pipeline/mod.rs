@@ -150,6 +150,7 @@ pub fn analyse_inputs(
     let initial = InitialRateOptions {
         estimator: settings.initial_rate,
         dead_time_s: settings.rates.dead_time_s,
+        enzyme_mw_kda: settings.enzyme_mw_kda,
     };
     // A screening plate's samples are described by their compound's dose-response curve on %
     // activity (`screen`), not by rate-law fits of raw rates: the group fits and the

@@ -23,7 +23,7 @@ fn quantity_headers(layout: &Layout) -> Vec<(String, Quantity)> {
     if let Some(unit) = layout.substrate_unit {
         headers.push((format!("substrate [{unit}]"), Quantity::Substrate));
     }
-    if let Some(unit) = layout.enzyme_unit {
+    if let Some(unit) = layout.enzyme_unit_text() {
         headers.push((format!("enzyme [{unit}]"), Quantity::Enzyme));
     }
     if let Some(unit) = layout.inhibitor_unit {

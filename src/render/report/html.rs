@@ -631,7 +631,9 @@ fn conditions_section(parts: &ReportParts) -> String {
         html,
         "<table class=\"conditions\">\n<tr><th>role</th><th>substrate{}</th><th>enzyme{}</th><th>inhibitor{}</th>",
         unit(layout.substrate_unit),
-        unit(layout.enzyme_unit),
+        layout
+            .enzyme_unit_text()
+            .map_or(String::new(), |u| format!(" [{u}]")),
         unit(layout.inhibitor_unit)
     );
     for name in &layout.factor_names {
@@ -1110,7 +1112,7 @@ fn checklist_section(parts: &ReportParts) -> String {
                         "{} level(s): {}{}",
                         enzyme_levels.len(),
                         enzyme_levels.into_iter().collect::<Vec<_>>().join(", "),
-                        results.layout.enzyme_unit.map_or(String::new(), |unit| format!(" {unit}"))
+                        results.layout.enzyme_unit_text().map_or(String::new(), |unit| format!(" {unit}"))
                     )
                 }
             ),
