@@ -282,11 +282,17 @@ fn bad_standards_are_refused_naming_the_file_and_the_well() {
 fn run_demo_plate(scratch: &std::path::Path, extra: &[&str]) -> std::process::Output {
     let data = common::project("demo-plates/amber-fen-wide.csv");
     let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let mut args = vec!["--layout", layout.to_str().unwrap()];
+    args.extend_from_slice(extra);
+    run_export(scratch, data.to_str().unwrap(), &args)
+}
+
+/// Runs the binary in `scratch` on `data` with the demo's extinction coefficient, no report and
+/// no progress fits, and `extra` flags.
+fn run_export(scratch: &std::path::Path, data: &str, extra: &[&str]) -> std::process::Output {
     let mut args = vec![
         "run",
-        data.to_str().unwrap(),
-        "--layout",
-        layout.to_str().unwrap(),
+        data,
         "--extinction",
         "16800",
         "--report",
@@ -672,6 +678,14 @@ fn bad_rate_units_are_refused_with_the_accepted_list() {
     assert!(!scratch.path().join("absorbance").exists());
 }
 
+/// Runs `data` in `scratch` with the demo's extinction coefficient and pathlength (rates in uM/s),
+/// no report and no progress fit, and `extra`.
+fn run_in_micromolar(scratch: &std::path::Path, data: &str, extra: &[&str]) -> std::process::Output {
+    let mut args = vec!["--pathlength", "0.55"];
+    args.extend_from_slice(extra);
+    run_export(scratch, data, &args)
+}
+
 /// The demo layout with the enzyme written as a mass concentration of a protein of `kda`:
 /// ug/mL = nM x kDa x 1e-3 (1 nM = 1e-9 mol/L; 1 kDa = 1000 g/mol; 1 g/L = 1000 ug/mL).
 fn demo_layout_in_micrograms_per_millilitre(kda: f64) -> String {
@@ -703,22 +717,7 @@ fn an_enzyme_in_micrograms_per_millilitre_gives_specific_activity_and_with_its_w
     )
     .unwrap();
     let data = common::project("demo-plates/amber-fen-wide.csv");
-    let run = |extra: &[&str]| {
-        let mut args = vec![
-            "run",
-            data.to_str().unwrap(),
-            "--extinction",
-            "16800",
-            "--pathlength",
-            "0.55",
-            "--report",
-            "none",
-            "--progress",
-            "never",
-        ];
-        args.extend_from_slice(extra);
-        platekin(&args, scratch.path())
-    };
+    let run = |extra: &[&str]| run_in_micromolar(scratch.path(), data.to_str().unwrap(), extra);
     let molar = run(&[
         "--layout",
         common::project("demo-plates/amber-fen-layout.csv")
@@ -830,4 +829,222 @@ fn an_unknown_enzyme_unit_names_the_accepted_units() {
         "{message}"
     );
     assert!(message.contains("layout.csv"), "{message}");
+}
+
+/// The invented turbidity of well `index` (0-based, A1 = 0, row by row) at `time_s`: the same at
+/// both wavelengths, as the dual-wavelength correction assumes (a haze that scatters alike), and
+/// drifting differently from well to well (a drift shared by every well would leave with the
+/// blank).
+fn turbidity(index: usize, time_s: f64) -> f64 {
+    0.02 + 0.003 * (index % 7) as f64 + 3e-6 * (index % 5) as f64 * time_s
+}
+
+/// The demo wide export's header (wells) and reads: (time, the cells after the temperature).
+fn demo_reads() -> (Vec<String>, Vec<(f64, Vec<String>)>) {
+    let export = std::fs::read_to_string(common::project("demo-plates/amber-fen-wide.csv")).unwrap();
+    let mut lines = export.lines().skip_while(|line| !line.starts_with("Time [s]"));
+    let header: Vec<String> = lines
+        .next()
+        .unwrap()
+        .split(',')
+        .skip(2)
+        .map(str::to_string)
+        .collect();
+    let reads = lines
+        .map_while(|line| {
+            let cells: Vec<&str> = line.split(',').collect();
+            let time: f64 = cells.first()?.parse().ok()?;
+            Some((time, cells[2..].iter().map(|cell| cell.to_string()).collect()))
+        })
+        .collect();
+    (header, reads)
+}
+
+/// A reading at 405 nm (the demo's, plus the turbidity) and at 600 nm (the turbidity alone); a
+/// cell that holds no number stays as it is at 405 nm.
+fn two_readings(cell: &str, index: usize, time_s: f64) -> (String, String) {
+    let haze = turbidity(index, time_s);
+    match cell.parse::<f64>() {
+        Ok(value) => (format!("{}", value + haze), format!("{haze}")),
+        Err(_) => (cell.to_string(), format!("{haze}")),
+    }
+}
+
+/// One of [`two_readings`]: the 405 nm one for `pick` 0, else the 600 nm one.
+fn reading_at(pick: usize, cell: &str, index: usize, time_s: f64) -> String {
+    let (at_405, at_600) = two_readings(cell, index, time_s);
+    if pick == 0 {
+        at_405
+    } else {
+        at_600
+    }
+}
+
+/// The demo plate read at 405 and 600 nm in each shape (invented: the demo's reads plus a haze
+/// at 405 nm, the haze alone at 600 nm): wide blocks under label lines, wide columns labelled by
+/// wavelength, a long table with a wavelength column, grid blocks under label lines.
+fn two_wavelength_exports() -> Vec<(&'static str, String)> {
+    let (wells, reads) = demo_reads();
+    let mut blocks = String::from("Run,Amber Fen haze check (invented)\n");
+    for (label, pick) in [("Wavelength: 405 nm", 0), ("Wavelength: 600 nm", 1)] {
+        blocks.push_str(&format!("\n{label}\nTime [s],{}\n", wells.join(",")));
+        for (time, cells) in &reads {
+            let row: Vec<String> = cells
+                .iter()
+                .enumerate()
+                .map(|(index, cell)| reading_at(pick, cell, index, *time))
+                .collect();
+            blocks.push_str(&format!("{time},{}\n", row.join(",")));
+        }
+    }
+    let mut columns = String::from("Time [s]");
+    for well in &wells {
+        columns.push_str(&format!(",{well} 405 nm,{well} (600 nm)"));
+    }
+    columns.push('\n');
+    let mut long = String::from("well,time [s],wavelength [nm],value\n");
+    for (time, cells) in &reads {
+        columns.push_str(&format!("{time}"));
+        for (index, cell) in cells.iter().enumerate() {
+            let (at_405, at_600) = two_readings(cell, index, *time);
+            columns.push_str(&format!(",{at_405},{at_600}"));
+            long.push_str(&format!(
+                "{},{time},405,{at_405}\n{},{time},600,{at_600}\n",
+                wells[index], wells[index]
+            ));
+        }
+        columns.push('\n');
+    }
+    let mut grid = String::new();
+    for (label, pick) in [("Wavelength: 405 nm", 0), ("Wavelength: 600 nm", 1)] {
+        grid.push_str(&format!("{label}\n"));
+        for (time, cells) in &reads {
+            grid.push_str(&format!("Time {time} s\n,1,2,3,4,5,6,7,8,9,10,11,12\n"));
+            for (row, letter) in "ABCDEFGH".chars().enumerate() {
+                let values: Vec<String> = (0..12)
+                    .map(|column| reading_at(pick, &cells[row * 12 + column], row * 12 + column, *time))
+                    .collect();
+                grid.push_str(&format!("{letter},{}\n", values.join(",")));
+            }
+            grid.push('\n');
+        }
+    }
+    vec![
+        ("wide-blocks.csv", blocks),
+        ("wide-columns.csv", columns),
+        ("long.csv", long),
+        ("grid.csv", grid),
+    ]
+}
+
+/// A CSV text as a spreadsheet of one sheet (numbers as numbers), for the XLSX shape.
+fn as_workbook(csv_text: &str, path: &std::path::Path) {
+    let mut workbook = rust_xlsxwriter::Workbook::new();
+    let sheet = workbook.add_worksheet();
+    for (row, line) in csv_text.lines().enumerate() {
+        for (column, cell) in line.split(',').enumerate() {
+            if cell.is_empty() {
+                continue;
+            }
+            let (row, column) = (row as u32, column as u16);
+            match cell.parse::<f64>() {
+                Ok(number) => sheet.write_number(row, column, number).map(|_| ()),
+                Err(_) => sheet.write_string(row, column, cell).map(|_| ()),
+            }
+            .unwrap();
+        }
+    }
+    workbook.save(path).unwrap();
+}
+
+/// Two wavelengths in every export shape, through the binary: without `--wavelength` the run is
+/// refused listing both; a wavelength the export lacks is refused listing both; `--wavelength
+/// 405 --reference-wavelength 600` subtracts the haze read by read and gives the single-wavelength
+/// demo's rates (to rounding: the invented haze is the same at both wavelengths); nothing is
+/// written by a refused run.
+#[test]
+fn two_wavelength_exports_in_every_shape_pick_one_and_subtract_the_reference() {
+    let scratch = tempfile::tempdir().unwrap();
+    let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let run = |data: &str, extra: &[&str]| {
+        let mut args = vec!["--layout", layout.to_str().unwrap()];
+        args.extend_from_slice(extra);
+        run_in_micromolar(scratch.path(), data, &args)
+    };
+    let demo = common::project("demo-plates/amber-fen-wide.csv");
+    let single = run(demo.to_str().unwrap(), &["--out", "single"]);
+    assert!(single.status.success(), "{}", text(&single.stderr));
+    let expected = csv_column(&scratch.path().join("single").join("wells.csv"), "rate [uM/s]");
+    let mut files = Vec::new();
+    for (name, contents) in two_wavelength_exports() {
+        std::fs::write(scratch.path().join(name), &contents).unwrap();
+        if name == "wide-blocks.csv" {
+            as_workbook(&contents, &scratch.path().join("wide-blocks.xlsx"));
+            files.push("wide-blocks.xlsx".to_string());
+        }
+        files.push(name.to_string());
+    }
+    for file in &files {
+        let ambiguous = run(file, &["--out", "ambiguous"]);
+        assert_eq!(ambiguous.status.code(), Some(2), "{file}");
+        let message = text(&ambiguous.stderr);
+        assert!(
+            message.contains("405 nm and 600 nm") && message.contains("--wavelength"),
+            "{file}: {message}"
+        );
+        let absent = run(file, &["--wavelength", "450", "--out", "absent"]);
+        assert_eq!(absent.status.code(), Some(2), "{file}");
+        let message = text(&absent.stderr);
+        assert!(
+            message.contains("450") && message.contains("405 nm and 600 nm"),
+            "{file}: {message}"
+        );
+        assert!(!scratch.path().join("ambiguous").exists() && !scratch.path().join("absent").exists());
+
+        let out = format!("corrected-{file}");
+        let corrected = run(
+            file,
+            &[
+                "--wavelength",
+                "405",
+                "--reference-wavelength",
+                "600",
+                "--out",
+                &out,
+            ],
+        );
+        assert!(corrected.status.success(), "{file}: {}", text(&corrected.stderr));
+        let rates = csv_column(&scratch.path().join(&out).join("wells.csv"), "rate [uM/s]");
+        assert_eq!(rates.len(), expected.len(), "{file}");
+        assert!(expected.iter().flatten().count() > 40);
+        for (got, want) in rates.iter().zip(&expected) {
+            match (got, want) {
+                (Some(got), Some(want)) => {
+                    assert!(
+                        (got - want).abs() <= 1e-9 * want.abs().max(1e-6),
+                        "{file}: {got} against {want}"
+                    )
+                }
+                (None, None) => {}
+                other => panic!("{file}: {other:?}"),
+            }
+        }
+        // The haze alone leaves 405 nm rates higher by its drift, so the subtraction did work.
+        let uncorrected = run(file, &["--wavelength", "405", "--out", &format!("raw-{file}")]);
+        assert!(
+            uncorrected.status.success(),
+            "{file}: {}",
+            text(&uncorrected.stderr)
+        );
+        let raw = csv_column(
+            &scratch.path().join(format!("raw-{file}")).join("wells.csv"),
+            "rate [uM/s]",
+        );
+        let shifted = raw
+            .iter()
+            .zip(&expected)
+            .filter(|(raw, want)| matches!((raw, want), (Some(r), Some(w)) if (r - w).abs() > 1e-4))
+            .count();
+        assert!(shifted > 20, "{file}: {shifted}");
+    }
 }

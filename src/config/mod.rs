@@ -108,6 +108,10 @@ pub struct SettingLayer {
     pub rate_unit: Option<String>,
     /// The enzyme's molecular weight, kDa: kcat from an enzyme given as mg/mL or ug/mL.
     pub enzyme_mw: Option<f64>,
+    /// The wavelength to analyse in an export holding several, nm.
+    pub wavelength: Option<f64>,
+    /// A reference wavelength subtracted per read and well, nm.
+    pub reference_wavelength: Option<f64>,
 }
 
 impl SettingLayer {
@@ -158,6 +162,8 @@ impl SettingLayer {
             kcat_unit: self.kcat_unit.or(below.kcat_unit),
             rate_unit: self.rate_unit.or(below.rate_unit),
             enzyme_mw: self.enzyme_mw.or(below.enzyme_mw),
+            wavelength: self.wavelength.or(below.wavelength),
+            reference_wavelength: self.reference_wavelength.or(below.reference_wavelength),
         }
     }
 
@@ -665,7 +671,23 @@ pub fn resolve_import(layer: &SettingLayer) -> Result<ImportOptions, SettingsErr
         plate: parse_field::<PlateFormat>("plate", &layer.plate)?,
         sheet: layer.sheet.clone(),
         short_rows: parse_field::<ShortRowPolicy>("short-rows", &layer.short_rows)?.unwrap_or_default(),
+        wavelength_nm: wavelength_setting("wavelength", layer.wavelength)?,
+        reference_wavelength_nm: wavelength_setting("reference-wavelength", layer.reference_wavelength)?,
     })
+}
+
+/// The longest wavelength taken, nm: beyond any plate reader's range.
+pub const MAX_WAVELENGTH_NM: f64 = 2000.0;
+
+/// A wavelength setting: a positive number of nm up to [`MAX_WAVELENGTH_NM`].
+fn wavelength_setting(name: &'static str, value: Option<f64>) -> Result<Option<f64>, SettingsError> {
+    match value {
+        Some(nm) if !(nm.is_finite() && nm > 0.0 && nm <= MAX_WAVELENGTH_NM) => Err(SettingsError::about(
+            name,
+            format!("{name} is a wavelength in nm, from above 0 to {MAX_WAVELENGTH_NM}, got {nm}"),
+        )),
+        other => Ok(other),
+    }
 }
 
 /// Refuses the settings that belong to another kind of signal than the one read, saying why:
