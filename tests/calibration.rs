@@ -92,15 +92,20 @@ fn a_fluorescence_plate_with_standards_recovers_kcat_and_km_with_the_slope_in_th
     );
 }
 
+/// How many simulated plates the coverage checks run: `PLATEKIN_CALIBRATION_PLATES`, else 40.
+fn simulated_plates() -> usize {
+    std::env::var("PLATEKIN_CALIBRATION_PLATES")
+        .ok()
+        .and_then(|text| text.parse().ok())
+        .unwrap_or(40)
+}
+
 /// The coverage of kcat's 95% interval over simulated plates (each its own seed), with the
 /// slope's uncertainty combined. CI runs 40 plates; `PLATEKIN_CALIBRATION_PLATES=200 cargo test
 /// --release --test calibration -- --nocapture coverage` runs more and prints the figures.
 #[test]
 fn coverage_of_kcat_with_the_slope_uncertainty() {
-    let plates: usize = std::env::var("PLATEKIN_CALIBRATION_PLATES")
-        .ok()
-        .and_then(|text| text.parse().ok())
-        .unwrap_or(40);
+    let plates = simulated_plates();
     let mut covered = 0;
     let mut covered_without_slope = 0;
     let mut errors = Vec::new();
@@ -1047,4 +1052,62 @@ fn two_wavelength_exports_in_every_shape_pick_one_and_subtract_the_reference() {
             .count();
         assert!(shifted > 20, "{file}: {shifted}");
     }
+}
+
+/// The simulated plate's layout with its enzyme written in ug/mL for a protein of `kda`
+/// (ug/mL = nM x kDa x 1e-3; the enzyme is the layout's fourth column).
+fn layout_in_micrograms_per_millilitre(layout_csv: &str, kda: f64) -> String {
+    let mut text = String::new();
+    for line in layout_csv.lines() {
+        let mut cells: Vec<String> = line.split(',').map(str::to_string).collect();
+        if let Some(cell) = cells.get_mut(3) {
+            if cell.as_str() == "enzyme [nM]" {
+                *cell = "enzyme [ug/mL]".to_string();
+            } else if let Ok(nanomolar) = cell.parse::<f64>() {
+                *cell = format!("{}", nanomolar * kda * 1e-3);
+            }
+        }
+        text.push_str(&cells.join(","));
+        text.push('\n');
+    }
+    text
+}
+
+/// The specific activity against the simulator's truth, kcat x 60 / MW (1 U = 1 umol/min), over
+/// the simulated fluorescence plates of the kcat coverage check: its interval covers the truth on
+/// exactly the plates where kcat's does (it is Vmax scaled by a known constant, with the slope's
+/// uncertainty combined alike), and its bias is kcat's. `PLATEKIN_CALIBRATION_PLATES` sets the
+/// number of plates (40 by default).
+#[test]
+fn specific_activity_covers_the_simulated_truth_as_kcat_does() {
+    let plates = simulated_plates();
+    let kda = 31.6;
+    let truth = KCAT_PER_S * 60.0 / kda;
+    let (mut covered_kcat, mut covered_activity) = (0, 0);
+    let mut errors = Vec::new();
+    for seed in 0..plates as u64 {
+        let plate = fluorescence_plate(1000 + seed).unwrap();
+        let molar = analyse(&plate.export_csv, &plate.layout_csv, &fluorescence_layer());
+        let mass_layout = layout_in_micrograms_per_millilitre(&plate.layout_csv, kda);
+        let mass = analyse(&plate.export_csv, &mass_layout, &fluorescence_layer());
+        let ((_, [lo, hi], _), _) = constants(&molar);
+        let kcat_covers = lo <= KCAT_PER_S && KCAT_PER_S <= hi;
+        let activity = &mass.fits[0].parameters["specific_activity"];
+        let [low, high] = activity.ci95.unwrap();
+        let activity_covers = low <= truth && truth <= high;
+        assert_eq!(kcat_covers, activity_covers, "plate {seed}");
+        covered_kcat += usize::from(kcat_covers);
+        covered_activity += usize::from(activity_covers);
+        errors.push(activity.value / truth - 1.0);
+    }
+    let bias = errors.iter().sum::<f64>() / plates as f64;
+    println!(
+        "specific activity over {plates} plates: {covered_activity} intervals hold the truth (kcat: {covered_kcat}); bias {:+.2}%",
+        100.0 * bias
+    );
+    assert!(
+        covered_activity * 100 >= plates * 70,
+        "{covered_activity} of {plates}"
+    );
+    assert!(bias.abs() < 0.05, "bias {bias}");
 }
