@@ -84,6 +84,19 @@ impl RateExpression {
     }
 }
 
+/// Brings kcat and kcat/Km fitted from rates per `rate_time_s` seconds (a table in `uM/min`) to
+/// per second; a no-op for rates per second.
+pub fn turnover_per_second(parameters: &mut BTreeMap<String, ParameterReport>, rate_time_s: f64) {
+    if rate_time_s == 1.0 {
+        return;
+    }
+    for name in ["kcat", "kcat_over_Km"] {
+        if let Some(parameter) = parameters.get_mut(name) {
+            scale(parameter, 1.0 / rate_time_s);
+        }
+    }
+}
+
 /// Expresses a group fit's reported rates in `expression`'s unit: its rate constants, its residual
 /// SD when that is a rate (an unweighted fit's; a weighted fit's residuals are divided by each
 /// point's SD or rate, so they have no unit) and the linearised diagnostics. The models-tried
