@@ -123,6 +123,14 @@ pub struct ReadArgs {
     /// A data row cut short: `refuse` it, or read its missing cells as `unreadable` (default).
     #[arg(long, value_name = "refuse|unreadable")]
     pub short_rows: Option<String>,
+    /// The wavelength to analyse (or inspect) in an export holding reads at several (labelled blocks,
+    /// well columns such as `A1 405 nm`, or a `wavelength` column), nm.
+    #[arg(long, value_name = "NM")]
+    pub wavelength: Option<f64>,
+    /// A reference wavelength whose read is subtracted from the analysed one per read and well
+    /// (dual-wavelength correction for turbidity and well-to-well optics), nm.
+    #[arg(long, value_name = "NM")]
+    pub reference_wavelength: Option<f64>,
 }
 
 /// `platekin run`.
@@ -186,6 +194,14 @@ pub struct RunArgs {
     /// The unit of kcat and kcat/Km in every output: 1/s (default) or 1/min.
     #[arg(long, value_name = "1/s|1/min")]
     pub kcat_unit: Option<String>,
+    /// The unit of every rate (tables, fit.json, summary, report): a concentration per s, min or
+    /// h, such as uM/min or nM/s (default: the layout's unit per second, uM/s for a layout in uM).
+    #[arg(long, value_name = "UNIT")]
+    pub rate_unit: Option<String>,
+    /// The enzyme's molecular weight in kDa: with an enzyme given as mg/mL or ug/mL in the
+    /// layout, kcat is computed beside the specific activity (U/mg).
+    #[arg(long, value_name = "KDA")]
+    pub enzyme_mw: Option<f64>,
     /// Dead time: reads before this many seconds are ignored.
     #[arg(long, value_name = "SECONDS")]
     pub skip: Option<f64>,
@@ -274,6 +290,8 @@ impl ReadArgs {
             plate: self.plate.clone(),
             time_unit: self.time_unit.clone(),
             short_rows: self.short_rows.clone(),
+            wavelength: self.wavelength,
+            reference_wavelength: self.reference_wavelength,
             ..SettingLayer::default()
         }
     }
@@ -312,6 +330,8 @@ impl RunArgs {
             pathlength_from: self.pathlength_from.clone(),
             water_reference: self.water_reference,
             kcat_unit: self.kcat_unit.clone(),
+            rate_unit: self.rate_unit.clone(),
+            enzyme_mw: self.enzyme_mw,
             ..self.models.layer().over(self.read.layer())
         }
     }

@@ -92,15 +92,20 @@ fn a_fluorescence_plate_with_standards_recovers_kcat_and_km_with_the_slope_in_th
     );
 }
 
+/// How many simulated plates the coverage checks run: `PLATEKIN_CALIBRATION_PLATES`, else 40.
+fn simulated_plates() -> usize {
+    std::env::var("PLATEKIN_CALIBRATION_PLATES")
+        .ok()
+        .and_then(|text| text.parse().ok())
+        .unwrap_or(40)
+}
+
 /// The coverage of kcat's 95% interval over simulated plates (each its own seed), with the
 /// slope's uncertainty combined. CI runs 40 plates; `PLATEKIN_CALIBRATION_PLATES=200 cargo test
 /// --release --test calibration -- --nocapture coverage` runs more and prints the figures.
 #[test]
 fn coverage_of_kcat_with_the_slope_uncertainty() {
-    let plates: usize = std::env::var("PLATEKIN_CALIBRATION_PLATES")
-        .ok()
-        .and_then(|text| text.parse().ok())
-        .unwrap_or(40);
+    let plates = simulated_plates();
     let mut covered = 0;
     let mut covered_without_slope = 0;
     let mut errors = Vec::new();
@@ -282,11 +287,17 @@ fn bad_standards_are_refused_naming_the_file_and_the_well() {
 fn run_demo_plate(scratch: &std::path::Path, extra: &[&str]) -> std::process::Output {
     let data = common::project("demo-plates/amber-fen-wide.csv");
     let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let mut args = vec!["--layout", layout.to_str().unwrap()];
+    args.extend_from_slice(extra);
+    run_export(scratch, data.to_str().unwrap(), &args)
+}
+
+/// Runs the binary in `scratch` on `data` with the demo's extinction coefficient, no report and
+/// no progress fits, and `extra` flags.
+fn run_export(scratch: &std::path::Path, data: &str, extra: &[&str]) -> std::process::Output {
     let mut args = vec![
         "run",
-        data.to_str().unwrap(),
-        "--layout",
-        layout.to_str().unwrap(),
+        data,
         "--extinction",
         "16800",
         "--report",
@@ -516,4 +527,587 @@ fn kcat_per_minute_is_sixty_times_per_second_everywhere() {
     );
     assert_eq!(bad.status.code(), Some(2));
     assert!(text(&bad.stderr).contains("kcat-unit"), "{}", text(&bad.stderr));
+}
+
+/// The column of `header` in a run's CSV table, as numbers (empty cells as `None`). The columns
+/// read here stand before any free text, so splitting at commas is safe.
+fn csv_column(path: &std::path::Path, header: &str) -> Vec<Option<f64>> {
+    let table = std::fs::read_to_string(path).unwrap();
+    let mut lines = table.lines();
+    let headers: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let index = headers
+        .iter()
+        .position(|h| *h == header)
+        .unwrap_or_else(|| panic!("no column {header} in {headers:?}"));
+    lines
+        .map(|line| line.split(',').nth(index).and_then(|cell| cell.parse().ok()))
+        .collect()
+}
+
+/// `--rate-unit nM/min` writes every rate 1000 x 60 times its uM/s value: nano is 1e-9 and micro
+/// 1e-6, one minute is 60 s (SI Brochure, 9th edition, 2019, tables 7 and 8). The wells' and the
+/// conditions' rates, Vmax with its SE and intervals, the headers, fit.json's unit and the summary
+/// line all change together; Km and kcat do not; settings.toml repeats the unit, and the assay
+/// file's `rate-unit` key does what the flag does.
+#[test]
+fn rates_in_nanomolar_per_minute_everywhere() {
+    let scratch = tempfile::tempdir().unwrap();
+    let base = ["--pathlength", "0.55"];
+    let run = |extra: &[&str]| {
+        let mut args = base.to_vec();
+        args.extend_from_slice(extra);
+        let output = run_demo_plate(scratch.path(), &args);
+        assert!(output.status.success(), "{}", text(&output.stderr));
+        output
+    };
+    run(&["--out", "default"]);
+    let asked = run(&["--rate-unit", "nM/min", "--out", "asked"]);
+    assert!(
+        text(&asked.stdout).contains("rates in nM/min"),
+        "{}",
+        text(&asked.stdout)
+    );
+    let folder = |name: &str| scratch.path().join(name);
+    let factor = 1e-6 / 1e-9 * 60.0;
+    for (table, internal, written) in [
+        ("wells.csv", "rate [uM/s]", "rate [nM/min]"),
+        ("wells.csv", "rate_se [uM/s]", "rate_se [nM/min]"),
+        ("wells.csv", "background [uM/s]", "background [nM/min]"),
+        ("conditions.csv", "rate_mean [uM/s]", "rate_mean [nM/min]"),
+        ("conditions.csv", "rate_sd [uM/s]", "rate_sd [nM/min]"),
+    ] {
+        let before = csv_column(&folder("default").join(table), internal);
+        let after = csv_column(&folder("asked").join(table), written);
+        assert_eq!(before.len(), after.len());
+        assert!(before.iter().flatten().count() > 4, "{table} {internal}");
+        for (b, a) in before.iter().zip(&after) {
+            match (b, a) {
+                (Some(b), Some(a)) => assert!(
+                    (a - b * factor).abs() <= 1e-9 * (b * factor).abs().max(1e-12),
+                    "{table} {written}: {a} against {b}"
+                ),
+                (None, None) => {}
+                other => panic!("{table} {written}: {other:?}"),
+            }
+        }
+    }
+    let fit = |name: &str| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(folder(name).join("fit.json")).unwrap()).unwrap()
+    };
+    let (before, after) = (fit("default"), fit("asked"));
+    for group in 0..2 {
+        let (b, a) = (
+            &before["groups"][group]["parameters"],
+            &after["groups"][group]["parameters"],
+        );
+        assert_eq!(b["Vmax"]["unit"], "uM/s");
+        assert_eq!(a["Vmax"]["unit"], "nM/min");
+        for field in ["value", "se"] {
+            let ratio = a["Vmax"][field].as_f64().unwrap() / b["Vmax"][field].as_f64().unwrap();
+            assert!((ratio / factor - 1.0).abs() < 1e-12, "Vmax {field}: {ratio}");
+        }
+        for end in 0..2 {
+            let ratio = a["Vmax"]["ci95"][end].as_f64().unwrap() / b["Vmax"]["ci95"][end].as_f64().unwrap();
+            assert!((ratio / factor - 1.0).abs() < 1e-12, "Vmax interval: {ratio}");
+        }
+        // Converting back gives the per-second value again.
+        let back = a["Vmax"]["value"].as_f64().unwrap() / factor;
+        assert!((back / b["Vmax"]["value"].as_f64().unwrap() - 1.0).abs() < 1e-12);
+        assert_eq!(a["Km"], b["Km"]);
+        assert_eq!(a["kcat"], b["kcat"]);
+    }
+    let settings = std::fs::read_to_string(folder("asked").join("settings.toml")).unwrap();
+    assert!(settings.contains("rate-unit = \"nM/min\""), "{settings}");
+
+    // The assay file's key, as a lab would keep it.
+    std::fs::write(scratch.path().join("assay.toml"), "rate-unit = \"uM/min\"\n").unwrap();
+    run(&["--assay", "assay.toml", "--out", "from-assay"]);
+    let per_minute = csv_column(&folder("from-assay").join("wells.csv"), "rate [uM/min]");
+    let per_second = csv_column(&folder("default").join("wells.csv"), "rate [uM/s]");
+    for (m, s) in per_minute.iter().zip(&per_second) {
+        if let (Some(m), Some(s)) = (m, s) {
+            assert!((m / s - 60.0).abs() < 1e-9, "{m} {s}");
+        }
+    }
+}
+
+/// A rate unit that is not one is refused naming it and the accepted forms; a concentration per
+/// time on rates that stay in absorbance units is refused naming both; nothing is written.
+#[test]
+fn bad_rate_units_are_refused_with_the_accepted_list() {
+    let scratch = tempfile::tempdir().unwrap();
+    let bad = run_demo_plate(
+        scratch.path(),
+        &[
+            "--pathlength",
+            "0.55",
+            "--rate-unit",
+            "uM/fortnight",
+            "--out",
+            "bad",
+        ],
+    );
+    assert_eq!(bad.status.code(), Some(2));
+    let message = text(&bad.stderr);
+    assert!(message.contains("'uM/fortnight'"), "{message}");
+    assert!(
+        message.contains("uM/min") && message.contains("nM/s"),
+        "{message}"
+    );
+    assert!(!scratch.path().join("bad").exists());
+
+    // Without a pathlength the rates stay in AU/s: no concentration to express.
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let unconverted = platekin(
+        &[
+            "run",
+            data.to_str().unwrap(),
+            "--layout",
+            layout.to_str().unwrap(),
+            "--report",
+            "none",
+            "--rate-unit",
+            "uM/min",
+            "--out",
+            "absorbance",
+        ],
+        scratch.path(),
+    );
+    assert_eq!(unconverted.status.code(), Some(2));
+    let message = text(&unconverted.stderr);
+    assert!(
+        message.contains("uM/min") && message.contains("AU/s"),
+        "{message}"
+    );
+    assert!(!scratch.path().join("absorbance").exists());
+}
+
+/// Runs `data` in `scratch` with the demo's extinction coefficient and pathlength (rates in uM/s),
+/// no report and no progress fit, and `extra`.
+fn run_in_micromolar(scratch: &std::path::Path, data: &str, extra: &[&str]) -> std::process::Output {
+    let mut args = vec!["--pathlength", "0.55"];
+    args.extend_from_slice(extra);
+    run_export(scratch, data, &args)
+}
+
+/// The demo layout with the enzyme written as a mass concentration of a protein of `kda`:
+/// ug/mL = nM x kDa x 1e-3 (1 nM = 1e-9 mol/L; 1 kDa = 1000 g/mol; 1 g/L = 1000 ug/mL).
+fn demo_layout_in_micrograms_per_millilitre(kda: f64) -> String {
+    let layout = std::fs::read_to_string(common::project("demo-plates/amber-fen-layout.csv")).unwrap();
+    let mut lines = layout.lines();
+    let mut text = lines.next().unwrap().replace("enzyme [nM]", "enzyme [ug/mL]") + "\n";
+    for line in lines {
+        let mut cells: Vec<String> = line.split(',').map(str::to_string).collect();
+        if let Ok(nanomolar) = cells[3].parse::<f64>() {
+            cells[3] = format!("{}", nanomolar * kda * 1e-3);
+        }
+        text.push_str(&cells.join(","));
+        text.push('\n');
+    }
+    text
+}
+
+/// An enzyme given in ug/mL gives the specific activity in U/mg (1 U = 1 umol/min: IUBMB,
+/// Enzyme Nomenclature 1992, and the 1961 International Union of Biochemistry definition) and,
+/// without the molecular weight, no kcat with the reason; with `--enzyme-mw` the same kcat as
+/// the molar layout, and kcat = specific activity x MW / 60 (U/mg x kDa = umol/min per umol).
+#[test]
+fn an_enzyme_in_micrograms_per_millilitre_gives_specific_activity_and_with_its_weight_kcat() {
+    let scratch = tempfile::tempdir().unwrap();
+    let kda = 52.3;
+    std::fs::write(
+        scratch.path().join("mass-layout.csv"),
+        demo_layout_in_micrograms_per_millilitre(kda),
+    )
+    .unwrap();
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let run = |extra: &[&str]| run_in_micromolar(scratch.path(), data.to_str().unwrap(), extra);
+    let molar = run(&[
+        "--layout",
+        common::project("demo-plates/amber-fen-layout.csv")
+            .to_str()
+            .unwrap(),
+        "--out",
+        "molar",
+    ]);
+    assert!(molar.status.success(), "{}", text(&molar.stderr));
+    let without_weight = run(&["--layout", "mass-layout.csv", "--out", "mass"]);
+    assert!(
+        without_weight.status.success(),
+        "{}",
+        text(&without_weight.stderr)
+    );
+    let with_weight = run(&[
+        "--layout",
+        "mass-layout.csv",
+        "--enzyme-mw",
+        "52.3",
+        "--out",
+        "weighed",
+    ]);
+    assert!(with_weight.status.success(), "{}", text(&with_weight.stderr));
+    let fit = |name: &str| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(scratch.path().join(name).join("fit.json")).unwrap())
+            .unwrap()
+    };
+    let (molar, mass, weighed) = (fit("molar"), fit("mass"), fit("weighed"));
+    let summary = text(&without_weight.stdout);
+    assert!(
+        summary.contains("U/mg") && summary.contains("--enzyme-mw"),
+        "{summary}"
+    );
+    let wells = std::fs::read_to_string(scratch.path().join("mass").join("wells.csv")).unwrap();
+    assert!(
+        wells.starts_with("well,role,substrate [uM],enzyme [ug/mL],"),
+        "{wells}"
+    );
+    for group in 0..2 {
+        let parameters = &mass["groups"][group]["parameters"];
+        assert!(parameters.get("kcat").is_none(), "{parameters}");
+        let warnings = mass["groups"][group]["warnings"].to_string();
+        assert!(
+            warnings.contains("no kcat") && warnings.contains("--enzyme-mw"),
+            "{warnings}"
+        );
+        let activity = &parameters["specific_activity"];
+        assert_eq!(activity["unit"], "U/mg");
+        // By hand: Vmax [uM/s] x 60 s/min = umol/(L min); the enzyme [ug/mL] = mg/L.
+        let vmax = parameters["Vmax"]["value"].as_f64().unwrap();
+        let enzyme_mg_per_l = if group == 0 { 4.0 } else { 40.0 } * kda * 1e-3;
+        let by_hand = vmax * 60.0 / enzyme_mg_per_l;
+        let value = activity["value"].as_f64().unwrap();
+        assert!((value / by_hand - 1.0).abs() < 1e-12, "{value} against {by_hand}");
+        let ratio_se = activity["se"].as_f64().unwrap() / parameters["Vmax"]["se"].as_f64().unwrap();
+        assert!((ratio_se / (value / vmax) - 1.0).abs() < 1e-12);
+        // With the weight: kcat equals the molar layout's, and kcat = U/mg x kDa / 60.
+        let kcat = weighed["groups"][group]["parameters"]["kcat"]["value"]
+            .as_f64()
+            .unwrap();
+        let molar_kcat = molar["groups"][group]["parameters"]["kcat"]["value"]
+            .as_f64()
+            .unwrap();
+        assert!(
+            (kcat / molar_kcat - 1.0).abs() < 1e-9,
+            "{kcat} against {molar_kcat}"
+        );
+        assert!((kcat / (value * kda / 60.0) - 1.0).abs() < 1e-9);
+    }
+    let settings = std::fs::read_to_string(scratch.path().join("weighed").join("settings.toml")).unwrap();
+    assert!(settings.contains("enzyme-mw = 52.3"), "{settings}");
+    // A weight in Da instead of kDa, or none at all, is refused naming the setting.
+    for bad in ["--enzyme-mw=52300", "--enzyme-mw=0", "--enzyme-mw=-1"] {
+        let refused = run(&["--layout", "mass-layout.csv", bad, "--out", "bad"]);
+        assert_eq!(refused.status.code(), Some(2), "{bad}");
+        assert!(
+            text(&refused.stderr).contains("enzyme-mw"),
+            "{}",
+            text(&refused.stderr)
+        );
+        assert!(!scratch.path().join("bad").exists());
+    }
+}
+
+/// A layout's enzyme in a unit that is neither molar nor a mass concentration is refused naming
+/// the unit, the header cell and every unit the enzyme column accepts.
+#[test]
+fn an_unknown_enzyme_unit_names_the_accepted_units() {
+    let scratch = tempfile::tempdir().unwrap();
+    let layout = demo_layout_in_micrograms_per_millilitre(50.0).replace("enzyme [ug/mL]", "enzyme [U/mL]");
+    std::fs::write(scratch.path().join("layout.csv"), layout).unwrap();
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let refused = platekin(
+        &[
+            "run",
+            data.to_str().unwrap(),
+            "--layout",
+            "layout.csv",
+            "--out",
+            "bad",
+        ],
+        scratch.path(),
+    );
+    assert_eq!(refused.status.code(), Some(2));
+    let message = text(&refused.stderr);
+    assert!(
+        message.contains("'U/mL'") && message.contains("mg/mL") && message.contains("nM"),
+        "{message}"
+    );
+    assert!(message.contains("layout.csv"), "{message}");
+}
+
+/// The invented turbidity of well `index` (0-based, A1 = 0, row by row) at `time_s`: the same at
+/// both wavelengths, as the dual-wavelength correction assumes (a haze that scatters alike), and
+/// drifting differently from well to well (a drift shared by every well would leave with the
+/// blank).
+fn turbidity(index: usize, time_s: f64) -> f64 {
+    0.02 + 0.003 * (index % 7) as f64 + 3e-6 * (index % 5) as f64 * time_s
+}
+
+/// The demo wide export's header (wells) and reads: (time, the cells after the temperature).
+fn demo_reads() -> (Vec<String>, Vec<(f64, Vec<String>)>) {
+    let export = std::fs::read_to_string(common::project("demo-plates/amber-fen-wide.csv")).unwrap();
+    let mut lines = export.lines().skip_while(|line| !line.starts_with("Time [s]"));
+    let header: Vec<String> = lines
+        .next()
+        .unwrap()
+        .split(',')
+        .skip(2)
+        .map(str::to_string)
+        .collect();
+    let reads = lines
+        .map_while(|line| {
+            let cells: Vec<&str> = line.split(',').collect();
+            let time: f64 = cells.first()?.parse().ok()?;
+            Some((time, cells[2..].iter().map(|cell| cell.to_string()).collect()))
+        })
+        .collect();
+    (header, reads)
+}
+
+/// A reading at 405 nm (the demo's, plus the turbidity) and at 600 nm (the turbidity alone); a
+/// cell that holds no number stays as it is at 405 nm.
+fn two_readings(cell: &str, index: usize, time_s: f64) -> (String, String) {
+    let haze = turbidity(index, time_s);
+    match cell.parse::<f64>() {
+        Ok(value) => (format!("{}", value + haze), format!("{haze}")),
+        Err(_) => (cell.to_string(), format!("{haze}")),
+    }
+}
+
+/// One of [`two_readings`]: the 405 nm one for `pick` 0, else the 600 nm one.
+fn reading_at(pick: usize, cell: &str, index: usize, time_s: f64) -> String {
+    let (at_405, at_600) = two_readings(cell, index, time_s);
+    if pick == 0 {
+        at_405
+    } else {
+        at_600
+    }
+}
+
+/// The demo plate read at 405 and 600 nm in each shape (invented: the demo's reads plus a haze
+/// at 405 nm, the haze alone at 600 nm): wide blocks under label lines, wide columns labelled by
+/// wavelength, a long table with a wavelength column, grid blocks under label lines.
+fn two_wavelength_exports() -> Vec<(&'static str, String)> {
+    let (wells, reads) = demo_reads();
+    let mut blocks = String::from("Run,Amber Fen haze check (invented)\n");
+    for (label, pick) in [("Wavelength: 405 nm", 0), ("Wavelength: 600 nm", 1)] {
+        blocks.push_str(&format!("\n{label}\nTime [s],{}\n", wells.join(",")));
+        for (time, cells) in &reads {
+            let row: Vec<String> = cells
+                .iter()
+                .enumerate()
+                .map(|(index, cell)| reading_at(pick, cell, index, *time))
+                .collect();
+            blocks.push_str(&format!("{time},{}\n", row.join(",")));
+        }
+    }
+    let mut columns = String::from("Time [s]");
+    for well in &wells {
+        columns.push_str(&format!(",{well} 405 nm,{well} (600 nm)"));
+    }
+    columns.push('\n');
+    let mut long = String::from("well,time [s],wavelength [nm],value\n");
+    for (time, cells) in &reads {
+        columns.push_str(&format!("{time}"));
+        for (index, cell) in cells.iter().enumerate() {
+            let (at_405, at_600) = two_readings(cell, index, *time);
+            columns.push_str(&format!(",{at_405},{at_600}"));
+            long.push_str(&format!(
+                "{},{time},405,{at_405}\n{},{time},600,{at_600}\n",
+                wells[index], wells[index]
+            ));
+        }
+        columns.push('\n');
+    }
+    let mut grid = String::new();
+    for (label, pick) in [("Wavelength: 405 nm", 0), ("Wavelength: 600 nm", 1)] {
+        grid.push_str(&format!("{label}\n"));
+        for (time, cells) in &reads {
+            grid.push_str(&format!("Time {time} s\n,1,2,3,4,5,6,7,8,9,10,11,12\n"));
+            for (row, letter) in "ABCDEFGH".chars().enumerate() {
+                let values: Vec<String> = (0..12)
+                    .map(|column| reading_at(pick, &cells[row * 12 + column], row * 12 + column, *time))
+                    .collect();
+                grid.push_str(&format!("{letter},{}\n", values.join(",")));
+            }
+            grid.push('\n');
+        }
+    }
+    vec![
+        ("wide-blocks.csv", blocks),
+        ("wide-columns.csv", columns),
+        ("long.csv", long),
+        ("grid.csv", grid),
+    ]
+}
+
+/// A CSV text as a spreadsheet of one sheet (numbers as numbers), for the XLSX shape.
+fn as_workbook(csv_text: &str, path: &std::path::Path) {
+    let mut workbook = rust_xlsxwriter::Workbook::new();
+    let sheet = workbook.add_worksheet();
+    for (row, line) in csv_text.lines().enumerate() {
+        for (column, cell) in line.split(',').enumerate() {
+            if cell.is_empty() {
+                continue;
+            }
+            let (row, column) = (row as u32, column as u16);
+            match cell.parse::<f64>() {
+                Ok(number) => sheet.write_number(row, column, number).map(|_| ()),
+                Err(_) => sheet.write_string(row, column, cell).map(|_| ()),
+            }
+            .unwrap();
+        }
+    }
+    workbook.save(path).unwrap();
+}
+
+/// Two wavelengths in every export shape, through the binary: without `--wavelength` the run is
+/// refused listing both; a wavelength the export lacks is refused listing both; `--wavelength
+/// 405 --reference-wavelength 600` subtracts the haze read by read and gives the single-wavelength
+/// demo's rates (to rounding: the invented haze is the same at both wavelengths); nothing is
+/// written by a refused run.
+#[test]
+fn two_wavelength_exports_in_every_shape_pick_one_and_subtract_the_reference() {
+    let scratch = tempfile::tempdir().unwrap();
+    let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let run = |data: &str, extra: &[&str]| {
+        let mut args = vec!["--layout", layout.to_str().unwrap()];
+        args.extend_from_slice(extra);
+        run_in_micromolar(scratch.path(), data, &args)
+    };
+    let demo = common::project("demo-plates/amber-fen-wide.csv");
+    let single = run(demo.to_str().unwrap(), &["--out", "single"]);
+    assert!(single.status.success(), "{}", text(&single.stderr));
+    let expected = csv_column(&scratch.path().join("single").join("wells.csv"), "rate [uM/s]");
+    let mut files = Vec::new();
+    for (name, contents) in two_wavelength_exports() {
+        std::fs::write(scratch.path().join(name), &contents).unwrap();
+        if name == "wide-blocks.csv" {
+            as_workbook(&contents, &scratch.path().join("wide-blocks.xlsx"));
+            files.push("wide-blocks.xlsx".to_string());
+        }
+        files.push(name.to_string());
+    }
+    for file in &files {
+        let ambiguous = run(file, &["--out", "ambiguous"]);
+        assert_eq!(ambiguous.status.code(), Some(2), "{file}");
+        let message = text(&ambiguous.stderr);
+        assert!(
+            message.contains("405 nm and 600 nm") && message.contains("--wavelength"),
+            "{file}: {message}"
+        );
+        let absent = run(file, &["--wavelength", "450", "--out", "absent"]);
+        assert_eq!(absent.status.code(), Some(2), "{file}");
+        let message = text(&absent.stderr);
+        assert!(
+            message.contains("450") && message.contains("405 nm and 600 nm"),
+            "{file}: {message}"
+        );
+        assert!(!scratch.path().join("ambiguous").exists() && !scratch.path().join("absent").exists());
+
+        let out = format!("corrected-{file}");
+        let corrected = run(
+            file,
+            &[
+                "--wavelength",
+                "405",
+                "--reference-wavelength",
+                "600",
+                "--out",
+                &out,
+            ],
+        );
+        assert!(corrected.status.success(), "{file}: {}", text(&corrected.stderr));
+        let rates = csv_column(&scratch.path().join(&out).join("wells.csv"), "rate [uM/s]");
+        assert_eq!(rates.len(), expected.len(), "{file}");
+        assert!(expected.iter().flatten().count() > 40);
+        for (got, want) in rates.iter().zip(&expected) {
+            match (got, want) {
+                (Some(got), Some(want)) => {
+                    assert!(
+                        (got - want).abs() <= 1e-9 * want.abs().max(1e-6),
+                        "{file}: {got} against {want}"
+                    )
+                }
+                (None, None) => {}
+                other => panic!("{file}: {other:?}"),
+            }
+        }
+        // The haze alone leaves 405 nm rates higher by its drift, so the subtraction did work.
+        let uncorrected = run(file, &["--wavelength", "405", "--out", &format!("raw-{file}")]);
+        assert!(
+            uncorrected.status.success(),
+            "{file}: {}",
+            text(&uncorrected.stderr)
+        );
+        let raw = csv_column(
+            &scratch.path().join(format!("raw-{file}")).join("wells.csv"),
+            "rate [uM/s]",
+        );
+        let shifted = raw
+            .iter()
+            .zip(&expected)
+            .filter(|(raw, want)| matches!((raw, want), (Some(r), Some(w)) if (r - w).abs() > 1e-4))
+            .count();
+        assert!(shifted > 20, "{file}: {shifted}");
+    }
+}
+
+/// The simulated plate's layout with its enzyme written in ug/mL for a protein of `kda`
+/// (ug/mL = nM x kDa x 1e-3; the enzyme is the layout's fourth column).
+fn layout_in_micrograms_per_millilitre(layout_csv: &str, kda: f64) -> String {
+    let mut text = String::new();
+    for line in layout_csv.lines() {
+        let mut cells: Vec<String> = line.split(',').map(str::to_string).collect();
+        if let Some(cell) = cells.get_mut(3) {
+            if cell.as_str() == "enzyme [nM]" {
+                *cell = "enzyme [ug/mL]".to_string();
+            } else if let Ok(nanomolar) = cell.parse::<f64>() {
+                *cell = format!("{}", nanomolar * kda * 1e-3);
+            }
+        }
+        text.push_str(&cells.join(","));
+        text.push('\n');
+    }
+    text
+}
+
+/// The specific activity against the simulator's truth, kcat x 60 / MW (1 U = 1 umol/min), over
+/// the simulated fluorescence plates of the kcat coverage check: its interval covers the truth on
+/// exactly the plates where kcat's does (it is Vmax scaled by a known constant, with the slope's
+/// uncertainty combined alike), and its bias is kcat's. `PLATEKIN_CALIBRATION_PLATES` sets the
+/// number of plates (40 by default).
+#[test]
+fn specific_activity_covers_the_simulated_truth_as_kcat_does() {
+    let plates = simulated_plates();
+    let kda = 31.6;
+    let truth = KCAT_PER_S * 60.0 / kda;
+    let (mut covered_kcat, mut covered_activity) = (0, 0);
+    let mut errors = Vec::new();
+    for seed in 0..plates as u64 {
+        let plate = fluorescence_plate(1000 + seed).unwrap();
+        let molar = analyse(&plate.export_csv, &plate.layout_csv, &fluorescence_layer());
+        let mass_layout = layout_in_micrograms_per_millilitre(&plate.layout_csv, kda);
+        let mass = analyse(&plate.export_csv, &mass_layout, &fluorescence_layer());
+        let ((_, [lo, hi], _), _) = constants(&molar);
+        let kcat_covers = lo <= KCAT_PER_S && KCAT_PER_S <= hi;
+        let activity = &mass.fits[0].parameters["specific_activity"];
+        let [low, high] = activity.ci95.unwrap();
+        let activity_covers = low <= truth && truth <= high;
+        assert_eq!(kcat_covers, activity_covers, "plate {seed}");
+        covered_kcat += usize::from(kcat_covers);
+        covered_activity += usize::from(activity_covers);
+        errors.push(activity.value / truth - 1.0);
+    }
+    let bias = errors.iter().sum::<f64>() / plates as f64;
+    println!(
+        "specific activity over {plates} plates: {covered_activity} intervals hold the truth (kcat: {covered_kcat}); bias {:+.2}%",
+        100.0 * bias
+    );
+    assert!(
+        covered_activity * 100 >= plates * 70,
+        "{covered_activity} of {plates}"
+    );
+    assert!(bias.abs() < 0.05, "bias {bias}");
 }

@@ -348,3 +348,56 @@ fn inhibitor_plate_report_shows_the_rate_at_each_inhibitor_level() {
     assert!(pixels.chunks(3).filter(|p| *p != first).count() * 100 > pixels.len() / 3);
     assert!(out.join("plots/group-1-inhibition-residuals.png").exists());
 }
+
+/// A run's tables written with `--rate-unit uM/min` fit to the same kcat (per second) and Vmax
+/// (per minute, 60 times the uM/s run's: 1 min = 60 s) as the run itself.
+#[test]
+fn fit_reads_a_rate_table_per_minute() {
+    let scratch = tempfile::tempdir().unwrap();
+    let data = common::project("demo-plates/amber-fen-wide.csv");
+    let layout = common::project("demo-plates/amber-fen-layout.csv");
+    let run = platekin(
+        &[
+            "run",
+            data.to_str().unwrap(),
+            "--layout",
+            layout.to_str().unwrap(),
+            "--extinction",
+            "16800",
+            "--pathlength",
+            "0.55",
+            "--report",
+            "none",
+            "--progress",
+            "never",
+            "--rate-unit",
+            "uM/min",
+            "--out",
+            "run",
+        ],
+        scratch.path(),
+    );
+    assert!(run.status.success(), "{}", text(&run.stderr));
+    let refit = platekin(&["fit", "run/wells.csv", "--out", "refit"], scratch.path());
+    assert!(refit.status.success(), "{}", text(&refit.stderr));
+    let (run_fit, refit_fit) = (
+        fit_json(&scratch.path().join("run")),
+        fit_json(&scratch.path().join("refit")),
+    );
+    for group in 0..2 {
+        let (a, b) = (
+            &run_fit["groups"][group]["parameters"],
+            &refit_fit["groups"][group]["parameters"],
+        );
+        assert_eq!(b["kcat"]["unit"], "1/s");
+        assert_eq!(b["Vmax"]["unit"], "uM/min");
+        for name in ["kcat", "Vmax", "Km"] {
+            let (x, y) = (
+                a[name]["value"].as_f64().unwrap(),
+                b[name]["value"].as_f64().unwrap(),
+            );
+            // The same points through the CSV's printed digits.
+            assert!((y / x - 1.0).abs() < 1e-6, "{name}: {y} vs {x}");
+        }
+    }
+}

@@ -190,7 +190,8 @@ pub fn digest(results: &RunResults) -> PlateDigest {
                 well: well.well.to_string(),
                 factors: well.setup.factors.clone(),
                 substrate,
-                rate,
+                // The turnover above is made from the internal rate; the rate is written as asked.
+                rate: results.rates_in.rate(rate),
                 turnover,
             })
         })
@@ -209,7 +210,7 @@ pub fn digest(results: &RunResults) -> PlateDigest {
             .and_then(|screen| screen.quality.z_prime.clone())
             .or_else(|| z_prime(&positive, &negative)),
         pool_points,
-        rate_unit: analysis.signal.rate_unit(),
+        rate_unit: results.rates_in.unit.clone(),
         substrate_unit: layout.substrate_unit.map(|unit| unit.to_string()),
     }
 }

@@ -338,6 +338,10 @@ pub struct ImportOptions {
     pub sheet: Option<String>,
     /// What to do with rows cut short.
     pub short_rows: ShortRowPolicy,
+    /// The wavelength to analyse in an export holding several, nm.
+    pub wavelength_nm: Option<f64>,
+    /// A reference wavelength whose read is subtracted per read and well, nm.
+    pub reference_wavelength_nm: Option<f64>,
 }
 
 /// The rate laws platekin fits.

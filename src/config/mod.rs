@@ -12,7 +12,7 @@ pub use choices::*;
 
 use crate::core::format::significant;
 use crate::core::plate::{PlateFormat, WellId};
-use crate::core::units::TimeUnit;
+use crate::core::units::{RateUnit, TimeUnit};
 
 /// Every setting, each optional, as a flag set or an assay file gives them. Keys are the flags'
 /// names (`max-conversion`, `min-points`, ...).
@@ -104,6 +104,14 @@ pub struct SettingLayer {
     pub water_reference: Option<f64>,
     /// The unit of kcat: `1/s` (default) or `1/min`.
     pub kcat_unit: Option<String>,
+    /// The unit of rates (`uM/min`, `nM/s`); default: the layout's concentration unit per second.
+    pub rate_unit: Option<String>,
+    /// The enzyme's molecular weight, kDa: kcat from an enzyme given as mg/mL or ug/mL.
+    pub enzyme_mw: Option<f64>,
+    /// The wavelength to analyse in an export holding several, nm.
+    pub wavelength: Option<f64>,
+    /// A reference wavelength subtracted per read and well, nm.
+    pub reference_wavelength: Option<f64>,
 }
 
 impl SettingLayer {
@@ -152,6 +160,10 @@ impl SettingLayer {
             pathlength_from: self.pathlength_from.or(below.pathlength_from),
             water_reference: self.water_reference.or(below.water_reference),
             kcat_unit: self.kcat_unit.or(below.kcat_unit),
+            rate_unit: self.rate_unit.or(below.rate_unit),
+            enzyme_mw: self.enzyme_mw.or(below.enzyme_mw),
+            wavelength: self.wavelength.or(below.wavelength),
+            reference_wavelength: self.reference_wavelength.or(below.reference_wavelength),
         }
     }
 
@@ -339,6 +351,11 @@ pub struct AnalysisSettings {
     pub water_reference: f64,
     /// The unit kcat and kcat/Km are reported in.
     pub kcat_unit: KcatUnit,
+    /// The unit rates are reported in; `None`: the concentration unit of the signal's conversion
+    /// per second (`uM/s` for a layout in uM), as before the setting existed.
+    pub rate_unit: Option<RateUnit>,
+    /// The enzyme's molecular weight, kDa, for kcat from a mass concentration.
+    pub enzyme_mw_kda: Option<f64>,
     /// Pathlength of each well listed in a `--pathlength-from` table, cm (filled once the table is
     /// read; wells not listed use `pathlength_cm`).
     #[serde(skip)]
@@ -433,6 +450,8 @@ impl Default for AnalysisSettings {
             pathlength_cm: None,
             water_reference: DEFAULT_WATER_REFERENCE,
             kcat_unit: KcatUnit::PerSecond,
+            rate_unit: None,
+            enzyme_mw_kda: None,
             pathlength_by_well: std::collections::BTreeMap::new(),
             rates: RateSettings::default(),
             initial_rate: InitialRateEstimator::default(),
@@ -652,7 +671,23 @@ pub fn resolve_import(layer: &SettingLayer) -> Result<ImportOptions, SettingsErr
         plate: parse_field::<PlateFormat>("plate", &layer.plate)?,
         sheet: layer.sheet.clone(),
         short_rows: parse_field::<ShortRowPolicy>("short-rows", &layer.short_rows)?.unwrap_or_default(),
+        wavelength_nm: wavelength_setting("wavelength", layer.wavelength)?,
+        reference_wavelength_nm: wavelength_setting("reference-wavelength", layer.reference_wavelength)?,
     })
+}
+
+/// The longest wavelength taken, nm: beyond any plate reader's range.
+pub const MAX_WAVELENGTH_NM: f64 = 2000.0;
+
+/// A wavelength setting: a positive number of nm up to [`MAX_WAVELENGTH_NM`].
+fn wavelength_setting(name: &'static str, value: Option<f64>) -> Result<Option<f64>, SettingsError> {
+    match value {
+        Some(nm) if !(nm.is_finite() && nm > 0.0 && nm <= MAX_WAVELENGTH_NM) => Err(SettingsError::about(
+            name,
+            format!("{name} is a wavelength in nm, from above 0 to {MAX_WAVELENGTH_NM}, got {nm}"),
+        )),
+        other => Ok(other),
+    }
 }
 
 /// Refuses the settings that belong to another kind of signal than the one read, saying why:
@@ -861,6 +896,8 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         pathlength_cm: pathlength,
         water_reference,
         kcat_unit: parse_field::<KcatUnit>("kcat-unit", &layer.kcat_unit)?.unwrap_or_default(),
+        rate_unit: parse_field::<RateUnit>("rate-unit", &layer.rate_unit)?,
+        enzyme_mw_kda: enzyme_molecular_weight(layer.enzyme_mw)?,
         pathlength_by_well: std::collections::BTreeMap::new(),
         rates: RateSettings {
             min_points,
@@ -879,6 +916,23 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         progress,
         screen: resolve_screen(layer)?,
     })
+}
+
+/// The heaviest enzyme `--enzyme-mw` takes, kDa: beyond the largest single proteins known
+/// (titin, about 3,800 kDa), so a larger number is a typing slip (Da for kDa).
+pub const MAX_ENZYME_MW_KDA: f64 = 5000.0;
+
+/// `--enzyme-mw`: a molecular weight in kDa, positive and at most [`MAX_ENZYME_MW_KDA`].
+fn enzyme_molecular_weight(value: Option<f64>) -> Result<Option<f64>, SettingsError> {
+    match value {
+        Some(kda) if !(kda.is_finite() && kda > 0.0 && kda <= MAX_ENZYME_MW_KDA) => Err(SettingsError::about(
+            "enzyme-mw",
+            format!(
+                "enzyme-mw is the enzyme's molecular weight in kDa, from above 0 to {MAX_ENZYME_MW_KDA}, got {kda} (write 52.3 for 52,300 Da)"
+            ),
+        )),
+        other => Ok(other),
+    }
 }
 
 /// The screening settings of a layer: the compound factor and the wells excluded in the settings.
@@ -987,6 +1041,9 @@ pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLa
         signal: Some(analysis.rates.signal.word().into()),
         water_reference: layer.pathlength_from.as_ref().map(|_| analysis.water_reference),
         kcat_unit: Some(analysis.kcat_unit.word().into()),
+        // Written only when asked for: without it rates follow the layout's unit.
+        rate_unit: analysis.rate_unit.map(|unit| unit.to_string()),
+        enzyme_mw: analysis.enzyme_mw_kda,
         // The pathlength used, also when it came from the volume (recorded beside it).
         pathlength: analysis.pathlength_cm,
         alpha: Some(analysis.rates.alpha),

@@ -465,7 +465,8 @@ pub struct ConstantEstimate {
 /// Relative standard error above which a constant counts as not determined (as for Michaelis-Menten).
 pub const MAXIMUM_RELATIVE_SE: f64 = 0.5;
 
-fn dimension_of(name: &str) -> Dimension {
+/// What a rate-law constant is measured in, by its name.
+pub fn dimension_of(name: &str) -> Dimension {
     match name {
         "Vmax" | "v0" | "top" | "bottom" => Dimension::Rate,
         "Km" | "K" | "Ksi" => Dimension::Substrate,

@@ -248,6 +248,29 @@ pub struct LinearisedEstimates {
     pub hanes_woolf: Option<LinearisedEstimate>,
 }
 
+impl LinearisedEstimates {
+    /// The same estimates with rates multiplied by `factor` (a change of rate unit): Vmax scales;
+    /// of the lines, 1/v and S/v scale by 1/factor, v by factor, v/S by factor.
+    pub fn with_rates_scaled(self, factor: f64) -> LinearisedEstimates {
+        let scaled = |estimate: Option<LinearisedEstimate>, slope: f64, intercept: f64| {
+            estimate.map(|e| LinearisedEstimate {
+                vmax: e.vmax * factor,
+                slope: e.slope * slope,
+                intercept: e.intercept * intercept,
+                ..e
+            })
+        };
+        LinearisedEstimates {
+            // 1/v = 1/Vmax + (Km/Vmax)(1/S): both coefficients are per rate.
+            lineweaver_burk: scaled(self.lineweaver_burk, 1.0 / factor, 1.0 / factor),
+            // v = Vmax - Km (v/S): the slope is -Km (a concentration), the intercept a rate.
+            eadie_hofstee: scaled(self.eadie_hofstee, 1.0, factor),
+            // S/v = Km/Vmax + S/Vmax: both coefficients are per rate.
+            hanes_woolf: scaled(self.hanes_woolf, 1.0 / factor, 1.0 / factor),
+        }
+    }
+}
+
 /// Result of [`fit_michaelis_menten`]. Read `warnings` and the `determined` flags before the numbers.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct MichaelisMentenFit {

@@ -19,7 +19,7 @@ use crate::core::stats::t_quantile_975;
 use crate::signal::calibration::{Calibration, StandardCurve};
 
 /// The parameters that scale with 1/slope.
-pub const SCALED_BY_SLOPE: [&str; 3] = ["Vmax", "kcat", "kcat_over_Km"];
+pub const SCALED_BY_SLOPE: [&str; 4] = ["Vmax", "kcat", "kcat_over_Km", "specific_activity"];
 
 /// The curve that converted a group's rates: the one whose factor values the group's key holds
 /// (the only one for a plate with one curve).

@@ -19,7 +19,7 @@ use std::collections::BTreeMap;
 use crate::config::{FitSettings, InitialRateEstimator, ModelRequest, RateModelKind, RobustLoss, Weighting};
 use crate::core::plate::WellId;
 use crate::core::stats::{extra_replicate_variance, summary, t_quantile_975};
-use crate::core::units::ConcentrationUnit;
+use crate::core::units::{ConcentrationUnit, MassConcentrationUnit};
 use crate::fit::inference::{ConstantEstimate, Dimension, ProfileInterval};
 use crate::fit::models::RateData;
 use crate::fit::models::SharedRateErrors;
@@ -241,6 +241,8 @@ pub struct InitialRateOptions {
     pub estimator: InitialRateEstimator,
     /// Time from mixing to the export's time zero, s.
     pub dead_time_s: f64,
+    /// The enzyme's molecular weight, kDa (`--enzyme-mw`): kcat from a mass concentration.
+    pub enzyme_mw_kda: Option<f64>,
 }
 
 impl Default for InitialRateOptions {
@@ -248,6 +250,7 @@ impl Default for InitialRateOptions {
         InitialRateOptions {
             estimator: InitialRateEstimator::Chord,
             dead_time_s: 0.0,
+            enzyme_mw_kda: None,
         }
     }
 }
@@ -267,7 +270,7 @@ fn group_key(well: &WellResult, layout: &Layout, with_inhibitor: bool) -> GroupK
         let value = well.setup.factors.get(name).cloned().unwrap_or_default();
         key.insert(name.clone(), GroupValue::Text(value));
     }
-    if let (Some(unit), Some(enzyme)) = (layout.enzyme_unit, well.setup.enzyme) {
+    if let (Some(unit), Some(enzyme)) = (layout.enzyme_unit_text(), well.setup.enzyme) {
         key.insert(format!("enzyme [{unit}]"), GroupValue::Number(enzyme));
     }
     if with_inhibitor {
@@ -555,8 +558,10 @@ pub struct GroupUnits {
     pub inhibitor_unit: Option<ConcentrationUnit>,
     /// Text for a concentration without a unit (`substrate units` for a run, "" for unitless tables).
     pub missing_unit_text: String,
-    /// Enzyme concentration and its unit.
+    /// Enzyme concentration and its unit (from a mass concentration through `--enzyme-mw`).
     pub enzyme: Option<(f64, ConcentrationUnit)>,
+    /// The enzyme as a mass concentration, when the layout gives it so (for the specific activity).
+    pub enzyme_mass: Option<(f64, MassConcentrationUnit)>,
 }
 
 /// Why a well is left out of its group's fit, or `None` when it is fitted.
@@ -617,10 +622,16 @@ fn fit_one_group(
         }
     }
     replicate_sds(&mut points);
-    let enzyme = match (wells.first().and_then(|w| w.setup.enzyme), layout.enzyme_unit) {
+    let enzyme_value = wells.first().and_then(|w| w.setup.enzyme);
+    let enzyme = match (enzyme_value, layout.enzyme_unit) {
         (Some(value), Some(unit)) => Some((value, unit)),
+        // A mass concentration with the molecular weight: the molar concentration, in M.
+        (Some(value), None) => layout
+            .enzyme_factor_to(ConcentrationUnit::Molar, initial.enzyme_mw_kda)
+            .map(|factor| (value * factor, ConcentrationUnit::Molar)),
         _ => None,
     };
+    let enzyme_mass = enzyme_value.zip(layout.enzyme_mass_unit);
     let units = GroupUnits {
         rate_unit: analysis.signal.rate_unit(),
         rate_concentration_unit: analysis.signal.concentration_unit,
@@ -628,6 +639,7 @@ fn fit_one_group(
         inhibitor_unit: layout.inhibitor_unit,
         missing_unit_text: "substrate units".to_string(),
         enzyme,
+        enzyme_mass,
     };
     let n_wells = wells.len();
     let corrections = PlateCorrections {
@@ -1029,6 +1041,10 @@ fn enzyme_for_kcat(units: &GroupUnits) -> Result<(f64, ConcentrationUnit), &'sta
             Err("no kcat: rates are in absorbance units (give --extinction and --pathlength)")
         }
         (None, ..) => Err("no kcat: the rates are not in a concentration per second (such as uM/s)"),
+        (_, _, None) if units.enzyme_mass.is_some() => Err(
+            "no kcat: the enzyme is given as a mass concentration, so its molar concentration is unknown; \
+             give the enzyme's molecular weight with --enzyme-mw KDA (the specific activity is reported)",
+        ),
         (_, _, None) | (_, None, _) => Err("no kcat: no enzyme concentration is given"),
         (Some(_), Some(_), Some((e, _))) if e <= 0.0 => Err("no kcat: the enzyme concentration is zero"),
         _ => Err("no kcat: the rate and substrate units differ"),
@@ -1115,6 +1131,47 @@ fn michaelis_menten_report(
         },
         Err(reason) => report.warnings.push(reason.to_string()),
     }
+    insert_specific_activity(report, units);
+}
+
+/// Umol per mol, for the enzyme unit (1 U = 1 umol/min).
+const MICROMOL_PER_MOL: f64 = 1e6;
+
+/// The factor that turns a rate in `rate_unit` per second, over an enzyme at `mass` of
+/// `mass_unit`, into a specific activity in U/mg (1 U = 1 umol/min, IUBMB): umol/(L min) over
+/// mg/L. `None` when the enzyme value is not positive.
+pub fn specific_activity_factor(
+    rate_unit: ConcentrationUnit,
+    mass: f64,
+    mass_unit: MassConcentrationUnit,
+) -> Option<f64> {
+    let micromol_per_litre_minute = rate_unit.in_molar() * MICROMOL_PER_MOL * 60.0;
+    let milligram_per_litre = mass * mass_unit.in_grams_per_litre() * 1000.0;
+    (milligram_per_litre > 0.0 && milligram_per_litre.is_finite())
+        .then(|| micromol_per_litre_minute / milligram_per_litre)
+}
+
+/// Adds `specific_activity` (Vmax per mg of enzyme, U/mg) when the layout gives the enzyme as a
+/// mass concentration and the rates are concentrations per second: Vmax's value, SE and every
+/// interval scaled together.
+fn insert_specific_activity(report: &mut GroupFit, units: &GroupUnits) {
+    let (Some(rate_unit), Some((mass, mass_unit))) = (units.rate_concentration_unit, units.enzyme_mass)
+    else {
+        return;
+    };
+    let Some(vmax) = report.parameters.get("Vmax") else {
+        return;
+    };
+    let Some(factor) = specific_activity_factor(rate_unit, mass, mass_unit) else {
+        report
+            .warnings
+            .push("no specific activity: the enzyme concentration is zero".to_string());
+        return;
+    };
+    let mut activity = vmax.clone();
+    units::scale(&mut activity, factor);
+    activity.unit = "U/mg".to_string();
+    report.parameters.insert("specific_activity".into(), activity);
 }
 
 /// The report of any other model (or of a weighted or robust Michaelis-Menten fit): every constant
@@ -1194,4 +1251,5 @@ fn general_report(
         }
         Err(reason) => report.warnings.push(reason.to_string()),
     }
+    insert_specific_activity(report, units);
 }

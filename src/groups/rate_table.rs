@@ -18,7 +18,7 @@ use super::{
 };
 use crate::config::FitSettings;
 use crate::core::cells::{Cell, CellGrid, Position};
-use crate::core::units::{split_header_unit, ConcentrationUnit};
+use crate::core::units::{split_header_unit, ConcentrationUnit, RateUnit};
 use crate::files::input::InputFile;
 use crate::files::sheet::{number_shape, read_input_cells, MergedCells, NumberShape, SheetReadError};
 use crate::layout::{is_reserved_column_name, FACTOR_PREFIX};
@@ -107,6 +107,9 @@ pub struct RateTable {
     pub groups: Vec<TableGroup>,
     pub units: GroupUnits,
     pub enzyme_unit: Option<ConcentrationUnit>,
+    /// Seconds in the time of the rate unit (60 for `rate [uM/min]`, a run's `--rate-unit`): kcat
+    /// and kcat/Km are brought to per second by it.
+    pub rate_time_s: f64,
 }
 
 struct Columns {
@@ -291,9 +294,15 @@ pub fn read_rate_table(
         None => None,
     };
     let rate_unit = split_header_unit(&headers[rate]).1.unwrap_or("").to_string();
-    let rate_concentration_unit = rate_unit
-        .strip_suffix("/s")
-        .and_then(|concentration| ConcentrationUnit::from_str(concentration).ok());
+    // A concentration per time (`uM/s`, or `nM/min` from a run's `--rate-unit`).
+    let rate_unit_parsed = RateUnit::from_str(&rate_unit).ok();
+    let rate_concentration_unit = rate_unit_parsed.map(|unit| unit.concentration).or_else(|| {
+        // Spellings with a slash of their own (`mol/L/s`), per second.
+        rate_unit
+            .strip_suffix("/s")
+            .and_then(|concentration| ConcentrationUnit::from_str(concentration).ok())
+    });
+    let rate_time_s = rate_unit_parsed.map_or(1.0, |unit| unit.time.in_seconds());
 
     // Rows into provisional groups by factors and enzyme.
     let mut groups: Vec<TableGroup> = Vec::new();
@@ -424,8 +433,10 @@ pub fn read_rate_table(
             inhibitor_unit,
             missing_unit_text: String::new(),
             enzyme: None,
+            enzyme_mass: None,
         },
         enzyme_unit,
+        rate_time_s,
     })
 }
 
@@ -449,7 +460,7 @@ pub fn fit_table(
             // Replicate SDs from repeated rows where the table gives none.
             let mut points = group.points.clone();
             replicate_sds(&mut points);
-            fit_points(
+            let mut fit = fit_points(
                 group.group.clone(),
                 &points,
                 group.left_out.clone(),
@@ -457,7 +468,10 @@ pub fn fit_table(
                 settings,
                 None,
                 progress,
-            )
+            );
+            // kcat = Vmax/[E] is per the rate's time; per second, as a run reports it.
+            super::units::turnover_per_second(&mut fit.parameters, table.rate_time_s);
+            fit
         })
         .collect()
 }

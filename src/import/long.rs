@@ -68,6 +68,8 @@ struct LongColumns {
     time: usize,
     value: usize,
     temperature: Option<usize>,
+    /// The wavelength column and the wavelength read from it, when the export has several.
+    wavelength: Option<(usize, f64)>,
 }
 
 /// Whether a cell's text looks like a well ID, even a broken one (`A 2`, `Z99`, `A0`): one or
@@ -85,6 +87,12 @@ fn looks_like_well(text: &str) -> bool {
 fn row_kind(grid: &CellGrid, row: usize, header_row: usize, columns: &LongColumns) -> RowKind {
     if let Some(kind) = blank_or_repeated_header(grid, row, header_row) {
         return kind;
+    }
+    if let Some((column, chosen)) = columns.wavelength {
+        let at = super::wavelength::long_row_wavelength(grid, row, column);
+        if at.is_some_and(|nm| (nm - chosen).abs() >= 0.5) {
+            return RowKind::OtherWavelength;
+        }
     }
     let well_cell = grid.cell(row, columns.well);
     let time_cell = grid.cell(row, columns.time);
@@ -118,6 +126,7 @@ pub(super) fn parse(
     grid: &CellGrid,
     header_row: usize,
     options: &ImportOptions,
+    wavelength: Option<(usize, f64)>,
 ) -> Result<ShapeTable, ImportError> {
     let header_position = || grid.position(header_row, None);
     let mut well_column = None;
@@ -130,6 +139,7 @@ pub(super) fn parse(
             HeaderKind::WellName if well_column.is_none() => well_column = Some(column),
             HeaderKind::Time(unit) if time_column.is_none() => time_column = Some((column, unit)),
             HeaderKind::Temperature if temperature_column.is_none() => temperature_column = Some(column),
+            _ if super::wavelength::is_wavelength_header(&cell) => {}
             _ if is_value_name(&cell) => named_values.push(column),
             _ if cell.is_empty() => {}
             _ => others.push(column),
@@ -222,6 +232,7 @@ pub(super) fn parse(
         time: time_column,
         value: value_column,
         temperature: temperature_column,
+        wavelength,
     };
     let kinds: Vec<(usize, RowKind)> = (header_row + 1..grid.n_rows())
         .map(|row| (row, row_kind(grid, row, header_row, &columns)))

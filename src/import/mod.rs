@@ -20,6 +20,7 @@ mod rows;
 #[cfg(test)]
 mod tests;
 mod time;
+mod wavelength;
 mod wide;
 
 use std::io::Cursor;
@@ -315,6 +316,13 @@ pub enum ImportError {
         /// The time line.
         position: Position,
     },
+    /// The export's wavelengths and the one asked for do not fit together (several and none
+    /// chosen, one asked for that it does not hold, a reference read that does not match).
+    #[error("{message}")]
+    Wavelength {
+        /// What is wrong, naming the file and the wavelengths present.
+        message: String,
+    },
     /// Wells of a long table with their own time stamps whose reads cannot be matched by order.
     #[error(
         "{origin}: the wells carry their own time stamps, and read {read} of well {well} (row {row}) \
@@ -452,15 +460,123 @@ fn looked_for(forced: Option<DataShape>) -> String {
     shapes.join("; or ")
 }
 
-/// Imports an export already read into cells.
+/// Imports an export already read into cells: the one wavelength it holds, or the one asked
+/// for, less the reference wavelength's read when one is asked for ([`wavelength`]).
 pub fn import_cells(grid: &CellGrid, options: &ImportOptions) -> Result<KineticData, ImportError> {
+    let refused = |message: String| ImportError::Wavelength { message };
+    let Some(channels) = wavelength::find_channels(grid) else {
+        if let Some(nm) = options.wavelength_nm.or(options.reference_wavelength_nm) {
+            return Err(refused(format!(
+                "{}: --wavelength or --reference-wavelength {nm} was given, but the export labels no \
+                 wavelength (a line such as `Wavelength: 405 nm` above each table, well columns such \
+                 as `A1 405 nm`, or a `wavelength` column)",
+                grid.source
+            )));
+        }
+        return import_channel(grid, options, None);
+    };
+    let present = channels.wavelengths(grid);
+    let chosen =
+        wavelength::choose(&present, options.wavelength_nm, &grid.source, "--wavelength").map_err(refused)?;
+    // One wavelength named in the metadata (`Wavelength [nm],405`): the export as it stands, with
+    // no copy of its cells.
+    if present.len() == 1 && options.reference_wavelength_nm.is_none() {
+        return import_channel(grid, options, None);
+    }
+    let long_column = |nm: f64| match channels {
+        wavelength::Channels::LongColumn { column, .. } => Some((column, nm)),
+        _ => None,
+    };
+    let mut data = import_channel(&channels.select(grid, chosen), options, long_column(chosen))?;
+    let Some(asked) = options.reference_wavelength_nm else {
+        return Ok(data);
+    };
+    let reference_nm =
+        wavelength::choose(&present, Some(asked), &grid.source, "--reference-wavelength").map_err(refused)?;
+    if (reference_nm - chosen).abs() < 0.5 {
+        return Err(refused(format!(
+            "{}: --reference-wavelength {asked} is the wavelength analysed; the reference is another wavelength",
+            grid.source
+        )));
+    }
+    let reference = import_channel(
+        &channels.select(grid, reference_nm),
+        options,
+        long_column(reference_nm),
+    )?;
+    subtract_reference(&mut data, &reference, chosen, reference_nm).map_err(refused)?;
+    Ok(data)
+}
+
+/// Imports one wavelength's cells (a long table's rows of other wavelengths set aside by its
+/// reader, through `long_wavelength`).
+fn import_channel(
+    grid: &CellGrid,
+    options: &ImportOptions,
+    long_wavelength: Option<(usize, f64)>,
+) -> Result<KineticData, ImportError> {
     let (shape, start_row) = detect_shape(grid, options.shape)?;
     let table = match shape {
         DataShape::Wide => wide::parse(grid, start_row, options)?,
         DataShape::Grid => grid::parse(grid, options)?,
-        DataShape::Long => long::parse(grid, start_row, options)?,
+        DataShape::Long => long::parse(grid, start_row, options, long_wavelength)?,
     };
     finish(grid, table, options)
+}
+
+/// Subtracts the reference wavelength's read from each read of each well (the dual-wavelength
+/// correction); a read unreadable at either wavelength is unreadable. The two must hold the same
+/// reads (times) and wells.
+fn subtract_reference(
+    data: &mut KineticData,
+    reference: &KineticData,
+    chosen: f64,
+    reference_nm: f64,
+) -> Result<(), String> {
+    let same_times = data.times_s.len() == reference.times_s.len()
+        && data
+            .times_s
+            .iter()
+            .zip(&reference.times_s)
+            .all(|(a, b)| (a - b).abs() <= 1e-6 * a.abs().max(1.0));
+    if !same_times {
+        return Err(format!(
+            "{}: the reads at {reference_nm} nm ({} reads) are not at the times of the reads at {chosen} nm ({} reads), so the reference cannot be subtracted read by read",
+            data.source,
+            reference.times_s.len(),
+            data.times_s.len()
+        ));
+    }
+    for trace in &mut data.wells {
+        let Some(other) = reference.wells.iter().find(|other| other.well == trace.well) else {
+            return Err(format!(
+                "{}: well {} has reads at {chosen} nm but none at the reference {reference_nm} nm",
+                data.source, trace.well
+            ));
+        };
+        for (value, subtracted) in trace.values.iter_mut().zip(&other.values) {
+            *value = match (*value, subtracted) {
+                (Some(read), Some(reference)) => Some(read - reference),
+                _ => None,
+            };
+        }
+        // A reference read that is unreadable makes the read unreadable: say where.
+        for gap in &other.unreadable {
+            if !trace
+                .unreadable
+                .iter()
+                .any(|known| known.read_index == gap.read_index)
+            {
+                trace.unreadable.push(gap.clone());
+            }
+        }
+        trace.unreadable.sort_by_key(|gap| gap.read_index);
+    }
+    data.warnings.push(format!(
+        "{}: the read at {reference_nm} nm is subtracted from the read at {chosen} nm, per read and well",
+        data.source
+    ));
+    Ok(())
 }
 
 /// Finds the first row that starts a table of an allowed shape. On one row, wide is tried first,

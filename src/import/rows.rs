@@ -16,6 +16,8 @@ pub(super) enum RowKind {
     Data,
     /// The header again (a repeated header, as exports that page their tables write).
     RepeatedHeader,
+    /// A read at another wavelength than the one analysed (a long table's `wavelength` column).
+    OtherWavelength,
     /// No read.
     NotData {
         /// Where the row fails (its time or well cell).
@@ -70,10 +72,12 @@ pub(super) fn settle_rows(grid: &CellGrid, rows: Vec<(usize, RowKind)>) -> Resul
     let mut blank_between: Vec<usize> = Vec::new();
     let mut repeated_headers: Vec<usize> = Vec::new();
     let mut summary: Vec<usize> = Vec::new();
+    let mut other_wavelengths: Vec<usize> = Vec::new();
     for (index, (row, kind)) in rows.into_iter().enumerate() {
         let between = last_data.is_some_and(|last| index < last);
         match kind {
             RowKind::Data => settled.data_rows.push(row),
+            RowKind::OtherWavelength => other_wavelengths.push(row),
             RowKind::Blank => {
                 if between {
                     blank_between.push(row);
@@ -117,6 +121,7 @@ pub(super) fn settle_rows(grid: &CellGrid, rows: Vec<(usize, RowKind)>) -> Resul
         .iter()
         .chain(&repeated_headers)
         .chain(&summary)
+        .chain(&other_wavelengths)
         .copied()
         .collect();
     settled.passed_over.sort_unstable();
@@ -125,6 +130,13 @@ pub(super) fn settle_rows(grid: &CellGrid, rows: Vec<(usize, RowKind)>) -> Resul
             "{}: blank row(s) {} among the reads passed over; the reads below them are read",
             grid.source,
             row_list(&blank_between)
+        ));
+    }
+    if !other_wavelengths.is_empty() {
+        settled.warnings.push(format!(
+            "{}: {} row(s) at other wavelengths set aside (the wavelength column chooses the reads)",
+            grid.source,
+            other_wavelengths.len()
         ));
     }
     if !repeated_headers.is_empty() {

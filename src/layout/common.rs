@@ -108,32 +108,46 @@ pub(super) fn read_role(
     })
 }
 
-/// Reads the unit of a concentration header.
+/// Reads the unit of a concentration header: molar, or for the enzyme also a mass concentration
+/// (`enzyme [mg/mL]`, for specific activity).
 pub(super) fn header_unit(
     quantity: Quantity,
     header: &str,
     unit: Option<&str>,
     position: &Position,
-) -> Result<ConcentrationUnit, LayoutError> {
+) -> Result<AmountUnit, LayoutError> {
     match unit {
         None | Some("") => Err(LayoutError::MissingUnit {
             header: header.to_string(),
             example: quantity.example_header(),
             position: Box::new(position.clone()),
         }),
-        Some(unit) => ConcentrationUnit::from_str(unit).map_err(|_| LayoutError::UnknownUnit {
-            unit: unit.to_string(),
-            header: header.to_string(),
-            position: Box::new(position.clone()),
-        }),
+        Some(text) => {
+            let molar = ConcentrationUnit::from_str(text).map(AmountUnit::Molar);
+            let mass = || match quantity {
+                Quantity::Enzyme => MassConcentrationUnit::from_str(text).map(AmountUnit::Mass).ok(),
+                _ => None,
+            };
+            molar.ok().or_else(mass).ok_or_else(|| LayoutError::UnknownUnit {
+                unit: text.to_string(),
+                header: header.to_string(),
+                accepted: match quantity {
+                    Quantity::Enzyme => {
+                        format!("{KNOWN_CONCENTRATION_UNITS}, or for the enzyme mg/mL, ug/mL")
+                    }
+                    _ => KNOWN_CONCENTRATION_UNITS.to_string(),
+                },
+                position: Box::new(position.clone()),
+            })
+        }
     }
 }
 
 /// Records the unit of a quantity, refusing a second, different one.
 pub(super) fn note_unit(
-    units: &mut [Option<(ConcentrationUnit, Position)>; 4],
+    units: &mut [Option<(AmountUnit, Position)>; 4],
     quantity: Quantity,
-    unit: ConcentrationUnit,
+    unit: AmountUnit,
     position: &Position,
 ) -> Result<(), LayoutError> {
     match &units[quantity.index()] {

@@ -94,12 +94,14 @@ pub enum LayoutError {
     },
 
     /// A concentration header whose unit is not a concentration unit.
-    #[error("{position}: unknown concentration unit '{unit}' in '{header}' (known units: {KNOWN_CONCENTRATION_UNITS})")]
+    #[error("{position}: unknown concentration unit '{unit}' in '{header}' (known units: {accepted})")]
     UnknownUnit {
         /// The unit as written.
         unit: String,
         /// The whole header.
         header: String,
+        /// The units this column accepts.
+        accepted: String,
         /// The header cell.
         position: Box<Position>,
     },
@@ -127,11 +129,11 @@ pub enum LayoutError {
         /// The quantity.
         quantity: Quantity,
         /// The unit first used.
-        first_unit: ConcentrationUnit,
+        first_unit: AmountUnit,
         /// Where it was first used.
         first: Box<Position>,
         /// The other unit.
-        second_unit: ConcentrationUnit,
+        second_unit: AmountUnit,
         /// Where the other unit was used.
         second: Box<Position>,
     },

@@ -32,7 +32,7 @@ pub(super) struct GridBuilder {
     factor_names: Vec<String>,
     factor_positions: Vec<Position>,
     factor_name_by_key: HashMap<String, String>,
-    units: [Option<(ConcentrationUnit, Position)>; 4],
+    units: [Option<(AmountUnit, Position)>; 4],
 }
 
 impl GridBuilder {
@@ -187,10 +187,11 @@ impl GridBuilder {
             source,
             form: LayoutForm::Grid,
             wells,
-            substrate_unit: unit(Quantity::Substrate),
-            enzyme_unit: unit(Quantity::Enzyme),
-            inhibitor_unit: unit(Quantity::Inhibitor),
-            standard_unit: unit(Quantity::Standard),
+            substrate_unit: unit(Quantity::Substrate).and_then(AmountUnit::molar),
+            enzyme_unit: unit(Quantity::Enzyme).and_then(AmountUnit::molar),
+            enzyme_mass_unit: unit(Quantity::Enzyme).and_then(AmountUnit::mass),
+            inhibitor_unit: unit(Quantity::Inhibitor).and_then(AmountUnit::molar),
+            standard_unit: unit(Quantity::Standard).and_then(AmountUnit::molar),
             standard_groups: None,
             factor_names,
             notes,

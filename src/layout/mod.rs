@@ -37,7 +37,7 @@ use std::str::FromStr;
 
 use crate::core::cells::{CellGrid, Position, Source};
 use crate::core::plate::{PlateFormat, WellId};
-use crate::core::units::ConcentrationUnit;
+use crate::core::units::{AmountUnit, ConcentrationUnit, MassConcentrationUnit};
 use crate::files::input::InputFile;
 use crate::files::sheet::{read_input_cells, MergedCells};
 
@@ -372,8 +372,13 @@ pub struct Layout {
     pub wells: BTreeMap<WellId, WellSetup>,
     /// The unit of every substrate value, if the layout gives any substrate column or block.
     pub substrate_unit: Option<ConcentrationUnit>,
-    /// The unit of every enzyme value, if the layout gives any enzyme column or block.
+    /// The unit of every enzyme value, if the layout gives any enzyme column or block in a molar
+    /// unit.
     pub enzyme_unit: Option<ConcentrationUnit>,
+    /// The unit of every enzyme value when the layout gives the enzyme as a mass concentration
+    /// (`enzyme [mg/mL]`): rates then give a specific activity, and kcat only with the enzyme's
+    /// molecular weight (`--enzyme-mw`).
+    pub enzyme_mass_unit: Option<MassConcentrationUnit>,
     /// The unit of every inhibitor value, if the layout gives any inhibitor column or block.
     pub inhibitor_unit: Option<ConcentrationUnit>,
     /// The unit of every standard's concentration, if the layout gives a standard column or block.
@@ -398,6 +403,23 @@ impl Layout {
     /// ([`RESERVED_COLUMN_NAMES`]), the same in both tables.
     pub fn factor_header(&self, name: &str) -> String {
         factor_header(name)
+    }
+
+    /// The enzyme column's unit as written in headers (`nM`, `mg/mL`), if the layout gives one.
+    pub fn enzyme_unit_text(&self) -> Option<String> {
+        self.enzyme_unit
+            .map(|unit| unit.to_string())
+            .or_else(|| self.enzyme_mass_unit.map(|unit| unit.to_string()))
+    }
+
+    /// The factor that turns the layout's enzyme values into `target`: by the molar unit, or for a
+    /// mass concentration through the molecular weight `mw_kda` (`None` without one).
+    pub fn enzyme_factor_to(&self, target: ConcentrationUnit, mw_kda: Option<f64>) -> Option<f64> {
+        match (self.enzyme_unit, self.enzyme_mass_unit, mw_kda) {
+            (Some(unit), ..) => Some(unit.factor_to(target)),
+            (None, Some(mass), Some(kda)) => Some(mass.molar_per_unit(kda) / target.in_molar()),
+            _ => None,
+        }
     }
 
     /// The unit the layout uses for `quantity`, if it gives that quantity at all.

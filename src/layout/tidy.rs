@@ -13,7 +13,7 @@ use crate::core::units::split_header_unit;
 pub(super) enum TidyColumnKind {
     Well,
     Role,
-    Quantity(Quantity, ConcentrationUnit),
+    Quantity(Quantity, AmountUnit),
     Factor(String),
 }
 
@@ -30,7 +30,7 @@ pub(super) fn tidy_columns(grid: &CellGrid, header_row: usize) -> Result<Vec<Tid
     let mut columns: Vec<TidyColumn> = Vec::new();
     // Header names are matched ignoring case, so `Variant` and `variant` are one column twice.
     let mut column_by_key: HashMap<String, usize> = HashMap::new();
-    let mut units: [Option<(ConcentrationUnit, Position)>; 4] = [None, None, None, None];
+    let mut units: [Option<(AmountUnit, Position)>; 4] = [None, None, None, None];
     for index in 0..grid.row_width(header_row) {
         let cell = grid.cell(header_row, index);
         if cell.is_empty() {
@@ -209,10 +209,11 @@ pub(super) fn parse_tidy(
         source: grid.source.clone(),
         form: LayoutForm::Tidy,
         wells,
-        substrate_unit: unit_of(Quantity::Substrate),
-        enzyme_unit: unit_of(Quantity::Enzyme),
-        inhibitor_unit: unit_of(Quantity::Inhibitor),
-        standard_unit: unit_of(Quantity::Standard),
+        substrate_unit: unit_of(Quantity::Substrate).and_then(AmountUnit::molar),
+        enzyme_unit: unit_of(Quantity::Enzyme).and_then(AmountUnit::molar),
+        enzyme_mass_unit: unit_of(Quantity::Enzyme).and_then(AmountUnit::mass),
+        inhibitor_unit: unit_of(Quantity::Inhibitor).and_then(AmountUnit::molar),
+        standard_unit: unit_of(Quantity::Standard).and_then(AmountUnit::molar),
         standard_groups: None,
         factor_names,
         notes,

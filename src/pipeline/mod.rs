@@ -12,7 +12,9 @@ use crate::config::{
 use crate::core::plate::WellId;
 use crate::files::input::InputFile;
 use crate::groups::calibration::{add_slope_uncertainty, curve_for_group};
-use crate::groups::units::express_kcat_in;
+use crate::groups::units::{
+    express_group_rates, express_kcat_in, express_rates_in, RateExpression, RateUnitError,
+};
 use crate::groups::{fit_groups_with, GroupFit, InitialRateOptions};
 use crate::import::pathlength::{read_well_pathlengths, PathlengthFileError};
 use crate::import::{import_data, ImportError, KineticData};
@@ -47,6 +49,9 @@ pub enum PipelineError {
     /// The per-well pathlength table cannot be used.
     #[error(transparent)]
     Pathlength(#[from] PathlengthFileError),
+    /// Rates cannot be given in the unit asked for.
+    #[error(transparent)]
+    RateUnit(#[from] RateUnitError),
 }
 
 /// Everything a run found.
@@ -74,6 +79,9 @@ pub struct RunResults {
     pub exclusions: Vec<ExcludedWell>,
     /// The screen's % activity, plate quality and compounds, on a screening plate.
     pub screen: Option<ScreenAnalysis>,
+    /// The unit rates are written in and the factor from the internal unit (`--rate-unit`): the
+    /// constants are already expressed; every other rate is multiplied where it is written.
+    pub rates_in: RateExpression,
 }
 
 /// The inputs of a plate, read once.
@@ -131,11 +139,18 @@ pub fn analyse_inputs(
         .into_values()
         .collect();
     let mut analysis = analyse_plate(&data, &layout, settings);
+    // Checked before any fit runs: a unit that cannot apply stops the run with nothing written.
+    let rates_in = RateExpression::new(
+        analysis.signal.concentration_unit,
+        analysis.signal.rate_unit(),
+        settings.rate_unit,
+    )?;
     analysis.apply_exclusions(exclusions.iter().map(|e| (e.well, e.reason.as_str())));
     let screening = is_screen(&layout);
     let initial = InitialRateOptions {
         estimator: settings.initial_rate,
         dead_time_s: settings.rates.dead_time_s,
+        enzyme_mw_kda: settings.enzyme_mw_kda,
     };
     // A screening plate's samples are described by their compound's dose-response curve on %
     // activity (`screen`), not by rate-law fits of raw rates: the group fits and the
@@ -190,12 +205,19 @@ pub fn analyse_inputs(
             }
         }
     }
-    // kcat and kcat/Km in the unit asked for, once, after every step that computes with them.
+    // kcat and kcat/Km, and Vmax, in the units asked for, once, after every step that computes
+    // with them.
     for fit in &mut fits {
         express_kcat_in(&mut fit.parameters, settings.kcat_unit);
+        express_group_rates(fit, &rates_in);
     }
     for report in &mut progress_curves.groups {
         express_kcat_in(&mut report.parameters, settings.kcat_unit);
+        express_rates_in(&mut report.parameters, &rates_in);
+        for well in &mut report.wells {
+            well.implied_initial_rate = rates_in.rate(well.implied_initial_rate);
+            well.window_rate = rates_in.optional(well.window_rate);
+        }
         // The initial-rate kcat shown beside it is the group fit's, as finally reported.
         if let Some(summary) = &mut report.initial_rate_fit {
             if let Some(fit) = fits.iter().find(|fit| fit.group == report.group) {
@@ -215,6 +237,7 @@ pub fn analyse_inputs(
         input_warnings,
         exclusions,
         screen,
+        rates_in,
     })
 }
 

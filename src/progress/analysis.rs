@@ -550,10 +550,17 @@ fn well_curves(
         .layout
         .substrate_unit
         .ok_or("the layout gives no substrate unit, so S0 is unknown")?;
-    let e_unit = input
-        .layout
-        .enzyme_unit
-        .ok_or("the layout gives no enzyme concentration, so kcat cannot be separated from Vmax")?;
+    // The enzyme in the substrate's unit: by its molar unit, or from a mass concentration
+    // through the molecular weight.
+    let enzyme_factor = match input.layout.enzyme_factor_to(s_unit, settings.enzyme_mw_kda) {
+        Some(factor) => factor,
+        None if input.layout.enzyme_mass_unit.is_some() => {
+            return Err("the enzyme is given as a mass concentration without --enzyme-mw, so kcat cannot be separated from Vmax".to_string())
+        }
+        None => {
+            return Err("the layout gives no enzyme concentration, so kcat cannot be separated from Vmax".to_string())
+        }
+    };
     let mut curves = Vec::new();
     let mut disagreements = Vec::new();
     // The read counts of the wells whose traces were thinned for the fit.
@@ -657,7 +664,7 @@ fn well_curves(
             times_s,
             signal: values,
             s0: s0_used,
-            e0: e0 * e_unit.factor_to(s_unit),
+            e0: e0 * enzyme_factor,
             signal_per_substrate,
         });
     }

@@ -110,6 +110,22 @@ impl DisplayUnit {
         }
     }
 
+    /// The display unit of a column of rates stored in the run's internal unit: the unit asked
+    /// for (`--rate-unit`) when there is one, else the rule's choice from the internal unit.
+    pub fn for_rates(
+        rates: &crate::groups::units::RateExpression,
+        internal_values: impl IntoIterator<Item = f64>,
+    ) -> DisplayUnit {
+        if rates.chosen {
+            DisplayUnit {
+                factor: rates.factor,
+                ..DisplayUnit::unchanged(&rates.unit)
+            }
+        } else {
+            DisplayUnit::for_values(&rates.unit, internal_values)
+        }
+    }
+
     /// The display unit of a column of values stored in `unit` (module docs for the rule).
     pub fn for_values(unit: &str, values: impl IntoIterator<Item = f64>) -> DisplayUnit {
         let unchanged = DisplayUnit::unchanged(unit);

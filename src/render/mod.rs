@@ -101,11 +101,11 @@ pub fn settings_toml(record: &RunRecord) -> Result<OutputFile, RenderError> {
 
 /// Every output file of a run, rendered in memory; `run.json` comes last and lists the others.
 pub fn render_run_outputs(results: &RunResults, record: &RunRecord) -> Result<Vec<OutputFile>, RenderError> {
-    let mut wells = tables::wells_table(&results.analysis, &results.layout)?;
+    let mut wells = tables::wells_table(&results.analysis, &results.layout, &results.rates_in)?;
     if let Some(screen_results) = &results.screen {
         screen::add_activity_column(&mut wells, &results.analysis, screen_results)?;
     }
-    let mut conditions = tables::conditions_table(&results.conditions, &results.layout, &results.analysis)?;
+    let mut conditions = tables::conditions_table(&results.conditions, &results.layout, &results.rates_in)?;
     let fit = json::run_fit_document(
         &record.files_given,
         &results.fits,
@@ -129,10 +129,7 @@ pub fn render_run_outputs(results: &RunResults, record: &RunRecord) -> Result<Ve
         settings_toml(record)?,
     ];
     if let Some(screen_results) = &results.screen {
-        files.extend(screen::screen_files(
-            screen_results,
-            &results.analysis.signal.rate_unit(),
-        )?);
+        files.extend(screen::screen_files(screen_results, &results.rates_in)?);
     }
     if let Some(calibration) = &results.analysis.signal.calibration {
         files.push(json::json_file(

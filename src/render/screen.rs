@@ -10,6 +10,7 @@ use super::tables::{csv_bytes, spreadsheet_safe, TableError};
 use super::RenderError;
 use crate::files::output::OutputFile;
 use crate::fit::dose_response::{CurveFlag, PLATEAU_FRACTION, SHALLOW_HILL, STEEP_HILL};
+use crate::groups::units::RateExpression;
 use crate::pipeline::RunResults;
 use crate::rates::PlateAnalysis;
 use crate::screen::quality::{ControlSummary, Z_PRIME_BAR};
@@ -143,17 +144,17 @@ pub fn compounds_table(screen: &ScreenAnalysis) -> Result<DataFrame, TableError>
     Ok(DataFrame::new(compounds.len(), columns)?)
 }
 
-fn control_json(summary: &ControlSummary) -> Value {
+fn control_json(summary: &ControlSummary, rates: &RateExpression) -> Value {
     json!({
         "n": summary.n,
-        "mean": summary.mean,
-        "sd": summary.sd,
+        "mean": rates.optional(summary.mean),
+        "sd": rates.optional(summary.sd),
         "cv_percent": summary.cv_percent,
     })
 }
 
 /// `plate_qc.json`.
-pub fn plate_qc_document(screen: &ScreenAnalysis, rate_unit: &str) -> Value {
+pub fn plate_qc_document(screen: &ScreenAnalysis, rates: &RateExpression) -> Value {
     let quality = &screen.quality;
     let edge: Vec<Value> = quality
         .edge
@@ -162,23 +163,23 @@ pub fn plate_qc_document(screen: &ScreenAnalysis, rate_unit: &str) -> Value {
             json!({
                 "control": check.role.name(),
                 "edge_n": check.edge.0,
-                "edge_mean": check.edge.1,
+                "edge_mean": rates.rate(check.edge.1),
                 "inner_n": check.inner.0,
-                "inner_mean": check.inner.1,
+                "inner_mean": rates.rate(check.inner.1),
                 "difference_percent_of_window": check.difference_percent,
                 "flagged": check.flagged,
             })
         })
         .collect();
     json!({
-        "rate_unit": rate_unit,
+        "rate_unit": rates.unit,
         "z_prime": quality.z_prime.as_ref().map(|z| z.value),
         "z_prime_bar": Z_PRIME_BAR,
         "screen_ready": !quality.below_bar(),
         "signal_window": quality.signal_window,
         "signal_to_background": quality.signal_to_background,
-        "uninhibited": control_json(&quality.uninhibited),
-        "inhibited": control_json(&quality.inhibited),
+        "uninhibited": control_json(&quality.uninhibited, rates),
+        "inhibited": control_json(&quality.inhibited, rates),
         "edge_check": edge,
         "control_groups_by": screen.control_factors,
         "warnings": quality_warnings(screen),
@@ -193,14 +194,14 @@ pub fn plate_qc_document(screen: &ScreenAnalysis, rate_unit: &str) -> Value {
 }
 
 /// The screen's output files: `compounds.csv` and `plate_qc.json`.
-pub fn screen_files(screen: &ScreenAnalysis, rate_unit: &str) -> Result<Vec<OutputFile>, RenderError> {
+pub fn screen_files(screen: &ScreenAnalysis, rates: &RateExpression) -> Result<Vec<OutputFile>, RenderError> {
     let mut compounds = compounds_table(screen)?;
     Ok(vec![
         OutputFile {
             name: "compounds.csv".into(),
             bytes: csv_bytes(&mut compounds)?,
         },
-        json_file("plate_qc.json", &plate_qc_document(screen, rate_unit))?,
+        json_file("plate_qc.json", &plate_qc_document(screen, rates))?,
     ])
 }
 

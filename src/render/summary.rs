@@ -193,7 +193,7 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
             0 => String::new(),
             n => format!(", {n} standards"),
         },
-        analysis.signal.rate_unit()
+        results.rates_in.unit
     ));
     if let Some(calibration) = &analysis.signal.calibration {
         for curve in &calibration.curves {

@@ -9,6 +9,7 @@
 
 use polars::prelude::*;
 
+use crate::groups::units::RateExpression;
 use crate::layout::Layout;
 use crate::rates::conditions::Condition;
 pub use crate::rates::conditions::TableError;
@@ -22,7 +23,7 @@ fn quantity_headers(layout: &Layout) -> Vec<(String, Quantity)> {
     if let Some(unit) = layout.substrate_unit {
         headers.push((format!("substrate [{unit}]"), Quantity::Substrate));
     }
-    if let Some(unit) = layout.enzyme_unit {
+    if let Some(unit) = layout.enzyme_unit_text() {
         headers.push((format!("enzyme [{unit}]"), Quantity::Enzyme));
     }
     if let Some(unit) = layout.inhibitor_unit {
@@ -91,9 +92,16 @@ pub fn csv_bytes(frame: &mut DataFrame) -> Result<Vec<u8>, TableError> {
 }
 
 /// `wells.csv`: one row per layout well that is not `empty`.
-pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFrame, TableError> {
+pub fn wells_table(
+    analysis: &PlateAnalysis,
+    layout: &Layout,
+    rates: &RateExpression,
+) -> Result<DataFrame, TableError> {
     let wells = &analysis.wells;
-    let unit = analysis.signal.rate_unit();
+    let unit = &rates.unit;
+    let rate_column = |value: fn(&crate::rates::WellResult) -> Option<f64>| -> Vec<Option<f64>> {
+        wells.iter().map(|w| rates.optional(value(w))).collect()
+    };
     let mut columns = vec![
         Column::new(
             "well".into(),
@@ -121,21 +129,15 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
         wells.iter().map(|w| w.rate.fit.as_ref().map(f)).collect()
     };
     columns.extend([
-        Column::new(
-            format!("rate [{unit}]").into(),
-            wells.iter().map(|w| w.rate_value).collect::<Vec<_>>(),
-        ),
-        Column::new(
-            format!("rate_se [{unit}]").into(),
-            wells.iter().map(|w| w.rate_se).collect::<Vec<_>>(),
-        ),
+        Column::new(format!("rate [{unit}]").into(), rate_column(|w| w.rate_value)),
+        Column::new(format!("rate_se [{unit}]").into(), rate_column(|w| w.rate_se)),
         Column::new(
             format!("window_slope [{unit}]").into(),
-            wells.iter().map(|w| w.window_slope).collect::<Vec<_>>(),
+            rate_column(|w| w.window_slope),
         ),
         Column::new(
             format!("background [{unit}]").into(),
-            wells.iter().map(|w| w.background).collect::<Vec<_>>(),
+            rate_column(|w| w.background),
         ),
         Column::new(
             format!("intercept [{}]", analysis.signal.amount_unit()).into(),
@@ -176,7 +178,7 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
             "correction".into(),
             wells
                 .iter()
-                .map(|w| correction_words(&w.correction, &analysis.signal, &unit))
+                .map(|w| correction_words(&w.correction, &analysis.signal, rates))
                 .collect::<Vec<_>>(),
         ),
         Column::new(
@@ -194,9 +196,12 @@ pub fn wells_table(analysis: &PlateAnalysis, layout: &Layout) -> Result<DataFram
 pub fn conditions_table(
     conditions: &[Condition],
     layout: &Layout,
-    analysis: &PlateAnalysis,
+    rates: &RateExpression,
 ) -> Result<DataFrame, TableError> {
-    let rate_unit = analysis.signal.rate_unit();
+    let rate_unit = &rates.unit;
+    let rate_column = |value: fn(&Condition) -> Option<f64>| -> Vec<Option<f64>> {
+        conditions.iter().map(|c| rates.optional(value(c))).collect()
+    };
     let mut columns = vec![Column::new(
         "role".into(),
         conditions.iter().map(|c| c.role.to_string()).collect::<Vec<_>>(),
@@ -225,15 +230,15 @@ pub fn conditions_table(
         ),
         Column::new(
             format!("rate_mean [{rate_unit}]").into(),
-            conditions.iter().map(|c| c.rate_mean).collect::<Vec<_>>(),
+            rate_column(|c| c.rate_mean),
         ),
         Column::new(
             format!("rate_sd [{rate_unit}]").into(),
-            conditions.iter().map(|c| c.rate_sd).collect::<Vec<_>>(),
+            rate_column(|c| c.rate_sd),
         ),
         Column::new(
             format!("rate_sem [{rate_unit}]").into(),
-            conditions.iter().map(|c| c.rate_sem).collect::<Vec<_>>(),
+            rate_column(|c| c.rate_sem),
         ),
         Column::new("cv".into(), conditions.iter().map(|c| c.cv).collect::<Vec<_>>()),
         Column::new(

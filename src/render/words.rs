@@ -3,6 +3,7 @@
 //! a decision is made here, from the decision's value; nothing reads these sentences back.
 
 use crate::core::format::significant;
+use crate::groups::units::RateExpression;
 use crate::groups::{GroupKey, GroupValue, LeftOutPlace, LeftOutReason};
 use crate::progress::analysis::ProgressLeftOutReason;
 use crate::progress::choice::{ModelTried, ModelVerdict};
@@ -290,7 +291,8 @@ pub fn flag_count_words(counts: &std::collections::BTreeMap<Flag, usize>) -> Str
 }
 
 /// The corrections a well got, as `wells.csv`'s `correction` column writes them.
-pub fn correction_words(correction: &Correction, signal: &PlateSignal, rate_unit: &str) -> String {
+pub fn correction_words(correction: &Correction, signal: &PlateSignal, rates: &RateExpression) -> String {
+    let rate_unit = &rates.unit;
     let mut text = match (correction.blank_wells, signal.blank_model) {
         (None, _) => "none (blank)".to_string(),
         (Some(0), _) | (_, BlankModel::None) => "no blank correction".to_string(),
@@ -327,7 +329,7 @@ pub fn correction_words(correction: &Correction, signal: &PlateSignal, rate_unit
         None => {}
         Some(Background::Matched { rate, controls, .. }) => text.push_str(&format!(
             "; background {} {rate_unit} from {controls} no-enzyme well{}",
-            significant(*rate),
+            significant(rates.rate(*rate)),
             if *controls == 1 { "" } else { "s" }
         )),
         Some(Background::Modelled {
@@ -338,7 +340,7 @@ pub fn correction_words(correction: &Correction, signal: &PlateSignal, rate_unit
             ..
         }) => text.push_str(&format!(
             "; background {} {rate_unit} from a first-order fit in [S]{} to {controls} no-enzyme wells at {levels} [S] levels",
-            significant(*rate),
+            significant(rates.rate(*rate)),
             if *with_intercept { " with an intercept" } else { "" }
         )),
         Some(Background::None(NoBackground::NoControls)) => {

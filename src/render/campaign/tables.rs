@@ -56,8 +56,8 @@ impl PlateTables {
 /// A plate's rows of the campaign tables, from its results.
 pub fn plate_tables(results: &RunResults) -> Result<PlateTables, TableError> {
     Ok(PlateTables {
-        wells: wells_table(&results.analysis, &results.layout)?,
-        conditions: conditions_table(&results.conditions, &results.layout, &results.analysis)?,
+        wells: wells_table(&results.analysis, &results.layout, &results.rates_in)?,
+        conditions: conditions_table(&results.conditions, &results.layout, &results.rates_in)?,
         fits: fits_table(results)?,
         compounds: match &results.screen {
             Some(screen) => compounds_table(screen)?,

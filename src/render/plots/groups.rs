@@ -109,7 +109,8 @@ fn group_view(number: usize, fit: &GroupFit, results: &RunResults) -> GroupView 
         Some(GroupPoint {
             well: name.to_string(),
             substrate: well.setup.substrate?,
-            rate: well.rate_value?,
+            // In the written unit, like the fitted constants drawn with it.
+            rate: results.rates_in.rate(well.rate_value?),
         })
     };
     let used = fit.wells_used.iter().filter_map(|name| point(name)).collect();
@@ -146,7 +147,7 @@ fn group_view(number: usize, fit: &GroupFit, results: &RunResults) -> GroupView 
         estimates,
         covariance,
         lineweaver_burk,
-        rate_unit: results.analysis.signal.rate_unit(),
+        rate_unit: results.rates_in.unit.clone(),
         substrate_unit: results
             .layout
             .substrate_unit

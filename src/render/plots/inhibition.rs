@@ -209,6 +209,8 @@ fn inhibition_view(number: usize, fit: &GroupFit, results: &RunResults) -> Optio
             continue;
         };
         enzyme = enzyme.or(well.setup.enzyme);
+        // In the written unit, like the fitted constants drawn with it.
+        let rate = results.rates_in.rate(rate);
         raw.push((name, substrate, well.setup.inhibitor.unwrap_or(0.0), rate, used));
     }
     let mut levels: Vec<f64> = Vec::new();
@@ -256,7 +258,7 @@ fn inhibition_view(number: usize, fit: &GroupFit, results: &RunResults) -> Optio
         enzyme: enzyme_in_inhibitor_unit,
         levels,
         points,
-        rate_unit: results.analysis.signal.rate_unit(),
+        rate_unit: results.rates_in.unit.clone(),
         substrate_unit: unit_text(layout.substrate_unit, "substrate units"),
         inhibitor_unit: unit_text(layout.inhibitor_unit, "inhibitor units"),
     })

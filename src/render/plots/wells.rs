@@ -64,7 +64,7 @@ pub struct WellView {
     pub window: Option<(f64, f64)>,
     /// The window's straight line: (intercept, slope) in the trace's units.
     pub line: Option<(f64, f64)>,
-    /// Rate after background subtraction, and its SE.
+    /// Rate after background subtraction, and its SE, in the written rate unit.
     pub rate: Option<(f64, f64)>,
     /// Flags raised.
     pub flags: Vec<Flag>,
@@ -169,7 +169,8 @@ pub fn plate_view(results: &RunResults) -> PlateView {
         .map(|trace| (trace.well, trace.values.as_slice()))
         .collect();
     let value_label = signal.value_label();
-    let rate_unit = signal.rate_unit();
+    let rates = &results.rates_in;
+    let rate_unit = rates.unit.clone();
     let substrate_unit = layout
         .substrate_unit
         .map_or_else(|| "substrate units".to_string(), |unit| unit.to_string());
@@ -208,7 +209,11 @@ pub fn plate_view(results: &RunResults) -> PlateView {
                 );
                 view.window = result.rate.window_s;
                 view.line = result.rate.fit.map(|fit| (fit.intercept, fit.slope));
-                view.rate = result.rate_value.zip(result.rate_se);
+                // Rates in the written unit; the line stays in the trace's units and seconds.
+                view.rate = result
+                    .rate_value
+                    .zip(result.rate_se)
+                    .map(|(rate, se)| (rates.rate(rate), rates.rate(se)));
                 view.flags = result.rate.flags.clone();
                 view.used = result.used;
                 let rate = match view.rate {

@@ -236,7 +236,7 @@ pub fn report_html(parts: &ReportParts) -> String {
         env!("CARGO_PKG_VERSION"),
         results.data.plate,
         results.data.times_s.len(),
-        escape(&results.analysis.signal.rate_unit())
+        escape(&results.rates_in.unit)
     );
     let _ = writeln!(page, "<p class=\"caution\">{}</p>", escape(CAUTION));
     // A screen fits no rate law and no progress curve: those sections are left out rather than
@@ -626,20 +626,24 @@ fn conditions_section(parts: &ReportParts) -> String {
     let layout = &results.layout;
     let unit =
         |u: Option<crate::core::units::ConcentrationUnit>| u.map_or(String::new(), |u| format!(" [{u}]"));
-    let rate_unit = &results.analysis.signal.rate_unit();
     let mut html = heading("conditions");
     let _ = write!(
         html,
         "<table class=\"conditions\">\n<tr><th>role</th><th>substrate{}</th><th>enzyme{}</th><th>inhibitor{}</th>",
         unit(layout.substrate_unit),
-        unit(layout.enzyme_unit),
+        layout
+            .enzyme_unit_text()
+            .map_or(String::new(), |u| format!(" [{u}]")),
         unit(layout.inhibitor_unit)
     );
     for name in &layout.factor_names {
         let _ = write!(html, "<th>{}</th>", escape(name));
     }
     // One display unit for the rate columns, chosen over the conditions' means.
-    let rates = DisplayUnit::for_values(rate_unit, results.conditions.iter().filter_map(|c| c.rate_mean));
+    let rates = DisplayUnit::for_rates(
+        &results.rates_in,
+        results.conditions.iter().filter_map(|c| c.rate_mean),
+    );
     let _ = writeln!(
         html,
         "<th>n</th><th>n used</th><th>mean [{r}]</th><th>SD [{r}]</th><th>SEM [{r}]</th><th>CV</th><th>flags</th></tr>",
@@ -745,7 +749,20 @@ fn groups_section(parts: &ReportParts) -> String {
             "</table>\n<p>{} wells fitted; residual SD {}.</p>",
             fit.n,
             fit.residual_sd.map_or("-".to_string(), |sd| {
-                let unit = DisplayUnit::for_values(&parts.results.analysis.signal.rate_unit(), [sd]);
+                // A weighted fit's residuals are divided by each point's SD or rate: no unit.
+                if fit.weighting != crate::config::Weighting::None {
+                    return format!(
+                        "{} (weighted residuals, {}: no unit)",
+                        significant(sd),
+                        fit.weighting.name()
+                    );
+                }
+                // The residual SD is already in the written unit (expressed with the constants).
+                let unit = if parts.results.rates_in.chosen {
+                    DisplayUnit::unchanged(&parts.results.rates_in.unit)
+                } else {
+                    DisplayUnit::for_values(&parts.results.rates_in.unit, [sd])
+                };
                 format!("{} {}", unit.value(sd), unit.html())
             })
         );
@@ -1095,7 +1112,7 @@ fn checklist_section(parts: &ReportParts) -> String {
                         "{} level(s): {}{}",
                         enzyme_levels.len(),
                         enzyme_levels.into_iter().collect::<Vec<_>>().join(", "),
-                        results.layout.enzyme_unit.map_or(String::new(), |unit| format!(" {unit}"))
+                        results.layout.enzyme_unit_text().map_or(String::new(), |unit| format!(" {unit}"))
                     )
                 }
             ),
