@@ -1204,10 +1204,14 @@ mod tests {
             prop_assert!(fit.vmax.determined && fit.km.determined);
             let vmax_se = fit.vmax.standard_error.unwrap();
             let km_se = fit.km.standard_error.unwrap();
-            // 1% noise on 16 points: both relative SEs are a few percent; 6 SE is far outside chance.
+            // 1% noise on 16 points: both relative SEs are a few percent. The SE comes from 14
+            // residual degrees of freedom, so an error over SE follows Student's t(14), whose tail
+            // beyond 6 is about 3e-5 (64 cases a run: a spurious failure every few hundred runs,
+            // seen once at 6.3 SE); beyond 9 it is about 3e-7 (t tables, NIST/SEMATECH
+            // e-Handbook 1.3.6.7.2, from memory), rare enough never to fail a correct fit.
             prop_assert!(vmax_se < 0.05 * vmax && km_se < 0.15 * km, "se {vmax_se} {km_se}");
-            prop_assert!((fit.vmax.value - vmax).abs() < 6.0 * vmax_se);
-            prop_assert!((fit.km.value - km).abs() < 6.0 * km_se);
+            prop_assert!((fit.vmax.value - vmax).abs() < 9.0 * vmax_se);
+            prop_assert!((fit.km.value - km).abs() < 9.0 * km_se);
         }
 
         #[test]
