@@ -138,6 +138,19 @@ fn thirty_plates_with_one_cut_short_give_29_ok_1_failed_and_exit_3() {
             "{variant}: Km {value} ({low}-{high}), truth {truth_km}"
         );
         assert_eq!(pool["plates"].as_array().unwrap().len(), 29);
+        // The CV of the plates' true kcat (estimation error out) sits inside its interval, below
+        // the raw CV; every plate's kcat carries its shared background.
+        let corrected = pool["scale_cv_corrected"].as_f64().unwrap();
+        let [cv_low, cv_high] = [
+            pool["scale_cv_ci95"][0].as_f64().unwrap(),
+            pool["scale_cv_ci95"][1].as_f64().unwrap(),
+        ];
+        assert!(
+            cv_low < corrected && corrected < cv_high,
+            "{variant}: {cv_low} {corrected} {cv_high}"
+        );
+        assert!(corrected <= pool["scale_cv"].as_f64().unwrap());
+        assert!(pool["plates"][0]["shared_se"].as_f64().unwrap() > 0.0);
         let cv = pool["scale_cv"].as_f64().unwrap();
         assert!(
             (cv / (sd / mean) - 1.0).abs() < 0.35,

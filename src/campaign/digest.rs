@@ -10,10 +10,15 @@ use std::collections::BTreeMap;
 use serde::{Deserialize, Serialize};
 
 use super::screening::{z_prime, ControlKind, ZPrime};
+use crate::config::InitialRateEstimator;
 use crate::core::units::ConcentrationUnit;
-use crate::groups::{GroupKey, GroupValue, ParameterReport};
+use crate::groups::{
+    shared_rate_errors, window_chord, FitPoint, GroupKey, GroupValue, ParameterReport, PlateCorrections,
+};
 use crate::pipeline::RunResults;
+use crate::rates::background::Background;
 use crate::rates::flag_words;
+use crate::signal::BlankUncertainty;
 
 /// A fitted constant: value, standard error, 95% interval and unit.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -94,6 +99,12 @@ pub struct PoolPoint {
     pub rate: f64,
     /// The rate per enzyme, 1/s, where rates are concentrations per second and the enzyme is known.
     pub turnover: Option<f64>,
+    /// How the rate moves with each of its plate's shared errors (`PlateDigest::shared_errors`),
+    /// in the plate's rate unit per unit error: the blank subtracted from every read and the
+    /// no-enzyme background subtracted from many wells. Empty when the plate shares none (or
+    /// for a digest stored before they were kept).
+    #[serde(default)]
+    pub shared_loadings: Vec<f64>,
 }
 
 /// A flagged well and its flags.
@@ -123,10 +134,103 @@ pub struct PlateDigest {
     /// The sample wells the cross-plate fits may use (used, with a rate and a substrate, without
     /// inhibitor).
     pub pool_points: Vec<PoolPoint>,
+    /// The covariance of the errors the plate's pool points share (the blank's, each background
+    /// model's; see `PoolPoint::shared_loadings`), as the single-plate fits propagate them.
+    #[serde(default)]
+    pub shared_errors: Vec<Vec<f64>>,
     /// The rate unit (`uM/s`, `AU/s`).
     pub rate_unit: String,
     /// The substrate unit, when the layout gives one.
     pub substrate_unit: Option<String>,
+}
+
+/// The errors a plate's pool wells share ([`crate::groups::shared_rate_errors`]): each well's
+/// loadings and the errors' covariance: each background model's (or matched controls') error for
+/// the wells it serves, and the blank's for wells without a background. A well's
+/// rate moves with its window's slope by `rate_se / window_slope_se` under the integrated
+/// estimator (the correction's derivative, as the group fits take it), else by 1. The blank's
+/// loadings use the first pool well's conversion to concentration (a plate's sample wells share
+/// one unless standard curves differ by group).
+fn pool_shared_errors(
+    results: &RunResults,
+    wells: &[(&crate::rates::WellResult, f64, f64)],
+) -> (Vec<Vec<f64>>, Vec<Vec<f64>>) {
+    let analysis = &results.analysis;
+    let dead_time_s = results.settings.rates.dead_time_s;
+    let integrated = analysis.estimator == InitialRateEstimator::Integrated;
+    let points: Vec<FitPoint> = wells
+        .iter()
+        .map(|&(well, substrate, rate)| {
+            let window = window_chord(well, dead_time_s);
+            let rate_per_chord = match (integrated, well.rate_se, window) {
+                (true, Some(se), Some(chord)) if chord.se > 0.0 => se / chord.se,
+                _ => 1.0,
+            };
+            FitPoint {
+                label: well.well.to_string(),
+                well: Some(well.well),
+                window,
+                substrate,
+                inhibitor: 0.0,
+                rate,
+                sd: None,
+                se: well.rate_se,
+                background: well.correction.background.clone(),
+                rate_per_chord,
+            }
+        })
+        .collect();
+    let corrections = PlateCorrections::of(analysis, wells.first().map(|(well, ..)| well.well), dead_time_s);
+    // The background's errors, for the wells it serves.
+    let background = shared_rate_errors(
+        &points,
+        &PlateCorrections {
+            blank: BlankUncertainty::None,
+            ..corrections.clone()
+        },
+    );
+    // The blank's, for the wells without a background only: a background from no-enzyme controls
+    // had the same blank subtracted from the controls' reads, so a blank error moves the sample and
+    // its background alike and cancels from their difference (exactly for equal windows).
+    let unserved: Vec<bool> = points
+        .iter()
+        .map(|point| point.background.as_ref().and_then(Background::rate).is_none())
+        .collect();
+    let blank_points: Vec<FitPoint> = points
+        .iter()
+        .zip(&unserved)
+        .filter(|(_, unserved)| **unserved)
+        .map(|(point, _)| point.clone())
+        .collect();
+    let blank = shared_rate_errors(&blank_points, &corrections);
+    let (blank_errors, background_errors) = (blank.covariance.len(), background.covariance.len());
+    if blank_errors + background_errors == 0 {
+        return (vec![Vec::new(); wells.len()], Vec::new());
+    }
+    let mut blank_rows = blank.loadings.into_iter();
+    let loadings = unserved
+        .iter()
+        .zip(background.loadings)
+        .map(|(unserved, background_row)| {
+            let mut row = if *unserved {
+                blank_rows.next().unwrap_or_else(|| vec![0.0; blank_errors])
+            } else {
+                vec![0.0; blank_errors]
+            };
+            row.resize(blank_errors, 0.0);
+            row.extend(background_row);
+            row
+        })
+        .collect();
+    let size = blank_errors + background_errors;
+    let mut covariance = vec![vec![0.0; size]; size];
+    for (i, row) in blank.covariance.iter().enumerate() {
+        covariance[i][..blank_errors].copy_from_slice(row);
+    }
+    for (i, row) in background.covariance.iter().enumerate() {
+        covariance[blank_errors + i][blank_errors..].copy_from_slice(row);
+    }
+    (loadings, covariance)
 }
 
 /// Makes a plate's digest from its results.
@@ -172,7 +276,7 @@ pub fn digest(results: &RunResults) -> PlateDigest {
         .concentration_unit
         .map(ConcentrationUnit::in_molar);
     let enzyme_unit_molar = layout.enzyme_unit.map(ConcentrationUnit::in_molar);
-    let pool_points = analysis
+    let pool_wells: Vec<_> = analysis
         .wells
         .iter()
         .filter(|well| well.setup.is_fit_sample() && well.used)
@@ -180,20 +284,33 @@ pub fn digest(results: &RunResults) -> PlateDigest {
         .filter_map(|well| {
             let substrate = well.setup.substrate.filter(|s| s.is_finite() && *s > 0.0)?;
             let rate = well.rate_value.filter(|r| r.is_finite())?;
+            Some((well, substrate, rate))
+        })
+        .collect();
+    let (shared_loadings, shared_errors) = pool_shared_errors(results, &pool_wells);
+    let pool_points = pool_wells
+        .iter()
+        .zip(shared_loadings)
+        .map(|(&(well, substrate, rate), shared_loadings)| {
             let turnover = match (rate_unit_molar, well.setup.enzyme, enzyme_unit_molar) {
                 (Some(rate_molar), Some(enzyme), Some(enzyme_molar)) if enzyme > 0.0 => {
                     Some(rate * rate_molar / (enzyme * enzyme_molar))
                 }
                 _ => None,
             };
-            Some(PoolPoint {
+            PoolPoint {
                 well: well.well.to_string(),
                 factors: well.setup.factors.clone(),
                 substrate,
-                // The turnover above is made from the internal rate; the rate is written as asked.
+                // The turnover above is made from the internal rate; the rate is written as asked,
+                // and its loadings on the shared errors with it, so the pooled fit sees one unit.
                 rate: results.rates_in.rate(rate),
                 turnover,
-            })
+                shared_loadings: shared_loadings
+                    .into_iter()
+                    .map(|loading| results.rates_in.rate(loading))
+                    .collect(),
+            }
         })
         .collect();
     PlateDigest {
@@ -210,6 +327,7 @@ pub fn digest(results: &RunResults) -> PlateDigest {
             .and_then(|screen| screen.quality.z_prime.clone())
             .or_else(|| z_prime(&positive, &negative)),
         pool_points,
+        shared_errors,
         rate_unit: results.rates_in.unit.clone(),
         substrate_unit: layout.substrate_unit.map(|unit| unit.to_string()),
     }

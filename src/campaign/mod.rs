@@ -15,6 +15,9 @@ pub use manifest::{Manifest, ManifestError, PlateEntry};
 pub use pooled::{pooled_fits, PoolPlate, PooledFit};
 
 /// How a plate of a campaign ended.
+// One status per plate, most of them `Ok`: boxing the digest would save a few hundred bytes on
+// the rare failed plate and cost an allocation on every good one.
+#[allow(clippy::large_enum_variant)]
 #[derive(Debug, Clone, PartialEq)]
 pub enum PlateStatus {
     /// Analysed, or reused unchanged from the previous run.

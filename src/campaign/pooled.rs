@@ -39,9 +39,9 @@ use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
 
 use super::digest::{Estimate, PlateDigest, PoolPoint};
-use crate::core::stats::{median, summary, t_quantile_975};
+use crate::core::stats::{chi_squared_quantile, median, summary, t_quantile_975};
 use crate::fit::least_squares::{
-    cluster_robust_covariance, fit_least_squares, LeastSquaresOptions, ResidualModel,
+    cluster_robust_covariance, fit_least_squares, shared_error_covariance, LeastSquaresOptions, ResidualModel,
 };
 
 /// The most pool factors `--pool-by` takes.
@@ -77,8 +77,14 @@ pub struct PoolPlate<'a> {
 pub struct PooledPlate {
     /// The plate.
     pub plate: String,
-    /// Its kcat (or Vmax) from the pooled fit.
+    /// Its kcat (or Vmax) from the pooled fit; its standard error and interval carry the wells'
+    /// scatter (model-based), the plate's shared blank and background errors, and Km's clustered
+    /// variance where it exceeds the model-based one (the scale moves with Km).
     pub scale: Estimate,
+    /// The part of `scale`'s standard error that the plate's shared blank and background errors
+    /// contribute (already in `scale.se`); `None` when the plate shares none.
+    #[serde(default)]
+    pub shared_se: Option<f64>,
     /// Wells used.
     pub n: usize,
 }
@@ -103,6 +109,15 @@ pub struct PooledFit {
     pub scale_mean: Option<f64>,
     /// Between-plate CV of the per-plate scales (sample SD / mean); `None` below two plates.
     pub scale_cv: Option<f64>,
+    /// Between-plate CV of the plates' true scales: `scale_cv` with the scales' own estimation
+    /// error taken out (see [`between_plate_cv`]); `None` below three plates or without standard
+    /// errors.
+    #[serde(default)]
+    pub scale_cv_corrected: Option<f64>,
+    /// 95% interval of the between-plate CV of the plates' true scales (chi-square on the sample
+    /// variance, estimation error taken out; [`between_plate_cv`]).
+    #[serde(default)]
+    pub scale_cv_ci95: Option<[f64; 2]>,
     /// Points fitted.
     pub n: usize,
     /// Residual SD.
@@ -156,6 +171,11 @@ pub struct PlateSeries {
     pub substrate: Vec<f64>,
     /// Rate (or rate per enzyme) of each point.
     pub value: Vec<f64>,
+    /// Each point's loadings on the plate's shared errors (blank, background), in the value's
+    /// unit per unit error; empty (or rows of a different length) for none.
+    pub shared_loadings: Vec<Vec<f64>>,
+    /// The shared errors' covariance.
+    pub shared_covariance: Vec<Vec<f64>>,
 }
 
 /// Fits one Km shared by every series and one scale per series. Series with fewer than three
@@ -192,6 +212,8 @@ pub fn fit_shared_km(
         km_model_based: None,
         scale_mean: None,
         scale_cv: None,
+        scale_cv_corrected: None,
+        scale_cv_ci95: None,
         n: kept.iter().map(|p| p.substrate.len()).sum(),
         residual_sd: None,
         warnings,
@@ -264,15 +286,6 @@ pub fn fit_shared_km(
             unit: unit.to_string(),
         }
     };
-    fit.plates = kept
-        .iter()
-        .enumerate()
-        .map(|(index, plate)| PooledPlate {
-            plate: plate.plate.clone(),
-            scale: estimate(index, scale_unit),
-            n: plate.substrate.len(),
-        })
-        .collect();
     let km_model_based = estimate(n_plates, substrate_unit);
     let mut jacobian = DMatrix::zeros(fit.n, n_plates + 1);
     model.jacobian(&result.parameters, &mut jacobian);
@@ -284,12 +297,53 @@ pub fn fit_shared_km(
             Some(range)
         })
         .collect();
+    // Each plate's scale also carries its own shared errors (a background estimated once and
+    // subtracted from all its wells moves them together; the residuals cannot show it, because
+    // the plate's scale absorbs most of it). Plates are independent, so their parts add.
+    let shared_variance: Vec<Option<f64>> = kept
+        .iter()
+        .zip(&clusters)
+        .enumerate()
+        .map(|(index, (plate, range))| {
+            plate_shared_covariance(&jacobian, plate, range).map(|covariance| covariance[(index, index)])
+        })
+        .collect();
     let clustered_se = (n_plates >= MIN_CLUSTERED_PLATES)
         .then(|| cluster_robust_covariance(&jacobian, &result.residuals, &clusters))
         .flatten()
         .map(|covariance| covariance[(n_plates, n_plates)])
         .filter(|variance| variance.is_finite() && *variance > 0.0)
         .map(f64::sqrt);
+    fit.plates = kept
+        .iter()
+        .enumerate()
+        .map(|(index, plate)| {
+            let mut scale = estimate(index, scale_unit);
+            let shared = shared_variance[index].filter(|v| v.is_finite() && *v >= 0.0);
+            // The scale moves with Km (by c = cov(k, Km) / var(Km) in the model-based
+            // covariance); where the plates' scatter makes Km's clustered variance the larger,
+            // that part of the scale's variance takes it.
+            let km_excess = match (&result.covariance, clustered_se) {
+                (Some(covariance), Some(km_se)) if covariance[(n_plates, n_plates)] > 0.0 => {
+                    let km_variance = covariance[(n_plates, n_plates)];
+                    let slope = covariance[(index, n_plates)] / km_variance;
+                    slope * slope * (km_se * km_se - km_variance).max(0.0)
+                }
+                _ => 0.0,
+            };
+            if let Some(se) = scale.se {
+                let total = (se * se + shared.unwrap_or(0.0) + km_excess).sqrt();
+                scale.se = Some(total);
+                scale.ci95 = quantile.map(|q| [scale.value - q * total, scale.value + q * total]);
+            }
+            PooledPlate {
+                plate: plate.plate.clone(),
+                scale,
+                shared_se: shared.map(f64::sqrt),
+                n: plate.substrate.len(),
+            }
+        })
+        .collect();
     let km = match (clustered_se, t_quantile_975(n_plates - 1).ok()) {
         (Some(se), Some(quantile)) => {
             fit.km_interval = Some(KmInterval::ClusteredByPlate);
@@ -322,8 +376,94 @@ pub fn fit_shared_km(
     let scale_summary = summary(&scales);
     fit.scale_mean = scale_summary.map(|s| s.mean);
     fit.scale_cv = scale_summary.and_then(|s| s.sd.map(|sd| sd / s.mean));
+    let scale_ses: Option<Vec<f64>> = fit.plates.iter().map(|p| p.scale.se).collect();
+    if let Some(cv) = scale_ses.and_then(|ses| between_plate_cv(&scales, &ses)) {
+        fit.scale_cv_corrected = Some(cv.value);
+        fit.scale_cv_ci95 = Some(cv.ci95);
+    }
     fit.residual_sd = result.residual_standard_deviation;
     fit
+}
+
+/// The fewest plates whose scatter gives the between-plate CV an interval.
+pub const MIN_CV_PLATES: usize = 3;
+
+/// The between-plate CV of the plates' true scales and its 95% interval.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct BetweenPlateCv {
+    /// The estimate.
+    pub value: f64,
+    /// Its 95% interval.
+    pub ci95: [f64; 2],
+}
+
+/// The between-plate CV of the plates' true scales from their estimates `k_p` and standard errors
+/// `se_p` (G plates): each estimate is the plate's true scale plus its estimation error, so the
+/// estimates' sample variance `s^2` overstates the true scales' variance by about the mean
+/// estimation variance `m = mean(se_p^2)`. The estimate is `sqrt(max(s^2 - m, 0)) / mean(k)`;
+/// the interval takes the chi-square interval of the estimates' variance,
+/// `(G - 1) s^2 / chi2(0.975, G - 1)` to `(G - 1) s^2 / chi2(0.025, G - 1)`, subtracts `m` from
+/// both ends (floored at 0), and divides their square roots by `mean(k)`.
+///
+/// Assumptions: the plates' true scales are a random sample from a normal distribution (plates
+/// independent: days, lots and operators that shift groups of plates systematically break this),
+/// estimation errors independent of the true scales and of similar size across plates, and the
+/// mean known (its own uncertainty, a relative `CV / sqrt(G)`, is left out: small beside the
+/// interval's width for G of ten or more). `None` below [`MIN_CV_PLATES`] plates or for a mean
+/// that is not positive.
+///
+/// References: the chi-square interval of a normal variance (any statistics text, e.g. NIST/
+/// SEMATECH e-Handbook of Statistical Methods, section 7.2.6.2); the subtraction of the
+/// estimation variance is the method-of-moments step of a random-effects variance (as in
+/// DerSimonian and Laird 1986, Controlled Clinical Trials 7:177; from memory).
+pub fn between_plate_cv(scales: &[f64], standard_errors: &[f64]) -> Option<BetweenPlateCv> {
+    let plates = scales.len();
+    if plates < MIN_CV_PLATES || standard_errors.len() != plates {
+        return None;
+    }
+    let summary = summary(scales)?;
+    let variance = summary.sd?.powi(2);
+    let estimation = standard_errors.iter().map(|se| se * se).sum::<f64>() / plates as f64;
+    if !(summary.mean > 0.0 && variance.is_finite() && estimation.is_finite()) {
+        return None;
+    }
+    let degrees = (plates - 1) as f64;
+    let upper_quantile = chi_squared_quantile(0.975, degrees).ok()?;
+    let lower_quantile = chi_squared_quantile(0.025, degrees).ok()?;
+    let cv = |total: f64| (total - estimation).max(0.0).sqrt() / summary.mean;
+    Some(BetweenPlateCv {
+        value: cv(variance),
+        ci95: [
+            cv(degrees * variance / upper_quantile),
+            cv(degrees * variance / lower_quantile),
+        ],
+    })
+}
+
+/// The covariance that one plate's shared errors add to the pooled fit's parameters,
+/// `A C A^T` with `A = (J^T J)^-1 J_p^T L_p` (first-order propagation as the single-plate fits
+/// do: [`shared_error_covariance`]); `None` when the plate shares no error.
+fn plate_shared_covariance(
+    jacobian: &DMatrix<f64>,
+    plate: &PlateSeries,
+    rows: &std::ops::Range<usize>,
+) -> Option<DMatrix<f64>> {
+    let errors = plate.shared_covariance.len();
+    if errors == 0
+        || plate.shared_loadings.len() != rows.len()
+        || plate.shared_loadings.iter().any(|row| row.len() != errors)
+        || plate.shared_covariance.iter().any(|row| row.len() != errors)
+    {
+        return None;
+    }
+    let mut loadings = DMatrix::zeros(jacobian.nrows(), errors);
+    for (offset, row) in plate.shared_loadings.iter().enumerate() {
+        for (column, value) in row.iter().enumerate() {
+            loadings[(rows.start + offset, column)] = *value;
+        }
+    }
+    let covariance = DMatrix::from_fn(errors, errors, |i, j| plate.shared_covariance[i][j]);
+    shared_error_covariance(jacobian, &loadings, &covariance)
 }
 
 /// The pool key of a point: each pool factor's value from the well's layout factors, else from the
@@ -403,6 +543,11 @@ pub fn pooled_fits(plates: &[PoolPlate<'_>], pool_by: &[String]) -> (Vec<PooledF
                     ));
                     continue;
                 }
+                // A point's value per unit rate (1, or 1 / [E] for turnovers), for its loadings.
+                let per_rate = |point: &PoolPoint| match point.turnover {
+                    Some(turnover) if per_enzyme && point.rate != 0.0 => turnover / point.rate,
+                    _ => 1.0,
+                };
                 series.push(PlateSeries {
                     plate: plates[*index].plate.to_string(),
                     substrate: points.iter().map(|point| point.substrate).collect(),
@@ -416,6 +561,14 @@ pub fn pooled_fits(plates: &[PoolPlate<'_>], pool_by: &[String]) -> (Vec<PooledF
                             }
                         })
                         .collect(),
+                    shared_loadings: points
+                        .iter()
+                        .map(|point| {
+                            let factor = per_rate(point);
+                            point.shared_loadings.iter().map(|l| l * factor).collect()
+                        })
+                        .collect(),
+                    shared_covariance: digest.shared_errors.clone(),
                 });
             }
             let (scale_name, scale_unit) = if per_enzyme {
@@ -453,6 +606,8 @@ mod tests {
             plate: plate.to_string(),
             substrate: substrate.to_vec(),
             value: value.to_vec(),
+            shared_loadings: Vec::new(),
+            shared_covariance: Vec::new(),
         }
     }
 
@@ -545,6 +700,61 @@ mod tests {
             (high - low) / 2.0,
             2.5706 * clustered.se.unwrap(),
             max_relative = 1e-4
+        );
+    }
+
+    #[test]
+    fn the_between_plate_cv_takes_out_the_estimation_error() {
+        // Five plates with scales 9, 10, 11, 10, 10 (mean 10, sample variance 0.5) and standard
+        // errors 0.3 (estimation variance 0.09): CV sqrt(0.41) / 10; interval from chi-square(4)
+        // quantiles 0.484419 and 11.143287 (standard table values, from memory).
+        let cv = between_plate_cv(&[9.0, 10.0, 11.0, 10.0, 10.0], &[0.3; 5]).unwrap();
+        assert_relative_eq!(cv.value, 0.41f64.sqrt() / 10.0, max_relative = 1e-12);
+        let low = (4.0 * 0.5 / 11.143287 - 0.09f64).sqrt() / 10.0;
+        let high = (4.0 * 0.5 / 0.484419 - 0.09f64).sqrt() / 10.0;
+        assert_relative_eq!(cv.ci95[0], low, max_relative = 1e-5);
+        assert_relative_eq!(cv.ci95[1], high, max_relative = 1e-5);
+        // Estimation error as large as the scatter: the estimate and the lower end are 0.
+        let noisy = between_plate_cv(&[9.0, 10.0, 11.0, 10.0, 10.0], &[1.0; 5]).unwrap();
+        assert_eq!(noisy.value, 0.0);
+        assert_eq!(noisy.ci95[0], 0.0);
+        assert!(noisy.ci95[1] > 0.0);
+        assert!(
+            between_plate_cv(&[9.0, 10.0], &[0.3; 2]).is_none(),
+            "two plates are too few"
+        );
+    }
+
+    #[test]
+    fn a_plates_shared_background_widens_its_scale_interval_only() {
+        // Puromycin on six plates; the third plate's wells share a background error of SD 5 (a
+        // loading of -1 on every well: a background estimated once and subtracted from all).
+        let plates: Vec<PlateSeries> = (0..6)
+            .map(|plate| {
+                let mut s = series(&format!("p{plate}"), &PUROMYCIN_SUBSTRATE, &PUROMYCIN_RATE);
+                if plate == 2 {
+                    s.shared_loadings = vec![vec![-1.0]; PUROMYCIN_SUBSTRATE.len()];
+                    s.shared_covariance = vec![vec![25.0]];
+                }
+                s
+            })
+            .collect();
+        let fit = fit_shared_km(&plates, "Vmax", "u", "ppm");
+        assert!(fit.error.is_none(), "{:?}", fit.error);
+        let plain = fit.plates[0].scale.se.unwrap();
+        let shared = &fit.plates[2];
+        assert!(fit.plates[0].shared_se.is_none());
+        let part = shared.shared_se.unwrap();
+        // A shift of every rate by e moves the plate's scale by about e times its regression on a
+        // constant, sum(z) / sum(z^2) with z = S / (Km + S), when Km is held by the other plates.
+        let km = fit.km.as_ref().unwrap().value;
+        let z: Vec<f64> = PUROMYCIN_SUBSTRATE.iter().map(|s| s / (km + s)).collect();
+        let expected = 5.0 * z.iter().sum::<f64>() / z.iter().map(|v| v * v).sum::<f64>();
+        assert_relative_eq!(part, expected, max_relative = 0.25);
+        assert_relative_eq!(
+            shared.scale.se.unwrap(),
+            (plain * plain + part * part).sqrt(),
+            max_relative = 1e-9
         );
     }
 

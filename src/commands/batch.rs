@@ -291,9 +291,18 @@ fn batch_summary(
                     None => "",
                 },
                 fit.scale_cv.map_or(String::new(), |cv| format!(
-                    ", between-plate CV of {} {:.1}%",
+                    ", between-plate CV of {} {:.1}%{}",
                     fit.scale_name,
-                    100.0 * cv
+                    100.0 * cv,
+                    match (fit.scale_cv_corrected, fit.scale_cv_ci95) {
+                        (Some(corrected), Some([low, high])) => format!(
+                            " ({:.1}% without estimation error, 95% {:.1}% to {:.1}%)",
+                            100.0 * corrected,
+                            100.0 * low,
+                            100.0 * high
+                        ),
+                        _ => String::new(),
+                    }
                 )),
             )),
             (None, Some(error)) => text.push_str(&format!("  pooled {}: no fit: {error}\n", key.join(", "))),

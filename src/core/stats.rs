@@ -1,7 +1,7 @@
 //! The statistics every layer shares, written once: median, mean and sample standard deviation,
-//! the ordinary least-squares straight line, Student's t and Fisher's F quantiles, AICc and the
-//! extra-sum-of-squares F test of nested models, percentiles of a sorted sample, and evenly spaced
-//! picks from a long series.
+//! the ordinary least-squares straight line, Student's t, Fisher's F and chi-square quantiles, AICc
+//! and the extra-sum-of-squares F test of nested models, percentiles of a sorted sample, and evenly
+//! spaced picks from a long series.
 //!
 //! # Formulas
 //! * Sample SD `s = sqrt(sum (x - mean)^2 / (n - 1))`, standard error of the mean `s / sqrt(n)`.
@@ -14,7 +14,7 @@
 //!
 //! Quantiles come from `statrs`' distributions.
 
-use statrs::distribution::{ContinuousCDF, FisherSnedecor, StudentsT};
+use statrs::distribution::{ChiSquared, ContinuousCDF, FisherSnedecor, StudentsT};
 
 /// Why a quantile could not be computed (a caller's bug, not a user's input).
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -121,8 +121,12 @@ pub fn straight_line(x: &[f64], y: &[f64]) -> Option<Line> {
     (slope.is_finite() && intercept.is_finite()).then_some(Line { slope, intercept })
 }
 
-/// Quantile of Student's t distribution: the `t` with `P(T <= t) = probability`.
-pub fn t_quantile(probability: f64, degrees_of_freedom: f64) -> Result<f64, QuantileError> {
+/// Refuses a probability outside (0, 1) or degrees of freedom that are not positive and finite;
+/// else returns the error a distribution that refuses its degrees of freedom should give.
+fn check_quantile_arguments(
+    probability: f64,
+    degrees_of_freedom: f64,
+) -> Result<QuantileError, QuantileError> {
     if !(probability > 0.0 && probability < 1.0) {
         return Err(QuantileError::InvalidProbability { probability });
     }
@@ -132,6 +136,12 @@ pub fn t_quantile(probability: f64, degrees_of_freedom: f64) -> Result<f64, Quan
     if !(degrees_of_freedom > 0.0 && degrees_of_freedom.is_finite()) {
         return Err(invalid);
     }
+    Ok(invalid)
+}
+
+/// Quantile of Student's t distribution: the `t` with `P(T <= t) = probability`.
+pub fn t_quantile(probability: f64, degrees_of_freedom: f64) -> Result<f64, QuantileError> {
+    let invalid = check_quantile_arguments(probability, degrees_of_freedom)?;
     let distribution = StudentsT::new(0.0, 1.0, degrees_of_freedom).map_err(|_| invalid)?;
     Ok(distribution.inverse_cdf(probability))
 }
@@ -168,6 +178,13 @@ pub fn f_quantile(
         .map_err(|_| QuantileError::InvalidDegreesOfFreedom {
             dof: numerator_degrees_of_freedom,
         })?;
+    Ok(distribution.inverse_cdf(probability))
+}
+
+/// Quantile of the chi-square distribution with `degrees_of_freedom`.
+pub fn chi_squared_quantile(probability: f64, degrees_of_freedom: f64) -> Result<f64, QuantileError> {
+    let invalid = check_quantile_arguments(probability, degrees_of_freedom)?;
+    let distribution = ChiSquared::new(degrees_of_freedom).map_err(|_| invalid)?;
     Ok(distribution.inverse_cdf(probability))
 }
 
@@ -383,6 +400,13 @@ mod tests {
         assert!((f - 4.964_602_743_730_711).abs() < 1e-7, "F = {f}");
         // F(1, d) is the square of t(d): F(0.95; 1, 10) = t(0.975, 10)^2.
         assert!((f - t * t).abs() < 1e-8);
+        // Chi-square with 29 degrees of freedom: 16.047 and 45.722 at 0.025 and 0.975 (standard
+        // table values, from memory); chi-square(1) is the square of a standard normal, so its 0.95
+        // quantile is 1.959964^2 = 3.841459.
+        assert!((chi_squared_quantile(0.025, 29.0).unwrap() - 16.047).abs() < 1e-3);
+        assert!((chi_squared_quantile(0.975, 29.0).unwrap() - 45.722).abs() < 1e-3);
+        assert!((chi_squared_quantile(0.95, 1.0).unwrap() - 1.959_964f64.powi(2)).abs() < 1e-5);
+        assert!(chi_squared_quantile(0.5, 0.0).is_err());
         for dof in [1.0, 2.0, 4.0, 7.0, 12.0, 30.0, 100.0] {
             for probability in [0.6, 0.9, 0.975, 0.995] {
                 let quantile = t_quantile(probability, dof).unwrap();

@@ -401,6 +401,22 @@ pub struct PlateCorrections {
     pub dead_time_s: f64,
 }
 
+impl PlateCorrections {
+    /// A plate's corrections, converted to concentration as `well` is (1 without a well or a
+    /// conversion).
+    pub fn of(analysis: &PlateAnalysis, well: Option<WellId>, dead_time_s: f64) -> PlateCorrections {
+        PlateCorrections {
+            blank: analysis.signal.blank_uncertainty.clone(),
+            read_times_s: analysis.signal.read_times_s.clone(),
+            sign: analysis.signal.sign,
+            per_absorbance: well
+                .and_then(|well| analysis.signal.conversion_of(well))
+                .unwrap_or(1.0),
+            dead_time_s,
+        }
+    }
+}
+
 /// The errors a plate's points share, as loadings on each rate (module docs of
 /// [`crate::fit::models::SharedRateErrors`]): the blank's (a rate is minus the blank's slope over
 /// its window, converted) and each background model's (a rate is minus its background). Points
@@ -574,7 +590,7 @@ pub fn left_out_reason(well: &WellResult) -> Option<LeftOutReason> {
 }
 
 /// A well's window as a chord counted from mixing.
-fn window_chord(well: &WellResult, dead_time_s: f64) -> Option<WindowChord> {
+pub fn window_chord(well: &WellResult, dead_time_s: f64) -> Option<WindowChord> {
     let (start, end) = well.rate.window_s?;
     Some(WindowChord {
         slope: well.window_slope?,
@@ -642,17 +658,9 @@ fn fit_one_group(
         enzyme_mass,
     };
     let n_wells = wells.len();
-    let corrections = PlateCorrections {
-        blank: analysis.signal.blank_uncertainty.clone(),
-        read_times_s: analysis.signal.read_times_s.clone(),
-        sign: analysis.signal.sign,
-        // A group's wells share one standard curve (the curves are keyed by the grouping factors).
-        per_absorbance: wells
-            .first()
-            .and_then(|well| analysis.signal.conversion_of(well.well))
-            .unwrap_or(1.0),
-        dead_time_s: initial.dead_time_s,
-    };
+    // A group's wells share one standard curve (the curves are keyed by the grouping factors).
+    let corrections =
+        PlateCorrections::of(analysis, wells.first().map(|well| well.well), initial.dead_time_s);
     let mut report = fit_points(
         group,
         &points,

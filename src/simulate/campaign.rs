@@ -38,6 +38,8 @@ pub const VARIANT_KCAT: f64 = 3.0;
 pub const VARIANT_KM: f64 = 400.0;
 /// The enzyme's activity on each day, relative to the first.
 pub const DAY_ACTIVITY: [f64; 3] = [1.0, 0.90, 0.82];
+/// SD of a plate's activity factor around its day's activity (relative).
+pub const PLATE_ACTIVITY_SD: f64 = 0.04;
 /// Operators by day (invented).
 const OPERATORS: [&str; 3] = ["Ines", "Tomas", "Wren"];
 /// Seed of the campaign.
@@ -107,6 +109,11 @@ fn layout_groups() -> Vec<LayoutGroup> {
     layout
 }
 
+/// The day (0-2) of plate `index` of `n_plates`: the plates spread evenly over three days.
+pub fn campaign_day(index: usize, n_plates: usize) -> usize {
+    (index / n_plates.div_ceil(3).max(1)).min(2)
+}
+
 /// The campaign's plates: `n_plates` spread evenly over three days, `n_reads` reads every 10 s.
 pub fn campaign_plates(n_plates: usize, n_reads: usize) -> Vec<CampaignPlate> {
     campaign_plates_seeded(n_plates, n_reads, CAMPAIGN_SEED)
@@ -116,11 +123,11 @@ pub fn campaign_plates(n_plates: usize, n_reads: usize) -> Vec<CampaignPlate> {
 /// pipetting and noise), for simulation studies over many campaigns.
 pub fn campaign_plates_seeded(n_plates: usize, n_reads: usize, seed: u64) -> Vec<CampaignPlate> {
     let mut generator = ChaCha8Rng::seed_from_u64(seed);
-    let jitter = Normal::new(1.0, 0.04).ok();
+    let jitter = Normal::new(1.0, PLATE_ACTIVITY_SD).ok();
     let per_day = n_plates.div_ceil(3).max(1);
     (0..n_plates)
         .map(|index| {
-            let day = (index / per_day).min(2);
+            let day = campaign_day(index, n_plates);
             let plate_factor = jitter.map_or(1.0, |normal| normal.sample(&mut generator));
             let activity = DAY_ACTIVITY[day] * plate_factor;
             let lot = if day < 2 { "L-0317" } else { "L-0402" };

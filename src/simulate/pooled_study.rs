@@ -11,7 +11,8 @@
 use std::collections::BTreeMap;
 
 use super::campaign::{
-    campaign_layout_csv, campaign_plates_seeded, VARIANT_KCAT, VARIANT_KM, WILD_TYPE_KCAT, WILD_TYPE_KM,
+    campaign_day, campaign_layout_csv, campaign_plates_seeded, DAY_ACTIVITY, PLATE_ACTIVITY_SD, VARIANT_KCAT,
+    VARIANT_KM, WILD_TYPE_KCAT, WILD_TYPE_KM,
 };
 use super::simulate;
 use super::study::analyse_plates_on_threads;
@@ -40,6 +41,10 @@ pub struct PooledStudy {
     pub first_seed: u64,
     /// The initial-rate estimator of the plates' analysis.
     pub estimator: InitialRateEstimator,
+    /// Plates independent of each other (each plate's activity drawn around 1 with SD
+    /// [`PLATE_ACTIVITY_SD`], no day factor): the between-plate CV interval's own assumption. Else
+    /// the Cobble Lane design, whose day factors shift a third of the plates each.
+    pub independent_plates: bool,
 }
 
 /// One variant's figures over the study's campaigns.
@@ -71,6 +76,27 @@ pub struct PooledCoverageRow {
     pub plate_kcat_covered: usize,
     /// Per-plate kcat intervals counted.
     pub plate_kcat_intervals: usize,
+    /// SD of the pooled Km's relative errors over the campaigns (what its SE should match).
+    pub km_relative_sd: f64,
+    /// Mean of the clustered SE over the truth.
+    pub km_relative_se_mean: f64,
+    /// Root-mean-square relative error of the per-plate kcat (against each plate's truth).
+    pub plate_kcat_relative_rmse: f64,
+    /// Root-mean-square relative SE of the per-plate kcat.
+    pub plate_kcat_relative_se_rms: f64,
+    /// Root-mean-square of the part of that SE from the plates' shared blank and background.
+    pub plate_kcat_relative_shared_se_rms: f64,
+    /// The CV of the plates' activities in the simulated population (the design's: day factors
+    /// and plate scatter, or the plate scatter alone for independent plates).
+    pub population_cv: f64,
+    /// Mean of the between-plate CV with estimation error taken out.
+    pub cv_corrected_mean: f64,
+    /// Campaigns whose CV interval holds the population CV.
+    pub cv_covered: usize,
+    /// Campaigns with a CV interval.
+    pub cv_intervals: usize,
+    /// Campaigns whose CV interval holds the CV of that campaign's own true activities.
+    pub cv_covered_own_plates: usize,
 }
 
 /// One campaign's pooled figures for one variant.
@@ -84,6 +110,13 @@ struct CampaignFigures {
     true_cv: f64,
     kcat_covered: usize,
     kcat_intervals: usize,
+    km_se: f64,
+    kcat_squared_errors: f64,
+    kcat_squared_ses: f64,
+    kcat_squared_shared: f64,
+    cv_corrected: Option<f64>,
+    cv_interval: Option<[f64; 2]>,
+    population_cv: f64,
 }
 
 fn analysis_settings(estimator: InitialRateEstimator) -> AnalysisSettings {
@@ -107,7 +140,15 @@ fn analyse_campaign_plate(
     plate: usize,
 ) -> Result<(PlateDigest, f64), String> {
     let plates = campaign_plates_seeded(study.plates, study.reads, seed);
-    let entry = plates.get(plate).ok_or("no such plate")?;
+    let mut entry = plates.get(plate).ok_or("no such plate")?.clone();
+    if study.independent_plates {
+        // The plate's own factor only: its day's activity divided out of the truth and the rates.
+        let day = DAY_ACTIVITY[campaign_day(plate, study.plates)];
+        entry.activity /= day;
+        for variant in &mut entry.spec.variants {
+            variant.kcat_per_s /= day;
+        }
+    }
     let simulated = simulate(&entry.spec).map_err(|e| e.to_string())?;
     let data_csv = wide_csv(&simulated, &WideCsvOptions::default());
     let grid = read_text_cells(data_csv.as_bytes(), "campaign.csv").map_err(|e| e.to_string())?;
@@ -136,8 +177,35 @@ fn sample_cv(values: &[f64]) -> f64 {
     variance.sqrt() / mean
 }
 
-/// Runs the study and tabulates, per variant, coverage, bias and the CV's agreement.
-pub fn pooled_coverage_study(study: &PooledStudy) -> Result<Vec<PooledCoverageRow>, String> {
+/// One simulated campaign as the library analysed it: each plate's outcome (ids `c{campaign}-p{plate}`)
+/// and each plate's true activity relative to nominal.
+#[derive(Debug, Clone)]
+pub struct SimulatedCampaign {
+    /// The plates, in run order.
+    pub outcomes: Vec<PlateOutcome>,
+    /// Each plate's true activity by plate id.
+    pub activity: BTreeMap<String, f64>,
+    /// The CV of plate activities in the population the campaign's plates are drawn from.
+    pub population_cv: f64,
+}
+
+/// The CV of plate activities in the simulated population: a plate's activity is its day's factor
+/// d times a factor around 1 with SD `sd` (normal), the days weighted by their share of the
+/// plates, so the CV is `sqrt(E[d^2] (1 + sd^2) - E[d]^2) / E[d]`; for independent plates `sd`.
+pub fn population_cv(plates: usize, independent: bool) -> f64 {
+    if independent || plates == 0 {
+        return PLATE_ACTIVITY_SD;
+    }
+    let days: Vec<f64> = (0..plates)
+        .map(|index| DAY_ACTIVITY[campaign_day(index, plates)])
+        .collect();
+    let mean = days.iter().sum::<f64>() / plates as f64;
+    let mean_square = days.iter().map(|d| d * d).sum::<f64>() / plates as f64;
+    (mean_square * (1.0 + PLATE_ACTIVITY_SD * PLATE_ACTIVITY_SD) - mean * mean).sqrt() / mean
+}
+
+/// The study's campaigns, simulated and every plate analysed (in parallel over plates).
+pub fn simulate_campaigns(study: &PooledStudy) -> Result<Vec<SimulatedCampaign>, String> {
     if study.plates < 2 || study.campaigns == 0 {
         return Err("a study needs campaigns of at least two plates".to_string());
     }
@@ -147,30 +215,60 @@ pub fn pooled_coverage_study(study: &PooledStudy) -> Result<Vec<PooledCoverageRo
         let seed = study.first_seed + (index / study.plates) as u64;
         analyse_campaign_plate(study, seed, index % study.plates)
     });
-    let truths: BTreeMap<&str, (f64, f64)> = BTreeMap::from([
+    analysed
+        .chunks(study.plates)
+        .enumerate()
+        .map(|(campaign, chunk)| {
+            let mut outcomes = Vec::new();
+            let mut activity = BTreeMap::new();
+            for (plate, result) in chunk.iter().enumerate() {
+                let (digest, plate_activity) = result.clone()?;
+                let id = format!("c{campaign}-p{plate:02}");
+                activity.insert(id.clone(), plate_activity);
+                outcomes.push(PlateOutcome {
+                    plate: id,
+                    factors: BTreeMap::new(),
+                    data_sha256: None,
+                    layout_sha256: None,
+                    status: PlateStatus::Ok {
+                        digest,
+                        reused: false,
+                    },
+                });
+            }
+            Ok(SimulatedCampaign {
+                outcomes,
+                activity,
+                population_cv: population_cv(study.plates, study.independent_plates),
+            })
+        })
+        .collect()
+}
+
+/// The true (kcat at full activity, Km) of each simulated variant.
+pub fn variant_truths() -> BTreeMap<&'static str, (f64, f64)> {
+    BTreeMap::from([
         ("GlmA-wt", (WILD_TYPE_KCAT, WILD_TYPE_KM)),
         ("GlmA-K41R", (VARIANT_KCAT, VARIANT_KM)),
-    ]);
+    ])
+}
+
+/// Runs the study and tabulates, per variant, coverage, bias and the CV's agreement.
+pub fn pooled_coverage_study(study: &PooledStudy) -> Result<Vec<PooledCoverageRow>, String> {
+    Ok(tabulate_campaigns(&simulate_campaigns(study)?))
+}
+
+/// Tabulates, per variant, coverage, bias and the CV's agreement over analysed campaigns.
+pub fn tabulate_campaigns(campaigns: &[SimulatedCampaign]) -> Vec<PooledCoverageRow> {
+    let truths = variant_truths();
     let mut figures: BTreeMap<String, Vec<CampaignFigures>> = BTreeMap::new();
-    for (campaign, chunk) in analysed.chunks(study.plates).enumerate() {
-        let mut outcomes = Vec::new();
-        let mut activity = BTreeMap::new();
-        for (plate, result) in chunk.iter().enumerate() {
-            let (digest, plate_activity) = result.clone()?;
-            let id = format!("c{campaign}-p{plate:02}");
-            activity.insert(id.clone(), plate_activity);
-            outcomes.push(PlateOutcome {
-                plate: id,
-                factors: BTreeMap::new(),
-                data_sha256: None,
-                layout_sha256: None,
-                status: PlateStatus::Ok {
-                    digest,
-                    reused: false,
-                },
-            });
-        }
-        let (fits, _) = campaign_pooled_fits(&outcomes, &["variant".to_string()]);
+    for SimulatedCampaign {
+        outcomes,
+        activity,
+        population_cv,
+    } in campaigns
+    {
+        let (fits, _) = campaign_pooled_fits(outcomes, &["variant".to_string()]);
         for fit in fits {
             let Some(variant) = fit.key.first().map(|(_, value)| value.clone()) else {
                 continue;
@@ -192,10 +290,17 @@ pub fn pooled_coverage_study(study: &PooledStudy) -> Result<Vec<PooledCoverageRo
                 .collect();
             let mut kcat_covered = 0;
             let mut kcat_intervals = 0;
+            let (mut kcat_squared_errors, mut kcat_squared_ses, mut kcat_squared_shared) = (0.0, 0.0, 0.0);
             for plate in &fit.plates {
-                if let (Some([low, high]), Some(a)) = (plate.scale.ci95, activity.get(&plate.plate)) {
+                if let (Some([low, high]), Some(se), Some(a)) =
+                    (plate.scale.ci95, plate.scale.se, activity.get(&plate.plate))
+                {
+                    let truth = kcat * a;
                     kcat_intervals += 1;
-                    kcat_covered += usize::from(low <= kcat * a && kcat * a <= high);
+                    kcat_covered += usize::from(low <= truth && truth <= high);
+                    kcat_squared_errors += (plate.scale.value / truth - 1.0).powi(2);
+                    kcat_squared_ses += (se / truth).powi(2);
+                    kcat_squared_shared += (plate.shared_se.unwrap_or(0.0) / truth).powi(2);
                 }
             }
             let plate_kms: Vec<f64> = outcomes
@@ -223,15 +328,26 @@ pub fn pooled_coverage_study(study: &PooledStudy) -> Result<Vec<PooledCoverageRo
                 true_cv: sample_cv(&activities),
                 kcat_covered,
                 kcat_intervals,
+                km_se: km.se.unwrap_or(f64::NAN) / km_truth,
+                kcat_squared_errors,
+                kcat_squared_ses,
+                kcat_squared_shared,
+                cv_corrected: fit.scale_cv_corrected,
+                cv_interval: fit.scale_cv_ci95,
+                population_cv: *population_cv,
             });
         }
     }
-    Ok(figures
+    figures
         .into_iter()
         .map(|(variant, rows)| {
             let n = rows.len() as f64;
             let mean = |f: &dyn Fn(&CampaignFigures) -> f64| rows.iter().map(f).sum::<f64>() / n;
             let holds = |[low, high]: [f64; 2]| low <= 1.0 && 1.0 <= high;
+            // Root mean square over every plate of every campaign.
+            let plate_count = rows.iter().map(|r| r.kcat_intervals).sum::<usize>().max(1) as f64;
+            let per_plate =
+                |f: &dyn Fn(&CampaignFigures) -> f64| (rows.iter().map(f).sum::<f64>() / plate_count).sqrt();
             PooledCoverageRow {
                 variant,
                 campaigns: rows.len(),
@@ -246,7 +362,38 @@ pub fn pooled_coverage_study(study: &PooledStudy) -> Result<Vec<PooledCoverageRo
                 true_cv_mean: mean(&|r| r.true_cv),
                 plate_kcat_covered: rows.iter().map(|r| r.kcat_covered).sum(),
                 plate_kcat_intervals: rows.iter().map(|r| r.kcat_intervals).sum(),
+                km_relative_sd: (rows
+                    .iter()
+                    .map(|r| r.km)
+                    .map(|k| (k - mean(&|r| r.km)).powi(2))
+                    .sum::<f64>()
+                    / (n - 1.0).max(1.0))
+                .sqrt(),
+                km_relative_se_mean: mean(&|r| r.km_se),
+                plate_kcat_relative_rmse: per_plate(&|r| r.kcat_squared_errors),
+                plate_kcat_relative_se_rms: per_plate(&|r| r.kcat_squared_ses),
+                plate_kcat_relative_shared_se_rms: per_plate(&|r| r.kcat_squared_shared),
+                population_cv: mean(&|r| r.population_cv),
+                cv_corrected_mean: {
+                    let values: Vec<f64> = rows.iter().filter_map(|r| r.cv_corrected).collect();
+                    values.iter().sum::<f64>() / values.len().max(1) as f64
+                },
+                cv_covered: rows
+                    .iter()
+                    .filter(|r| {
+                        r.cv_interval
+                            .is_some_and(|[low, high]| low <= r.population_cv && r.population_cv <= high)
+                    })
+                    .count(),
+                cv_intervals: rows.iter().filter(|r| r.cv_interval.is_some()).count(),
+                cv_covered_own_plates: rows
+                    .iter()
+                    .filter(|r| {
+                        r.cv_interval
+                            .is_some_and(|[low, high]| low <= r.true_cv && r.true_cv <= high)
+                    })
+                    .count(),
             }
         })
-        .collect())
+        .collect()
 }

@@ -291,7 +291,7 @@ fn pooled_section(record: &CampaignRecord<'_>, html: &mut String) {
     }
     let _ = writeln!(
         html,
-        "<h2 id=\"pooled\">Pooled fits across plates (by {})</h2>\n<p>The wells of every plate sharing the values below are fitted together to v = k<sub>plate</sub> S / (Km + S): one Km shared by the plates and one kcat per plate (rates divided by the enzyme concentration; Vmax where the enzyme or the rate's unit is unknown), since the active enzyme varies from day to day while Km should not. The between-plate CV is the sample SD of the per-plate kcat over their mean. Km's 95% interval is clustered by plate (a cluster-robust sandwich covariance with t(plates - 1)), so the plates' own scatter sets its width; with fewer than 5 plates it is model-based and says so. Positive and negative controls are left out. Check that the per-plate Km above agree before relying on a pooled Km.</p>",
+        "<h2 id=\"pooled\">Pooled fits across plates (by {})</h2>\n<p>The wells of every plate sharing the values below are fitted together to v = k<sub>plate</sub> S / (Km + S): one Km shared by the plates and one kcat per plate (rates divided by the enzyme concentration; Vmax where the enzyme or the rate's unit is unknown), since the active enzyme varies from day to day while Km should not. The between-plate CV is the sample SD of the per-plate kcat over their mean; beside it, the CV of the plates' true kcat, with each plate's own estimation error taken out, and its 95% interval (chi-square on the plates' sample variance; it assumes the plates are a random sample with normally distributed activity, so days or lots that shift groups of plates make it approximate). Each plate's kcat interval carries its wells' scatter, its shared no-enzyme background (or blank) and Km's uncertainty. Km's 95% interval is clustered by plate (a cluster-robust sandwich covariance with t(plates - 1)), so the plates' own scatter sets its width; with fewer than 5 plates it is model-based and says so. Positive and negative controls are left out. Check that the per-plate Km above agree before relying on a pooled Km.</p>",
         escape(&record.pool_by.join(", "))
     );
     if !record.unknown_pool_factors.is_empty() {
@@ -304,11 +304,21 @@ fn pooled_section(record: &CampaignRecord<'_>, html: &mut String) {
     if record.pooled.is_empty() {
         return;
     }
-    html.push_str("<table>\n<tr><th>pool</th><th>plates</th><th>n</th><th>pooled Km (95% interval)</th><th>mean per-plate scale</th><th>between-plate CV</th><th>residual SD</th><th>per plate</th><th>warnings</th></tr>\n");
+    html.push_str("<table>\n<tr><th>pool</th><th>plates</th><th>n</th><th>pooled Km (95% interval)</th><th>mean per-plate scale</th><th>between-plate CV</th><th>CV of true kcat (95% interval)</th><th>residual SD</th><th>per plate</th><th>warnings</th></tr>\n");
     for fit in record.pooled {
         pooled_row(fit, html);
     }
     html.push_str("</table>\n");
+}
+
+/// The between-plate CV of the plates' true scales with its interval, as the table shows it.
+fn corrected_cv_text(fit: &PooledFit) -> String {
+    match (fit.scale_cv_corrected, fit.scale_cv_ci95) {
+        (Some(cv), Some([low, high])) => {
+            format!("{:.1}% ({:.1}% to {:.1}%)", 100.0 * cv, 100.0 * low, 100.0 * high)
+        }
+        _ => "-".to_string(),
+    }
 }
 
 fn pooled_row(fit: &PooledFit, html: &mut String) {
@@ -329,7 +339,7 @@ fn pooled_row(fit: &PooledFit, html: &mut String) {
     }
     let _ = writeln!(
         html,
-        "<tr><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td><td class=\"num\">{} {}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td><td>{}</td></tr>",
+        "<tr><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td><td class=\"num\">{} {}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td><td>{}</td></tr>",
         escape(&key.join(", ")),
         fit.plates.len(),
         fit.n,
@@ -337,6 +347,7 @@ fn pooled_row(fit: &PooledFit, html: &mut String) {
         fit.scale_name,
         fit.scale_mean.map_or("-".to_string(), |m| format!("{} {}", significant(m), escape(unit))),
         fit.scale_cv.map_or("-".to_string(), |cv| format!("{:.1}%", 100.0 * cv)),
+        corrected_cv_text(fit),
         fit.residual_sd.map_or("-".to_string(), significant),
         per_plate.join("<br>"),
         notes.join("<br>")
@@ -398,6 +409,7 @@ mod tests {
                 substrate: *s,
                 rate: 0.045 * activity * s / (120.0 + s),
                 turnover: Some(9.0 * activity * s / (120.0 + s) * (1.0 + 0.01 * (index as f64 - 3.0))),
+                shared_loadings: Vec::new(),
             })
             .collect();
         let digest = PlateDigest {
@@ -419,6 +431,7 @@ mod tests {
                 .then(|| z_prime(&[0.040, 0.041, 0.042], &[0.001, 0.0012, 0.0008]))
                 .flatten(),
             pool_points,
+            shared_errors: Vec::new(),
             rate_unit: "uM/s".into(),
             substrate_unit: Some("uM".into()),
         };

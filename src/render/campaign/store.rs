@@ -179,6 +179,7 @@ mod tests {
             constants: Vec::new(),
             z_prime: None,
             pool_points: Vec::new(),
+            shared_errors: Vec::new(),
             rate_unit: "uM/s".into(),
             substrate_unit: Some("uM".into()),
         };
