@@ -429,3 +429,56 @@ fn a_plates_own_assay_file_overrides_the_commands_flags() {
         settings("second")
     );
 }
+
+/// The pooled fit's Km, its interval and the kcat scales do not depend on the unit rates are
+/// written in: the pool points and their loadings on the shared errors change unit together, and
+/// Vmax (as each plate's scale) comes out in the unit asked.
+#[test]
+fn pooled_constants_do_not_depend_on_the_rate_unit() {
+    let root = tempfile::tempdir().unwrap();
+    campaign(root.path(), 6);
+    let pooled = |unit: &str, out: &str| -> serde_json::Value {
+        let mut args = CAMPAIGN_ARGS.to_vec();
+        args[5] = out;
+        args.extend(["--pool-by", "variant", "--rate-unit", unit, "--jobs", "1"]);
+        let output = platekin(&args, root.path());
+        assert_eq!(output.status.code(), Some(0), "{}", text(&output.stderr));
+        serde_json::from_slice(&std::fs::read(root.path().join(out).join("pooled.json")).unwrap()).unwrap()
+    };
+    let per_second = pooled("uM/s", "per-second");
+    let per_minute = pooled("uM/min", "per-minute");
+    let pools = per_second["pools"].as_array().unwrap();
+    assert_eq!(pools.len(), 2);
+    for (a, b) in pools.iter().zip(per_minute["pools"].as_array().unwrap()) {
+        for path in [["km", "value"], ["km", "se"]] {
+            let (x, y) = (
+                a[path[0]][path[1]].as_f64().unwrap(),
+                b[path[0]][path[1]].as_f64().unwrap(),
+            );
+            assert!((x / y - 1.0).abs() < 1e-9, "{path:?}: {x} vs {y}");
+        }
+        for bound in 0..2 {
+            let (x, y) = (
+                a["km"]["ci95"][bound].as_f64().unwrap(),
+                b["km"]["ci95"][bound].as_f64().unwrap(),
+            );
+            assert!((x / y - 1.0).abs() < 1e-9, "ci95[{bound}]: {x} vs {y}");
+        }
+        let (x, y) = (a["scale_cv"].as_f64().unwrap(), b["scale_cv"].as_f64().unwrap());
+        assert!((x / y - 1.0).abs() < 1e-9, "scale_cv: {x} vs {y}");
+        // Each plate's kcat and its SE, which carry the plate's shared background.
+        let plates = a["plates"].as_array().unwrap();
+        assert_eq!(plates.len(), 6);
+        for (p, q) in plates.iter().zip(b["plates"].as_array().unwrap()) {
+            assert!(p["shared_se"].as_f64().unwrap() > 0.0);
+            for (x, y) in [
+                (&p["shared_se"], &q["shared_se"]),
+                (&p["scale"]["value"], &q["scale"]["value"]),
+                (&p["scale"]["se"], &q["scale"]["se"]),
+            ] {
+                let (x, y) = (x.as_f64().unwrap(), y.as_f64().unwrap());
+                assert!((x / y - 1.0).abs() < 1e-9, "plate {}: {x} vs {y}", p["plate"]);
+            }
+        }
+    }
+}
