@@ -183,6 +183,48 @@ fn the_binary_writes_rates_in_concentration_units_from_the_standards() {
     assert!(settings.contains("signal = \"fluorescence\""), "{settings}");
 }
 
+/// The progress fit works on the reader's own signal: on a fluorescence plate its residual SD and
+/// its plots' axes are in RFU, never in absorbance units.
+#[test]
+fn progress_fits_on_a_fluorescence_plate_speak_in_rfu() {
+    let (scratch, _) = scratch_with_plate(5);
+    let output = platekin(
+        &[
+            "run",
+            "plate.csv",
+            "--layout",
+            "layout.csv",
+            "--signal",
+            "fluorescence",
+            "--progress",
+            "always",
+            "--out",
+            "out",
+        ],
+        scratch.path(),
+    );
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    let stdout = text(&output.stdout);
+    let fitted = stdout
+        .lines()
+        .find(|line| line.contains("global fit of"))
+        .unwrap_or_else(|| panic!("no progress fit in the summary:\n{stdout}"));
+    assert!(fitted.ends_with(" RFU"), "{fitted}");
+    let report = std::fs::read_to_string(scratch.path().join("out/report.html")).unwrap();
+    assert!(
+        report.contains("residual SD [RFU]"),
+        "the models-tried table's unit"
+    );
+    assert!(report.contains("signal [RFU] (blank- and background-corrected)"));
+    assert!(report.contains("observed - fitted [RFU]"));
+    for absorbance in ["[AU]", " AU;", "residual SD [AU]"] {
+        assert!(
+            !report.contains(absorbance),
+            "{absorbance} on a fluorescence report"
+        );
+    }
+}
+
 #[test]
 fn extinction_with_fluorescence_is_refused_with_the_reason() {
     let (scratch, _) = scratch_with_plate(5);

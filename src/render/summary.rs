@@ -39,7 +39,7 @@ fn with_interval(parameter: Option<&ParameterReport>) -> String {
 
 /// The progress-curve lines of the summary: one block per group (what to trust is in the results
 /// block at the top).
-fn progress_summary(progress: &ProgressAnalysis) -> Vec<String> {
+fn progress_summary(progress: &ProgressAnalysis, signal_unit: &str) -> Vec<String> {
     let mut lines = vec![
         String::new(),
         format!("Progress-curve analysis (--progress {}):", progress.mode.word()),
@@ -54,7 +54,7 @@ fn progress_summary(progress: &ProgressAnalysis) -> Vec<String> {
             continue;
         }
         lines.push(format!(
-            "  {label}: {} global fit of {} wells ({}), residual SD {} AU",
+            "  {label}: {} global fit of {} wells ({}), residual SD {} {signal_unit}",
             group.model.map_or("-", |m| m.name()),
             group.n_wells,
             run_reason_words(&group.run),
@@ -248,7 +248,10 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
         lines.extend(group_fit_lines(&results.fits));
     }
     if !results.progress.groups.is_empty() {
-        lines.extend(progress_summary(&results.progress));
+        lines.extend(progress_summary(
+            &results.progress,
+            results.analysis.signal.raw_unit,
+        ));
     }
     let mut warnings: Vec<&String> = results.input_warnings.iter().collect();
     warnings.extend(&analysis.warnings);

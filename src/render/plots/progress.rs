@@ -1,6 +1,7 @@
 //! Per-group plots of a progress-curve fit: every fitted well's observed reads with the global
 //! fit's curve over them, and the residuals (observed - fitted) against time, in the signal units
-//! the fit used (AU, blank- and background-corrected; see `progress::report`).
+//! the fit used (in the reader's own signal unit, blank- and background-corrected; see
+//! `progress::analysis`).
 //!
 //! Wells are told apart by S0: one Okabe-Ito colour and one marker shape per S0 level (the same
 //! pairs as the inhibitor plots), the fitted curve drawn as a line in the level's colour. The
@@ -33,6 +34,8 @@ pub struct ProgressView {
     pub levels: Vec<f64>,
     /// Substrate unit, for the legend.
     pub substrate_unit: String,
+    /// The signal's unit (AU, RFU or RLU): the fit works on the blank-corrected signal.
+    pub signal_unit: &'static str,
 }
 
 impl ProgressView {
@@ -85,6 +88,7 @@ fn progress_view(number: usize, group: &ProgressGroupReport, results: &RunResult
             .layout
             .substrate_unit
             .map_or_else(|| "substrate units".to_string(), |u| u.to_string()),
+        signal_unit: results.analysis.signal.raw_unit,
     }
 }
 
@@ -160,7 +164,7 @@ impl Drawing for ProgressPlot<'_> {
                         .flat_map(|c| c.observed.iter().chain(&c.fitted).copied()),
                     false,
                 ),
-                "signal [AU] (blank- and background-corrected)".to_string(),
+                format!("signal [{}] (blank- and background-corrected)", view.signal_unit),
             ),
             ProgressPlotKind::Residuals => {
                 let largest = view
@@ -171,7 +175,7 @@ impl Drawing for ProgressPlot<'_> {
                     .fold(0.0, f64::max);
                 (
                     padded_range([-largest, largest], true),
-                    "observed - fitted [AU]".to_string(),
+                    format!("observed - fitted [{}]", view.signal_unit),
                 )
             }
         };

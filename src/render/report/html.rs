@@ -895,11 +895,12 @@ fn progress_section(parts: &ReportParts) -> String {
         }
         let _ = writeln!(
             html,
-            "<p class=\"model\">Model chosen: <strong>{}</strong>; {} reads of {} wells; residual SD {} AU; AICc {}; dead time {} s.</p>",
+            "<p class=\"model\">Model chosen: <strong>{}</strong>; {} reads of {} wells; residual SD {} {}; AICc {}; dead time {} s.</p>",
             escape(group.model.map_or("-", |m| m.name())),
             group.n,
             group.n_wells,
             optional(group.residual_sd),
+            parts.results.analysis.signal.raw_unit,
             optional(group.aicc),
             optional(group.dead_time_s)
         );
@@ -914,7 +915,11 @@ fn progress_section(parts: &ReportParts) -> String {
         }
         html.push_str("</table>\n");
         if !group.models_tried.is_empty() {
-            html.push_str("<table class=\"progress-models\">\n<tr><th>model tried</th><th>AICc</th><th>delta AICc</th><th>residual SD [AU]</th><th>F test p</th><th>verdict</th></tr>\n");
+            let _ = writeln!(
+                html,
+                "<table class=\"progress-models\">\n<tr><th>model tried</th><th>AICc</th><th>delta AICc</th><th>residual SD [{}]</th><th>F test p</th><th>verdict</th></tr>",
+                parts.results.analysis.signal.raw_unit
+            );
             for tried in &group.models_tried {
                 let _ = writeln!(
                     html,
