@@ -158,25 +158,29 @@ fn coverage_of_kcat_with_the_slope_uncertainty() {
     assert!(bias.abs() < 0.05, "bias {bias}");
 }
 
+/// Runs the simulated fluorescence plate of seed 5 through the binary into `out` with `extra`
+/// flags; the run must succeed.
+fn run_fluorescence_plate(extra: &[&str]) -> (tempfile::TempDir, std::process::Output) {
+    let (scratch, _) = scratch_with_plate(5);
+    let mut args = vec![
+        "run",
+        "plate.csv",
+        "--layout",
+        "layout.csv",
+        "--signal",
+        "fluorescence",
+        "--out",
+        "out",
+    ];
+    args.extend_from_slice(extra);
+    let output = platekin(&args, scratch.path());
+    assert!(output.status.success(), "{}", text(&output.stderr));
+    (scratch, output)
+}
+
 #[test]
 fn the_binary_writes_rates_in_concentration_units_from_the_standards() {
-    let (scratch, _) = scratch_with_plate(5);
-    let output = platekin(
-        &[
-            "run",
-            "plate.csv",
-            "--layout",
-            "layout.csv",
-            "--signal",
-            "fluorescence",
-            "--out",
-            "out",
-            "--report",
-            "none",
-        ],
-        scratch.path(),
-    );
-    assert!(output.status.success(), "{}", text(&output.stderr));
+    let (scratch, _) = run_fluorescence_plate(&["--report", "none"]);
     let wells = std::fs::read_to_string(scratch.path().join("out/wells.csv")).unwrap();
     assert!(wells.lines().next().unwrap().contains("rate [uM/s]"), "{wells}");
     let settings = std::fs::read_to_string(scratch.path().join("out/settings.toml")).unwrap();
@@ -187,23 +191,7 @@ fn the_binary_writes_rates_in_concentration_units_from_the_standards() {
 /// its plots' axes are in RFU, never in absorbance units.
 #[test]
 fn progress_fits_on_a_fluorescence_plate_speak_in_rfu() {
-    let (scratch, _) = scratch_with_plate(5);
-    let output = platekin(
-        &[
-            "run",
-            "plate.csv",
-            "--layout",
-            "layout.csv",
-            "--signal",
-            "fluorescence",
-            "--progress",
-            "always",
-            "--out",
-            "out",
-        ],
-        scratch.path(),
-    );
-    assert!(output.status.success(), "{}", text(&output.stderr));
+    let (scratch, output) = run_fluorescence_plate(&["--progress", "always"]);
     let stdout = text(&output.stdout);
     let fitted = stdout
         .lines()
