@@ -493,7 +493,7 @@ pub fn import_cells(grid: &CellGrid, options: &ImportOptions) -> Result<KineticD
     };
     let reference_nm =
         wavelength::choose(&present, Some(asked), &grid.source, "--reference-wavelength").map_err(refused)?;
-    if (reference_nm - chosen).abs() < 0.5 {
+    if (reference_nm - chosen).abs() < wavelength::SAME_WAVELENGTH_NM {
         return Err(refused(format!(
             "{}: --reference-wavelength {asked} is the wavelength analysed; the reference is another wavelength",
             grid.source

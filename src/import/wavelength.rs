@@ -23,7 +23,7 @@ use crate::core::plate::WellId;
 use crate::core::units::split_header_unit;
 
 /// Wavelengths closer than this (nm) are the same: exports write 405 and 405.0.
-const SAME_WAVELENGTH_NM: f64 = 0.5;
+pub(super) const SAME_WAVELENGTH_NM: f64 = 0.5;
 
 /// Where each wavelength's reads stand in an export.
 #[derive(Debug, Clone, PartialEq)]
