@@ -442,6 +442,17 @@ pub fn resolve_excluded_well(well: &str, reason: &str, origin: &str) -> Result<E
     })
 }
 
+impl AnalysisSettings {
+    /// These settings with another initial-rate estimator, and the conversion limit and
+    /// straightness tests that go with it (as `run` resolves them when no limit is given).
+    pub fn with_initial_rate(mut self, estimator: InitialRateEstimator) -> AnalysisSettings {
+        self.initial_rate = estimator;
+        self.rates.max_conversion = estimator.default_max_conversion();
+        self.rates.allow_depletion_curvature = estimator.corrects_depletion();
+        self
+    }
+}
+
 impl Default for AnalysisSettings {
     fn default() -> Self {
         AnalysisSettings {
@@ -832,7 +843,11 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
                 .into(),
         ));
     }
-    let max_conversion = layer.max_conversion.unwrap_or(defaults.max_conversion);
+    let initial_rate =
+        parse_field::<InitialRateEstimator>("initial-rate", &layer.initial_rate)?.unwrap_or_default();
+    let max_conversion = layer
+        .max_conversion
+        .unwrap_or_else(|| initial_rate.default_max_conversion());
     if !(max_conversion > 0.0 && max_conversion <= 1.0) {
         return Err(SettingsError::about(
             "max-conversion",
@@ -902,6 +917,7 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
         rates: RateSettings {
             min_points,
             max_conversion,
+            allow_depletion_curvature: initial_rate.corrects_depletion(),
             skip_s,
             fixed_window_s,
             alpha,
@@ -909,8 +925,7 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
             signal,
             dead_time_s,
         },
-        initial_rate: parse_field::<InitialRateEstimator>("initial-rate", &layer.initial_rate)?
-            .unwrap_or_default(),
+        initial_rate,
         keep_flagged: layer.keep_flagged.unwrap_or(false),
         allow_missing: layer.allow_missing.unwrap_or(false),
         progress,
@@ -1121,10 +1136,34 @@ mod tests {
             },
         )
         .unwrap();
-        assert_eq!(run.used.max_conversion, Some(0.10));
+        // The integrated estimator (the default) corrects depletion, so its windows may convert
+        // 30%; the chord keeps the 10% rule.
+        assert_eq!(run.used.max_conversion, Some(0.30));
+        assert!(run.analysis.rates.allow_depletion_curvature);
         assert_eq!(run.used.min_points, Some(5));
         let text = toml::to_string(&run.used).unwrap();
-        assert!(text.contains("max-conversion = 0.1"), "{text}");
+        assert!(text.contains("max-conversion = 0.3"), "{text}");
+        let chord = resolve_run(
+            "d.csv".into(),
+            SettingLayer {
+                layout: Some("l.csv".into()),
+                initial_rate: Some("chord".into()),
+                ..SettingLayer::default()
+            },
+        )
+        .unwrap();
+        assert_eq!(chord.used.max_conversion, Some(0.10));
+        assert!(!chord.analysis.rates.allow_depletion_curvature);
+        let given = resolve_run(
+            "d.csv".into(),
+            SettingLayer {
+                layout: Some("l.csv".into()),
+                max_conversion: Some(0.05),
+                ..SettingLayer::default()
+            },
+        )
+        .unwrap();
+        assert_eq!(given.analysis.rates.max_conversion, 0.05);
         assert!(text.contains("progress = \"auto\""), "{text}");
     }
 

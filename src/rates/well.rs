@@ -16,6 +16,21 @@
 //! Two tests at 1% keep the false rejection of a truly straight window near 2% while catching both
 //! smooth curvature (depletion, product inhibition) and a kink.
 //!
+//! # Straight, or bent only as depletion bends it (the `integrated` estimator)
+//! When the initial-rate estimator corrects a window's slope for depletion
+//! (`RateSettings::allow_depletion_curvature`), the curvature that depletion alone makes is no
+//! reason to end a window: ending windows on it picks them on the noise (a window is cut sooner
+//! when its late reads happen to fall low), which biased Km by up to +1.7% (DEVELOPERS.md). For
+//! every rate law of Michaelis-Menten form in S at fixed [I], `0 <= dv/dS = v K / (S (K + S)) <=
+//! v / S`, so the product curve's second derivative `P'' = -v'(S) v` is no lower than `-v^2 / S`:
+//! depletion bends the quadratic term `c` of the window no further down than `-v^2 / (2 S)`. The
+//! allowance is `slope^2 / (2 S0 (1 - conversion))` (the window's slope and the substrate left at
+//! its end), and both tests then measure the departure from the interval `[-allowance, 0]` instead
+//! of from 0 (the half slopes' difference from `[-2 allowance gap, 0]`, `gap` the distance between
+//! the halves' mean times). Upward curvature (a lag) and curvature beyond what depletion can make
+//! (product inhibition, enzyme losing activity, a kink) still end the window. Without S0 in the
+//! values' units there is no allowance.
+//!
 //! # Flags (plain words, `;`-separated in the outputs)
 //! - `unreadable`: some reads had no number (over-range marker, blank cell); they are named.
 //! - `nonlinear`: no straight window of `min_points` reads exists.
@@ -209,11 +224,59 @@ impl CriticalValues {
     }
 }
 
-/// Whether the window `0..=last` of `sums` is straight by both tests.
-fn is_straight(sums: &WindowSums, last: usize, critical: &CriticalValues) -> bool {
+/// The part of `value` outside the interval `[low, 0]` (`low <= 0`): 0 inside, else the signed
+/// distance to the nearer end.
+fn beyond_interval(value: f64, low: f64) -> f64 {
+    if value < low {
+        value - low
+    } else if value > 0.0 {
+        value
+    } else {
+        0.0
+    }
+}
+
+/// The downward curvature (quadratic term per s^2) depletion alone can give a window with this
+/// slope that ends having converted `conversion` of `s0` (module docs); 0 without S0 or a rise.
+fn depletion_allowance(slope: f64, s0: Option<f64>, conversion: Option<f64>) -> f64 {
+    match (s0, conversion) {
+        (Some(s0), Some(conversion)) if s0 > 0.0 && slope > 0.0 => {
+            // The substrate left is never taken below half of S0: beyond that depletion is the
+            // progress fit's business, not a window's.
+            let left = s0 * (1.0 - conversion.clamp(0.0, 0.5));
+            slope * slope / (2.0 * left)
+        }
+        _ => 0.0,
+    }
+}
+
+/// Whether the window `0..=last` of `sums` (over `times`) is straight by both tests, allowing
+/// downward curvature down to `-allowance` per s^2 (0: none; module docs).
+fn is_straight(
+    sums: &WindowSums,
+    times: &[f64],
+    last: usize,
+    critical: &CriticalValues,
+    allowance: f64,
+) -> bool {
     let n = last + 1;
     if let Some(test) = sums.curvature(0, last) {
-        if test.is_significant(critical.get(n - 3)) {
+        if allowance > 0.0 {
+            // The test's quadratic term is in the sums' scaled time, u = (t - t0) / span.
+            let span = times[times.len() - 1] - times[0];
+            let se = if test.t_statistic.is_finite() && test.t_statistic != 0.0 {
+                test.curvature / test.t_statistic
+            } else {
+                0.0
+            };
+            let excess = beyond_interval(test.curvature, -allowance * span * span);
+            if excess != 0.0
+                && test.relative_size > 1e-9
+                && (se <= 0.0 || (excess / se).abs() > critical.get(n - 3))
+            {
+                return false;
+            }
+        } else if test.is_significant(critical.get(n - 3)) {
             return false;
         }
     }
@@ -223,7 +286,13 @@ fn is_straight(sums: &WindowSums, last: usize, critical: &CriticalValues) -> boo
         if let (Some(first), Some(second)) = (sums.line(0, half - 1), sums.line(half, last)) {
             let spread = (first.slope_se.powi(2) + second.slope_se.powi(2)).sqrt();
             let dof = n - 4;
-            let difference = second.slope - first.slope;
+            let mut difference = second.slope - first.slope;
+            if allowance > 0.0 {
+                let mean_time =
+                    |from: usize, to: usize| times[from..=to].iter().sum::<f64>() / (to + 1 - from) as f64;
+                let gap = mean_time(half, last) - mean_time(0, half - 1);
+                difference = beyond_interval(difference, -2.0 * allowance * gap);
+            }
             // Slopes equal to rounding agree whatever their (then meaningless) standard errors.
             let negligible = difference.abs() <= 1e-9 * first.slope.abs().max(second.slope.abs());
             if !negligible && (spread == 0.0 || (difference / spread).abs() > critical.get(dof)) {
@@ -338,9 +407,17 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
             .map(|s0| fit.slope * (times[last] + settings.dead_time_s) / s0)
     };
 
+    let allowance_at = |last: usize, fit: &LineFit| -> f64 {
+        if settings.allow_depletion_curvature {
+            depletion_allowance(fit.slope, input.substrate_start, conversion_at(last, fit))
+        } else {
+            0.0
+        }
+    };
     let chosen = if settings.fixed_window_s.is_some() {
         let last = times.len() - 1;
-        if !is_straight(&sums, last, critical) {
+        let allowance = sums.line(0, last).map_or(0.0, |fit| allowance_at(last, &fit));
+        if !is_straight(&sums, &times, last, critical, allowance) {
             result.flag(Flag::Nonlinear);
         }
         Some(last)
@@ -352,7 +429,7 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
             if conversion_at(last, &fit).is_some_and(|c| c > settings.max_conversion) {
                 continue;
             }
-            if is_straight(&sums, last, critical) {
+            if is_straight(&sums, &times, last, critical, allowance_at(last, &fit)) {
                 accepted = Some(last);
                 break;
             }
@@ -566,7 +643,12 @@ mod tests {
             .enumerate()
             .map(|(i, t)| 10.0 * (1.0 - (-4e-4 * t).exp()) + wiggle(i, 0.01))
             .collect();
-        let rate = rate_of(&times, &values, Some(10.0), &RateSettings::default());
+        let chord = RateSettings {
+            max_conversion: 0.10,
+            allow_depletion_curvature: false,
+            ..RateSettings::default()
+        };
+        let rate = rate_of(&times, &values, Some(10.0), &chord);
         let (_, end) = rate.window_s.unwrap();
         assert!(rate.conversion.unwrap() <= 0.10, "{rate:?}");
         assert!(
@@ -574,6 +656,58 @@ mod tests {
             "window should stop near 10% conversion, ended at {end}"
         );
         assert!(!rate.flags.contains(&Flag::Depleted));
+    }
+
+    #[test]
+    fn depletion_bends_a_window_without_ending_it_when_the_estimator_corrects_for_it() {
+        // The same first-order loss of substrate (the most curved shape depletion can give, S0
+        // << Km) with noise 0.01% of S0, small enough that the curvature is highly significant
+        // against a line. By 720 s the chord converts 25%, inside the integrated estimator's 30%.
+        let times = reads(25, 30.0);
+        let values: Vec<f64> = times
+            .iter()
+            .enumerate()
+            .map(|(i, t)| 10.0 * (1.0 - (-4e-4 * t).exp()) + wiggle(i, 0.001))
+            .collect();
+        let integrated = RateSettings::default();
+        assert!(integrated.allow_depletion_curvature);
+        let rate = rate_of(&times, &values, Some(10.0), &integrated);
+        assert_eq!(rate.fit.unwrap().n_points, 25, "{rate:?}");
+        assert!(rate.flags.is_empty(), "{:?}", rate.flags);
+        // Without the allowance the same reads end the window within the first few minutes.
+        let line_only = RateSettings {
+            allow_depletion_curvature: false,
+            ..RateSettings::default()
+        };
+        let rate = rate_of(&times, &values, Some(10.0), &line_only);
+        assert!(rate.fit.unwrap().n_points < 15, "{rate:?}");
+    }
+
+    #[test]
+    fn curvature_beyond_depletion_still_ends_the_window() {
+        // Enzyme losing activity at 2e-3 /s with plenty of substrate (S0 = 1000, 1.5% converted
+        // by 720 s): P = (v0 / kd) (1 - exp(-kd t)) bends far more than depletion of 1000 can,
+        // so the window ends early even with the allowance.
+        let times = reads(25, 30.0);
+        let values: Vec<f64> = times
+            .iter()
+            .enumerate()
+            .map(|(i, t)| (0.05 / 2e-3) * (1.0 - (-2e-3 * t).exp()) + wiggle(i, 0.002))
+            .collect();
+        let rate = rate_of(&times, &values, Some(1000.0), &RateSettings::default());
+        assert!(rate.fit.unwrap().n_points < 15, "{rate:?}");
+    }
+
+    #[test]
+    fn the_departure_is_measured_from_the_allowed_interval() {
+        assert_eq!(beyond_interval(-0.5, -1.0), 0.0);
+        assert_eq!(beyond_interval(0.0, -1.0), 0.0);
+        assert_eq!(beyond_interval(-1.5, -1.0), -0.5);
+        assert_eq!(beyond_interval(0.25, -1.0), 0.25);
+        // v = 0.01 per s, S0 = 10, 20% converted: 0.01^2 / (2 x 8).
+        assert!((depletion_allowance(0.01, Some(10.0), Some(0.2)) - 6.25e-6).abs() < 1e-18);
+        assert_eq!(depletion_allowance(0.01, None, Some(0.2)), 0.0);
+        assert_eq!(depletion_allowance(-0.01, Some(10.0), Some(0.2)), 0.0);
     }
 
     #[test]

@@ -123,7 +123,6 @@ fn analysis_settings(estimator: InitialRateEstimator) -> AnalysisSettings {
     AnalysisSettings {
         extinction_per_molar_cm: Some(EXTINCTION),
         pathlength_cm: Some(PATHLENGTH),
-        initial_rate: estimator,
         // The pooled fit takes the wells' initial rates; the progress curves add nothing to it.
         progress: ProgressSettings {
             mode: ProgressMode::Never,
@@ -131,6 +130,7 @@ fn analysis_settings(estimator: InitialRateEstimator) -> AnalysisSettings {
         },
         ..AnalysisSettings::default()
     }
+    .with_initial_rate(estimator)
 }
 
 /// Simulates and analyses plate `plate` of campaign `seed`: its digest and true activity.

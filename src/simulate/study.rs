@@ -281,13 +281,13 @@ fn analysis_settings(
     let mut settings = AnalysisSettings {
         extinction_per_molar_cm: Some(EXTINCTION),
         pathlength_cm: Some(PATHLENGTH),
-        initial_rate: estimator,
         progress: ProgressSettings {
             mode: progress,
             ..ProgressSettings::default()
         },
         ..AnalysisSettings::default()
-    };
+    }
+    .with_initial_rate(estimator);
     if matches!(design, StudyDesign::Realistic | StudyDesign::Inhibition) {
         settings.rates.dead_time_s = REALISTIC_DEAD_TIME_S;
     }
