@@ -47,7 +47,8 @@ use crate::core::stats::{
 };
 use crate::fit::integrated::michaelis_menten_point;
 use crate::fit::{
-    asymptotic_covariance, cluster_robust_covariance, fit_least_squares, LeastSquaresOptions, ResidualModel,
+    asymptotic_covariance, cluster_jackknife_covariance, cluster_robust_covariance, fit_least_squares,
+    LeastSquaresOptions, ResidualModel,
 };
 
 /// One well's curve, ready to fit.
@@ -766,12 +767,16 @@ fn summarise(
     let mut residuals = vec![0.0; n];
     problem.residuals(&parameters, &mut residuals);
     let clusters: Vec<std::ops::Range<usize>> = problem.offsets.windows(2).map(|w| w[0]..w[1]).collect();
-    let by_well = cluster_robust_covariance(&jacobian, &residuals, &clusters).map(|clustered| {
-        match shared_error_covariance(&jacobian, problem, wells, &options.shared_errors) {
-            Some(shared) => clustered + shared,
-            None => clustered,
-        }
-    });
+    // Each well's leverage undone (CR3; CR1 ran small with a few tens of wells), CR1 where leaving a
+    // well out leaves a parameter undetermined.
+    let by_well = cluster_jackknife_covariance(&jacobian, &residuals, &clusters)
+        .or_else(|| cluster_robust_covariance(&jacobian, &residuals, &clusters))
+        .map(
+            |clustered| match shared_error_covariance(&jacobian, problem, wells, &options.shared_errors) {
+                Some(shared) => clustered + shared,
+                None => clustered,
+            },
+        );
     let well_quantile = (m >= 2).then(|| t_quantile_975(m - 1).ok()).flatten();
     let names = problem.parameter_names();
     let fitted: Vec<FittedParameter> = names
