@@ -14,7 +14,7 @@ use platekin::progress::trust::{RunReason, Trust, TrustReason};
 use platekin::render::summary::run_summary;
 use platekin::render::{render_run_outputs, RunRecord};
 use platekin::simulate::{
-    demo_spec, layout_tidy_csv, simulate, wide_csv, LayoutGroup, SimulationSpec, VariantKinetics,
+    demo_bench_spec, layout_tidy_csv, simulate, wide_csv, LayoutGroup, SimulationSpec, VariantKinetics,
     WellCondition, WideCsvOptions,
 };
 
@@ -79,7 +79,7 @@ fn depletion_spec() -> SimulationSpec {
         defects: Vec::new(),
         noise_sd_au: 0.001,
         seed: 31,
-        ..demo_spec()
+        ..demo_bench_spec()
     }
 }
 

@@ -8,7 +8,7 @@ use std::path::Path;
 
 use common::{platekin, text};
 use platekin::simulate::{
-    demo_spec, layout_tidy_csv, simulate, wide_csv, LayoutGroup, SimulationSpec, VariantKinetics,
+    demo_bench_spec, layout_tidy_csv, simulate, wide_csv, LayoutGroup, SimulationSpec, VariantKinetics,
     WellCondition, WideCsvOptions,
 };
 use serde_json::Value;
@@ -54,7 +54,7 @@ fn plate_spec_with_reads(enzyme_nm: f64, read_times_s: Vec<f64>, noise_sd_au: f6
         defects: Vec::new(),
         noise_sd_au,
         seed: 57,
-        ..demo_spec()
+        ..demo_bench_spec()
     }
 }
 

@@ -22,9 +22,14 @@
 //! the lowest residual sum of squares starts the fit. Extended models start from the
 //! Michaelis-Menten optimum with the extra term at 0.
 //!
-//! Intervals: asymptotic `value +- t(0.975, n - p - m) se`; for Km also the profile-likelihood
-//! interval `{Km : RSS_Km <= RSS_min (1 + F(0.95; 1, n - p - m) / (n - p - m))}`, re-optimising the
-//! other shared parameters at each Km (Bates and Watts 1988). Model choice: AICc with
+//! Intervals: asymptotic `value +- t(0.975, n - p - m) se` (read-level, kept as
+//! `ci95_asymptotic`); clustered by well with `t(0.975, m - 1)` (the reported `ci95`); for Km also
+//! the profile-likelihood interval, re-optimising the other shared parameters at each Km (Bates and
+//! Watts 1988), calibrated by the well-clustered variance so that it means what the reported
+//! interval means: `{Km : RSS_Km <= RSS_min (1 + c t(0.975, m - 1)^2 / (n - p - m))}` with
+//! `c = var_clustered(Km) / var_read-level(Km)` (the profile keeps its shape, the clustered
+//! variance sets its scale; Royall and Tsou 2003, J R Stat Soc B 65:391, from memory). Without a
+//! clustered variance the read-level `F(0.95; 1, n - p - m)` stands in for `c t^2`, as before. Model choice: AICc with
 //! k = p + m + 1 (the offsets and the variance count), and the extra-sum-of-squares F test of each
 //! extended model against plain Michaelis-Menten. Per well: residual SD and the Wald-Wolfowitz runs
 //! test on residual signs (too few runs means systematic misfit).
@@ -276,7 +281,8 @@ pub struct GlobalFit {
     pub model: ProgressModel,
     /// Shared parameters in order kcat, Km, [extra], [dead_time].
     pub parameters: Vec<FittedParameter>,
-    /// Profile-likelihood 95% interval of Km (`None` on a side the data leave open).
+    /// Profile-likelihood 95% interval of Km, calibrated by the well-clustered variance (module
+    /// notes; `None` on a side the data leave open).
     pub km_profile_ci95: Option<[Option<f64>; 2]>,
     /// Correlation matrix of the shared parameters.
     pub correlation: Option<Vec<Vec<f64>>>,
@@ -812,8 +818,15 @@ fn summarise(
     };
     // The per-well offsets and the residual variance count as parameters.
     let aicc = aicc(n, p + m + 1, rss).unwrap_or(f64::NAN);
+    // The profile's threshold, as a multiple of RSS_min - 1 (module notes).
+    let km_clustered_scale = fitted.get(1).and_then(|km| {
+        let model_se = km.se.filter(|se| *se > 0.0)?;
+        let well_se = km.se_by_well?;
+        let quantile = well_quantile?;
+        Some((well_se / model_se).powi(2) * quantile * quantile)
+    });
     let km_profile_ci95 = (options.profile_km && dof > 0)
-        .then(|| profile_interval(problem, &parameters, 1, rss, dof))
+        .then(|| profile_interval(problem, &parameters, 1, rss, dof, km_clustered_scale))
         .flatten();
     let well_diagnostics = well_diagnostics(problem, wells, &parameters);
     GlobalFit {
@@ -958,9 +971,13 @@ fn profile_interval(
     index: usize,
     rss_min: f64,
     dof: usize,
+    clustered_scale: Option<f64>,
 ) -> Option<[Option<f64>; 2]> {
-    let f = f_quantile(0.95, 1.0, dof as f64).ok()?;
-    let threshold = rss_min * (1.0 + f / dof as f64);
+    let scale = match clustered_scale {
+        Some(scale) => scale,
+        None => f_quantile(0.95, 1.0, dof as f64).ok()?,
+    };
+    let threshold = rss_min * (1.0 + scale / dof as f64);
     let free: Vec<usize> = (0..optimum.len()).filter(|&i| i != index).collect();
     let positive: Vec<usize> = free
         .iter()

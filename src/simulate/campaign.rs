@@ -19,7 +19,7 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
 
-use super::demo::demo_spec;
+use super::demo::demo_bench_spec;
 use super::writers::{wide_csv, WideCsvOptions};
 use super::{
     simulate, LayoutGroup, SimulatedPlate, SimulationError, SimulationSpec, VariantKinetics, WellCondition,
@@ -168,7 +168,7 @@ pub fn campaign_plates_seeded(n_plates: usize, n_reads: usize, seed: u64) -> Vec
                 substrate_pipetting_cv: 0.02,
                 noise_sd_au: 0.0015,
                 seed: generator.random(),
-                ..demo_spec()
+                ..demo_bench_spec()
             };
             CampaignPlate {
                 plate,

@@ -28,6 +28,8 @@ pub const DEMO_WILD_TYPE_ENZYME_NM: f64 = 4.0;
 pub const DEMO_S112T_ENZYME_NM: f64 = 40.0;
 /// Seed of the demo plate.
 pub const DEMO_SEED: u64 = 4_052_024;
+/// Seconds from mixing to the demo's first read (its assay file gives them as `dead-time`).
+pub const DEMO_DEAD_TIME_S: f64 = 20.0;
 /// Extinction coefficient of the demo's chromophore, M^-1 cm^-1 (invented value for the scenario).
 pub const DEMO_EXTINCTION_COEFFICIENT: f64 = 16_800.0;
 
@@ -137,14 +139,31 @@ pub fn demo_spec() -> SimulationSpec {
         liquid_offset_range_au: (0.04, 0.06),
         empty_offset_range_au: (0.035, 0.045),
         noise_sd_au: 0.001,
-        baseline_drift_au_per_s: 0.0,
+        // What real runs have (issue 9): a plate-wide baseline creeping up, each well drifting a
+        // little on its own, noise growing with absorbance, 2% pipetting error in each well's S0,
+        // and 20 s from mixing to the first read (given to the analysis as `dead-time`).
+        baseline_drift_au_per_s: 2e-6,
         spontaneous_hydrolysis_per_s: 1e-6,
-        dead_time_s: 0.0,
-        substrate_pipetting_cv: 0.0,
-        noise_growth_per_au: 0.0,
-        well_drift_sd_au_per_s: 0.0,
+        dead_time_s: DEMO_DEAD_TIME_S,
+        substrate_pipetting_cv: 0.02,
+        noise_growth_per_au: 0.3,
+        well_drift_sd_au_per_s: 5e-7,
         reading_decimals: 4,
         seed: DEMO_SEED,
+    }
+}
+
+/// The demo's bench (reader, chromophore, offsets, noise, reads) without its real-run defects
+/// (dead time, pipetting error, drift, noise growing with absorbance): the base of scenarios
+/// that state their own defects.
+pub fn demo_bench_spec() -> SimulationSpec {
+    SimulationSpec {
+        dead_time_s: 0.0,
+        baseline_drift_au_per_s: 0.0,
+        noise_growth_per_au: 0.0,
+        well_drift_sd_au_per_s: 0.0,
+        substrate_pipetting_cv: 0.0,
+        ..demo_spec()
     }
 }
 
@@ -243,8 +262,11 @@ pub fn demo_readme(plate: &SimulatedPlate) -> String {
         "A continuous absorbance assay of an esterase in a {}-well plate: the enzyme releases a \
          chromophore read at {} nm (extinction coefficient {} M^-1 cm^-1, an invented value for the \
          scenario; pathlength {} cm). {} reads from {} s to {} s at {} C. The product is read, so the \
-         signal rises. Readings have {} decimals; noise SD {} AU; well offsets 0.04-0.06 AU (empty \
-         wells 0.035-0.045 AU); spontaneous hydrolysis {} /s.\n",
+         signal rises. Readings have {} decimals; noise SD {} AU times 10^({} x absorbance); well \
+         offsets 0.04-0.06 AU (empty wells 0.035-0.045 AU); spontaneous hydrolysis {} /s. What real \
+         runs have: {} s from mixing to the first read (the assay file's `dead-time`), {}% pipetting \
+         error (CV) in each well's substrate, a baseline drifting by {} AU/s across the plate and by \
+         SD {} AU/s from well to well.\n",
         settings.plate_format,
         settings.wavelength_nm,
         settings.extinction_coefficient_per_m_per_cm,
@@ -255,7 +277,12 @@ pub fn demo_readme(plate: &SimulatedPlate) -> String {
         settings.temperature_set_point_c,
         settings.reading_decimals,
         settings.noise_sd_au,
+        settings.noise_growth_per_au,
         settings.spontaneous_hydrolysis_per_s,
+        settings.dead_time_s,
+        100.0 * settings.substrate_pipetting_cv,
+        settings.baseline_drift_au_per_s,
+        settings.well_drift_sd_au_per_s,
     );
     let _ = writeln!(text, "## Files\n");
     let files = [
@@ -598,16 +625,28 @@ mod tests {
             };
             assert!((low..=high).contains(&well.offset_au), "{}", well.well);
         }
-        // Blank wells: readings scatter around their offset with the plate's noise SD.
+        // Blank wells: readings scatter around their offset, plus the plate's slow baseline drift
+        // and the well's own, with the plate's noise SD: the scatter about each blank's own line.
         let residuals: Vec<f64> = plate
             .wells
             .iter()
-            .zip(&plate.truth.wells)
-            .filter(|(well, _)| well.condition.role == WellRole::Blank)
-            .flat_map(|(well, truth)| {
-                well.readings
+            .filter(|well| well.condition.role == WellRole::Blank)
+            .flat_map(|well| {
+                let values: Vec<f64> = well.readings.iter().map(|r| r.as_number().unwrap()).collect();
+                let times = &plate.truth.settings.read_times_s;
+                let n = values.len() as f64;
+                let (mean_t, mean_y) = (times.iter().sum::<f64>() / n, values.iter().sum::<f64>() / n);
+                let slope = times
                     .iter()
-                    .map(move |reading| reading.as_number().unwrap() - truth.offset_au)
+                    .zip(&values)
+                    .map(|(t, y)| (t - mean_t) * (y - mean_y))
+                    .sum::<f64>()
+                    / times.iter().map(|t| (t - mean_t).powi(2)).sum::<f64>();
+                times
+                    .iter()
+                    .zip(&values)
+                    .map(|(t, y)| y - mean_y - slope * (t - mean_t))
+                    .collect::<Vec<_>>()
             })
             .collect();
         let sd = (residuals.iter().map(|r| r * r).sum::<f64>() / residuals.len() as f64).sqrt();

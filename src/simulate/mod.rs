@@ -47,7 +47,7 @@ use rand_distr::{Distribution, Normal};
 use crate::core::plate::{parse_well_selection, PlateFormat, WellId};
 use kinetics::WellKinetics;
 
-pub use demo::{demo_files, demo_readme, demo_spec, large_plate_spec};
+pub use demo::{demo_bench_spec, demo_files, demo_readme, demo_spec, large_plate_spec};
 pub use writers::{
     grid_csv, layout_grid_csv, layout_tidy_csv, long_csv, truth_json, wide_csv, xlsx_bytes, GridCsvOptions,
     GridTimeLabel, SimulationWriteError, TimeStyle, WellColumns, WideCsvOptions,

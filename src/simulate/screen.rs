@@ -16,7 +16,7 @@ use std::fmt::Write as _;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
-use super::{demo_spec, LayoutGroup, Readout, SimulationSpec, VariantKinetics, WellCondition};
+use super::{demo_bench_spec, LayoutGroup, Readout, SimulationSpec, VariantKinetics, WellCondition};
 use crate::core::plate::{PlateFormat, WellId};
 
 /// Substrate in every well, uM (equal to Km, so IC50 = Ki 2^(1/h)).
@@ -192,7 +192,7 @@ pub fn screen_plate(
         noise_sd_au: 0.0008,
         spontaneous_hydrolysis_per_s: 0.0,
         seed,
-        ..demo_spec()
+        ..demo_bench_spec()
     };
     ScreenPlate {
         spec,

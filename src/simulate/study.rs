@@ -68,6 +68,8 @@ pub enum StudyAnalysis {
     ProgressCurve,
     /// The progress-curve fit's read-level (asymptotic) interval.
     ProgressCurveReadLevel,
+    /// The progress-curve fit's profile interval of Km (calibrated by the clustered variance).
+    ProgressCurveProfile,
 }
 
 /// An estimator as an ordered key.
@@ -100,6 +102,7 @@ impl StudyAnalysis {
             StudyAnalysis::InitialRate(InitialRateEstimatorKey::Integrated) => "initial rates (integrated)",
             StudyAnalysis::ProgressCurve => "progress curves",
             StudyAnalysis::ProgressCurveReadLevel => "progress curves, read-level interval",
+            StudyAnalysis::ProgressCurveProfile => "progress curves, profile interval",
         }
     }
 }
@@ -373,6 +376,20 @@ fn collect(results: &RunResults, analysis: StudyAnalysis, truths: &[Truth], inte
                     truth.name,
                     name,
                     read_level.as_ref(),
+                );
+                // A profile open on a side holds no interval to count.
+                let profile = parameter.and_then(|p| match p.ci95_profile {
+                    Some([Some(low), Some(high)]) => Some(ParameterReport {
+                        ci95: Some([low, high]),
+                        ..p.clone()
+                    }),
+                    _ => None,
+                });
+                push(
+                    StudyAnalysis::ProgressCurveProfile,
+                    truth.name,
+                    name,
+                    profile.as_ref(),
                 );
             }
         }
