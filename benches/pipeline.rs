@@ -2,14 +2,20 @@
 //! (read, analyse, tables, fits, rendering; no disk writes) on a simulated 1536-well plate with
 //! 200 reads (a ~2 MB wide CSV), and the same plate with product standards in half its last
 //! column converting the signal instead of Beer-Lambert (`whole_run_with_standards`: what a
-//! standard curve adds). Run with `cargo bench`; timings never go into tests.
+//! standard curve adds). `whole_run_progress_always` is the large plate with a progress-curve fit
+//! of every group and its well-level intervals (`--progress always`), and `demo_96_wells_progress`
+//! the embedded 96-well demo with its progress fits (the interactive case). Run with `cargo bench`;
+//! timings never go into tests.
 
 use std::hint::black_box;
 
 use criterion::{criterion_group, criterion_main, Criterion};
 
-use platekin::config::{resolve_analysis, AnalysisSettings, FitSettings, ReportMode, SettingLayer};
+use platekin::config::{
+    resolve_analysis, AnalysisSettings, FitSettings, ProgressMode, ReportMode, SettingLayer,
+};
 use platekin::core::plate::PlateFormat;
+use platekin::files::demo::{DEMO_ASSAY, DEMO_DATA, DEMO_LAYOUT};
 use platekin::files::sheet::read_text_cells;
 use platekin::import::{import_cells, ImportOptions};
 use platekin::layout::parse_layout;
@@ -155,7 +161,27 @@ fn benchmarks(c: &mut Criterion) {
     group.bench_function("whole_run_with_standards", |b| {
         b.iter(|| whole_run(black_box(&with_standards)))
     });
+    let mut progress_always = large_plate();
+    progress_always.analysis.progress.mode = ProgressMode::Always;
+    group.bench_function("whole_run_progress_always", |b| {
+        b.iter(|| whole_run(black_box(&progress_always)))
+    });
     group.finish();
+
+    // The demo plate as `platekin demo` runs it: its own assay settings, progress fits included.
+    let demo_layer: SettingLayer = toml::from_str(DEMO_ASSAY).expect("the demo's assay file parses");
+    let demo = LargePlate {
+        data_csv: DEMO_DATA.to_string(),
+        layout_csv: DEMO_LAYOUT.to_string(),
+        analysis: resolve_analysis(&SettingLayer {
+            progress: Some("always".into()),
+            ..demo_layer
+        })
+        .expect("the demo's settings are valid"),
+    };
+    c.bench_function("demo_96_wells_progress", |b| {
+        b.iter(|| whole_run(black_box(&demo)))
+    });
 
     // One group's Michaelis-Menten fit: 8 concentrations in triplicate, the demo's FenA-wt.
     let substrate: Vec<f64> = [10.0, 20.0, 40.0, 80.0, 160.0, 320.0, 640.0, 1280.0]
