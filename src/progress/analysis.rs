@@ -841,7 +841,15 @@ fn fill_from_fit(
                 .map(|(s, q)| [(ratio - q * s) * scale, (ratio + q * s) * scale])
         };
         let read_quantile = t_quantile_975(fit.degrees_of_freedom.max(1)).ok();
-        let well_quantile = t_quantile_975(fit.n_wells.saturating_sub(1).max(1)).ok();
+        // The effective degrees of freedom of the ratio's clustered variance (gradient of k/K).
+        let mut gradient = vec![0.0; fit.parameters.len()];
+        gradient[0] = 1.0 / km.value;
+        gradient[1] = -kcat.value / (km.value * km.value);
+        let well_quantile = fit
+            .well_leverage
+            .as_ref()
+            .and_then(|leverage| leverage.quantile(&gradient))
+            .or_else(|| t_quantile_975(fit.n_wells.saturating_sub(1).max(1)).ok());
         let se = se_by_well.or(se_asymptotic);
         report.parameters.insert(
             "kcat_over_Km".into(),

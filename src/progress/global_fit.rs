@@ -270,7 +270,8 @@ pub struct FittedParameter {
     pub ci95: Option<[f64; 2]>,
     /// Standard error robust to errors shared by the reads of a well (clustered by well).
     pub se_by_well: Option<f64>,
-    /// 95% interval from it, with t(wells - 1).
+    /// 95% interval from it, with t at the clustered variance's effective degrees of freedom
+    /// ([`WellLeverage::effective_dof`]; t(wells - 1) when they cannot be had).
     pub ci95_by_well: Option<[f64; 2]>,
 }
 
@@ -284,6 +285,10 @@ pub struct GlobalFit {
     /// Profile-likelihood 95% interval of Km, calibrated by the well-clustered variance (module
     /// notes; `None` on a side the data leave open).
     pub km_profile_ci95: Option<[Option<f64>; 2]>,
+    /// Each well's weight in the clustered variance (the effective degrees of freedom of its
+    /// intervals).
+    #[serde(skip)]
+    pub well_leverage: Option<WellLeverage>,
     /// Correlation matrix of the shared parameters.
     pub correlation: Option<Vec<Vec<f64>>>,
     /// Covariance of the shared parameters clustered by well (see
@@ -311,6 +316,58 @@ impl GlobalFit {
     /// A parameter by name.
     pub fn parameter(&self, name: &str) -> Option<&FittedParameter> {
         self.parameters.iter().find(|p| p.name == name)
+    }
+}
+
+/// How much each well weighs in a clustered variance, for the effective degrees of freedom of
+/// its intervals.
+///
+/// A clustered variance is a sum over wells of squared scores, `sum_g (c' B s_g)^2`; when a few
+/// wells carry most of a constant's information (the lowest [S] for Km), that sum has far fewer
+/// than `wells - 1` degrees of freedom, and `t(wells - 1)` makes the interval too short (the clean
+/// design's slow-variant Km covered 91.8% with CR3 and t(23)). Under working independence each
+/// well's term has expectation proportional to `v_g = c' B J_g' J_g B c` (`B = (J'J)^-1`), so
+/// Satterthwaite's approximation gives `dof = (sum v_g)^2 / sum v_g^2`, at most `wells - 1`.
+///
+/// Assumptions: equal read noise across wells for the weights (they only set the dof).
+/// References: Satterthwaite 1946, Biometrics Bulletin 2:110; Bell and McCaffrey 2002, Survey
+/// Methodology 28:169 (the same idea for cluster-robust variances, with the leverage terms this
+/// approximation leaves out); volumes and pages from memory.
+#[derive(Debug, Clone, PartialEq)]
+pub struct WellLeverage {
+    bread: DMatrix<f64>,
+    informations: Vec<DMatrix<f64>>,
+}
+
+impl WellLeverage {
+    fn new(jacobian: &DMatrix<f64>, clusters: &[std::ops::Range<usize>]) -> Option<WellLeverage> {
+        let bread = (jacobian.transpose() * jacobian).try_inverse()?;
+        let informations = clusters
+            .iter()
+            .map(|cluster| {
+                let rows = jacobian.rows(cluster.start, cluster.len());
+                rows.transpose() * rows
+            })
+            .collect();
+        Some(WellLeverage { bread, informations })
+    }
+
+    /// Satterthwaite's effective degrees of freedom of the clustered variance of `contrast' theta`:
+    /// `(sum v_g)^2 / sum v_g^2`, `v_g = c' B J_g' J_g B c`, at most `wells - 1`.
+    pub fn effective_dof(&self, contrast: &[f64]) -> Option<f64> {
+        let c = nalgebra::DVector::from_column_slice(contrast);
+        let bc = &self.bread * c;
+        let parts: Vec<f64> = self.informations.iter().map(|g| bc.dot(&(g * &bc))).collect();
+        let sum: f64 = parts.iter().sum();
+        let squares: f64 = parts.iter().map(|v| v * v).sum();
+        let most = self.informations.len().checked_sub(1)? as f64;
+        (squares > 0.0 && sum.is_finite()).then(|| (sum * sum / squares).min(most))
+    }
+
+    /// The 97.5% t quantile at the effective degrees of freedom.
+    pub fn quantile(&self, contrast: &[f64]) -> Option<f64> {
+        let dof = self.effective_dof(contrast)?;
+        crate::core::stats::t_quantile(0.975, dof.max(1.0)).ok()
     }
 }
 
@@ -784,6 +841,7 @@ fn summarise(
             },
         );
     let well_quantile = (m >= 2).then(|| t_quantile_975(m - 1).ok()).flatten();
+    let leverage = WellLeverage::new(&jacobian, &clusters);
     let names = problem.parameter_names();
     let fitted: Vec<FittedParameter> = names
         .iter()
@@ -802,7 +860,16 @@ fn summarise(
                 ci95: se.zip(quantile).map(|(se, q)| [value - q * se, value + q * se]),
                 se_by_well,
                 ci95_by_well: se_by_well
-                    .zip(well_quantile)
+                    .zip(
+                        leverage
+                            .as_ref()
+                            .and_then(|l| {
+                                let mut contrast = vec![0.0; p];
+                                contrast[index] = 1.0;
+                                l.quantile(&contrast)
+                            })
+                            .or(well_quantile),
+                    )
                     .map(|(se, q)| [value - q * se, value + q * se]),
             }
         })
@@ -822,7 +889,12 @@ fn summarise(
     let km_clustered_scale = fitted.get(1).and_then(|km| {
         let model_se = km.se.filter(|se| *se > 0.0)?;
         let well_se = km.se_by_well?;
-        let quantile = well_quantile?;
+        let mut contrast = vec![0.0; p];
+        contrast[1] = 1.0;
+        let quantile = leverage
+            .as_ref()
+            .and_then(|l| l.quantile(&contrast))
+            .or(well_quantile)?;
         Some((well_se / model_se).powi(2) * quantile * quantile)
     });
     let km_profile_ci95 = (options.profile_km && dof > 0)
@@ -833,6 +905,7 @@ fn summarise(
         model: options.model,
         parameters: fitted,
         km_profile_ci95,
+        well_leverage: leverage,
         correlation,
         covariance_by_well: by_well.map(|c| c.row_iter().map(|row| row.iter().copied().collect()).collect()),
         rss,
@@ -1186,6 +1259,34 @@ mod tests {
             inverse_kp: 0.0,
             k_inact: 0.0,
         }
+    }
+
+    #[test]
+    fn effective_degrees_of_freedom_fall_when_few_wells_carry_a_constant() {
+        // A line through 6 wells of 3 reads: the intercept's information is spread evenly, so
+        // the dof reach the cap wells - 1 = 5; a slope fixed mostly by the two end wells gets
+        // fewer (Satterthwaite's (sum v)^2 / sum v^2, worked here from the closed form).
+        let x = [
+            0.0, 0.0, 0.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 10.0, 10.0, 10.0,
+        ];
+        let jacobian = DMatrix::from_fn(18, 2, |row, column| if column == 0 { 1.0 } else { x[row] });
+        let clusters: Vec<std::ops::Range<usize>> = (0..6).map(|g| 3 * g..3 * g + 3).collect();
+        let leverage = WellLeverage::new(&jacobian, &clusters).unwrap();
+        let slope = leverage.effective_dof(&[0.0, 1.0]).unwrap();
+        // By hand: B c for c = (0, 1) is (-xbar, 1) / Sxx; v_g = 3 (x_g - xbar)^2 / Sxx^2 with
+        // xbar = 42 / 18 = 7/3 and cluster x of 0, 1, 1, 1, 1, 10: v proportional to (x_g - 7/3)^2.
+        let parts: Vec<f64> = [0.0, 1.0, 1.0, 1.0, 1.0, 10.0]
+            .iter()
+            .map(|x: &f64| (x - 7.0 / 3.0).powi(2))
+            .collect();
+        let want = parts.iter().sum::<f64>().powi(2) / parts.iter().map(|v| v * v).sum::<f64>();
+        approx::assert_relative_eq!(slope, want, max_relative = 1e-10);
+        assert!(slope < 2.0, "{slope}");
+        let even = DMatrix::from_element(18, 1, 1.0);
+        let mean = WellLeverage::new(&even, &clusters).unwrap();
+        assert_eq!(mean.effective_dof(&[1.0]), Some(5.0));
+        // The quantile follows: t(0.975) at fewer dof is wider.
+        assert!(leverage.quantile(&[0.0, 1.0]).unwrap() > mean.quantile(&[1.0]).unwrap());
     }
 
     #[test]
