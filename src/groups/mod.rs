@@ -890,26 +890,6 @@ fn replicate_extra_variance(points: &[FitPoint], ses: &[f64]) -> Option<(f64, us
 }
 
 /// Fits one group's points and builds its report (shared by runs and `platekin fit`).
-/// A plate point's standard error without its no-enzyme background's: the background's error
-/// is shared by every well it serves and enters the fit once, as a shared error
-/// ([`shared_rate_errors`]); left in each point's variance too it would count twice (the single
-/// plate's kcat intervals covered 97.5-98% on the realistic design). The rate moves with the
-/// background as with its chord (`rate_per_chord`).
-fn own_standard_error(point: &FitPoint, se: f64) -> f64 {
-    let background_se = point
-        .background
-        .as_ref()
-        .and_then(Background::rate)
-        .map_or(0.0, |(_, background_se)| point.rate_per_chord * background_se);
-    let own = se * se - background_se * background_se;
-    // Rounding aside the background's share is never larger than the whole.
-    if own > 0.0 {
-        own.sqrt()
-    } else {
-        se
-    }
-}
-
 pub fn fit_points(
     group: GroupKey,
     points: &[FitPoint],
@@ -932,18 +912,7 @@ pub fn fit_points(
     let inhibitor: Vec<f64> = points.iter().map(|p| p.inhibitor).collect();
     let rates: Vec<f64> = points.iter().map(|p| p.rate).collect();
     let sds: Option<Vec<f64>> = if settings.weighting == Weighting::RateSe {
-        let ses: Option<Vec<f64>> = points
-            .iter()
-            .map(|p| {
-                p.se.map(|se| {
-                    if corrections.is_some() {
-                        own_standard_error(p, se)
-                    } else {
-                        se
-                    }
-                })
-            })
-            .collect();
+        let ses: Option<Vec<f64>> = points.iter().map(|p| p.se).collect();
         // Wells scatter beyond their own standard errors (pipetting, per-well drift): the extra
         // component, from the replicates, joins every point's variance.
         report.extra_replicate_variance = ses.as_ref().and_then(|ses| replicate_extra_variance(points, ses));
