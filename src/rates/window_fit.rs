@@ -59,8 +59,6 @@ pub struct QuadraticFit {
     pub covariance: [f64; 3],
     /// Residual degrees of freedom, n - 3.
     pub degrees_of_freedom: usize,
-    /// Residual standard deviation about the quadratic.
-    pub residual_sd: f64,
 }
 
 impl QuadraticFit {
@@ -217,7 +215,6 @@ impl WindowSums {
             quadratic: c,
             covariance: [var_b, cov_bc, var_c],
             degrees_of_freedom: n as usize - 3,
-            residual_sd: variance.sqrt(),
         })
     }
 
