@@ -250,16 +250,22 @@ pub fn read_text_cells(bytes: &[u8], file: &str) -> Result<CellGrid, SheetReadEr
     let delimiter = sniff_delimiter(text);
     check_one_delimiter(text, delimiter, file)?;
     // First pass: the numbers' evidence of the decimal mark. Second pass: the cells.
+    // The first pass also counts the cells, so that the grid is allocated once.
     let mut evidence = MarkEvidence::default();
     let mut record = csv::StringRecord::new();
     let mut reader = csv_reader(text, delimiter);
+    let (mut n_cells, mut n_records) = (0usize, 0usize);
     while reader.read_record(&mut record).unwrap_or(false) {
+        n_cells = n_cells.saturating_add(record.len());
+        n_records += 1;
         for field in record.iter() {
             evidence.add(field.trim());
         }
     }
     let decimal_mark = decide_decimal_mark(&evidence, Some(delimiter));
     let mut grid = CellGrid::new(source, decimal_mark);
+    // Never more than the ceiling: a file past it is refused below, cell by cell.
+    grid.reserve(n_cells.min(MAX_CELLS), n_records);
     let mut reader = csv_reader(text, delimiter);
     loop {
         match reader.read_record(&mut record) {
