@@ -208,6 +208,10 @@ fn exclusions_are_recorded_everywhere_and_repeat() {
         "{summary}"
     );
     assert!(summary.contains("tip touched the well"), "{summary}");
+    // Each hand-excluded well is named once, on the summary's own line for them.
+    for reason in ["bubble seen at the bench", "tip touched the well"] {
+        assert_eq!(summary.matches(reason).count(), 1, "{reason}: {summary}");
+    }
     let out = folder.path().join("out");
     let wells = csv_rows(&out.join("wells.csv"));
     for (well, reason) in [("C5", "bubble seen at the bench"), ("D5", "tip touched the well")] {

@@ -223,8 +223,10 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
         lines.push("flagged wells: none".to_string());
     } else {
         lines.push(format!("flagged wells: {flagged} ({reasons})"));
+        // Wells excluded by hand have their own line below, with the reason given.
         let excluded: Vec<String> = analysis
             .excluded()
+            .filter(|(w, _)| w.excluded_by_hand.is_none())
             .map(|(w, reason)| format!("{} {}", w.well, reason))
             .collect();
         if !excluded.is_empty() {
