@@ -1023,15 +1023,19 @@ fn two_wavelength_exports_in_every_shape_pick_one_and_subtract_the_reference() {
         let ambiguous = run(file, &["--out", "ambiguous"]);
         assert_eq!(ambiguous.status.code(), Some(2), "{file}");
         let message = text(&ambiguous.stderr);
+        // Each wavelength with the row where it is first labelled: `405 nm (row 3) and 600 nm
+        // (row 55)` (the rows differ by shape).
+        let names_rows =
+            |message: &str| message.contains("405 nm (row ") && message.contains(") and 600 nm (row ");
         assert!(
-            message.contains("405 nm and 600 nm") && message.contains("--wavelength"),
+            names_rows(&message) && message.contains("--wavelength"),
             "{file}: {message}"
         );
         let absent = run(file, &["--wavelength", "450", "--out", "absent"]);
         assert_eq!(absent.status.code(), Some(2), "{file}");
         let message = text(&absent.stderr);
         assert!(
-            message.contains("450") && message.contains("405 nm and 600 nm"),
+            message.contains("450") && names_rows(&message),
             "{file}: {message}"
         );
         assert!(!scratch.path().join("ambiguous").exists() && !scratch.path().join("absent").exists());

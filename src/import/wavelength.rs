@@ -152,26 +152,32 @@ pub(super) fn find_channels(grid: &CellGrid) -> Option<Channels> {
     (!sections.is_empty()).then_some(Channels::Sections(sections))
 }
 
-/// Adds `nm` to `list` unless it is there already.
-fn push_distinct(list: &mut Vec<f64>, nm: f64) {
-    if !list.iter().any(|known| (known - nm).abs() < SAME_WAVELENGTH_NM) {
-        list.push(nm);
+/// Adds `nm`, first seen at `row`, to `list` unless it is there already.
+fn push_distinct(list: &mut Vec<(f64, usize)>, nm: f64, row: usize) {
+    if !list
+        .iter()
+        .any(|(known, _)| (known - nm).abs() < SAME_WAVELENGTH_NM)
+    {
+        list.push((nm, row));
     }
 }
 
 impl Channels {
-    /// The wavelengths present, in the order they first appear.
-    pub(super) fn wavelengths(&self, grid: &CellGrid) -> Vec<f64> {
+    /// The wavelengths present, in the order they first appear, each with the zero-based row
+    /// where it is first labelled (so that a refusal can point at the rows).
+    pub(super) fn wavelengths(&self, grid: &CellGrid) -> Vec<(f64, usize)> {
         let mut list = Vec::new();
         match self {
-            Channels::Sections(sections) => sections.iter().for_each(|(_, nm)| push_distinct(&mut list, *nm)),
-            Channels::Columns { columns, .. } => columns
+            Channels::Sections(sections) => sections
                 .iter()
-                .for_each(|(_, _, nm)| push_distinct(&mut list, *nm)),
+                .for_each(|(row, nm)| push_distinct(&mut list, *nm, *row)),
+            Channels::Columns { header_row, columns } => columns
+                .iter()
+                .for_each(|(_, _, nm)| push_distinct(&mut list, *nm, *header_row)),
             Channels::LongColumn { header_row, column } => {
                 for row in header_row + 1..grid.n_rows() {
                     if let Some(nm) = long_row_wavelength(grid, row, *column) {
-                        push_distinct(&mut list, nm);
+                        push_distinct(&mut list, nm, row);
                     }
                 }
             }
@@ -257,9 +263,13 @@ pub(super) fn long_row_wavelength(grid: &CellGrid, row: usize, column: usize) ->
     }
 }
 
-/// Wavelengths for messages: `405 nm and 600 nm`.
-pub(super) fn wavelength_list(wavelengths: &[f64]) -> String {
-    let names: Vec<String> = wavelengths.iter().map(|nm| format!("{nm} nm")).collect();
+/// Wavelengths for messages, with the one-based row where each is first labelled:
+/// `405 nm (row 3) and 600 nm (row 56)`.
+pub(super) fn wavelength_list(wavelengths: &[(f64, usize)]) -> String {
+    let names: Vec<String> = wavelengths
+        .iter()
+        .map(|(nm, row)| format!("{nm} nm (row {})", row + 1))
+        .collect();
     match names.as_slice() {
         [] => "none".to_string(),
         [only] => only.clone(),
@@ -269,20 +279,20 @@ pub(super) fn wavelength_list(wavelengths: &[f64]) -> String {
 
 /// Which wavelength to read, from what the export holds and what was asked; the error's words.
 pub(super) fn choose(
-    present: &[f64],
+    present: &[(f64, usize)],
     asked: Option<f64>,
     origin: &Source,
     flag: &str,
 ) -> Result<f64, String> {
     let listed = wavelength_list(present);
     match (asked, present) {
-        (None, [only]) => Ok(*only),
+        (None, [(only, _)]) => Ok(*only),
         (None, _) => Err(format!(
             "{origin}: the export holds reads at {listed}; choose the one to analyse with --wavelength NM"
         )),
         (Some(nm), _) => present
             .iter()
-            .copied()
+            .map(|(known, _)| *known)
             .find(|known| (known - nm).abs() < SAME_WAVELENGTH_NM)
             .ok_or_else(|| {
                 format!("{origin}: {flag} {nm} is not in the export, which holds reads at {listed}")
@@ -317,19 +327,19 @@ mod tests {
             file: "two.csv".into(),
             sheet: None,
         };
-        assert_eq!(choose(&[405.0], None, &origin, "--wavelength"), Ok(405.0));
-        assert_eq!(
-            choose(&[405.0, 600.0], Some(600.2), &origin, "--wavelength"),
-            Ok(600.0)
-        );
-        let ambiguous = choose(&[405.0, 600.0], None, &origin, "--wavelength").unwrap_err();
+        let two = [(405.0, 2), (600.0, 55)];
+        assert_eq!(choose(&[(405.0, 2)], None, &origin, "--wavelength"), Ok(405.0));
+        assert_eq!(choose(&two, Some(600.2), &origin, "--wavelength"), Ok(600.0));
+        // A refusal names the file and the rows where each wavelength is labelled (fuzzing found
+        // it named no position).
+        let ambiguous = choose(&two, None, &origin, "--wavelength").unwrap_err();
         assert!(
-            ambiguous.contains("405 nm and 600 nm") && ambiguous.contains("two.csv"),
+            ambiguous.contains("405 nm (row 3) and 600 nm (row 56)") && ambiguous.contains("two.csv"),
             "{ambiguous}"
         );
-        let absent = choose(&[405.0, 600.0], Some(450.0), &origin, "--wavelength").unwrap_err();
+        let absent = choose(&two, Some(450.0), &origin, "--wavelength").unwrap_err();
         assert!(
-            absent.contains("450") && absent.contains("405 nm and 600 nm"),
+            absent.contains("450") && absent.contains("405 nm (row 3) and 600 nm (row 56)"),
             "{absent}"
         );
     }
