@@ -476,6 +476,23 @@ pub fn import_cells(grid: &CellGrid, options: &ImportOptions) -> Result<KineticD
         return import_channel(grid, options, None);
     };
     let present = channels.wavelengths(grid);
+    if present.is_empty() {
+        // Only a long table's wavelength column can hold none (fuzzing found the refusal said
+        // "reads at none" and named no place).
+        let place = match channels {
+            wavelength::Channels::LongColumn { header_row, column } => format!(
+                " (headed at row {}, column {})",
+                header_row + 1,
+                crate::core::cells::column_letters(column + 1)
+            ),
+            _ => String::new(),
+        };
+        return Err(refused(format!(
+            "{}: the wavelength column{place} holds no wavelength in any row below it; give each read's \
+             wavelength in nm, or leave the column out of a one-wavelength export",
+            grid.source
+        )));
+    }
     let chosen =
         wavelength::choose(&present, options.wavelength_nm, &grid.source, "--wavelength").map_err(refused)?;
     // One wavelength named in the metadata (`Wavelength [nm],405`): the export as it stands, with

@@ -848,3 +848,18 @@ fn times_beyond_the_ceiling_are_refused() {
         "{message}"
     );
 }
+
+#[test]
+fn a_long_table_whose_wavelength_column_holds_none_is_refused_naming_the_column() {
+    // Found by fuzzing: the refusal said "reads at none" and named no place. Invented table.
+    let message = import_error(
+        "time [s],wavelength,well,value\n0,,A1,0.10\n30,,A1,0.12\n",
+        &ImportOptions::default(),
+    );
+    assert!(
+        message.contains("run.csv")
+            && message.contains("row 1, column B")
+            && message.contains("holds no wavelength"),
+        "{message}"
+    );
+}
