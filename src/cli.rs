@@ -205,7 +205,8 @@ pub struct RunArgs {
     /// Dead time: reads before this many seconds are ignored.
     #[arg(long, value_name = "SECONDS")]
     pub skip: Option<f64>,
-    /// Largest fraction of substrate converted in an initial-rate window (default 0.10).
+    /// Largest fraction of substrate converted in an initial-rate window (default 0.30 under the
+    /// integrated estimator, which corrects for depletion; 0.10 under tangent and chord).
     #[arg(long, value_name = "FRACTION")]
     pub max_conversion: Option<f64>,
     /// Fewest reads in a window (default 5).
@@ -252,6 +253,11 @@ pub struct RunArgs {
     /// over the window) or chord (the window's slope, uncorrected).
     #[arg(long, value_name = "integrated|tangent|chord")]
     pub initial_rate: Option<String>,
+    /// The standard curves' calibration function: auto (default: a straight line, or a
+    /// second-order curve over every level when the top of the curve bends), line (a straight line
+    /// up to the highest level still linear) or quadratic (second order over every level).
+    #[arg(long, value_name = "auto|line|quadratic")]
+    pub standard_curve: Option<String>,
     /// Estimate one shared dead time in each progress-curve fit.
     #[arg(long)]
     pub fit_dead_time: bool,
@@ -320,6 +326,7 @@ impl RunArgs {
             progress: self.progress.clone(),
             dead_time: self.dead_time,
             initial_rate: self.initial_rate.clone(),
+            standard_curve: self.standard_curve.clone(),
             fit_dead_time: self.fit_dead_time.then_some(true),
             s0_from_signal: self.s0_from_signal.then_some(true),
             signal: self.signal.clone(),

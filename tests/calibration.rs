@@ -6,7 +6,7 @@
 
 mod common;
 
-use common::{platekin, text};
+use common::{assert_refused, platekin, text};
 use platekin::config::{resolve_analysis, resolve_fit, SettingLayer};
 use platekin::files::sheet::read_text_cells;
 use platekin::import::{import_cells, ImportOptions};
@@ -74,9 +74,26 @@ fn a_fluorescence_plate_with_standards_recovers_kcat_and_km_with_the_slope_in_th
         .expect("a standard curve");
     assert_eq!(calibration.curves.len(), 1);
     let curve = &calibration.curves[0];
-    // The inner-filter bend at the top is found and the line stops below it.
+    // The inner-filter bend at the top is found: the highest level still linear is named, and the
+    // default (auto) fits a second-order curve over every level.
     assert!(curve.curvature.bends, "{:?}", curve.curvature);
-    assert!(curve.range.1 < 16.0, "{:?}", curve.range);
+    assert!(
+        curve.curvature.highest_linear.is_some_and(|top| top < 16.0),
+        "{:?}",
+        curve.curvature
+    );
+    assert_eq!(curve.range, (0.0, 16.0));
+    let term = curve.quadratic.expect("a second-order curve");
+    // The bend: the simulator's inner filter is (1 - 10^-A) / (A ln 10) ~ 1 - A ln(10) / 2 with
+    // A = 0.004 c, so q / b ~ -0.0046 per uM (the same expansion over the buffer's own signal).
+    let bend_per_um = term.coefficient / curve.line.slope;
+    assert!((-0.008..-0.002).contains(&bend_per_um), "{bend_per_um}");
+    // Samples read low on the curve, where the slope is taken.
+    assert!(
+        (0.0..2.0).contains(&curve.working_concentration),
+        "{}",
+        curve.working_concentration
+    );
     assert_eq!(results.analysis.signal.rate_unit(), "uM/s");
     let ((kcat, [lo, hi], _), km) = constants(&results);
     assert!((kcat / KCAT_PER_S - 1.0).abs() < 0.05, "kcat {kcat}");
@@ -145,17 +162,59 @@ fn coverage_of_kcat_with_the_slope_uncertainty() {
         100.0 * bias,
         100.0 * rmse
     );
-    // 95% nominal. Measured (200 plates, see DEVELOPERS.md): below nominal, because the inner-filter
-    // bend leaves a bias in the slope that depends on where the curvature test ends the linear
-    // range (2, 4 or 8 uM on these plates), a choice the slope's SE cannot see. The check guards
-    // that the combined interval covers at least as often as the fit's alone and not far below
-    // what was measured.
+    // 95% nominal. Measured (400 plates, see DEVELOPERS.md): 376/400 (94.0%), bias +0.03%, RMSE
+    // 0.77% with the default second-order curve; the straight line up to the highest linear level
+    // covered 76%, because its slope's bias depended on where the curvature test ended the range.
+    // The seeds are fixed, so the check is deterministic; its floor is the coverage study's 85%.
     assert!(
         covered >= covered_without_slope,
         "{covered} vs {covered_without_slope}"
     );
-    assert!(covered * 100 >= plates * 70, "{covered} of {plates}");
-    assert!(bias.abs() < 0.05, "bias {bias}");
+    assert!(covered * 100 >= plates * 85, "{covered} of {plates}");
+    assert!(bias.abs() < 0.01, "bias {bias}");
+}
+
+/// The progress-curve fit through a second-order standard curve: the reads are straightened by
+/// the curve (`PlateSignal::straightened_signal`) before the whole curves are fitted, so kcat and
+/// Km come out unbiased and kcat's interval (the slope's uncertainty combined) covers the truth.
+/// CI runs 40 plates; `PLATEKIN_CALIBRATION_PLATES=400 cargo test --release --test calibration
+/// -- --nocapture progress_coverage` prints the figures of DEVELOPERS.md.
+#[test]
+fn progress_coverage_through_the_standard_curve() {
+    let plates = simulated_plates();
+    let layer = SettingLayer {
+        progress: Some("always".into()),
+        ..fluorescence_layer()
+    };
+    let (mut covered_kcat, mut covered_km) = (0, 0);
+    let (mut kcat_errors, mut km_errors) = (Vec::new(), Vec::new());
+    for seed in 0..plates as u64 {
+        let plate = fluorescence_plate(1000 + seed).unwrap();
+        let results = analyse(&plate.export_csv, &plate.layout_csv, &layer);
+        let group = &results.progress.groups[0];
+        assert!(group.analysed, "plate {seed}: {:?}", group.run);
+        let kcat = &group.parameters["kcat"];
+        let km = &group.parameters["Km"];
+        let [lo, hi] = kcat.ci95.unwrap();
+        covered_kcat += usize::from(lo <= KCAT_PER_S && KCAT_PER_S <= hi);
+        let [lo, hi] = km.ci95.unwrap();
+        covered_km += usize::from(lo <= KM_UM && KM_UM <= hi);
+        kcat_errors.push(kcat.value / KCAT_PER_S - 1.0);
+        km_errors.push(km.value / KM_UM - 1.0);
+    }
+    let mean = |errors: &[f64]| errors.iter().sum::<f64>() / errors.len() as f64;
+    println!(
+        "progress curves over {plates} plates: kcat covered {covered_kcat}, bias {:+.2}%; Km covered {covered_km}, bias {:+.2}%",
+        100.0 * mean(&kcat_errors),
+        100.0 * mean(&km_errors)
+    );
+    assert!(
+        covered_kcat * 100 >= plates * 85,
+        "kcat {covered_kcat} of {plates}"
+    );
+    assert!(covered_km * 100 >= plates * 85, "Km {covered_km} of {plates}");
+    assert!(mean(&kcat_errors).abs() < 0.01, "kcat bias");
+    assert!(mean(&km_errors).abs() < 0.02, "Km bias");
 }
 
 /// Runs the simulated fluorescence plate of seed 5 through the binary into `out` with `extra`
@@ -185,6 +244,59 @@ fn the_binary_writes_rates_in_concentration_units_from_the_standards() {
     assert!(wells.lines().next().unwrap().contains("rate [uM/s]"), "{wells}");
     let settings = std::fs::read_to_string(scratch.path().join("out/settings.toml")).unwrap();
     assert!(settings.contains("signal = \"fluorescence\""), "{settings}");
+}
+
+/// `--standard-curve` through the binary: the default (auto) fits the simulated plate's bent
+/// standards to second order over every level; `line` keeps the straight line up to the highest
+/// level still linear; each is written in `calibration.json`, `settings.toml` and the summary; an
+/// unknown model is refused naming the accepted ones, with nothing written.
+#[test]
+fn the_standard_curve_model_is_chosen_recorded_and_checked() {
+    let calibration_of = |scratch: &tempfile::TempDir| -> serde_json::Value {
+        let text = std::fs::read_to_string(scratch.path().join("out/calibration.json")).unwrap();
+        serde_json::from_str(&text).unwrap()
+    };
+    let (auto, output) = run_fluorescence_plate(&["--report", "none"]);
+    let curve = &calibration_of(&auto)["curves"][0];
+    assert_eq!(curve["model"], "second-order", "{curve}");
+    assert_eq!(curve["range"][1], 16.0);
+    assert!(
+        curve["quadratic"]["coefficient"].as_f64().unwrap() < 0.0,
+        "{curve}"
+    );
+    assert!(curve["curvature"]["highest_linear"].as_f64().unwrap() < 16.0);
+    assert!(text(&output.stdout).contains("standard curve (plate, second order)"));
+    let settings = std::fs::read_to_string(auto.path().join("out/settings.toml")).unwrap();
+    assert!(settings.contains("standard-curve = \"auto\""), "{settings}");
+
+    let (line, output) = run_fluorescence_plate(&["--report", "none", "--standard-curve", "line"]);
+    let curve = &calibration_of(&line)["curves"][0];
+    assert_eq!(curve["model"], "line", "{curve}");
+    assert!(curve["quadratic"].is_null());
+    assert_eq!(curve["range"][1], curve["curvature"]["highest_linear"]);
+    assert!(text(&output.stdout).contains("standard curve (plate): slope"));
+
+    let (scratch, _) = scratch_with_plate(5);
+    let bad = platekin(
+        &[
+            "run",
+            "plate.csv",
+            "--layout",
+            "layout.csv",
+            "--signal",
+            "fluorescence",
+            "--standard-curve",
+            "cubic",
+            "--out",
+            "bad",
+        ],
+        scratch.path(),
+    );
+    assert_refused(
+        &bad,
+        &["'cubic'", "auto, line or quadratic"],
+        &scratch.path().join("bad"),
+    );
 }
 
 /// The progress fit works on the reader's own signal: on a fluorescence plate its residual SD and
@@ -704,13 +816,11 @@ fn bad_rate_units_are_refused_with_the_accepted_list() {
         ],
         scratch.path(),
     );
-    assert_eq!(unconverted.status.code(), Some(2));
-    let message = text(&unconverted.stderr);
-    assert!(
-        message.contains("uM/min") && message.contains("AU/s"),
-        "{message}"
+    assert_refused(
+        &unconverted,
+        &["uM/min", "AU/s"],
+        &scratch.path().join("absorbance"),
     );
-    assert!(!scratch.path().join("absorbance").exists());
 }
 
 /// Runs `data` in `scratch` with the demo's extinction coefficient and pathlength (rates in uM/s),

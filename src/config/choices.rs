@@ -249,6 +249,46 @@ impl std::str::FromStr for InitialRateEstimator {
     }
 }
 
+/// Which calibration function a plate's standard curves use.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum StandardCurveModel {
+    /// A straight line, unless the curvature test finds the top bending: then a second-order
+    /// curve over every level (its slope where the samples read carries no range-choice bias).
+    #[default]
+    Auto,
+    /// A straight line up to the highest concentration still linear.
+    Line,
+    /// A second-order curve over every level (ISO 8466-2:2001).
+    Quadratic,
+}
+
+impl StandardCurveModel {
+    /// The word the settings write.
+    pub fn word(self) -> &'static str {
+        match self {
+            StandardCurveModel::Auto => "auto",
+            StandardCurveModel::Line => "line",
+            StandardCurveModel::Quadratic => "quadratic",
+        }
+    }
+}
+
+impl std::str::FromStr for StandardCurveModel {
+    type Err = String;
+
+    fn from_str(text: &str) -> Result<Self, Self::Err> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "auto" => Ok(StandardCurveModel::Auto),
+            "line" => Ok(StandardCurveModel::Line),
+            "quadratic" => Ok(StandardCurveModel::Quadratic),
+            other => Err(format!(
+                "unknown standard-curve model '{other}' (expected auto, line or quadratic)"
+            )),
+        }
+    }
+}
+
 /// Settings of the progress-curve analysis.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct ProgressSettings {

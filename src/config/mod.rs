@@ -86,6 +86,8 @@ pub struct SettingLayer {
     pub fit_dead_time: Option<bool>,
     /// Initial-rate estimator: `integrated`, `tangent` or `chord`.
     pub initial_rate: Option<String>,
+    /// Standard curves' calibration function: `auto`, `line` or `quadratic`.
+    pub standard_curve: Option<String>,
     /// Take S0 from each well's first signal (substrate readout) in the progress-curve fits.
     pub s0_from_signal: Option<bool>,
     /// What the reader measures: `absorbance` (default), `fluorescence` or `luminescence`.
@@ -151,6 +153,7 @@ impl SettingLayer {
             dead_time: self.dead_time.or(below.dead_time),
             fit_dead_time: self.fit_dead_time.or(below.fit_dead_time),
             initial_rate: self.initial_rate.or(below.initial_rate),
+            standard_curve: self.standard_curve.or(below.standard_curve),
             s0_from_signal: self.s0_from_signal.or(below.s0_from_signal),
             signal: self.signal.or(below.signal),
             max_signal: self.max_signal.or(below.max_signal),
@@ -364,6 +367,8 @@ pub struct AnalysisSettings {
     pub rates: RateSettings,
     /// How each well's initial rate is estimated.
     pub initial_rate: InitialRateEstimator,
+    /// The calibration function of standard curves.
+    pub standard_curve: StandardCurveModel,
     /// Keep flagged wells in means and fits.
     pub keep_flagged: bool,
     /// Layout wells absent from the data only warn.
@@ -466,6 +471,7 @@ impl Default for AnalysisSettings {
             pathlength_by_well: std::collections::BTreeMap::new(),
             rates: RateSettings::default(),
             initial_rate: InitialRateEstimator::default(),
+            standard_curve: StandardCurveModel::default(),
             keep_flagged: false,
             allow_missing: false,
             progress: ProgressSettings::default(),
@@ -926,6 +932,8 @@ pub fn resolve_analysis(layer: &SettingLayer) -> Result<AnalysisSettings, Settin
             dead_time_s,
         },
         initial_rate,
+        standard_curve: parse_field::<StandardCurveModel>("standard-curve", &layer.standard_curve)?
+            .unwrap_or_default(),
         keep_flagged: layer.keep_flagged.unwrap_or(false),
         allow_missing: layer.allow_missing.unwrap_or(false),
         progress,
@@ -1068,6 +1076,7 @@ pub fn used_layer(layer: SettingLayer, analysis: &AnalysisSettings) -> SettingLa
         progress: Some(analysis.progress.mode.word().into()),
         dead_time: Some(analysis.rates.dead_time_s),
         initial_rate: Some(analysis.initial_rate.word().into()),
+        standard_curve: Some(analysis.standard_curve.word().into()),
         fit_dead_time: Some(analysis.progress.fit_dead_time),
         s0_from_signal: Some(analysis.progress.s0_from_signal),
         short_rows: Some(

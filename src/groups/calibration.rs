@@ -97,6 +97,8 @@ mod tests {
                 residual_sd: 1.0,
                 degrees_of_freedom: 10,
             },
+            quadratic: None,
+            working_concentration: 0.0,
             estimator: "",
             lod: 0.0,
             loq: 0.0,

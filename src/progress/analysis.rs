@@ -615,7 +615,7 @@ fn well_curves(
             if let Some(raw) = value {
                 if *time >= settings.rates.skip_s && *raw <= settings.rates.max_absorbance {
                     times_s.push(*time);
-                    values.push(raw - blank - drift * time);
+                    values.push(signal.straightened_signal(well.well, raw - blank) - drift * time);
                 }
             }
         }

@@ -34,6 +34,14 @@ fn curve_json(curve: &StandardCurve, unit: &str, signal_unit: &str) -> Value {
     json!({
         "group": group,
         "points": points,
+        "model": if curve.quadratic.is_some() { "second-order" } else { "line" },
+        "quadratic": curve.quadratic.map(|term| json!({
+            "coefficient": term.coefficient,
+            "se": term.se,
+            "slope_covariance": term.slope_covariance,
+        })),
+        "working_concentration": curve.working_concentration,
+        "slope_at_working_concentration": curve.local_slope(curve.working_concentration),
         "slope": curve.line.slope,
         "slope_se": curve.line.slope_se,
         "slope_relative_se": curve.slope_relative_se(),
@@ -76,8 +84,9 @@ pub fn calibration_document(calibration: &Calibration, signal_unit: &str) -> Val
             "signal": "each standard well's mean blank-corrected signal over its readable reads",
             "lod": format!("{LOD_FACTOR} x residual SD / slope (ICH Q2(R1))"),
             "loq": format!("{LOQ_FACTOR} x residual SD / slope (ICH Q2(R1))"),
-            "conversion": "concentration = (signal - intercept) / slope; a rate in signal per second is divided by the slope",
-            "uncertainty": "the slope's relative SE is combined in quadrature into the SEs and intervals of Vmax, kcat and kcat/Km of every group it converts (fit.json, progress.json)",
+            "conversion": "a line: concentration = (signal - intercept) / slope; a second-order curve (model second-order, signal = intercept + slope c + quadratic c^2): each read's concentration is the curve's root nearest the line's within the range fitted, and the tangent at the nearer end beyond it; slope is then the slope at zero concentration",
+            "working_concentration": "the median concentration of the sample wells' reads through the curve, where the slope that scales their rates is taken (0 for a line, whose slope is the same everywhere)",
+            "uncertainty": "the relative SE of the slope at the working concentration (slope_relative_se; the delta method over slope and quadratic for a second-order curve) is combined in quadrature into the SEs and intervals of Vmax, kcat and kcat/Km of every group it converts (fit.json, progress.json)",
         },
         "caution": CAUTION,
     })

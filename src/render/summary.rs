@@ -198,9 +198,14 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
     if let Some(calibration) = &analysis.signal.calibration {
         for curve in &calibration.curves {
             lines.push(format!(
-                "standard curve ({}): slope {} {}/{} (SE {:.2}%), fitted {} to {} {}, LOD {} {}",
+                "standard curve ({}{}): slope {} {}/{} (SE {:.2}%), fitted {} to {} {}, LOD {} {}",
                 curve.group_label(),
-                significant(curve.line.slope),
+                if curve.quadratic.is_some() {
+                    ", second order"
+                } else {
+                    ""
+                },
+                significant(curve.local_slope(curve.working_concentration)),
                 analysis.signal.raw_unit,
                 calibration.unit,
                 100.0 * curve.slope_relative_se(),

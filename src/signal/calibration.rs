@@ -16,6 +16,7 @@
 
 use std::collections::BTreeMap;
 
+use crate::config::StandardCurveModel;
 use crate::core::plate::WellId;
 use crate::core::stats::t_critical;
 use crate::core::units::ConcentrationUnit;
@@ -166,31 +167,80 @@ impl CalibrationEstimator for WeightedStraightLine {
     }
 }
 
-/// The t statistic of the quadratic term c in `signal = a + b x + c x^2` (weighted as the line)
-/// and its degrees of freedom n - 3; `None` with fewer than three distinct concentrations or four
-/// points. Solved by the normal equations on x scaled to the largest concentration (so the 3 x 3
-/// system is well conditioned).
-pub fn quadratic_term_t(points: &[CalibrationPoint]) -> Option<(f64, usize)> {
+/// A second-order fit `signal = a + b x + c x^2` (weighted as the line): the coefficients in the
+/// points' own units, their covariance, the residual variance and its degrees of freedom.
+#[derive(Debug, Clone, PartialEq)]
+pub struct QuadraticFit {
+    /// a, b, c.
+    pub coefficients: [f64; 3],
+    /// Covariance of (a, b, c): s^2 (X' W X)^-1.
+    pub covariance: [[f64; 3]; 3],
+    /// s^2 = sum w r^2 / (n - 3), with the weights scaled to mean 1.
+    pub residual_variance: f64,
+    /// n - 3.
+    pub degrees_of_freedom: usize,
+    /// sum w r^2 and sum w (y - ybar)^2, for R^2.
+    sums_of_squares: (f64, f64),
+}
+
+/// Weighted least squares of `signal = a + b x + c x^2`; `None` with fewer than three distinct
+/// concentrations or four points, or a singular system. Solved by the normal equations on x scaled
+/// to the largest concentration (so the 3 x 3 system is well conditioned), then scaled back:
+/// b = b' / s, c = c' / s^2, and the covariance alike.
+///
+/// References: Draper and Smith, Applied Regression Analysis, 3rd ed. 1998, chapter 12
+/// (polynomial models); ISO 8466-2:2001 (second-order calibration functions).
+pub fn quadratic_fit(points: &[CalibrationPoint]) -> Option<QuadraticFit> {
     let n = points.len();
     if n < 4 || distinct_levels(points) < 3 {
         return None;
     }
     let scale = points.iter().fold(0.0_f64, |m, p| m.max(p.concentration.abs()));
-    if scale <= 0.0 {
+    let mean_weight = points.iter().map(|p| p.weight).sum::<f64>() / n as f64;
+    if scale <= 0.0 || !(mean_weight.is_finite() && mean_weight > 0.0) {
         return None;
     }
+    let weight = |p: &CalibrationPoint| p.weight / mean_weight;
     let design = nalgebra::DMatrix::from_fn(n, 3, |row, column| {
-        (points[row].concentration / scale).powi(column as i32) * points[row].weight.sqrt()
+        (points[row].concentration / scale).powi(column as i32) * weight(&points[row]).sqrt()
     });
-    let response = nalgebra::DVector::from_iterator(n, points.iter().map(|p| p.signal * p.weight.sqrt()));
+    let response = nalgebra::DVector::from_iterator(n, points.iter().map(|p| p.signal * weight(p).sqrt()));
     let inverse = (design.transpose() * &design).try_inverse()?;
     let beta = &inverse * design.transpose() * &response;
     let residuals = &response - &design * &beta;
     let dof = n - 3;
-    let variance = residuals.dot(&residuals) / dof as f64;
-    let se = (variance * inverse[(2, 2)]).sqrt();
-    let t = if se > 0.0 { beta[2] / se } else { 0.0 };
-    t.is_finite().then_some((t, dof))
+    let rss = residuals.dot(&residuals);
+    let variance = rss / dof as f64;
+    let total: f64 = points.iter().map(weight).sum();
+    let y_bar = points.iter().map(|p| weight(p) * p.signal).sum::<f64>() / total;
+    let syy: f64 = points
+        .iter()
+        .map(|p| weight(p) * (p.signal - y_bar).powi(2))
+        .sum();
+    let unscale = [1.0, 1.0 / scale, 1.0 / (scale * scale)];
+    let coefficients = [0, 1, 2].map(|i| beta[i] * unscale[i]);
+    let covariance =
+        [0, 1, 2].map(|i| [0, 1, 2].map(|j| variance * inverse[(i, j)] * unscale[i] * unscale[j]));
+    let finite = coefficients
+        .iter()
+        .chain(covariance.iter().flatten())
+        .all(|v| v.is_finite());
+    finite.then_some(QuadraticFit {
+        coefficients,
+        covariance,
+        residual_variance: variance,
+        degrees_of_freedom: dof,
+        sums_of_squares: (rss, syy),
+    })
+}
+
+/// The t statistic of the quadratic term c in `signal = a + b x + c x^2` (weighted as the line)
+/// and its degrees of freedom n - 3; `None` where [`quadratic_fit`] gives no fit.
+pub fn quadratic_term_t(points: &[CalibrationPoint]) -> Option<(f64, usize)> {
+    let fit = quadratic_fit(points)?;
+    let se = fit.covariance[2][2].sqrt();
+    let t = if se > 0.0 { fit.coefficients[2] / se } else { 0.0 };
+    t.is_finite().then_some((t, fit.degrees_of_freedom))
 }
 
 /// The number of distinct concentrations among the points.
@@ -200,6 +250,10 @@ fn distinct_levels(points: &[CalibrationPoint]) -> usize {
     levels.dedup();
     levels.len()
 }
+
+/// The second-order estimator in words, for the outputs.
+pub const SECOND_ORDER_ESTIMATOR: &str =
+    "weighted least squares of signal on concentration and its square (second order, ISO 8466-2), equal weights";
 
 /// A standard well as read.
 #[derive(Debug, Clone, PartialEq)]
@@ -234,6 +288,17 @@ pub struct CurvatureTest {
     pub highest_linear: Option<f64>,
 }
 
+/// The second-order term of a standard curve and what its uncertainty shares with the slope.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct QuadraticTerm {
+    /// q in `signal = a + b c + q c^2`.
+    pub coefficient: f64,
+    /// SE of q.
+    pub se: f64,
+    /// Cov(b, q).
+    pub slope_covariance: f64,
+}
+
 /// One fitted standard curve.
 #[derive(Debug, Clone, PartialEq)]
 pub struct StandardCurve {
@@ -241,8 +306,14 @@ pub struct StandardCurve {
     pub group: Vec<(String, String)>,
     /// The standard wells, in concentration then well order.
     pub wells: Vec<StandardWell>,
-    /// The line.
+    /// The line: intercept a and slope b (for a second-order curve, its value and slope at zero
+    /// concentration, with their SEs from that fit).
     pub line: LineEstimate,
+    /// The second-order term when the curve is `a + b c + q c^2` (`None`: a straight line).
+    pub quadratic: Option<QuadraticTerm>,
+    /// The concentration at which the samples' reads sit (the median of their converted reads),
+    /// where the slope that scales their rates is taken; 0 until the plate's wells are converted.
+    pub working_concentration: f64,
     /// The estimator in words.
     pub estimator: &'static str,
     /// Limit of detection, concentration unit (3.3 s / b).
@@ -273,9 +344,64 @@ impl StandardCurve {
         }
     }
 
-    /// The slope's relative standard error, SE(b) / b.
+    /// The calibration function in words.
+    pub fn model_words(&self) -> &'static str {
+        if self.quadratic.is_some() {
+            "second order, a + b c + q c^2"
+        } else {
+            "straight line, a + b c"
+        }
+    }
+
+    /// The curve's signal at concentration `c`: a + b c (+ q c^2).
+    pub fn signal_at(&self, c: f64) -> f64 {
+        let q = self.quadratic.map_or(0.0, |term| term.coefficient);
+        self.line.intercept + self.line.slope * c + q * c * c
+    }
+
+    /// The curve's slope at concentration `c`: b (+ 2 q c).
+    pub fn local_slope(&self, c: f64) -> f64 {
+        let q = self.quadratic.map_or(0.0, |term| term.coefficient);
+        self.line.slope + 2.0 * q * c
+    }
+
+    /// The relative standard error of the slope where the samples read (at
+    /// [`Self::working_concentration`]): SE(b) / b for a line; for a second-order curve
+    /// sqrt(Var b + 4 c^2 Var q + 4 c Cov(b, q)) / (b + 2 q c) (delta method).
     pub fn slope_relative_se(&self) -> f64 {
-        (self.line.slope_se / self.line.slope).abs()
+        let c = self.working_concentration;
+        let variance = match self.quadratic {
+            None => self.line.slope_se.powi(2),
+            Some(term) => {
+                self.line.slope_se.powi(2) + 4.0 * c * c * term.se.powi(2) + 4.0 * c * term.slope_covariance
+            }
+        };
+        (variance.max(0.0).sqrt() / self.local_slope(c)).abs()
+    }
+
+    /// The concentration a blank-corrected signal stands for. A line: (signal - a) / b. A
+    /// second-order curve: the root of a + b c + q c^2 = signal nearest the line's, in the stable
+    /// form c = 2 d / (b + sign(b) sqrt(b^2 + 4 q d)) with d = signal - a, within the fitted range;
+    /// beyond it, the tangent at the nearer end carries on (the curve is not trusted outside the
+    /// standards, and a tangent stays monotone and finite; such wells are warned about).
+    pub fn concentration_of(&self, signal: f64) -> f64 {
+        let Some(term) = self.quadratic else {
+            return self.line.concentration(signal);
+        };
+        let (low, high) = self.range;
+        let (signal_low, signal_high) = (self.signal_at(low), self.signal_at(high));
+        let rising = signal_high >= signal_low;
+        let beyond = |end: f64, end_signal: f64| end + (signal - end_signal) / self.local_slope(end);
+        if (signal < signal_low) == rising && signal != signal_low {
+            return beyond(low, signal_low);
+        }
+        if (signal > signal_high) == rising && signal != signal_high {
+            return beyond(high, signal_high);
+        }
+        let b = self.line.slope;
+        let d = signal - self.line.intercept;
+        let root = (b * b + 4.0 * term.coefficient * d).max(0.0).sqrt();
+        2.0 * d / (b + b.signum() * root)
     }
 }
 
@@ -310,6 +436,7 @@ pub fn fit_standard_curve(
     standards: &[StandardReads],
     unit: ConcentrationUnit,
     estimator: &dyn CalibrationEstimator,
+    model: StandardCurveModel,
 ) -> Result<StandardCurve, String> {
     let mut wells = Vec::new();
     let mut drifts = Vec::new();
@@ -407,50 +534,132 @@ pub fn fit_standard_curve(
             }
         }
     }
-    let fitted = points(&wells, top);
-    let line = estimator
-        .fit(&fitted)
-        .ok_or_else(|| "the standards give no finite straight line".to_string())?;
+    let highest_linear = top;
+    // The second-order curve over every level: asked for, or (auto) where the top bends. It must
+    // rise (or fall) over the whole range, or the line is kept.
+    let wants_quadratic = match model {
+        StandardCurveModel::Line => false,
+        StandardCurveModel::Quadratic => true,
+        StandardCurveModel::Auto => bends,
+    };
+    let all_top = all
+        .iter()
+        .map(|p| p.concentration)
+        .fold(f64::NEG_INFINITY, f64::max);
+    let all_low = all.iter().map(|p| p.concentration).fold(f64::INFINITY, f64::min);
+    let monotone = |fit: &QuadraticFit| {
+        let [_, b, q] = fit.coefficients;
+        b != 0.0
+            && [all_low, all_top]
+                .iter()
+                .all(|c| (b + 2.0 * q * c) * b.signum() > 0.0)
+    };
+    let second_order = if wants_quadratic {
+        match quadratic_fit(&all) {
+            Some(fit) if monotone(&fit) => Some(fit),
+            Some(_) => {
+                warnings.push(
+                    "the second-order curve turns back within the standards' range, so a straight line is fitted up to the highest concentration still linear"
+                        .to_string(),
+                );
+                None
+            }
+            None => {
+                warnings.push(
+                    "a second-order curve needs three concentrations and four readable standard wells: a straight line is fitted"
+                        .to_string(),
+                );
+                None
+            }
+        }
+    } else {
+        None
+    };
+    let (line, quadratic, top) = match &second_order {
+        Some(fit) => {
+            let [a, b, q] = fit.coefficients;
+            let (rss, syy) = fit.sums_of_squares;
+            let line = LineEstimate {
+                slope: b,
+                intercept: a,
+                slope_se: fit.covariance[1][1].max(0.0).sqrt(),
+                intercept_se: fit.covariance[0][0].max(0.0).sqrt(),
+                r_squared: if syy > 0.0 { 1.0 - rss / syy } else { 1.0 },
+                residual_sd: fit.residual_variance.sqrt(),
+                degrees_of_freedom: fit.degrees_of_freedom,
+            };
+            let term = QuadraticTerm {
+                coefficient: q,
+                se: fit.covariance[2][2].max(0.0).sqrt(),
+                slope_covariance: fit.covariance[1][2],
+            };
+            (line, Some(term), all_top)
+        }
+        None => {
+            let line = estimator
+                .fit(&points(&wells, top))
+                .ok_or_else(|| "the standards give no finite straight line".to_string())?;
+            (line, None, top)
+        }
+    };
     if line.slope == 0.0 || line.slope.is_nan() {
         return Err("the standards' signal does not change with concentration".to_string());
     }
-    for well in &mut wells {
-        well.used = well.concentration <= top;
-        well.residual = well.signal - line.intercept - line.slope * well.concentration;
-    }
-    if bends {
-        warnings.push(format!(
-            "the top of the standard curve bends (quadratic term significant at the {:.0}% level: inner filter, quenching or the detector's range): the line is fitted up to {} {unit}, the highest concentration still linear",
-            100.0 * CURVATURE_ALPHA,
-            crate::core::format::significant(top)
-        ));
-    }
-    if line.slope < 0.0 {
-        warnings.push("the standards' signal falls as concentration rises".to_string());
-    }
-    let low = fitted
-        .iter()
-        .map(|p| p.concentration)
-        .fold(f64::INFINITY, f64::min);
-    Ok(StandardCurve {
+    let fitted = points(&wells, top);
+    let mut curve = StandardCurve {
         group,
         lod: LOD_FACTOR * line.residual_sd / line.slope.abs(),
         loq: LOQ_FACTOR * line.residual_sd / line.slope.abs(),
-        range: (low, top),
-        signal_range: (
-            line.intercept + line.slope * low,
-            line.intercept + line.slope * top,
+        range: (
+            fitted
+                .iter()
+                .map(|p| p.concentration)
+                .fold(f64::INFINITY, f64::min),
+            top,
         ),
+        signal_range: (0.0, 0.0),
         curvature: CurvatureTest {
             t_all,
             bends,
-            highest_linear: bends.then_some(top),
+            highest_linear: bends.then_some(highest_linear),
         },
-        estimator: estimator.describe(),
+        estimator: if quadratic.is_some() {
+            SECOND_ORDER_ESTIMATOR
+        } else {
+            estimator.describe()
+        },
         line,
-        wells,
-        warnings,
-    })
+        quadratic,
+        working_concentration: 0.0,
+        wells: Vec::new(),
+        warnings: Vec::new(),
+    };
+    curve.signal_range = (curve.signal_at(curve.range.0), curve.signal_at(curve.range.1));
+    for well in &mut wells {
+        well.used = well.concentration <= top;
+        well.residual = well.signal - curve.signal_at(well.concentration);
+    }
+    if bends {
+        warnings.push(if curve.quadratic.is_some() {
+            format!(
+                "the top of the standard curve bends (quadratic term significant at the {:.0}% level: inner filter, quenching or the detector's range): a second-order curve is fitted over every level (ISO 8466-2); a straight line would hold up to {} {unit}",
+                100.0 * CURVATURE_ALPHA,
+                crate::core::format::significant(highest_linear)
+            )
+        } else {
+            format!(
+                "the top of the standard curve bends (quadratic term significant at the {:.0}% level: inner filter, quenching or the detector's range): the line is fitted up to {} {unit}, the highest concentration still linear",
+                100.0 * CURVATURE_ALPHA,
+                crate::core::format::significant(highest_linear)
+            )
+        });
+    }
+    if curve.line.slope < 0.0 {
+        warnings.push("the standards' signal falls as concentration rises".to_string());
+    }
+    curve.wells = wells;
+    curve.warnings = warnings;
+    Ok(curve)
 }
 
 /// The group in words.
@@ -487,6 +696,26 @@ fn drift_of(times: &[f64], signals: &[f64]) -> Option<(f64, bool)> {
 mod tests {
     use super::*;
     use approx::assert_relative_eq;
+
+    /// Standards in duplicate: the reads `raws[2 i]` and `raws[2 i + 1]` at `levels[i]`, in wells
+    /// A1, A2, B1, B2 and so on.
+    fn in_duplicate<'a>(
+        levels: &[f64],
+        raws: &'a [Vec<Option<f64>>],
+        times: &'a [f64],
+        blank: &'a [f64],
+    ) -> Vec<StandardReads<'a>> {
+        raws.iter()
+            .enumerate()
+            .map(|(i, raw)| StandardReads {
+                well: WellId::new(i as u16 / 2, (i % 2) as u16),
+                concentration: levels[i / 2],
+                times_s: times,
+                raw,
+                blank,
+            })
+            .collect()
+    }
 
     fn point(concentration: f64, signal: f64) -> CalibrationPoint {
         CalibrationPoint {
@@ -619,22 +848,13 @@ mod tests {
                 [-1.0, 1.0].map(|e| vec![Some(signal + e); 5])
             })
             .collect();
-        let standards: Vec<StandardReads> = raws
-            .iter()
-            .enumerate()
-            .map(|(i, raw)| StandardReads {
-                well: WellId::new(i as u16 / 2, (i % 2) as u16),
-                concentration: levels[i / 2],
-                times_s: &times,
-                raw,
-                blank: &blank,
-            })
-            .collect();
+        let standards = in_duplicate(&levels, &raws, &times, &blank);
         let curve = fit_standard_curve(
             Vec::new(),
             &standards,
             ConcentrationUnit::Micromolar,
             &WeightedStraightLine,
+            StandardCurveModel::Line,
         )
         .unwrap();
         assert!(curve.curvature.bends);
@@ -650,6 +870,93 @@ mod tests {
             max_relative = 1e-12
         );
         assert_relative_eq!(curve.loq / curve.lod, 10.0 / 3.3, max_relative = 1e-12);
+    }
+
+    /// The second-order fit against the normal equations solved in exact rational arithmetic
+    /// (Python's `fractions`, a general-purpose reference library; Draper and Smith 1998, chapter
+    /// 12): x = 0..4, y = 0.1, 4.0, 7.2, 9.9, 12.1 (invented). X'X = [[5, 10, 30], [10, 30, 100],
+    /// [30, 100, 354]], X'y = [33.3, 96.5, 315.5]; (a, b, q) = (43/350, 2873/700, -39/140),
+    /// RSS = 4/875 on 2 degrees of freedom, Var b = 87/30625, Var q = 1/6125, Cov(b, q) = -4/6125.
+    #[test]
+    fn the_second_order_fit_matches_the_normal_equations_in_exact_arithmetic() {
+        let points: Vec<CalibrationPoint> = [(0.0, 0.1), (1.0, 4.0), (2.0, 7.2), (3.0, 9.9), (4.0, 12.1)]
+            .iter()
+            .map(|&(x, y)| point(x, y))
+            .collect();
+        let fit = quadratic_fit(&points).unwrap();
+        assert_relative_eq!(fit.coefficients[0], 43.0 / 350.0, max_relative = 1e-10);
+        assert_relative_eq!(fit.coefficients[1], 2873.0 / 700.0, max_relative = 1e-12);
+        assert_relative_eq!(fit.coefficients[2], -39.0 / 140.0, max_relative = 1e-12);
+        assert_eq!(fit.degrees_of_freedom, 2);
+        assert_relative_eq!(fit.residual_variance, 4.0 / 875.0 / 2.0, max_relative = 1e-9);
+        assert_relative_eq!(fit.covariance[1][1], 87.0 / 30625.0, max_relative = 1e-9);
+        assert_relative_eq!(fit.covariance[2][2], 1.0 / 6125.0, max_relative = 1e-9);
+        assert_relative_eq!(fit.covariance[1][2], -4.0 / 6125.0, max_relative = 1e-9);
+        assert_relative_eq!(fit.covariance[0][0], 62.0 / 30625.0, max_relative = 1e-9);
+        let (t, dof) = quadratic_term_t(&points).unwrap();
+        assert_eq!(dof, 2);
+        assert_relative_eq!(
+            t,
+            (-39.0 / 140.0) / (1.0_f64 / 6125.0).sqrt(),
+            max_relative = 1e-9
+        );
+    }
+
+    /// Standards on a bent response (signal 100 c - 2 c^2 + 20, duplicates +-1): auto fits the
+    /// second order over every level, recovers the bend, converts back exactly within the range
+    /// and by the end's tangent beyond it; the slope's SE where the samples read follows the
+    /// delta method; `line` keeps the straight line up to the highest linear level.
+    #[test]
+    fn a_bent_curve_is_fitted_to_second_order_and_inverted() {
+        let times = [0.0, 60.0, 120.0, 180.0, 240.0];
+        let blank = [0.0; 5];
+        let levels = [0.0, 1.0, 2.0, 4.0, 8.0, 12.0, 16.0];
+        let truth = |c: f64| 20.0 + 100.0 * c - 2.0 * c * c;
+        let raws: Vec<Vec<Option<f64>>> = levels
+            .iter()
+            .flat_map(|&c| [-1.0, 1.0].map(|e| vec![Some(truth(c) + e); 5]))
+            .collect();
+        let standards = in_duplicate(&levels, &raws, &times, &blank);
+        let fit = |model| {
+            fit_standard_curve(
+                Vec::new(),
+                &standards,
+                ConcentrationUnit::Micromolar,
+                &WeightedStraightLine,
+                model,
+            )
+            .unwrap()
+        };
+        let mut curve = fit(StandardCurveModel::Auto);
+        assert!(curve.curvature.bends);
+        let term = curve.quadratic.unwrap();
+        assert_relative_eq!(term.coefficient, -2.0, max_relative = 1e-9);
+        assert_relative_eq!(curve.line.slope, 100.0, max_relative = 1e-9);
+        assert_eq!(curve.range, (0.0, 16.0));
+        assert!(curve
+            .wells
+            .iter()
+            .all(|w| w.used && w.residual.abs() < 1.0 + 1e-9));
+        assert!(curve.warnings.iter().any(|w| w.contains("second-order")));
+        for c in [0.0, 0.3, 5.0, 15.9] {
+            assert_relative_eq!(curve.concentration_of(truth(c)), c, epsilon = 1e-9);
+        }
+        // Beyond the top (16: slope 100 - 64 = 36), the tangent carries on.
+        assert_relative_eq!(curve.concentration_of(truth(16.0) + 36.0), 17.0, epsilon = 1e-9);
+        // Below the bottom, the tangent at 0 (slope 100).
+        assert_relative_eq!(curve.concentration_of(truth(0.0) - 50.0), -0.5, epsilon = 1e-9);
+        // The slope's relative SE where the samples read: the delta method by hand.
+        curve.working_concentration = 3.0;
+        let variance = curve.line.slope_se.powi(2) + 36.0 * term.se.powi(2) + 12.0 * term.slope_covariance;
+        assert_relative_eq!(
+            curve.slope_relative_se(),
+            variance.sqrt() / (100.0 - 12.0),
+            max_relative = 1e-12
+        );
+        let line = fit(StandardCurveModel::Line);
+        assert!(line.quadratic.is_none());
+        assert!(line.range.1 < 16.0);
+        assert_eq!(line.range.1, line.curvature.highest_linear.unwrap());
     }
 
     #[test]
@@ -671,6 +978,7 @@ mod tests {
             &one_level,
             ConcentrationUnit::Micromolar,
             &WeightedStraightLine,
+            StandardCurveModel::Line,
         )
         .unwrap_err();
         assert!(message.contains("at 1 concentration"), "{message}");
@@ -705,6 +1013,7 @@ mod tests {
             &standards,
             ConcentrationUnit::Micromolar,
             &WeightedStraightLine,
+            StandardCurveModel::Line,
         )
         .unwrap();
         let drifting: Vec<String> = curve

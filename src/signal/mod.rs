@@ -88,6 +88,9 @@ pub struct PlateSignal {
     pub calibration: Option<calibration::Calibration>,
     /// Conversions that differ from the plate's (a well's own standard curve), by well.
     pub well_conversions: BTreeMap<WellId, WellConversion>,
+    /// The conversion of wells without their own: the first standard curve's, or Beer-Lambert's
+    /// plate pathlength (1 per signal unit when the signal stays in its own units).
+    pub plate_conversion: WellConversion,
     /// The unit of the raw signal (`AU`, `RFU`, `RLU`).
     pub raw_unit: &'static str,
     /// Plate-level remarks (no blanks, no extinction coefficient...).
@@ -98,13 +101,18 @@ pub struct PlateSignal {
 }
 
 /// How one well's blank-corrected signal becomes product formed:
-/// `sign * (signal - signal_offset) * per_signal`.
+/// `sign * (signal - signal_offset) * per_signal`, or through a second-order standard curve
+/// `sign * factor * c(signal)` with c its inverse ([`calibration::StandardCurve::concentration_of`]).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct WellConversion {
-    /// Concentration per signal unit (1 / slope of a standard curve, or 1 / (epsilon l)).
+    /// Concentration per signal unit (1 / slope of a standard curve, or 1 / (epsilon l)); for a
+    /// second-order curve, 1 / its slope where the samples read.
     pub per_signal: f64,
     /// The signal at zero concentration (a standard curve's intercept; 0 for Beer-Lambert).
     pub signal_offset: f64,
+    /// A second-order standard curve (index into the calibration's curves) and the factor from its
+    /// concentration unit to the plate's; `None`: the straight conversion above.
+    pub second_order: Option<(usize, f64)>,
 }
 
 /// The smooth blank (module docs): the degree and the curve at every read, or `None` when the blank
@@ -368,10 +376,16 @@ impl PlateSignal {
             Readout::Product => 1.0,
             Readout::Substrate => -1.0,
         };
-        let calibration = layout
-            .standard_groups
-            .as_ref()
-            .and_then(|groups| standard_curves(data, layout, groups, &blank_per_read, &mut warnings));
+        let calibration = layout.standard_groups.as_ref().and_then(|groups| {
+            standard_curves(
+                data,
+                layout,
+                groups,
+                &blank_per_read,
+                settings.standard_curve,
+                &mut warnings,
+            )
+        });
         let conversion = match (calibration, layout.substrate_unit.or(layout.standard_unit)) {
             (Some(calibration), Some(unit)) => curve_conversion(
                 data,
@@ -396,6 +410,7 @@ impl PlateSignal {
             concentration_unit: conversion.concentration_unit,
             calibration: conversion.calibration,
             well_conversions: conversion.well_conversions,
+            plate_conversion: conversion.plate,
             raw_unit: signal_kind.raw_unit(),
             warnings,
         }
@@ -432,24 +447,45 @@ impl PlateSignal {
     /// The plate's conversion: the first standard curve's, or Beer-Lambert's (1 when the signal
     /// stays in its own units).
     fn plate_conversion(&self) -> WellConversion {
-        let signal_offset = self
-            .calibration
-            .as_ref()
-            .and_then(|c| c.curves.first())
-            .map_or(0.0, |curve| curve.line.intercept);
-        WellConversion {
-            per_signal: self.per_absorbance.unwrap_or(1.0),
-            signal_offset,
-        }
+        self.plate_conversion
+    }
+
+    /// The second-order curve of a conversion, with its unit factor.
+    fn second_order_curve(&self, conversion: WellConversion) -> Option<(&calibration::StandardCurve, f64)> {
+        let (index, factor) = conversion.second_order?;
+        Some((self.calibration.as_ref()?.curves.get(index)?, factor))
     }
 
     fn convert(&self, raw: &[Option<f64>], conversion: WellConversion) -> Vec<Option<f64>> {
+        let curve = self.second_order_curve(conversion);
         raw.iter()
             .zip(&self.blank_per_read)
             .map(|(value, blank)| {
-                value.map(|a| self.sign * (a - blank - conversion.signal_offset) * conversion.per_signal)
+                value.map(|a| match curve {
+                    Some((curve, factor)) => self.sign * factor * curve.concentration_of(a - blank),
+                    None => self.sign * (a - blank - conversion.signal_offset) * conversion.per_signal,
+                })
             })
             .collect()
+    }
+
+    /// A well's blank-corrected signal on a straight scale: unchanged for a straight conversion;
+    /// through a second-order standard curve, the signal a line through the intercept with the
+    /// slope where the samples read would give for the same concentration. Fits that work in
+    /// signal units with one factor per well (the progress curves) then see a linear response.
+    pub fn straightened_signal(&self, well: WellId, corrected: f64) -> f64 {
+        let conversion = self
+            .well_conversions
+            .get(&well)
+            .copied()
+            .unwrap_or_else(|| self.plate_conversion());
+        match self.second_order_curve(conversion) {
+            Some((curve, _)) => {
+                curve.line.intercept
+                    + curve.local_slope(curve.working_concentration) * curve.concentration_of(corrected)
+            }
+            None => corrected,
+        }
     }
 
     /// The unit of product formed: `uM` (the layout's substrate unit) or `AU`.
@@ -478,6 +514,7 @@ struct Conversion {
     concentration_unit: Option<crate::core::units::ConcentrationUnit>,
     calibration: Option<calibration::Calibration>,
     well_conversions: BTreeMap<WellId, WellConversion>,
+    plate: WellConversion,
 }
 
 /// Conversion by the standard curves (each well by its own curve), into `unit`.
@@ -497,12 +534,27 @@ fn curve_conversion(
         );
     }
     let factor = calibration.unit.factor_to(unit);
+    let mut calibration = calibration;
+    for (index, curve) in calibration.curves.iter_mut().enumerate() {
+        if curve.quadratic.is_some() {
+            curve.working_concentration = working_concentration(
+                data,
+                layout,
+                curve,
+                index,
+                &calibration.curve_of_well,
+                blank_per_read,
+            );
+        }
+    }
     let conversions: Vec<WellConversion> = calibration
         .curves
         .iter()
-        .map(|curve| WellConversion {
-            per_signal: factor / curve.line.slope,
+        .enumerate()
+        .map(|(index, curve)| WellConversion {
+            per_signal: factor / curve.local_slope(curve.working_concentration),
             signal_offset: curve.line.intercept,
+            second_order: curve.quadratic.map(|_| (index, factor)),
         })
         .collect();
     let well_conversions = calibration
@@ -519,6 +571,11 @@ fn curve_conversion(
     ));
     Conversion {
         per_absorbance: conversions.first().map(|c| c.per_signal),
+        plate: conversions.first().copied().unwrap_or(WellConversion {
+            per_signal: 1.0,
+            signal_offset: 0.0,
+            second_order: None,
+        }),
         concentration_unit: Some(unit),
         calibration: Some(calibration),
         well_conversions,
@@ -567,6 +624,7 @@ fn beer_lambert_conversion(
                 let conversion = WellConversion {
                     per_signal: 1.0 / (epsilon * path) / unit.in_molar(),
                     signal_offset: 0.0,
+                    second_order: None,
                 };
                 (*well, conversion)
             })
@@ -593,10 +651,52 @@ fn beer_lambert_conversion(
     }
     Conversion {
         per_absorbance,
+        plate: WellConversion {
+            per_signal: per_absorbance.unwrap_or(1.0),
+            signal_offset: 0.0,
+            second_order: None,
+        },
         concentration_unit: per_absorbance.and(unit),
         calibration: None,
         well_conversions,
     }
+}
+
+/// Where the sample wells a second-order curve serves read: the median of their readable reads'
+/// concentrations through the curve (0 when it serves none). The slope there converts their rates,
+/// so its uncertainty is the one that scales kcat.
+fn working_concentration(
+    data: &KineticData,
+    layout: &Layout,
+    curve: &calibration::StandardCurve,
+    index: usize,
+    curve_of_well: &BTreeMap<WellId, usize>,
+    blank_per_read: &[f64],
+) -> f64 {
+    let mut concentrations: Vec<f64> = Vec::new();
+    for trace in &data.wells {
+        let served = curve_of_well.get(&trace.well) == Some(&index)
+            && layout
+                .wells
+                .get(&trace.well)
+                .is_some_and(|setup| setup.role == Role::Sample);
+        if !served {
+            continue;
+        }
+        concentrations.extend(
+            trace
+                .values
+                .iter()
+                .zip(blank_per_read)
+                .filter_map(|(value, blank)| {
+                    value
+                        .filter(|v| v.is_finite())
+                        .map(|v| curve.concentration_of(v - blank))
+                })
+                .filter(|c| c.is_finite()),
+        );
+    }
+    crate::core::stats::median(concentrations).unwrap_or(0.0)
 }
 
 /// The plate's standard curves, fitted from the standard wells' blank-corrected reads; `None`
@@ -606,6 +706,7 @@ fn standard_curves(
     layout: &Layout,
     groups: &crate::layout::StandardGroups,
     blank_per_read: &[f64],
+    model: crate::config::StandardCurveModel,
     warnings: &mut Vec<String>,
 ) -> Option<calibration::Calibration> {
     let unit = layout.standard_unit?;
@@ -625,8 +726,13 @@ fn standard_curves(
                 })
             })
             .collect();
-        match calibration::fit_standard_curve(group.clone(), &reads, unit, &calibration::WeightedStraightLine)
-        {
+        match calibration::fit_standard_curve(
+            group.clone(),
+            &reads,
+            unit,
+            &calibration::WeightedStraightLine,
+            model,
+        ) {
             Ok(curve) => {
                 let label = curve.group_label();
                 warnings.extend(

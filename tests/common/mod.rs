@@ -23,3 +23,15 @@ pub fn platekin(args: &[&str], cwd: &Path) -> Output {
 pub fn text(bytes: &[u8]) -> String {
     String::from_utf8_lossy(bytes).into_owned()
 }
+
+/// Checks a refused run: exit code 2, a message on stderr holding every one of `needles`, and
+/// nothing written at `out`. Returns the message.
+pub fn assert_refused(output: &Output, needles: &[&str], out: &Path) -> String {
+    assert_eq!(output.status.code(), Some(2), "{}", text(&output.stdout));
+    let message = text(&output.stderr);
+    for needle in needles {
+        assert!(message.contains(needle), "'{needle}' not in: {message}");
+    }
+    assert!(!out.exists(), "{} was written", out.display());
+    message
+}

@@ -1,4 +1,4 @@
-//! The standard curve's plots: signal against concentration with the fitted line over its range
+//! The standard curve's plots: signal against concentration with the fitted line (or second-order curve) over its range
 //! (standards above the highest linear concentration drawn hollow), and the residuals. Text sizes
 //! are chosen so that the SVG's text is at least 11 px (plotters writes a font of size f as
 //! about 0.806 f px: 14 -> 11.3 px).
@@ -79,15 +79,20 @@ impl Drawing for CalibrationPlot<'_> {
                 format!("concentration [{}]", self.unit),
                 match self.kind {
                     CalibrationPlotKind::Curve => format!("blank-corrected signal [{}]", self.signal_unit),
-                    CalibrationPlotKind::Residuals => format!("signal - line [{}]", self.signal_unit),
+                    CalibrationPlotKind::Residuals => format!("signal - curve [{}]", self.signal_unit),
                 },
             ),
         )?;
         match self.kind {
             CalibrationPlotKind::Curve => {
-                let line = &curve.line;
+                // A line needs its two ends; a second-order curve is drawn through 60 steps.
+                let steps = if curve.quadratic.is_some() { 60 } else { 1 };
+                let (low, high) = curve.range;
                 drawn(chart.draw_series(LineSeries::new(
-                    [curve.range.0, curve.range.1].map(|c| (c, line.intercept + line.slope * c)),
+                    (0..=steps).map(|i| {
+                        let c = low + (high - low) * f64::from(i) / f64::from(steps);
+                        (c, curve.signal_at(c))
+                    }),
                     BLACK.stroke_width(2),
                 )))?;
             }
@@ -120,6 +125,7 @@ impl Drawing for CalibrationPlot<'_> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::config::StandardCurveModel;
     use crate::render::plots::render_svg;
     use crate::signal::calibration::{fit_standard_curve, StandardReads, WeightedStraightLine};
 
@@ -147,6 +153,7 @@ mod tests {
             &reads,
             crate::core::units::ConcentrationUnit::Micromolar,
             &WeightedStraightLine,
+            StandardCurveModel::Line,
         )
         .unwrap();
         for kind in [CalibrationPlotKind::Curve, CalibrationPlotKind::Residuals] {

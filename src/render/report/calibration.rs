@@ -58,9 +58,37 @@ pub fn calibration_section(results: &RunResults) -> String {
             }
         }
         let line = &curve.line;
+        let second_order = curve.quadratic.map(|term| {
+            [
+                (
+                    "second-order term",
+                    format!(
+                        "{} &plusmn; {} {}/{unit}^2",
+                        significant(term.coefficient),
+                        significant(term.se),
+                        signal.raw_unit
+                    ),
+                ),
+                (
+                    "slope where the samples read",
+                    format!(
+                        "{} {}/{unit} at {} {unit} (SE {:.2}%)",
+                        significant(curve.local_slope(curve.working_concentration)),
+                        signal.raw_unit,
+                        significant(curve.working_concentration),
+                        100.0 * curve.slope_relative_se()
+                    ),
+                ),
+            ]
+        });
         let rows = [
+            ("calibration function", curve.model_words().to_string()),
             (
-                "slope",
+                if curve.quadratic.is_some() {
+                    "slope at zero"
+                } else {
+                    "slope"
+                },
                 format!(
                     "{} &plusmn; {} {}/{unit}",
                     significant(line.slope),
@@ -104,7 +132,7 @@ pub fn calibration_section(results: &RunResults) -> String {
             ),
         ];
         html.push_str("<table class=\"calibration\">\n");
-        for (name, value) in rows {
+        for (name, value) in rows.into_iter().chain(second_order.into_iter().flatten()) {
             let _ = writeln!(html, "<tr><th>{}</th><td>{value}</td></tr>", escape(name));
         }
         html.push_str("</table>\n");
