@@ -2,10 +2,11 @@
 //! (read, analyse, tables, fits, rendering; no disk writes) on a simulated 1536-well plate with
 //! 200 reads (a ~2 MB wide CSV), and the same plate with product standards in half its last
 //! column converting the signal instead of Beer-Lambert (`whole_run_with_standards`: what a
-//! standard curve adds). `whole_run_progress_always` is the large plate with a progress-curve fit
-//! of every group and its well-level intervals (`--progress always`), and `demo_96_wells_progress`
-//! the embedded 96-well demo with its progress fits (the interactive case). Run with `cargo bench`;
-//! timings never go into tests.
+//! standard curve adds; `whole_run_with_second_order_standards`: the same through a second-order
+//! curve). `whole_run_progress_always` is the large plate with a progress-curve fit of every group
+//! and its well-level intervals (`--progress always`), and `demo_96_wells_progress` the embedded
+//! 96-well demo with its progress fits (the interactive case). Run with `cargo bench`; timings
+//! never go into tests.
 
 use std::hint::black_box;
 
@@ -160,6 +161,19 @@ fn benchmarks(c: &mut Criterion) {
     );
     group.bench_function("whole_run_with_standards", |b| {
         b.iter(|| whole_run(black_box(&with_standards)))
+    });
+    // The same standards fitted to second order: every read converts through the curve's root.
+    let mut second_order = large_plate_with_standards();
+    second_order.analysis.standard_curve = platekin::config::StandardCurveModel::Quadratic;
+    let signal = platekin::rates::analyse_plate(&data, &layout, &second_order.analysis).signal;
+    assert!(
+        signal
+            .calibration
+            .is_some_and(|c| c.curves.iter().all(|curve| curve.quadratic.is_some())),
+        "the second-order benchmark must convert through a second-order curve"
+    );
+    group.bench_function("whole_run_with_second_order_standards", |b| {
+        b.iter(|| whole_run(black_box(&second_order)))
     });
     let mut progress_always = large_plate();
     progress_always.analysis.progress.mode = ProgressMode::Always;
