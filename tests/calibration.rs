@@ -317,7 +317,12 @@ fn progress_fits_on_a_fluorescence_plate_speak_in_rfu() {
     );
     assert!(report.contains("signal [RFU] (blank- and background-corrected)"));
     assert!(report.contains("observed - fitted [RFU]"));
-    for absorbance in ["[AU]", " AU;", "residual SD [AU]"] {
+    // Nothing speaks of extinction or absorbance: the sensitivity is to the standard curve's
+    // slope, and the checklist names the standards as the conversion.
+    assert!(stdout.contains("standard curve slope -5%/+5%: kcat"), "{stdout}");
+    assert!(!stdout.contains("extinction"), "{stdout}");
+    assert!(report.contains("Standard curves on the plate (1 curve(s), second order"));
+    for absorbance in ["[AU]", " AU;", "residual SD [AU]", "absorbance units"] {
         assert!(
             !report.contains(absorbance),
             "{absorbance} on a fluorescence report"

@@ -31,22 +31,16 @@ pub fn run_demo(out: &Path, report: ReportMode) -> Result<RunOutcome, CommandErr
         layout,
         pathlengths: None,
     };
-    let results = run_pipeline(
-        &inputs,
-        &Default::default(),
-        None,
-        &analysis,
-        &fit,
-        &mut |_, _| {},
-    )?;
+    let input_records = [&inputs.data, &inputs.layout, &assay]
+        .into_iter()
+        .map(InputRecord::of)
+        .collect();
+    let results = run_pipeline(inputs, &Default::default(), None, &analysis, &fit, &mut |_, _| {})?;
     // Record the defaults too, so the report and settings.toml show every value used.
     let mut used = used_layer(layer, &analysis);
     used.report = Some(report.word().to_string());
     let record = RunRecord {
-        inputs: [&inputs.data, &inputs.layout, &assay]
-            .into_iter()
-            .map(InputRecord::of)
-            .collect(),
+        inputs: input_records,
         files_given: Vec::new(),
         data_path: None,
         used,

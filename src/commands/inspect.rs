@@ -11,5 +11,5 @@ use crate::render::inspect::inspect_report;
 /// The text describing what was read from the export at `path`.
 pub fn inspect(path: &Path, options: &ImportOptions) -> Result<String, CommandError> {
     let input = InputFile::read(InputRole::Data, path)?;
-    Ok(inspect_report(&import_data(&input, options)?))
+    Ok(inspect_report(&import_data(input, options)?))
 }

@@ -76,23 +76,21 @@ pub fn run_plate_inputs(
     progress: &mut dyn FnMut(usize, usize),
 ) -> Result<RunOutcome, CommandError> {
     check_output_folder(out, force)?;
-    let results = run_pipeline(
-        &inputs,
-        &settings.import,
-        settings.layout_sheet.as_deref(),
-        &settings.analysis,
-        &settings.fit,
-        progress,
-    )?;
     let mut input_records = vec![InputRecord::of(&inputs.data), InputRecord::of(&inputs.layout)];
     let mut files_given = vec![inputs.data.name.clone(), inputs.layout.name.clone()];
     if let Some(table) = &inputs.pathlengths {
         input_records.push(InputRecord::of(table));
         files_given.push(table.name.clone());
     }
-    // The bytes were parsed and hashed: rendering (the run's largest need of memory) goes on
-    // without them.
-    drop(inputs);
+    // The pipeline takes the inputs and lets each file's bytes go once they are parsed.
+    let results = run_pipeline(
+        inputs,
+        &settings.import,
+        settings.layout_sheet.as_deref(),
+        &settings.analysis,
+        &settings.fit,
+        progress,
+    )?;
     let record = RunRecord {
         inputs: input_records,
         files_given,

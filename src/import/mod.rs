@@ -379,11 +379,14 @@ impl std::fmt::Display for RowContext {
 
 /// Reads an export from an input file's bytes. Spreadsheets: `options.sheet`, else the first
 /// sheet holding kinetic data (sheets holding none are skipped with a warning).
-pub fn import_data(input: &InputFile, options: &ImportOptions) -> Result<KineticData, ImportError> {
-    if options.sheet.is_none() && looks_like_spreadsheet(input) {
-        return import_first_sheet_with_data(input, options);
+pub fn import_data(input: InputFile, options: &ImportOptions) -> Result<KineticData, ImportError> {
+    if options.sheet.is_none() && looks_like_spreadsheet(&input) {
+        return import_first_sheet_with_data(&input, options);
     }
-    let grid = read_input_cells(input, options.sheet.as_deref(), MergedCells::Keep)?;
+    let grid = read_input_cells(&input, options.sheet.as_deref(), MergedCells::Keep)?;
+    // The bytes were hashed when read and are now cells: the traces are made without them (the
+    // export's bytes, its cells and its traces were the import's peak together).
+    drop(input);
     import_cells(&grid, options)
 }
 

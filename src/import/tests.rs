@@ -623,7 +623,7 @@ fn shapes_and_policies_parse_and_serialise() {
 
 /// Reads a file once, as a run does, and imports it.
 fn import_file(path: &Path, options: &ImportOptions) -> Result<KineticData, ImportError> {
-    import_data(&InputFile::read(InputRole::Data, path).unwrap(), options)
+    import_data(InputFile::read(InputRole::Data, path).unwrap(), options)
 }
 
 /// Writes a workbook with a notes sheet, a sheet timed `h:mm:ss` and one timed `[h]:mm:ss`.

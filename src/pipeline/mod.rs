@@ -98,24 +98,30 @@ pub struct PlateInputs {
 /// Parses the inputs' bytes and analyses them. `progress(done, total)` reports bootstrap
 /// replicates.
 pub fn run_pipeline(
-    inputs: &PlateInputs,
+    inputs: PlateInputs,
     import: &ImportOptions,
     layout_sheet: Option<&str>,
     settings: &AnalysisSettings,
     fit_settings: &FitSettings,
     progress: &mut dyn FnMut(usize, usize),
 ) -> Result<RunResults, PipelineError> {
-    let data = import_data(&inputs.data, import)?;
-    let layout = read_layout(&inputs.layout, layout_sheet, data.plate)?;
-    check_against_input(settings, &input_facts(&data, &layout))?;
-    let Some(table) = &inputs.pathlengths else {
-        return analyse_inputs(data, layout, settings, fit_settings, progress);
+    let PlateInputs {
+        data,
+        layout,
+        pathlengths,
+    } = inputs;
+    // The export's bytes were hashed when read; the import lets them go once they are cells.
+    let imported = import_data(data, import)?;
+    let layout = read_layout(&layout, layout_sheet, imported.plate)?;
+    check_against_input(settings, &input_facts(&imported, &layout))?;
+    let Some(table) = pathlengths else {
+        return analyse_inputs(imported, layout, settings, fit_settings, progress);
     };
     let settings = AnalysisSettings {
-        pathlength_by_well: read_well_pathlengths(table, data.plate, settings.water_reference)?,
+        pathlength_by_well: read_well_pathlengths(&table, imported.plate, settings.water_reference)?,
         ..settings.clone()
     };
-    analyse_inputs(data, layout, &settings, fit_settings, progress)
+    analyse_inputs(imported, layout, &settings, fit_settings, progress)
 }
 
 /// Analyses inputs already parsed (tests and benchmarks start here).

@@ -39,7 +39,7 @@ fn with_interval(parameter: Option<&ParameterReport>) -> String {
 
 /// The progress-curve lines of the summary: one block per group (what to trust is in the results
 /// block at the top).
-fn progress_summary(progress: &ProgressAnalysis, signal_unit: &str) -> Vec<String> {
+fn progress_summary(progress: &ProgressAnalysis, signal_unit: &str, calibrated: bool) -> Vec<String> {
     let mut lines = vec![
         String::new(),
         format!("Progress-curve analysis (--progress {}):", progress.mode.word()),
@@ -73,7 +73,7 @@ fn progress_summary(progress: &ProgressAnalysis, signal_unit: &str) -> Vec<Strin
                 lines.push(format!("    {extra:<7} {}", with_interval(Some(p))));
             }
         }
-        lines.extend(sensitivity_lines(&group.sensitivity));
+        lines.extend(sensitivity_lines(&group.sensitivity, calibrated));
         for warning in &group.warnings {
             lines.push(format!("    warning: {warning}"));
         }
@@ -83,10 +83,16 @@ fn progress_summary(progress: &ProgressAnalysis, signal_unit: &str) -> Vec<Strin
 
 /// One line per calibration input: how far kcat and Km move when it is 5% low and 5% high
 /// (the progress-curve constants depend on the calibration; initial-rate Km does not).
-fn sensitivity_lines(sensitivity: &[CalibrationSensitivity]) -> Vec<String> {
+fn sensitivity_lines(sensitivity: &[CalibrationSensitivity], calibrated: bool) -> Vec<String> {
     let mut lines = Vec::new();
+    // The same input either way: the signal per unit concentration.
+    let conversion = if calibrated {
+        "standard curve slope"
+    } else {
+        "extinction x pathlength"
+    };
     for (input, words) in [
-        (CalibrationInput::ExtinctionPathlength, "extinction x pathlength"),
+        (CalibrationInput::ExtinctionPathlength, conversion),
         (CalibrationInput::SubstrateStart, "S0"),
     ] {
         let cases: Vec<&CalibrationSensitivity> = sensitivity.iter().filter(|c| c.input == input).collect();
@@ -258,6 +264,7 @@ pub fn run_summary(results: &RunResults, report: ReportMode, out: &Path) -> Stri
         lines.extend(progress_summary(
             &results.progress,
             results.analysis.signal.raw_unit,
+            results.analysis.signal.calibration.is_some(),
         ));
     }
     let mut warnings: Vec<&String> = results.input_warnings.iter().collect();

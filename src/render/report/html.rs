@@ -222,6 +222,8 @@ code{background:#f3f3f3;padding:0 .2em}
 /// The page.
 pub fn report_html(parts: &ReportParts) -> String {
     let results = parts.results;
+    // The head and small sections first; the page is then allocated once at its full size, so a
+    // large plate's report is never copied while it grows (on 1536 wells it is about 15 MB).
     let mut page = String::new();
     page.push_str("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n");
     let _ = writeln!(
@@ -273,27 +275,51 @@ pub fn report_html(parts: &ReportParts) -> String {
             std::iter::once(section).chain(shown_after)
         })
         .collect();
-    page.push_str(&contents(&shown));
-    page.push_str(&results_section(parts));
-    page.push_str(&overview_section(parts));
-    page.push_str(&super::screen::screen_section(results));
-    page.push_str(&flagged_section(parts));
-    page.push_str(&super::calibration::calibration_section(results));
+    let mut before_details = vec![
+        contents(&shown),
+        results_section(parts),
+        overview_section(parts),
+        super::screen::screen_section(results),
+        flagged_section(parts),
+        super::calibration::calibration_section(results),
+    ];
     if !screen_only {
-        page.push_str(&groups_section(parts));
-        page.push_str(&progress_section(parts));
-        page.push_str(&trust_section(parts));
+        before_details.extend([
+            groups_section(parts),
+            progress_section(parts),
+            trust_section(parts),
+        ]);
     }
-    page.push_str(&conditions_section(parts));
-    page.push_str(&checklist_section(parts));
-    page.push_str(&details_section(parts));
-    page.push_str(&about_section(parts));
-    let _ = writeln!(
-        page,
-        "<section id=\"caution\">\n<h2>Caution</h2>\n<p class=\"caution\">{}</p>\n</section>\n</body>\n</html>",
+    before_details.extend([conditions_section(parts), checklist_section(parts)]);
+    let after_details = format!(
+        "{}<section id=\"caution\">\n<h2>Caution</h2>\n<p class=\"caution\">{}</p>\n</section>\n</body>\n</html>\n",
+        about_section(parts),
         escape(CAUTION)
     );
-    page
+    let size = page.len()
+        + before_details.iter().map(String::len).sum::<usize>()
+        + details_size_bound(parts)
+        + after_details.len();
+    let mut whole = String::with_capacity(size);
+    whole.push_str(&page);
+    drop(page);
+    for section in before_details {
+        whole.push_str(&section);
+    }
+    write_details_section(parts, &mut whole);
+    whole.push_str(&after_details);
+    whole
+}
+
+/// An upper bound of the details section's length: each figure's SVG, its alternative text and
+/// caption (the well's hover text twice) and the markup around them.
+fn details_size_bound(parts: &ReportParts) -> usize {
+    let figures: usize = parts
+        .details
+        .iter()
+        .map(|(index, plot)| plot.svg.len() + 2 * (parts.plate.wells[*index].hover.len() * 6) + 512)
+        .sum();
+    figures + 1024
 }
 
 /// The section ids and headings, in page order (the golden tests check these).
@@ -1133,10 +1159,26 @@ fn checklist_section(parts: &ReportParts) -> String {
         ),
         (
             "Signal conversion",
-            if results.settings.extinction_per_molar_cm.is_some() { supplied.into() } else { yours.into() },
-            match (results.settings.extinction_per_molar_cm, results.settings.pathlength_cm) {
-                (Some(e), Some(l)) => format!("Extinction coefficient {e} M^-1 cm^-1 and pathlength {l} cm as given; state their source and the wavelength."),
-                _ => "Rates are in absorbance units: give the extinction coefficient and pathlength to report concentrations.".into(),
+            if results.settings.extinction_per_molar_cm.is_some() || results.analysis.signal.calibration.is_some() {
+                supplied.into()
+            } else {
+                yours.into()
+            },
+            match (
+                &results.analysis.signal.calibration,
+                results.settings.extinction_per_molar_cm,
+                results.settings.pathlength_cm,
+            ) {
+                (Some(calibration), _, _) => format!(
+                    "Standard curves on the plate ({} curve(s), {}; see Standard curves): state the standard's identity, purity and how its stock was made.",
+                    calibration.curves.len(),
+                    calibration.curves.first().map_or("", |curve| curve.model_words())
+                ),
+                (None, Some(e), Some(l)) => format!("Extinction coefficient {e} M^-1 cm^-1 and pathlength {l} cm as given; state their source and the wavelength."),
+                _ => format!(
+                    "Rates are in {} per second: give the extinction coefficient and pathlength (absorbance) or standards on the plate to report concentrations.",
+                    results.analysis.signal.raw_unit
+                ),
             },
         ),
     ];
@@ -1182,8 +1224,8 @@ fn checklist_section(parts: &ReportParts) -> String {
     html
 }
 
-fn details_section(parts: &ReportParts) -> String {
-    let mut html = heading("details");
+fn write_details_section(parts: &ReportParts, html: &mut String) {
+    html.push_str(&heading("details"));
     if parts.results.screen.is_some() {
         html.push_str("<p>On a screening plate only wells left out get a detail plot here; every well is in <code>wells.csv</code> and the heat map.</p>\n");
     } else if parts.plate.plate.n_wells() > DETAIL_ALL_WELLS_UP_TO {
@@ -1212,7 +1254,6 @@ fn details_section(parts: &ReportParts) -> String {
         );
     }
     html.push_str("</div>\n</section>\n");
-    html
 }
 
 #[cfg(test)]
