@@ -276,6 +276,13 @@ fn the_standard_curve_model_is_chosen_recorded_and_checked() {
     assert_eq!(curve["range"][1], curve["curvature"]["highest_linear"]);
     assert!(text(&output.stdout).contains("standard curve (plate): slope"));
 
+    // `--report full` writes the curve and its residuals as PNGs beside the report's SVGs.
+    let (full, _) = run_fluorescence_plate(&["--report", "full"]);
+    for name in ["standard-curve-1.png", "standard-residuals-1.png"] {
+        let bytes = std::fs::read(full.path().join("out/plots").join(name)).unwrap();
+        assert!(bytes.starts_with(b"\x89PNG"), "{name}");
+    }
+
     let (scratch, _) = scratch_with_plate(5);
     let bad = platekin(
         &[

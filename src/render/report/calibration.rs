@@ -19,9 +19,11 @@ pub fn calibration_section(results: &RunResults) -> String {
     let mut html = String::from("<section id=\"calibration\">\n<h2>Standard curves</h2>\n");
     let _ = writeln!(
         html,
-        "<p>Each standard's signal is its mean blank-corrected {} over the reads; the line is fitted by {}. \
+        "<p>Each standard's signal is its mean blank-corrected {} over the reads; the curve is fitted by {}. \
          LOD = {LOD_FACTOR} s/b and LOQ = {LOQ_FACTOR} s/b (ICH Q2(R1)); a quadratic term significant at the {:.0}% \
-         level ends the linear range (hollow points are above it). The slope's relative SE is combined into the \
+         level means the top bends: a straight line then ends at the highest level still linear (hollow points are \
+         above it), or a second-order curve is fitted over every level (the default, <code>--standard-curve auto</code>), \
+         whose slope where the samples read converts their rates. The relative SE of that slope is combined into the \
          SEs and intervals of Vmax, kcat and kcat/Km. Standards are only as good as their stock: \
          check them against your lab's validated procedure.</p>",
         signal.raw_unit,

@@ -16,6 +16,7 @@ use crate::render::plots::{
     InhibitionPlot, InhibitionPlotKind, InhibitionView, PlateView, Plot, PlotError, WellState,
 };
 use crate::render::plots::{progress_plots, ProgressPlot, ProgressPlotKind, ProgressView};
+use crate::render::plots::{CalibrationPlot, CalibrationPlotKind};
 use crate::render::plots::{Drawing, GroupPlot, Overview, OverviewGeometry, WellDetail};
 use crate::render::results::{numbers_from_words, other_constants, result_columns, run_results, trust_word};
 use crate::render::words::{
@@ -164,6 +165,24 @@ impl<'a> ReportParts<'a> {
                     name: format!("plots/{}.png", drawing.name()),
                     bytes: render_png(&drawing)?,
                 });
+            }
+        }
+        if let Some(calibration) = &self.results.analysis.signal.calibration {
+            let unit = calibration.unit.to_string();
+            for (index, curve) in calibration.curves.iter().enumerate() {
+                for kind in [CalibrationPlotKind::Curve, CalibrationPlotKind::Residuals] {
+                    let drawing = CalibrationPlot {
+                        curve,
+                        index,
+                        kind,
+                        unit: unit.clone(),
+                        signal_unit: self.results.analysis.signal.raw_unit,
+                    };
+                    files.push(OutputFile {
+                        name: format!("plots/{}.png", drawing.name()),
+                        bytes: render_png(&drawing)?,
+                    });
+                }
             }
         }
         for (index, _) in &self.details {
