@@ -959,6 +959,38 @@ mod tests {
         assert_eq!(line.range.1, line.curvature.highest_linear.unwrap());
     }
 
+    /// `quadratic` asked for where it cannot serve falls back to the line and says why: two
+    /// levels give no second-order curve; a curve that turns back within the standards (a detector
+    /// saturating hard: signal 100 c - 8 c^2 peaks at 6.25, inside 0-8) cannot be inverted.
+    #[test]
+    fn a_second_order_curve_that_cannot_serve_falls_back_to_the_line_and_says_why() {
+        let times = [0.0, 60.0, 120.0, 180.0, 240.0];
+        let blank = [0.0; 5];
+        let fit = |levels: &[f64], signal: &dyn Fn(f64) -> f64| {
+            let raws: Vec<Vec<Option<f64>>> = levels
+                .iter()
+                .flat_map(|&c| [-1.0, 1.0].map(|e| vec![Some(signal(c) + e); 5]))
+                .collect();
+            fit_standard_curve(
+                Vec::new(),
+                &in_duplicate(levels, &raws, &times, &blank),
+                ConcentrationUnit::Micromolar,
+                &WeightedStraightLine,
+                StandardCurveModel::Quadratic,
+            )
+            .unwrap()
+        };
+        let two_levels = fit(&[0.0, 10.0], &|c| 100.0 * c);
+        assert!(two_levels.quadratic.is_none());
+        assert!(two_levels
+            .warnings
+            .iter()
+            .any(|w| w.contains("needs three concentrations")));
+        let turning = fit(&[0.0, 1.0, 2.0, 4.0, 6.0, 8.0], &|c| 100.0 * c - 8.0 * c * c);
+        assert!(turning.quadratic.is_none());
+        assert!(turning.warnings.iter().any(|w| w.contains("turns back")));
+    }
+
     #[test]
     fn one_level_gives_no_curve_and_a_drifting_standard_is_flagged() {
         let times: Vec<f64> = (0..10).map(|i| 30.0 * i as f64).collect();
