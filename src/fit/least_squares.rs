@@ -1146,6 +1146,18 @@ pub fn shared_error_covariance(
     all_finite_matrix(&result).then_some(result)
 }
 
+/// Whether clustered covariances can be made: at least two clusters, a residual per Jacobian row,
+/// some parameters, and every cluster a range of rows within the Jacobian.
+fn clusters_fit(jacobian: &DMatrix<f64>, residuals: &[f64], clusters: &[std::ops::Range<usize>]) -> bool {
+    let (n_observations, n_parameters) = jacobian.shape();
+    clusters.len() >= 2
+        && residuals.len() == n_observations
+        && n_parameters > 0
+        && clusters
+            .iter()
+            .all(|cluster| cluster.start <= cluster.end && cluster.end <= n_observations)
+}
+
 /// The cluster-robust ("sandwich") covariance of least-squares estimates whose observations fall
 /// into independent clusters with errors shared within a cluster (the reads of one well share its
 /// pipetted amounts and its optics):
@@ -1163,11 +1175,11 @@ pub fn cluster_robust_covariance(
     residuals: &[f64],
     clusters: &[std::ops::Range<usize>],
 ) -> Option<DMatrix<f64>> {
-    let (n_observations, n_parameters) = jacobian.shape();
-    let groups = clusters.len();
-    if groups < 2 || residuals.len() != n_observations || n_parameters == 0 {
+    if !clusters_fit(jacobian, residuals, clusters) {
         return None;
     }
+    let (n_observations, n_parameters) = jacobian.shape();
+    let groups = clusters.len();
     // (J^T J)^-1 from the asymptotic covariance at unit residual variance.
     let bread =
         asymptotic_covariance(jacobian, (n_observations.saturating_sub(n_parameters)) as f64).covariance?;
@@ -1208,17 +1220,11 @@ pub fn cluster_jackknife_covariance(
     residuals: &[f64],
     clusters: &[std::ops::Range<usize>],
 ) -> Option<DMatrix<f64>> {
-    let (n_observations, n_parameters) = jacobian.shape();
+    if !clusters_fit(jacobian, residuals, clusters) {
+        return None;
+    }
+    let n_parameters = jacobian.ncols();
     let groups = clusters.len();
-    if groups < 2 || residuals.len() != n_observations || n_parameters == 0 {
-        return None;
-    }
-    if clusters
-        .iter()
-        .any(|cluster| cluster.end > n_observations || cluster.start > cluster.end)
-    {
-        return None;
-    }
     let information = jacobian.transpose() * jacobian;
     let mut sum = DMatrix::<f64>::zeros(n_parameters, n_parameters);
     for cluster in clusters {
@@ -1578,6 +1584,26 @@ mod tests {
     const MGH09_DIGITS: f64 = 7.0;
     const BOXBOD_DIGITS: f64 = 8.0;
     const RSS_DIGITS: f64 = 10.0;
+
+    /// Both clustered covariances refuse clusters they cannot use (fewer than two, rows outside
+    /// the Jacobian, residuals of another length) instead of indexing past the Jacobian.
+    #[test]
+    fn clustered_covariances_refuse_clusters_outside_the_rows() {
+        let jacobian = DMatrix::from_row_slice(4, 1, &[1.0, 2.0, 3.0, 4.0]);
+        let residuals = [0.1, -0.2, 0.1, 0.05];
+        let good = [0..2, 2..4];
+        assert!(cluster_robust_covariance(&jacobian, &residuals, &good).is_some());
+        assert!(cluster_jackknife_covariance(&jacobian, &residuals, &good).is_some());
+        let whole = 0..4;
+        #[allow(clippy::reversed_empty_ranges)]
+        let bad: [&[std::ops::Range<usize>]; 3] =
+            [&[0..2, 2..5], std::slice::from_ref(&whole), &[3..1, 0..2]];
+        for clusters in bad {
+            assert!(cluster_robust_covariance(&jacobian, &residuals, clusters).is_none());
+            assert!(cluster_jackknife_covariance(&jacobian, &residuals, clusters).is_none());
+        }
+        assert!(cluster_robust_covariance(&jacobian, &residuals[..3], &good).is_none());
+    }
 
     #[test]
     fn the_jackknife_covariance_equals_leaving_each_cluster_out_of_a_line() {
