@@ -382,11 +382,14 @@ pub struct ProgressProblem<'a> {
     n_observations: usize,
     /// The closed form's derivatives cost little beside omega itself, so a residual evaluation
     /// keeps them for the Jacobian that the solver asks for next at the same point.
-    cache: std::sync::Mutex<Option<(Vec<f64>, Vec<WellPoints>)>>,
+    cache: std::sync::Mutex<Option<(Vec<f64>, SharedPoints)>>,
 }
 
 /// Point values of one well: substrate and derivatives in (kcat, Km, extra, dead time).
 type WellPoints = Vec<(f64, [f64; 4])>;
+
+/// Every well's points at one set of parameters, shared between the cache and its readers.
+type SharedPoints = std::sync::Arc<Vec<WellPoints>>;
 
 impl<'a> ProgressProblem<'a> {
     /// Sets up the problem for `wells` with `options`.
@@ -488,13 +491,14 @@ impl<'a> ProgressProblem<'a> {
         }
     }
 
-    fn all_points(&self, parameters: &[f64], derivatives: bool) -> Vec<WellPoints> {
+    fn all_points(&self, parameters: &[f64], derivatives: bool) -> SharedPoints {
         let closed_form = self.model == ProgressModel::MichaelisMenten;
         if closed_form {
             if let Ok(guard) = self.cache.lock() {
                 if let Some((at, points)) = guard.as_ref() {
                     if at.as_slice() == parameters {
-                        return points.clone();
+                        // Shared, not copied: on a 768-well group the points are about 8 MB.
+                        return std::sync::Arc::clone(points);
                     }
                 }
             }
@@ -513,9 +517,10 @@ impl<'a> ProgressProblem<'a> {
                 .map(|well| self.well_points(well, &constants, dead, true))
                 .collect()
         };
+        let points = std::sync::Arc::new(points);
         if closed_form {
             if let Ok(mut guard) = self.cache.lock() {
-                *guard = Some((parameters.to_vec(), points.clone()));
+                *guard = Some((parameters.to_vec(), std::sync::Arc::clone(&points)));
             }
         }
         points
@@ -526,7 +531,7 @@ impl<'a> ProgressProblem<'a> {
         let points = self.all_points(parameters, false);
         self.wells
             .iter()
-            .zip(&points)
+            .zip(points.iter())
             .map(|(well, pts)| {
                 let n = well.signal.len() as f64;
                 well.signal
@@ -562,7 +567,7 @@ impl ResidualModel for ProgressProblem<'_> {
 
     fn residuals(&self, parameters: &[f64], residuals: &mut [f64]) {
         let points = self.all_points(parameters, false);
-        for (index, (well, pts)) in self.wells.iter().zip(&points).enumerate() {
+        for (index, (well, pts)) in self.wells.iter().zip(points.iter()).enumerate() {
             let slice = &mut residuals[self.offsets[index]..self.offsets[index + 1]];
             let mut sum = 0.0;
             for ((r, y), (s, _)) in slice.iter_mut().zip(&well.signal).zip(pts) {
@@ -577,7 +582,7 @@ impl ResidualModel for ProgressProblem<'_> {
     fn jacobian(&self, parameters: &[f64], jacobian: &mut DMatrix<f64>) {
         let points = self.all_points(parameters, true);
         let columns = self.derivative_columns();
-        for (index, (well, pts)) in self.wells.iter().zip(&points).enumerate() {
+        for (index, (well, pts)) in self.wells.iter().zip(points.iter()).enumerate() {
             let start = self.offsets[index];
             let n = pts.len() as f64;
             for (column, &which) in columns.iter().enumerate() {
