@@ -640,19 +640,16 @@ pub fn fit_standard_curve(
         well.residual = well.signal - curve.signal_at(well.concentration);
     }
     if bends {
-        warnings.push(if curve.quadratic.is_some() {
-            format!(
-                "the top of the standard curve bends (quadratic term significant at the {:.0}% level: inner filter, quenching or the detector's range): a second-order curve is fitted over every level (ISO 8466-2); a straight line would hold up to {} {unit}",
-                100.0 * CURVATURE_ALPHA,
-                crate::core::format::significant(highest_linear)
-            )
+        let linear_to = crate::core::format::significant(highest_linear);
+        let what_was_done = if curve.quadratic.is_some() {
+            format!("a second-order curve is fitted over every level (ISO 8466-2); a straight line would hold up to {linear_to} {unit}")
         } else {
-            format!(
-                "the top of the standard curve bends (quadratic term significant at the {:.0}% level: inner filter, quenching or the detector's range): the line is fitted up to {} {unit}, the highest concentration still linear",
-                100.0 * CURVATURE_ALPHA,
-                crate::core::format::significant(highest_linear)
-            )
-        });
+            format!("the line is fitted up to {linear_to} {unit}, the highest concentration still linear")
+        };
+        warnings.push(format!(
+            "the top of the standard curve bends (quadratic term significant at the {:.0}% level: inner filter, quenching or the detector's range): {what_was_done}",
+            100.0 * CURVATURE_ALPHA
+        ));
     }
     if curve.line.slope < 0.0 {
         warnings.push("the standards' signal falls as concentration rises".to_string());

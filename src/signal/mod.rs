@@ -419,35 +419,28 @@ impl PlateSignal {
     /// A well's readings as product formed at each read by the plate's conversion: blank-corrected,
     /// signed and converted (`None` where a read is unreadable).
     pub fn product_formed(&self, raw: &[Option<f64>]) -> Vec<Option<f64>> {
-        self.convert(raw, self.plate_conversion())
+        self.convert(raw, self.plate_conversion)
     }
 
     /// A well's readings as product formed, by the well's own conversion (its standard curve)
     /// where it has one.
     pub fn well_product_formed(&self, well: WellId, raw: &[Option<f64>]) -> Vec<Option<f64>> {
-        let conversion = self
-            .well_conversions
-            .get(&well)
-            .copied()
-            .unwrap_or_else(|| self.plate_conversion());
-        self.convert(raw, conversion)
+        self.convert(raw, self.conversion_for(well))
     }
 
     /// Concentration per signal unit for `well` (its own curve's, else the plate's), when the
     /// signal is converted.
     pub fn conversion_of(&self, well: WellId) -> Option<f64> {
         self.per_absorbance?;
-        Some(
-            self.well_conversions
-                .get(&well)
-                .map_or_else(|| self.plate_conversion().per_signal, |c| c.per_signal),
-        )
+        Some(self.conversion_for(well).per_signal)
     }
 
-    /// The plate's conversion: the first standard curve's, or Beer-Lambert's (1 when the signal
-    /// stays in its own units).
-    fn plate_conversion(&self) -> WellConversion {
-        self.plate_conversion
+    /// The conversion of `well`: its own (its standard curve, its pathlength), else the plate's.
+    fn conversion_for(&self, well: WellId) -> WellConversion {
+        self.well_conversions
+            .get(&well)
+            .copied()
+            .unwrap_or(self.plate_conversion)
     }
 
     /// The second-order curve of a conversion, with its unit factor.
@@ -474,12 +467,7 @@ impl PlateSignal {
     /// slope where the samples read would give for the same concentration. Fits that work in
     /// signal units with one factor per well (the progress curves) then see a linear response.
     pub fn straightened_signal(&self, well: WellId, corrected: f64) -> f64 {
-        let conversion = self
-            .well_conversions
-            .get(&well)
-            .copied()
-            .unwrap_or_else(|| self.plate_conversion());
-        match self.second_order_curve(conversion) {
+        match self.second_order_curve(self.conversion_for(well)) {
             Some((curve, _)) => {
                 curve.line.intercept
                     + curve.local_slope(curve.working_concentration) * curve.concentration_of(corrected)

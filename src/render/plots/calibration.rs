@@ -1,6 +1,6 @@
-//! The standard curve's plots: signal against concentration with the fitted line (or second-order curve) over its range
-//! (standards above the highest linear concentration drawn hollow), and the residuals. Text sizes
-//! are chosen so that the SVG's text is at least 11 px (plotters writes a font of size f as
+//! The standard curve's plots: signal against concentration with the fitted line (or
+//! second-order curve) over its range (standards above the highest linear concentration drawn
+//! hollow), and the residuals. Text sizes are chosen so that the SVG's text is at least 11 px (plotters writes a font of size f as
 //! about 0.806 f px: 14 -> 11.3 px).
 
 use plotters::coord::Shift;
@@ -31,6 +31,24 @@ pub struct CalibrationPlot<'a> {
     pub unit: String,
     /// Signal unit (`RFU`).
     pub signal_unit: &'static str,
+}
+
+impl<'a> CalibrationPlot<'a> {
+    /// The curve's two plots (the curve, then its residuals), as the report and `plots/` draw them.
+    pub fn both(
+        curve: &'a StandardCurve,
+        index: usize,
+        unit: &str,
+        signal_unit: &'static str,
+    ) -> [CalibrationPlot<'a>; 2] {
+        [CalibrationPlotKind::Curve, CalibrationPlotKind::Residuals].map(|kind| CalibrationPlot {
+            curve,
+            index,
+            kind,
+            unit: unit.to_string(),
+            signal_unit,
+        })
+    }
 }
 
 impl Drawing for CalibrationPlot<'_> {

@@ -6,7 +6,7 @@ use std::fmt::Write as _;
 use super::html::escape;
 use crate::core::format::significant;
 use crate::pipeline::RunResults;
-use crate::render::plots::{render_svg, CalibrationPlot, CalibrationPlotKind};
+use crate::render::plots::{render_svg, CalibrationPlot};
 use crate::signal::calibration::{CURVATURE_ALPHA, LOD_FACTOR, LOQ_FACTOR};
 
 /// The section's HTML, or "" without standards.
@@ -37,14 +37,7 @@ pub fn calibration_section(results: &RunResults) -> String {
             index + 1,
             escape(&curve.group_label())
         );
-        for kind in [CalibrationPlotKind::Curve, CalibrationPlotKind::Residuals] {
-            let plot = CalibrationPlot {
-                curve,
-                index,
-                kind,
-                unit: unit.clone(),
-                signal_unit: signal.raw_unit,
-            };
+        for plot in CalibrationPlot::both(curve, index, &unit, signal.raw_unit) {
             match render_svg(&plot) {
                 Ok(plot) => {
                     let _ = writeln!(

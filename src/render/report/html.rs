@@ -11,12 +11,12 @@ use crate::files::output::OutputFile;
 use crate::layout::Role;
 use crate::pipeline::RunResults;
 use crate::render::display::{cv_percent, number_html as significant, DisplayUnit};
+use crate::render::plots::CalibrationPlot;
 use crate::render::plots::{
     group_plots, inhibition_plots, plate_view, render_png, render_svg, GroupPlotKind, GroupView,
     InhibitionPlot, InhibitionPlotKind, InhibitionView, PlateView, Plot, PlotError, WellState,
 };
 use crate::render::plots::{progress_plots, ProgressPlot, ProgressPlotKind, ProgressView};
-use crate::render::plots::{CalibrationPlot, CalibrationPlotKind};
 use crate::render::plots::{Drawing, GroupPlot, Overview, OverviewGeometry, WellDetail};
 use crate::render::results::{numbers_from_words, other_constants, result_columns, run_results, trust_word};
 use crate::render::words::{
@@ -170,14 +170,9 @@ impl<'a> ReportParts<'a> {
         if let Some(calibration) = &self.results.analysis.signal.calibration {
             let unit = calibration.unit.to_string();
             for (index, curve) in calibration.curves.iter().enumerate() {
-                for kind in [CalibrationPlotKind::Curve, CalibrationPlotKind::Residuals] {
-                    let drawing = CalibrationPlot {
-                        curve,
-                        index,
-                        kind,
-                        unit: unit.clone(),
-                        signal_unit: self.results.analysis.signal.raw_unit,
-                    };
+                for drawing in
+                    CalibrationPlot::both(curve, index, &unit, self.results.analysis.signal.raw_unit)
+                {
                     files.push(OutputFile {
                         name: format!("plots/{}.png", drawing.name()),
                         bytes: render_png(&drawing)?,
