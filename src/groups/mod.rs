@@ -444,8 +444,15 @@ pub fn shared_rate_errors(points: &[FitPoint], corrections: &PlateCorrections) -
                         .iter()
                         .map(|point| {
                             // The least-squares slope of (t/T)^k over an even window: 0, 1/T, (t1 + t2)/T^2.
+                            // The constant slope 1/T is the same in the controls' windows, so a
+                            // background that takes it up whole removes it from the sample's rate.
+                            let cancelled = point
+                                .background
+                                .as_ref()
+                                .is_some_and(Background::cancels_blank_slope);
                             let slope = window(point).map_or(0.0, |(t1, t2)| match power {
                                 0 => 0.0,
+                                1 if cancelled => 0.0,
                                 1 => 1.0 / t_scale,
                                 _ => (t1 + t2) / (t_scale * t_scale),
                             });
@@ -1260,4 +1267,81 @@ fn general_report(
         Err(reason) => report.warnings.push(reason.to_string()),
     }
     insert_specific_activity(report, units);
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn point(substrate: f64, background: Option<Background>) -> FitPoint {
+        FitPoint {
+            label: format!("S {substrate}"),
+            well: None,
+            window: Some(WindowChord {
+                slope: 1e-3,
+                se: 1e-5,
+                start_s: 0.0,
+                end_s: 300.0,
+            }),
+            substrate,
+            inhibitor: 0.0,
+            rate: 1e-3,
+            sd: None,
+            se: Some(1e-5),
+            background,
+            rate_per_chord: 1.0,
+        }
+    }
+
+    fn law(with_intercept: bool) -> Background {
+        Background::Modelled {
+            law: BackgroundLaw {
+                slope: 2e-6,
+                intercept: if with_intercept { 1e-5 } else { 0.0 },
+                covariance: [[1e-14, 0.0], [0.0, if with_intercept { 1e-12 } else { 0.0 }]],
+            },
+            rate: 2e-4,
+            se: 1e-6,
+            controls: 8,
+            levels: 8,
+            with_intercept,
+        }
+    }
+
+    #[test]
+    fn the_blank_slope_loads_only_where_no_background_takes_it_up() {
+        // A straight blank (constant and slope) with unit conversion: the slope's loading on a rate
+        // is -1/T whole without a background or under a law through the origin, and 0 under a mean
+        // of controls or a law with an intercept (`Background::cancels_blank_slope`).
+        let corrections = PlateCorrections {
+            blank: BlankUncertainty::Smooth {
+                t_scale: 600.0,
+                covariance: vec![vec![1e-8, 0.0], vec![0.0, 1e-8]],
+            },
+            read_times_s: (0..31).map(|i| 20.0 * f64::from(i)).collect(),
+            sign: 1.0,
+            per_absorbance: 1.0,
+            dead_time_s: 0.0,
+        };
+        let matched = Background::Matched {
+            rate: 1e-4,
+            se: 1e-6,
+            controls: 2,
+        };
+        let points = [
+            point(10.0, None),
+            point(20.0, Some(law(false))),
+            point(40.0, Some(law(true))),
+            point(80.0, Some(matched)),
+        ];
+        let shared = shared_rate_errors(&points, &corrections);
+        // Column 0 is the blank's constant (no slope), column 1 its slope.
+        let slope_loadings: Vec<f64> = shared.loadings.iter().map(|row| row[1]).collect();
+        let whole = -1.0 / 600.0;
+        assert!((slope_loadings[0] - whole).abs() < 1e-15, "{slope_loadings:?}");
+        assert!((slope_loadings[1] - whole).abs() < 1e-15, "{slope_loadings:?}");
+        assert_eq!(slope_loadings[2], 0.0);
+        assert_eq!(slope_loadings[3], 0.0);
+        assert!(shared.loadings.iter().all(|row| row[0] == 0.0));
+    }
 }

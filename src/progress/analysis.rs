@@ -433,8 +433,25 @@ fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSigna
         BlankUncertainty::None => {}
         BlankUncertainty::Smooth { t_scale, covariance } => {
             for power in 0..covariance.len() {
+                // The blank's constant slope (power 1) is in the controls' rates too: a background
+                // that takes it up whole (`Background::cancels_blank_slope`) takes it out of the
+                // drift subtracted from the well, which leaves the well's signal free of it.
+                let well_weights = starts
+                    .iter()
+                    .map(|start| {
+                        let cancelled = start
+                            .background
+                            .as_ref()
+                            .is_some_and(Background::cancels_blank_slope);
+                        if power == 1 && cancelled {
+                            0.0
+                        } else {
+                            -1.0
+                        }
+                    })
+                    .collect();
                 errors.push(SharedSignalError {
-                    well_weights: vec![-1.0; n],
+                    well_weights,
                     shape: ErrorShape::Power {
                         power: power as i32,
                         t_scale: *t_scale,

@@ -10,7 +10,14 @@
 //! 2. Where serving controls cover two or more [S] levels, the background is modelled as first order
 //!    in S for every level: `v_bg = k S` by least squares through the origin, or `a + k S` when the
 //!    intercept differs from 0 by a two-sided t test at the 1% level; the prediction at the sample's
-//!    [S] carries its standard error from the fit. Pooling every control into one or two constants
+//!    [S] carries its standard error from the fit. When a blank was subtracted (and three or more
+//!    controls allow it), the intercept is always kept: the blank's slope error moves every
+//!    control's rate alike, so it is an intercept in their rates by construction, whatever the test
+//!    says. Kept, the intercept takes that error up exactly and it cancels from every sample's
+//!    background-corrected rate; dropped only when the test misses it, the law would carry part of
+//!    it into the slope, and the error's variance would then be owed only on plates where it
+//!    happened to be small (selection by the test). The coverage study measured the difference
+//!    (DEVELOPERS.md, "Initial-rate estimators, weighting and coverage"). Pooling every control into one or two constants
 //!    keeps the background's own noise out of each sample's rate (a single control's slope is as
 //!    noisy as the sample's, and subtracted from every replicate and every read of a progress
 //!    curve it would add an error they all share).
@@ -99,6 +106,23 @@ pub enum NoBackground {
 }
 
 impl Background {
+    /// Whether subtracting this background also removes the blank's slope error from the sample.
+    /// The blank is subtracted from the controls as from the samples, so an error `b` in the
+    /// blank's slope is in every control's rate alike: a mean of controls carries `b` whole, and a
+    /// law with an intercept takes it up exactly in the intercept (least squares with an
+    /// intercept is equivariant under a shift), so the sample's rate less its background is free
+    /// of `b`. A law through the origin takes up only part of it.
+    pub fn cancels_blank_slope(&self) -> bool {
+        matches!(
+            self,
+            Background::Matched { .. }
+                | Background::Modelled {
+                    with_intercept: true,
+                    ..
+                }
+        )
+    }
+
     /// The rate and its standard error, when there is a background.
     pub fn rate(&self) -> Option<(f64, f64)> {
         match self {
@@ -132,8 +156,9 @@ fn serves(control: &WellSetup, sample: &WellSetup) -> bool {
     inhibitor_ok && factors_ok
 }
 
-/// The background of one sample from the plate's no-enzyme controls (module docs).
-pub fn background_for(sample: &WellSetup, controls: &[Control]) -> Background {
+/// The background of one sample from the plate's no-enzyme controls (module docs);
+/// `blank_subtracted` keeps the first-order law's intercept (rule 2).
+pub fn background_for(sample: &WellSetup, controls: &[Control], blank_subtracted: bool) -> Background {
     let serving: Vec<&Control> = controls
         .iter()
         .filter(|control| serves(control.setup, sample))
@@ -160,7 +185,7 @@ pub fn background_for(sample: &WellSetup, controls: &[Control]) -> Background {
     let Some(substrate) = sample.substrate else {
         return Background::None(NoBackground::NoControls);
     };
-    if let Some(modelled) = first_order_model(&usable, substrate) {
+    if let Some(modelled) = first_order_model(&usable, substrate, blank_subtracted) {
         return modelled;
     }
     let at_level: Vec<(f64, f64)> = usable
@@ -205,9 +230,14 @@ fn lacks_fit(controls: &[(f64, f64, f64)], predict: impl Fn(f64) -> f64, paramet
         .unwrap_or(false)
 }
 
-/// The first-order background model at `substrate` (module docs, rule 3); `None` with fewer than
-/// two [S] levels or too few controls for a standard error.
-fn first_order_model(controls: &[(f64, f64, f64)], substrate: f64) -> Option<Background> {
+/// The first-order background model at `substrate` (module docs, rule 2); `None` with fewer than
+/// two [S] levels or too few controls for a standard error. `keep_intercept` keeps the intercept
+/// without testing it (a blank was subtracted).
+fn first_order_model(
+    controls: &[(f64, f64, f64)],
+    substrate: f64,
+    keep_intercept: bool,
+) -> Option<Background> {
     let mut levels: Vec<f64> = controls.iter().map(|(s, _, _)| *s).collect();
     levels.sort_by(f64::total_cmp);
     levels.dedup_by(|a, b| same_amount(*a, *b));
@@ -248,7 +278,7 @@ fn first_order_model(controls: &[(f64, f64, f64)], substrate: f64) -> Option<Bac
             let var_intercept = variance * (1.0 / n as f64 + mean_s * mean_s / sxx);
             let significant = var_intercept > 0.0
                 && (intercept / var_intercept.sqrt()).abs() > t_critical(INTERCEPT_ALPHA, n - 2);
-            if significant {
+            if significant || (keep_intercept && var_intercept > 0.0) {
                 if lacks_fit(controls, |x| intercept + slope * x, 2) {
                     return None;
                 }
@@ -333,7 +363,7 @@ mod tests {
         let (a, b) = (setup(100.0, ""), setup(100.0, ""));
         let controls = [control("A1", &a, 2e-3, vec![]), control("A2", &b, 4e-3, vec![])];
         let sample = setup(100.0, "wt");
-        match background_for(&sample, &controls) {
+        match background_for(&sample, &controls, false) {
             Background::Matched { rate, se, controls } => {
                 assert!((rate - 3e-3).abs() < 1e-15);
                 // SEM of 2e-3 and 4e-3: SD sqrt(2) 1e-3 over sqrt(2).
@@ -354,7 +384,7 @@ mod tests {
             .map(|(i, s)| control(["H6", "H7", "H8"][i], s, 2e-5 * s.substrate.unwrap(), vec![]))
             .collect();
         let sample = setup(50.0, "wt");
-        match background_for(&sample, &controls) {
+        match background_for(&sample, &controls, false) {
             Background::Modelled {
                 rate,
                 levels,
@@ -380,7 +410,7 @@ mod tests {
             .enumerate()
             .map(|(i, s)| control("H1", s, 1e-3 + 1e-5 * levels[i] + wiggle[i], vec![]))
             .collect();
-        match background_for(&setup(50.0, "wt"), &controls) {
+        match background_for(&setup(50.0, "wt"), &controls, false) {
             Background::Modelled {
                 rate, with_intercept, ..
             } => {
@@ -392,10 +422,49 @@ mod tests {
     }
 
     #[test]
+    fn a_subtracted_blank_keeps_the_intercept_the_test_would_drop() {
+        // v_bg = 2e-5 S through the origin with scatter: the intercept is not significant, so the
+        // test drops it; with a blank subtracted it stays, and the blank's slope error (added to
+        // every control alike) lands in the intercept, leaving the slope as it was.
+        let levels = [100.0, 200.0, 400.0, 800.0];
+        let setups: Vec<WellSetup> = levels.iter().map(|s| setup(*s, "")).collect();
+        let wiggle = [1e-5, -1.5e-5, -0.5e-5, 1e-5];
+        let blank_error = 4e-4;
+        let controls = |offset: f64| -> Vec<Control> {
+            setups
+                .iter()
+                .enumerate()
+                .map(|(i, s)| control("H1", s, 2e-5 * levels[i] + wiggle[i] + offset, vec![]))
+                .collect()
+        };
+        match background_for(&setup(50.0, "wt"), &controls(0.0), false) {
+            Background::Modelled { with_intercept, .. } => assert!(!with_intercept),
+            other => panic!("{other:?}"),
+        }
+        let law = |offset: f64| match background_for(&setup(50.0, "wt"), &controls(offset), true) {
+            Background::Modelled {
+                law, with_intercept, ..
+            } => {
+                assert!(with_intercept);
+                law
+            }
+            other => panic!("{other:?}"),
+        };
+        let (without, with) = (law(0.0), law(blank_error));
+        assert!((with.intercept - without.intercept - blank_error).abs() < 1e-12);
+        assert!((with.slope - without.slope).abs() < 1e-15);
+        for (row_with, row_without) in with.covariance.iter().zip(&without.covariance) {
+            for (a, b) in row_with.iter().zip(row_without) {
+                assert!((a - b).abs() <= 1e-9 * b.abs(), "{a} {b}");
+            }
+        }
+    }
+
+    #[test]
     fn flagged_controls_are_named_and_weak_ones_still_serve() {
         let a = setup(100.0, "");
         let noisy = [control("B7", &a, 2e-3, vec![Flag::Noisy])];
-        match background_for(&setup(100.0, "wt"), &noisy) {
+        match background_for(&setup(100.0, "wt"), &noisy, false) {
             Background::None(NoBackground::ControlsFlagged(wells)) => {
                 assert_eq!(wells[0].0.to_string(), "B7");
             }
@@ -403,13 +472,13 @@ mod tests {
         }
         let weak = [control("B7", &a, 1e-7, vec![Flag::Weak])];
         assert!(matches!(
-            background_for(&setup(100.0, "wt"), &weak),
+            background_for(&setup(100.0, "wt"), &weak, false),
             Background::Matched { .. }
         ));
         let other_variant = setup(100.0, "mutant");
         let unmatched = [control("B7", &other_variant, 1e-7, vec![])];
         assert_eq!(
-            background_for(&setup(100.0, "wt"), &unmatched),
+            background_for(&setup(100.0, "wt"), &unmatched, false),
             Background::None(NoBackground::NoControls)
         );
     }

@@ -22,7 +22,7 @@ use crate::core::plate::WellId;
 use crate::core::stats::summary;
 use crate::import::KineticData;
 use crate::layout::{Layout, Role, WellSetup};
-use crate::signal::PlateSignal;
+use crate::signal::{BlankUncertainty, PlateSignal};
 
 /// How a well's rate was corrected.
 #[derive(Debug, Clone, PartialEq)]
@@ -232,13 +232,14 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
         })
         .collect();
 
+    let blank_subtracted = !matches!(signal.blank_uncertainty, BlankUncertainty::None);
     let mut without_background = Vec::new();
     let mut wells = Vec::with_capacity(wells_in_play.len());
     for ((well, setup, _), rate) in wells_in_play.iter().zip(rates.iter_mut()) {
         let blank_wells = (setup.role != Role::Blank).then_some(signal.n_blank_wells);
         // Screening controls are measured like samples, so that % activity compares like with like.
         let gets_background = setup.role == Role::Sample || setup.role.is_screening_control();
-        let background = gets_background.then(|| background_for(setup, &controls));
+        let background = gets_background.then(|| background_for(setup, &controls, blank_subtracted));
         if let Some(Background::None(_)) = &background {
             without_background.push(*well);
         }
