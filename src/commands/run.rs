@@ -9,7 +9,7 @@ use crate::files::output::{check_output_folder, write_outputs};
 use crate::layout::exclusions::read_exclusion_table;
 use crate::pipeline::{run_pipeline, PipelineError, PlateInputs, RunResults};
 use crate::render::summary::run_summary;
-use crate::render::{render_run_outputs, InputRecord, RunRecord};
+use crate::render::{render_outputs_from_view, report_view, InputRecord, RunRecord};
 
 /// What a completed run hands back.
 #[derive(Debug, Clone)]
@@ -123,7 +123,12 @@ pub fn finish_run(
     force: bool,
     input_paths: &[PathBuf],
 ) -> Result<RunOutcome, CommandError> {
-    let files = render_run_outputs(&results, record)?;
+    let mut results = results;
+    // The report's view keeps thinned copies of the reads it draws; nothing rendered after it
+    // reads the raw ones, so they go before the tables, plots and page are made.
+    let view = report_view(&results, record);
+    results.data.release_reads();
+    let files = render_outputs_from_view(&results, view, record)?;
     let written = write_outputs(out, force, input_paths, &files)?;
     let summary = run_summary(&results, record.report, out);
     Ok(RunOutcome {

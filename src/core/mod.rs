@@ -6,6 +6,7 @@
 pub mod cells;
 pub mod format;
 pub mod geometry;
+pub mod memory;
 pub mod plate;
 pub mod stats;
 pub mod units;

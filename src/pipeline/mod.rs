@@ -112,6 +112,8 @@ pub fn run_pipeline(
     } = inputs;
     // The export's bytes were hashed when read; the import lets them go once they are cells.
     let imported = import_data(data, import)?;
+    // The export's bytes and cells are gone: their pages go back before the analysis allocates.
+    crate::core::memory::release_freed_memory();
     let layout = read_layout(&layout, layout_sheet, imported.plate)?;
     check_against_input(settings, &input_facts(&imported, &layout))?;
     let Some(table) = pathlengths else {
@@ -194,6 +196,8 @@ pub fn analyse_inputs(
     } else {
         (analyse_progress(&data, &layout, &analysis, &fits, settings), None)
     };
+    // The fits ran in the worker threads, whose arenas keep the pages they freed.
+    crate::core::memory::release_freed_memory();
     // The standard curve's slope scales every converted rate of a group: its uncertainty joins
     // the constants it scales, once the fits (and the progress fits that start from them) are made.
     if let Some(calibration) = &analysis.signal.calibration {

@@ -36,6 +36,7 @@ pub use inhibition::{
 pub use progress::{progress_plots, ProgressPlot, ProgressPlotKind, ProgressView};
 pub use wells::{
     plate_view, viridis, Overview, OverviewGeometry, PlateView, WellDetail, WellState, WellView, ALL_FLAGS,
+    DETAIL_ALL_WELLS_UP_TO,
 };
 
 /// Why a plot could not be drawn (a drawing-library failure; not reachable from user input).

@@ -72,6 +72,26 @@ pub struct WellView {
     pub used: bool,
     /// One line for hover texts and tables.
     pub hover: String,
+    /// Whether the report draws the well's detail figure ([`shows_detail`]); a well without one
+    /// keeps only the miniature's points in `trace`.
+    pub detail: bool,
+}
+
+/// Plates up to this many wells get a detail figure of every analysed well; larger ones of the
+/// flagged wells only (a 1536-well page of every well's figure would weigh hundreds of MB).
+pub const DETAIL_ALL_WELLS_UP_TO: usize = 384;
+
+/// Whether the report draws a well's detail figure: every analysed well of a plate up to
+/// [`DETAIL_ALL_WELLS_UP_TO`] wells, the flagged ones of a larger plate; on a screening plate
+/// only the wells left out (or flagged beyond `weak`, which fully inhibited wells are), since its
+/// wells are the thumbnails and the heat map.
+fn shows_detail(view: &WellView, wells_on_plate: usize, screen: bool) -> bool {
+    let shown = if screen {
+        !view.used || view.flags.iter().any(|flag| flag.excludes())
+    } else {
+        wells_on_plate <= DETAIL_ALL_WELLS_UP_TO || !view.flags.is_empty()
+    };
+    view.state == WellState::Analysed && shown
 }
 
 impl WellView {
@@ -131,18 +151,30 @@ const MARKED_READS: usize = 120;
 /// A plot 420 px wide shows no more than this many points of a long trace's line.
 const DETAIL_LINE_POINTS: usize = 600;
 
-/// The reads of one well a figure draws (see [`WellView::trace`]), in time order.
-fn drawn_reads(times_s: &[f64], formed: &[Option<f64>], window: Option<(f64, f64)>) -> Vec<(f64, f64)> {
+/// The reads of one well a figure draws (see [`WellView::trace`]), in time order: all of them up
+/// to `line_points`, else `line_points` evenly spaced, the window's (for a detail figure, which
+/// marks them) and the lowest and highest.
+fn drawn_reads(
+    times_s: &[f64],
+    formed: &[Option<f64>],
+    window: Option<(f64, f64)>,
+    detail: bool,
+) -> Vec<(f64, f64)> {
+    let line_points = if detail {
+        DETAIL_LINE_POINTS
+    } else {
+        MINIATURE_LINE_POINTS
+    };
     let readable: Vec<(f64, f64)> = times_s
         .iter()
         .zip(formed)
         .filter_map(|(t, value)| value.map(|v| (*t, v)))
         .collect();
-    if readable.len() <= DETAIL_LINE_POINTS {
+    if readable.len() <= line_points {
         return readable;
     }
-    let mut kept = crate::core::stats::evenly_spaced_indices(readable.len(), DETAIL_LINE_POINTS);
-    if let Some((start, end)) = window {
+    let mut kept = crate::core::stats::evenly_spaced_indices(readable.len(), line_points);
+    if let (Some((start, end)), true) = (window, detail) {
         let in_window: Vec<usize> = (0..readable.len())
             .filter(|&i| readable[i].0 >= start && readable[i].0 <= end)
             .collect();
@@ -174,6 +206,7 @@ pub fn plate_view(results: &RunResults) -> PlateView {
     let substrate_unit = layout
         .substrate_unit
         .map_or_else(|| "substrate units".to_string(), |unit| unit.to_string());
+    let screen = results.screen.is_some();
     let results_by_well: BTreeMap<WellId, &crate::rates::WellResult> =
         analysis.wells.iter().map(|w| (w.well, w)).collect();
 
@@ -197,16 +230,12 @@ pub fn plate_view(results: &RunResults) -> PlateView {
             flags: Vec::new(),
             used: false,
             hover: format!("{well}: empty"),
+            detail: false,
         };
         match (role, results_by_well.get(&well), traces.get(&well)) {
             (None | Some(Role::Empty), ..) => {}
             (Some(role), Some(result), Some(raw)) => {
                 view.state = WellState::Analysed;
-                view.trace = drawn_reads(
-                    &data.times_s,
-                    &signal.well_product_formed(well, raw),
-                    result.rate.window_s,
-                );
                 view.window = result.rate.window_s;
                 view.line = result.rate.fit.map(|fit| (fit.intercept, fit.slope));
                 // Rates in the written unit; the line stays in the trace's units and seconds.
@@ -233,6 +262,13 @@ pub fn plate_view(results: &RunResults) -> PlateView {
                     "left out of means and fits"
                 };
                 view.hover = format!("{well} {role}{concentration}: {rate}; {flags}; {used_text}");
+                view.detail = shows_detail(&view, data.plate.n_wells(), screen);
+                view.trace = drawn_reads(
+                    &data.times_s,
+                    &signal.well_product_formed(well, raw),
+                    result.rate.window_s,
+                    view.detail,
+                );
             }
             (Some(role), ..) => {
                 view.state = WellState::NoData;

@@ -14,19 +14,17 @@ use crate::render::display::{cv_percent, number_html as significant, DisplayUnit
 use crate::render::plots::CalibrationPlot;
 use crate::render::plots::{
     group_plots, inhibition_plots, plate_view, render_png, render_svg, GroupPlotKind, GroupView,
-    InhibitionPlot, InhibitionPlotKind, InhibitionView, PlateView, Plot, PlotError, WellState,
+    InhibitionPlot, InhibitionPlotKind, InhibitionView, PlateView, Plot, PlotError,
 };
 use crate::render::plots::{progress_plots, ProgressPlot, ProgressPlotKind, ProgressView};
-use crate::render::plots::{Drawing, GroupPlot, Overview, OverviewGeometry, WellDetail};
+use crate::render::plots::{
+    Drawing, GroupPlot, Overview, OverviewGeometry, WellDetail, DETAIL_ALL_WELLS_UP_TO,
+};
 use crate::render::results::{numbers_from_words, other_constants, result_columns, run_results, trust_word};
 use crate::render::words::{
     flag_count_words, group_label, run_reason_words, trust_reason_words, verdict_words,
 };
 use crate::render::RunRecord;
-
-/// Plates up to this many wells get a detail plot for every analysed well; larger plates get one
-/// for each flagged well (a 1536-well page would otherwise carry 1536 plots).
-pub const DETAIL_ALL_WELLS_UP_TO: usize = 384;
 
 /// Everything the page shows, drawn.
 pub struct ReportParts<'a> {
@@ -60,7 +58,16 @@ fn overview_title(results: &RunResults) -> String {
 impl<'a> ReportParts<'a> {
     /// Draws every plot of the page.
     pub fn build(results: &'a RunResults, record: &'a RunRecord) -> Result<ReportParts<'a>, PlotError> {
-        let plate = plate_view(results);
+        ReportParts::build_from_view(results, plate_view(results), record)
+    }
+
+    /// Draws every plot of the page from a plate view made beforehand (`plate_view(results)`), so
+    /// that the raw reads can go once it is made (`KineticData::release_reads`).
+    pub fn build_from_view(
+        results: &'a RunResults,
+        plate: PlateView,
+        record: &'a RunRecord,
+    ) -> Result<ReportParts<'a>, PlotError> {
         let overview = render_svg(&Overview {
             view: &plate,
             title: overview_title(results),
@@ -104,18 +111,10 @@ impl<'a> ReportParts<'a> {
                 .collect::<Result<Vec<_>, _>>()?;
             progress.push((view, plots));
         }
-        // A screen's page stays light: its wells are the thumbnails and the heat map, and only
-        // wells left out (or flagged beyond `weak`, which fully inhibited wells are) get a plot.
-        let screen = results.screen.is_some();
-        let all = plate.plate.n_wells() <= DETAIL_ALL_WELLS_UP_TO && !screen;
+        // The detail figures the view marks (`WellView::detail`).
         let mut details = Vec::new();
         for (index, well) in plate.wells.iter().enumerate() {
-            let shown = if screen {
-                !well.used || well.flags.iter().any(|flag| flag.excludes())
-            } else {
-                all || !well.flags.is_empty()
-            };
-            if well.state == WellState::Analysed && shown {
+            if well.detail {
                 details.push((index, render_svg(&WellDetail { view: &plate, well })?));
             }
         }

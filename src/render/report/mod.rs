@@ -11,7 +11,7 @@ mod calibration;
 pub(crate) mod html;
 mod screen;
 
-use super::plots::WellState;
+use super::plots::{plate_view, PlateView, WellState};
 use super::words::{group_label, trust_analysis_words, trust_reason_words};
 use super::{RenderError, RunRecord};
 use crate::config::ReportMode;
@@ -121,7 +121,19 @@ pub fn report_files(results: &RunResults, record: &RunRecord) -> Result<Vec<Outp
     if record.report == ReportMode::None {
         return Ok(Vec::new());
     }
-    let parts = ReportParts::build(results, record)?;
+    report_files_from_view(results, plate_view(results), record)
+}
+
+/// [`report_files`] from a plate view made beforehand.
+pub fn report_files_from_view(
+    results: &RunResults,
+    plate: PlateView,
+    record: &RunRecord,
+) -> Result<Vec<OutputFile>, RenderError> {
+    if record.report == ReportMode::None {
+        return Ok(Vec::new());
+    }
+    let parts = ReportParts::build_from_view(results, plate, record)?;
     let mut files = vec![OutputFile {
         name: "report.html".into(),
         bytes: report_html(&parts).into_bytes(),
