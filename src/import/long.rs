@@ -15,7 +15,7 @@ use super::rows::{blank_or_repeated_header, settle_rows, time_cell_looks_like_re
 use super::time::{classify_header, raw_time_of_cell, HeaderKind, HeaderTimeUnit};
 use super::{
     list_some, reading_of_cell, short_row, time_text_error, DataShape, ImportError, ImportOptions,
-    ReadRecord, ShapeTable, TimeUnitRule, UnreadableCell, WellColumn, WellMap, MAX_READS,
+    ReadRecord, Readings, ShapeTable, TimeUnitRule, UnreadableCell, WellColumn, WellMap, MAX_READS,
 };
 
 /// Whether a row is a long header: it has a `well` column, and (unless the shape is forced) a
@@ -371,7 +371,7 @@ fn assemble(
     // The first row of each read names it (for positions in later messages).
     let mut first_row_of_read: Vec<Option<usize>> = vec![None; times.len()];
     for trace in &mut wells {
-        trace.values = vec![None; times.len()];
+        trace.values = Readings::missing(times.len());
     }
     // Which row filled each (well, read), to name both rows of a duplicate.
     let mut filled_by: Vec<Option<usize>> = vec![None; wells.len() * times.len()];
@@ -476,7 +476,7 @@ fn long_table(
 /// Puts a row's reading into its well's trace at `read_index`.
 fn place_reading(trace: &mut WellColumn, read_index: usize, row: LongRow, value_column: usize) {
     match row.reading {
-        Ok(value) => trace.values[read_index] = Some(value),
+        Ok(value) => trace.values.set(read_index, Some(value)),
         Err(text) => trace.unreadable.push(UnreadableCell {
             read_index,
             row: row.row,
@@ -568,7 +568,7 @@ fn assemble_own_times(
     let mut short_wells: Vec<String> = Vec::new();
     let mut rows_by_index: Vec<Option<LongRow>> = long_rows.into_iter().map(Some).collect();
     for (trace, rows) in wells.iter_mut().zip(&rows_of_well) {
-        trace.values = vec![None; n_reads];
+        trace.values = Readings::missing(n_reads);
         if rows.len() < n_reads {
             short_wells.push(format!("{} ({} of {n_reads})", trace.well, rows.len()));
         }

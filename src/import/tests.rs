@@ -217,12 +217,12 @@ fn over_range_markers_and_blank_cells_are_unreadable_never_zero() {
         ("A5", "", 6),
     ] {
         let trace = trace(&data, well);
-        assert_eq!(trace.values[0], None, "{well}");
+        assert_eq!(trace.values.get(0), None, "{well}");
         assert_eq!(trace.unreadable.len(), 1, "{well}");
         assert_eq!(trace.unreadable[0].text, text);
         assert_eq!(trace.unreadable[0].position.row, 2);
         assert_eq!(trace.unreadable[0].position.column, Some(column));
-        assert!(trace.values[1].is_some());
+        assert!(trace.values.get(1).is_some());
     }
 }
 
@@ -690,7 +690,7 @@ fn xlsx_time_cells_sheet_choice_and_text_sheets_skipped() {
     assert_eq!(data.times_s.len(), 3);
     assert_eq!(data.times_s, [0.0, 90.0, 180.0]);
     assert_eq!(data.temperatures_c.as_ref().unwrap()[2], Some(30.2));
-    assert_eq!(trace(&data, "A1").values[1], Some(0.11));
+    assert_eq!(trace(&data, "A1").values.get(1), Some(0.11));
     let over = &trace(&data, "B12").unreadable[0];
     assert_eq!(over.text, "OVER");
     assert_eq!(
@@ -778,7 +778,7 @@ proptest! {
             let trace = data.wells.iter().find(|trace| trace.well == *well).unwrap();
             for read in 0..reads {
                 let expected: f64 = format!("{:.6}", seed[read * 24 + index]).parse().unwrap();
-                prop_assert_eq!(trace.values[read], Some(expected));
+                prop_assert_eq!(trace.values.get(read), Some(expected));
             }
             prop_assert!(trace.unreadable.is_empty());
         }
@@ -862,4 +862,25 @@ fn a_long_table_whose_wavelength_column_holds_none_is_refused_naming_the_column(
             && message.contains("holds no wavelength"),
         "{message}"
     );
+}
+
+#[test]
+fn readings_keep_missing_reads_apart_from_numbers() {
+    let mut readings = Readings::missing(3);
+    readings.set(1, Some(0.25));
+    readings.set(7, Some(1.0)); // past the end: nothing happens
+    assert_eq!(readings, [None, Some(0.25), None]);
+    assert_eq!(readings.get(1), Some(0.25));
+    assert_eq!(readings.get(3), None);
+    assert!(readings.any_readable());
+    // Missing equals missing (two NaN would not), and a number is never read as missing.
+    assert_eq!(readings, Readings::from_values(&[None, Some(0.25), None]));
+    assert_ne!(readings, Readings::from_values(&[Some(0.0), Some(0.25), None]));
+    assert!(!Readings::missing(2).any_readable());
+    // A cell holding NaN is no reading: it is named unreadable, not stored as a number.
+    assert_eq!(
+        reading_of_cell(Some(Cell::Number(f64::NAN))),
+        Err("NaN".to_string())
+    );
+    assert_eq!(reading_of_cell(Some(Cell::Number(-0.5))), Ok(-0.5));
 }

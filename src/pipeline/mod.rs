@@ -275,7 +275,7 @@ fn input_facts<'a>(data: &'a KineticData, layout: &Layout) -> InputFacts<'a> {
 fn wells_with_readings(data: &KineticData) -> BTreeSet<WellId> {
     data.wells
         .iter()
-        .filter(|trace| trace.values.iter().any(Option::is_some))
+        .filter(|trace| trace.values.any_readable())
         .map(|trace| trace.well)
         .collect()
 }

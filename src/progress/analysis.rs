@@ -630,7 +630,7 @@ fn well_curves(
             .zip(&signal.blank_per_read)
         {
             if let Some(raw) = value {
-                if *time >= settings.rates.skip_s && *raw <= settings.rates.max_absorbance {
+                if *time >= settings.rates.skip_s && raw <= settings.rates.max_absorbance {
                     times_s.push(*time);
                     values.push(signal.straightened_signal(well.well, raw - blank) - drift * time);
                 }

@@ -20,7 +20,7 @@ use super::well::{
 use crate::config::{AnalysisSettings, InitialRateEstimator, SignalKind};
 use crate::core::plate::WellId;
 use crate::core::stats::summary;
-use crate::import::KineticData;
+use crate::import::{KineticData, Readings};
 use crate::layout::{Layout, Role, WellSetup};
 use crate::signal::{BlankUncertainty, PlateSignal};
 
@@ -136,7 +136,7 @@ impl PlateAnalysis {
 /// (the reader writes a marker there when the light passes the detector's range; common
 /// practice), as raw traces with those reads set to infinity, so that the saturation limit ends
 /// the usable reads there. Absorbance keeps such cells unreadable, as before.
-fn over_range_traces(data: &KineticData, signal_kind: SignalKind) -> BTreeMap<WellId, Vec<Option<f64>>> {
+fn over_range_traces(data: &KineticData, signal_kind: SignalKind) -> BTreeMap<WellId, Readings> {
     if signal_kind == SignalKind::Absorbance {
         return BTreeMap::new();
     }
@@ -150,9 +150,7 @@ fn over_range_traces(data: &KineticData, signal_kind: SignalKind) -> BTreeMap<We
                 .iter()
                 .filter(|read| !read.text.trim().is_empty())
             {
-                if let Some(value) = limited.get_mut(read.read_index) {
-                    *value = Some(f64::INFINITY);
-                }
+                limited.set(read.read_index, Some(f64::INFINITY));
             }
             (trace.well, limited)
         })
@@ -164,15 +162,15 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
     let n_reads = data.times_s.len();
     let signal = PlateSignal::new(data, layout, settings);
     let mut warnings = signal.warnings.clone();
-    let traces: BTreeMap<WellId, &[Option<f64>]> = data
+    let traces: BTreeMap<WellId, &Readings> = data
         .wells
         .iter()
-        .map(|trace| (trace.well, trace.values.as_slice()))
+        .map(|trace| (trace.well, &trace.values))
         .collect();
     let over_range = over_range_traces(data, settings.rates.signal);
 
     let critical = CriticalValues::new(settings.rates.alpha, n_reads);
-    let wells_in_play: Vec<(WellId, &WellSetup, &[Option<f64>])> = layout
+    let wells_in_play: Vec<(WellId, &WellSetup, &Readings)> = layout
         .wells
         .iter()
         .filter(|(_, setup)| setup.role != Role::Empty)
@@ -186,7 +184,7 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
             let input = TraceInput {
                 times_s: &data.times_s,
                 values: &values,
-                raw_absorbance: over_range.get(well).map_or(*raw, Vec::as_slice),
+                raw_absorbance: over_range.get(well).map_or(*raw, |limited| limited),
                 substrate_start,
             };
             well_rate(input, &settings.rates, &critical)

@@ -153,7 +153,7 @@ pub struct TraceInput<'a> {
     /// extinction coefficient is known, else in absorbance units; None where unreadable.
     pub values: &'a [Option<f64>],
     /// Raw absorbance, for the saturation limit.
-    pub raw_absorbance: &'a [Option<f64>],
+    pub raw_absorbance: &'a crate::import::Readings,
     /// Starting substrate in the same units as `values`, when known (for conversion).
     pub substrate_start: Option<f64>,
 }
@@ -373,7 +373,7 @@ pub fn well_rate(input: TraceInput<'_>, settings: &RateSettings, critical: &Crit
         if t < settings.skip_s || !in_fixed {
             continue;
         }
-        if let (Some(value), Some(raw)) = (input.values[i], input.raw_absorbance[i]) {
+        if let (Some(value), Some(raw)) = (input.values[i], input.raw_absorbance.get(i)) {
             times.push(t);
             values.push(value);
             absorbances.push(raw);
@@ -609,7 +609,7 @@ mod tests {
     fn rate_of(times: &[f64], values: &[f64], s0: Option<f64>, settings: &RateSettings) -> WellRate {
         let values: Vec<Option<f64>> = values.iter().copied().map(Some).collect();
         // Raw absorbance well inside the photometric range, so saturation plays no part.
-        let raw = vec![Some(0.1); values.len()];
+        let raw: crate::import::Readings = vec![Some(0.1); values.len()].into_iter().collect();
         let critical = CriticalValues::new(settings.alpha, times.len());
         well_rate(
             TraceInput {
@@ -764,7 +764,7 @@ mod tests {
             TraceInput {
                 times_s: &times,
                 values: &values,
-                raw_absorbance: &values,
+                raw_absorbance: &crate::import::Readings::from_values(&values),
                 substrate_start: None,
             },
             &RateSettings::default(),
@@ -784,7 +784,7 @@ mod tests {
             TraceInput {
                 times_s: &times,
                 values: &values,
-                raw_absorbance: &values,
+                raw_absorbance: &crate::import::Readings::from_values(&values),
                 substrate_start: None,
             },
             &RateSettings::default(),

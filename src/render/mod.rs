@@ -107,7 +107,7 @@ pub fn render_run_outputs(results: &RunResults, record: &RunRecord) -> Result<Ve
 
 /// The plate view the report draws its wells from (thinned copies of the reads), or `None` when
 /// no report is asked for. Made first, it lets a command release the raw reads before the rest
-/// is rendered: they are the largest thing a run holds (1536 wells x 2000 reads: 49 MB).
+/// is rendered: they are the largest thing a run holds (1536 wells x 2000 reads: 24.6 MB).
 pub fn report_view(results: &RunResults, record: &RunRecord) -> Option<PlateView> {
     (record.report != ReportMode::None).then(|| plots::plate_view(results))
 }

@@ -425,7 +425,7 @@ pub struct StandardReads<'a> {
     /// Read times, s.
     pub times_s: &'a [f64],
     /// Raw signal per read.
-    pub raw: &'a [Option<f64>],
+    pub raw: &'a crate::import::Readings,
     /// Blank per read.
     pub blank: &'a [f64],
 }
@@ -698,7 +698,7 @@ mod tests {
     /// A1, A2, B1, B2 and so on.
     fn in_duplicate<'a>(
         levels: &[f64],
-        raws: &'a [Vec<Option<f64>>],
+        raws: &'a [crate::import::Readings],
         times: &'a [f64],
         blank: &'a [f64],
     ) -> Vec<StandardReads<'a>> {
@@ -838,11 +838,11 @@ mod tests {
         let blank = [0.0; 5];
         // Linear to 8, then the signal falls short: 16 reads as 14 would.
         let levels = [0.0, 1.0, 2.0, 4.0, 8.0, 16.0];
-        let raws: Vec<Vec<Option<f64>>> = levels
+        let raws: Vec<crate::import::Readings> = levels
             .iter()
             .flat_map(|&c: &f64| {
                 let signal = if c > 8.0 { 100.0 * 14.0 } else { 100.0 * c } + 50.0;
-                [-1.0, 1.0].map(|e| vec![Some(signal + e); 5])
+                [-1.0, 1.0].map(|e| std::iter::repeat_n(Some(signal + e), 5).collect())
             })
             .collect();
         let standards = in_duplicate(&levels, &raws, &times, &blank);
@@ -909,9 +909,9 @@ mod tests {
         let blank = [0.0; 5];
         let levels = [0.0, 1.0, 2.0, 4.0, 8.0, 12.0, 16.0];
         let truth = |c: f64| 20.0 + 100.0 * c - 2.0 * c * c;
-        let raws: Vec<Vec<Option<f64>>> = levels
+        let raws: Vec<crate::import::Readings> = levels
             .iter()
-            .flat_map(|&c| [-1.0, 1.0].map(|e| vec![Some(truth(c) + e); 5]))
+            .flat_map(|&c| [-1.0, 1.0].map(|e| std::iter::repeat_n(Some(truth(c) + e), 5).collect()))
             .collect();
         let standards = in_duplicate(&levels, &raws, &times, &blank);
         let fit = |model| {
@@ -964,9 +964,9 @@ mod tests {
         let times = [0.0, 60.0, 120.0, 180.0, 240.0];
         let blank = [0.0; 5];
         let fit = |levels: &[f64], signal: &dyn Fn(f64) -> f64| {
-            let raws: Vec<Vec<Option<f64>>> = levels
+            let raws: Vec<crate::import::Readings> = levels
                 .iter()
-                .flat_map(|&c| [-1.0, 1.0].map(|e| vec![Some(signal(c) + e); 5]))
+                .flat_map(|&c| [-1.0, 1.0].map(|e| std::iter::repeat_n(Some(signal(c) + e), 5).collect()))
                 .collect();
             fit_standard_curve(
                 Vec::new(),
@@ -992,7 +992,7 @@ mod tests {
     fn one_level_gives_no_curve_and_a_drifting_standard_is_flagged() {
         let times: Vec<f64> = (0..10).map(|i| 30.0 * i as f64).collect();
         let blank = vec![0.0; 10];
-        let flat = vec![Some(500.0); 10];
+        let flat: crate::import::Readings = vec![Some(500.0); 10].into_iter().collect();
         let one_level: Vec<StandardReads> = (0..3)
             .map(|i| StandardReads {
                 well: WellId::new(0, i),
@@ -1011,9 +1011,9 @@ mod tests {
         )
         .unwrap_err();
         assert!(message.contains("at 1 concentration"), "{message}");
-        let rising: Vec<Option<f64>> = times.iter().map(|t| Some(1000.0 + 2.0 * t)).collect();
-        let zero = vec![Some(0.0); 10];
-        let level_one = vec![Some(1000.0); 10];
+        let rising: crate::import::Readings = times.iter().map(|t| Some(1000.0 + 2.0 * t)).collect();
+        let zero: crate::import::Readings = vec![Some(0.0); 10].into_iter().collect();
+        let level_one: crate::import::Readings = vec![Some(1000.0); 10].into_iter().collect();
         let standards = vec![
             StandardReads {
                 well: WellId::new(0, 0),

@@ -26,7 +26,7 @@ use std::collections::BTreeMap;
 use crate::config::{AnalysisSettings, Readout, SignalKind};
 use crate::core::plate::WellId;
 use crate::core::units::ConcentrationUnit;
-use crate::import::KineticData;
+use crate::import::{KineticData, Readings};
 use crate::layout::{Layout, Role};
 
 /// How the blank at each read was made.
@@ -117,7 +117,7 @@ pub struct WellConversion {
 
 /// The smooth blank (module docs): the degree and the curve at every read, or `None` when the blank
 /// wells move together from read to read (or there are too few reads for a smooth curve).
-fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&[Option<f64>]]) -> Option<SmoothBlank> {
+fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&Readings]) -> Option<SmoothBlank> {
     let points: Vec<(f64, f64)> = times
         .iter()
         .zip(measured)
@@ -155,7 +155,7 @@ fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&[Option<f64>
     let mut within_dof = 0usize;
     for (read, mean) in measured.iter().enumerate() {
         let Some(mean) = mean else { continue };
-        let values: Vec<f64> = traces.iter().filter_map(|trace| trace[read]).collect();
+        let values: Vec<f64> = traces.iter().filter_map(|trace| trace.get(read)).collect();
         if values.len() >= 2 {
             within += values.iter().map(|v| (v - mean).powi(2)).sum::<f64>();
             within_dof += values.len() - 1;
@@ -193,16 +193,12 @@ fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&[Option<f64>
 
 /// The per-read blank's variance at each read: one well's read variance (from the blank wells'
 /// scatter around their mean, or with one well from its third differences) over the wells read.
-fn per_read_uncertainty(
-    times: &[f64],
-    measured: &[Option<f64>],
-    traces: &[&[Option<f64>]],
-) -> BlankUncertainty {
+fn per_read_uncertainty(times: &[f64], measured: &[Option<f64>], traces: &[&Readings]) -> BlankUncertainty {
     let mut within = 0.0;
     let mut within_dof = 0usize;
     for (read, mean) in measured.iter().enumerate() {
         let Some(mean) = mean else { continue };
-        let values: Vec<f64> = traces.iter().filter_map(|trace| trace[read]).collect();
+        let values: Vec<f64> = traces.iter().filter_map(|trace| trace.get(read)).collect();
         if values.len() >= 2 {
             within += values.iter().map(|v| (v - mean).powi(2)).sum::<f64>();
             within_dof += values.len() - 1;
@@ -226,7 +222,11 @@ fn per_read_uncertainty(
     BlankUncertainty::PerRead {
         variances: (0..times.len())
             .map(|read| {
-                let readable = traces.iter().filter(|trace| trace[read].is_some()).count().max(1);
+                let readable = traces
+                    .iter()
+                    .filter(|trace| trace.get(read).is_some())
+                    .count()
+                    .max(1);
                 one_read_variance / readable as f64
             })
             .collect(),
@@ -286,7 +286,7 @@ impl PlateSignal {
             .collect();
         let (blank_wells, unreadable): (Vec<_>, Vec<_>) = all_blanks
             .into_iter()
-            .partition(|trace| trace.values.iter().any(Option::is_some));
+            .partition(|trace| trace.values.any_readable());
         if !unreadable.is_empty() {
             let names: Vec<String> = unreadable.iter().map(|t| t.well.to_string()).collect();
             warnings.push(format!(
@@ -298,12 +298,12 @@ impl PlateSignal {
             .map(|read| {
                 let readable: Vec<f64> = blank_wells
                     .iter()
-                    .filter_map(|trace| trace.values[read])
+                    .filter_map(|trace| trace.values.get(read))
                     .collect();
                 crate::core::stats::mean(&readable)
             })
             .collect();
-        let traces: Vec<&[Option<f64>]> = blank_wells.iter().map(|t| t.values.as_slice()).collect();
+        let traces: Vec<&Readings> = blank_wells.iter().map(|t| &t.values).collect();
         let smooth = smooth_blank(&data.times_s, &measured, &traces);
         let blank_model = match (&smooth, blank_wells.is_empty()) {
             (_, true) => BlankModel::None,
@@ -418,13 +418,13 @@ impl PlateSignal {
 
     /// A well's readings as product formed at each read by the plate's conversion: blank-corrected,
     /// signed and converted (`None` where a read is unreadable).
-    pub fn product_formed(&self, raw: &[Option<f64>]) -> Vec<Option<f64>> {
+    pub fn product_formed(&self, raw: &Readings) -> Vec<Option<f64>> {
         self.convert(raw, self.plate_conversion)
     }
 
     /// A well's readings as product formed, by the well's own conversion (its standard curve)
     /// where it has one.
-    pub fn well_product_formed(&self, well: WellId, raw: &[Option<f64>]) -> Vec<Option<f64>> {
+    pub fn well_product_formed(&self, well: WellId, raw: &Readings) -> Vec<Option<f64>> {
         self.convert(raw, self.conversion_for(well))
     }
 
@@ -449,7 +449,7 @@ impl PlateSignal {
         Some((self.calibration.as_ref()?.curves.get(index)?, factor))
     }
 
-    fn convert(&self, raw: &[Option<f64>], conversion: WellConversion) -> Vec<Option<f64>> {
+    fn convert(&self, raw: &Readings, conversion: WellConversion) -> Vec<Option<f64>> {
         let curve = self.second_order_curve(conversion);
         raw.iter()
             .zip(&self.blank_per_read)
@@ -839,7 +839,7 @@ mod tests {
         assert!((signal.blank_per_read[0] - 0.11).abs() < 1e-15);
         assert!((signal.blank_per_read[1] - 0.20).abs() < 1e-15);
         // 1 AU / (10^4 M^-1 cm^-1 x 0.5 cm) = 2e-4 M = 200 uM, negated for a substrate read.
-        let formed = signal.product_formed(&[Some(1.11), None]);
+        let formed = signal.product_formed(&Readings::from_values(&[Some(1.11), None]));
         assert!((formed[0].unwrap() + 200.0).abs() < 1e-9, "{formed:?}");
         assert_eq!(formed[1], None);
         assert_eq!(signal.rate_unit(), "uM/s");
@@ -862,7 +862,7 @@ mod tests {
         let signal = PlateSignal::new(&data, &layout, &settings);
         let curve = &signal.calibration.as_ref().unwrap().curves[0];
         assert!((curve.line.slope - 0.02).abs() < 1e-12, "{:?}", curve.line);
-        let formed = signal.well_product_formed(WellId::new(1, 0), &[Some(0.70)]);
+        let formed = signal.well_product_formed(WellId::new(1, 0), &Readings::from_values(&[Some(0.70)]));
         assert!((formed[0].unwrap() - 30.0).abs() < 1e-9, "{formed:?}");
         assert!(signal
             .warnings
@@ -892,7 +892,7 @@ mod tests {
             signal.warnings
         );
         // The sample's product formed rises evenly: 0.9, 0.99, 1.08.
-        let formed = signal.product_formed(&[Some(1.0), Some(1.1), Some(1.2)]);
+        let formed = signal.product_formed(&Readings::from_values(&[Some(1.0), Some(1.1), Some(1.2)]));
         assert!((formed[1].unwrap() - 0.99).abs() < 1e-12, "{formed:?}");
     }
 

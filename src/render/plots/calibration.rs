@@ -152,8 +152,8 @@ mod tests {
     fn the_svg_text_is_at_least_eleven_pixels() {
         let times = [0.0, 10.0, 20.0, 30.0];
         let blank = [0.0; 4];
-        let raws: Vec<Vec<Option<f64>>> = (0..4)
-            .map(|i| vec![Some(100.0 * f64::from(i) + 1.0); 4])
+        let raws: Vec<crate::import::Readings> = (0..4)
+            .map(|i| vec![Some(100.0 * f64::from(i) + 1.0); 4].into_iter().collect())
             .collect();
         let reads: Vec<StandardReads> = raws
             .iter()

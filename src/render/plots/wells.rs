@@ -195,10 +195,10 @@ pub fn plate_view(results: &RunResults) -> PlateView {
     let layout = &results.layout;
     let analysis = &results.analysis;
     let signal = &analysis.signal;
-    let traces: BTreeMap<WellId, &[Option<f64>]> = data
+    let traces: BTreeMap<WellId, &crate::import::Readings> = data
         .wells
         .iter()
-        .map(|trace| (trace.well, trace.values.as_slice()))
+        .map(|trace| (trace.well, &trace.values))
         .collect();
     let value_label = signal.value_label();
     let rates = &results.rates_in;
