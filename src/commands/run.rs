@@ -14,7 +14,8 @@ use crate::render::{render_outputs_from_view, report_view, InputRecord, RunRecor
 /// What a completed run hands back.
 #[derive(Debug, Clone)]
 pub struct RunOutcome {
-    /// The results.
+    /// The results; their `data` keeps the read times and wells but no readings, released once
+    /// the report's view was made (`KineticData::release_reads`).
     pub results: RunResults,
     /// The files written.
     pub written: Vec<PathBuf>,
