@@ -56,8 +56,13 @@ pub fn check_import(grid: &CellGrid, file: &str, shape: Option<DataShape>) {
                 assert_eq!(trace.values.len(), data.times_s.len(), "{}", trace.well);
                 assert!(trace.values.iter().flatten().all(|value| value.is_finite()));
                 for cell in &trace.unreadable {
+                    assert!(
+                        cell.read_index < trace.values.len(),
+                        "an unreadable cell past the reads"
+                    );
                     assert_eq!(
-                        trace.values[cell.read_index], None,
+                        trace.values.get(cell.read_index),
+                        None,
                         "an unreadable cell with a value"
                     );
                 }
