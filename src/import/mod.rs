@@ -142,11 +142,6 @@ impl Readings {
     pub fn any_readable(&self) -> bool {
         self.0.iter().any(|value| !value.is_nan())
     }
-
-    /// The reads as values that may be missing.
-    pub fn to_values(&self) -> Vec<Option<f64>> {
-        self.iter().collect()
-    }
 }
 
 impl FromIterator<Option<f64>> for Readings {

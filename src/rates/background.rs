@@ -17,10 +17,10 @@
 //!    background-corrected rate; dropped only when the test misses it, the law would carry part of
 //!    it into the slope, and the error's variance would then be owed only on plates where it
 //!    happened to be small (selection by the test). The coverage study measured the difference
-//!    (DEVELOPERS.md, "Initial-rate estimators, weighting and coverage"). Pooling every control into one or two constants
-//!    keeps the background's own noise out of each sample's rate (a single control's slope is as
-//!    noisy as the sample's, and subtracted from every replicate and every read of a progress
-//!    curve it would add an error they all share).
+//!    (DEVELOPERS.md, "Initial-rate estimators, weighting and coverage"). Pooling every control
+//!    into one or two constants keeps the background's own noise out of each sample's rate (a
+//!    single control's slope is as noisy as the sample's, and subtracted from every replicate and
+//!    every read of a progress curve it would add an error they all share).
 //! 3. When the controls' rates do not follow the first-order law (lack of fit against their own
 //!    slopes' standard errors, chi-square test at the 1% level), or they stand at one [S] only, the
 //!    background at a level with controls is their mean, with its standard error (the SEM of two or
@@ -276,9 +276,10 @@ fn first_order_model(
                 .sum();
             let variance = rss / (n - 2) as f64;
             let var_intercept = variance * (1.0 / n as f64 + mean_s * mean_s / sxx);
-            let significant = var_intercept > 0.0
-                && (intercept / var_intercept.sqrt()).abs() > t_critical(INTERCEPT_ALPHA, n - 2);
-            if significant || (keep_intercept && var_intercept > 0.0) {
+            let kept = var_intercept > 0.0
+                && (keep_intercept
+                    || (intercept / var_intercept.sqrt()).abs() > t_critical(INTERCEPT_ALPHA, n - 2));
+            if kept {
                 if lacks_fit(controls, |x| intercept + slope * x, 2) {
                     return None;
                 }

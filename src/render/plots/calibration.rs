@@ -1,7 +1,7 @@
 //! The standard curve's plots: signal against concentration with the fitted line (or
 //! second-order curve) over its range (standards above the highest linear concentration drawn
-//! hollow), and the residuals. Text sizes are chosen so that the SVG's text is at least 11 px (plotters writes a font of size f as
-//! about 0.806 f px: 14 -> 11.3 px).
+//! hollow), and the residuals. Text sizes are chosen so that the SVG's text is at least 11 px
+//! (plotters writes a font of size f as about 0.806 f px: 14 -> 11.3 px).
 
 use plotters::coord::Shift;
 use plotters::prelude::*;

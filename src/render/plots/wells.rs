@@ -152,8 +152,9 @@ const MARKED_READS: usize = 120;
 const DETAIL_LINE_POINTS: usize = 600;
 
 /// The reads of one well a figure draws (see [`WellView::trace`]), in time order: all of them up
-/// to `line_points`, else `line_points` evenly spaced, the window's (for a detail figure, which
-/// marks them) and the lowest and highest.
+/// to the figure's line points ([`DETAIL_LINE_POINTS`] for a detail figure, else
+/// [`MINIATURE_LINE_POINTS`]), else that many evenly spaced, the window's (for a detail figure,
+/// which marks them) and the lowest and highest.
 fn drawn_reads(
     times_s: &[f64],
     formed: &[Option<f64>],
