@@ -604,6 +604,7 @@ pub fn window_chord(well: &WellResult, dead_time_s: f64) -> Option<WindowChord> 
         se: well.window_slope_se?,
         start_s: start + dead_time_s,
         end_s: end + dead_time_s,
+        reads: well.rate.fit.map_or(2, |fit| fit.n_points),
     })
 }
 
@@ -1282,6 +1283,7 @@ mod tests {
                 se: 1e-5,
                 start_s: 0.0,
                 end_s: 300.0,
+                reads: 16,
             }),
             substrate,
             inhibitor: 0.0,
