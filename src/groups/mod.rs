@@ -520,12 +520,12 @@ pub fn shared_rate_errors(points: &[FitPoint], corrections: &PlateCorrections) -
         columns.push(
             points
                 .iter()
-                .map(|p| {
-                    if serves(p) {
-                        -p.substrate * p.rate_per_chord
-                    } else {
-                        0.0
+                .map(|p| match &p.background {
+                    // The law's slope enters at the [S] it was evaluated at (S0 or what is left).
+                    Some(background) if serves(p) => {
+                        -background.law_substrate().unwrap_or(p.substrate) * p.rate_per_chord
                     }
+                    _ => 0.0,
                 })
                 .collect(),
         );
@@ -1307,6 +1307,7 @@ mod tests {
             controls: 8,
             levels: 8,
             with_intercept,
+            substrate: 100.0,
         }
     }
 

@@ -497,7 +497,13 @@ fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSigna
                 .iter()
                 .map(|start| {
                     if serves(start) {
-                        to_au(start) * start.layout
+                        // The law's slope enters at the [S] its rate was evaluated at.
+                        let at = start
+                            .background
+                            .as_ref()
+                            .and_then(Background::law_substrate)
+                            .unwrap_or(start.layout);
+                        to_au(start) * at
                     } else {
                         0.0
                     }

@@ -157,6 +157,25 @@ fn over_range_traces(data: &KineticData, signal_kind: SignalKind) -> BTreeMap<We
         .collect()
 }
 
+/// The substrate a sample has left at the middle of its window, `S0 - slope x t_mid` (t_mid
+/// counted from mixing, dead time added): the [S] a first-order background acts on over the
+/// window (the least-squares slope of `k S(t)` over a window is `k S` at its middle while `S` falls
+/// about linearly; [`Background::at_substrate_left`]). `None` without S0, a window, or rates in
+/// concentration (the slope must be in the unit of S0).
+fn substrate_left_mid_window(
+    setup: &WellSetup,
+    rate: &WellRate,
+    in_concentration: bool,
+    settings: &AnalysisSettings,
+) -> Option<f64> {
+    let s0 = setup.substrate.filter(|s| *s > 0.0 && in_concentration)?;
+    let fit = rate.fit?;
+    let (start, end) = rate.window_s?;
+    let middle = 0.5 * (start + end) + settings.rates.dead_time_s;
+    let converted = fit.slope.max(0.0) * middle.max(0.0);
+    Some((s0 - converted).max(0.0))
+}
+
 /// Analyses a plate: every layout well present in the data gets a rate, flags and corrections.
 pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSettings) -> PlateAnalysis {
     let n_reads = data.times_s.len();
@@ -237,7 +256,13 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
         let blank_wells = (setup.role != Role::Blank).then_some(signal.n_blank_wells);
         // Screening controls are measured like samples, so that % activity compares like with like.
         let gets_background = setup.role == Role::Sample || setup.role.is_screening_control();
-        let background = gets_background.then(|| background_for(setup, &controls, blank_subtracted));
+        let background = gets_background.then(|| {
+            let at_s0 = background_for(setup, &controls, blank_subtracted);
+            match substrate_left_mid_window(setup, rate, signal.per_absorbance.is_some(), settings) {
+                Some(left) => at_s0.at_substrate_left(left),
+                None => at_s0,
+            }
+        });
         if let Some(Background::None(_)) = &background {
             without_background.push(*well);
         }
