@@ -337,11 +337,14 @@ pub fn correction_words(correction: &Correction, signal: &PlateSignal, rates: &R
             controls,
             levels,
             with_intercept,
+            substrate,
             ..
         }) => text.push_str(&format!(
-            "; background {} {rate_unit} from a first-order fit in [S]{} to {controls} no-enzyme wells at {levels} [S] levels",
+            "; background {} {rate_unit} from a first-order fit in [S]{} to {controls} no-enzyme wells at {levels} [S] levels \
+             (taken at the [S] left mid-window: {})",
             significant(rates.rate(*rate)),
-            if *with_intercept { " with an intercept" } else { "" }
+            if *with_intercept { " with an intercept" } else { "" },
+            significant(*substrate)
         )),
         Some(Background::None(NoBackground::NoControls)) => {
             text.push_str("; no background (no matching no-enzyme wells)")
