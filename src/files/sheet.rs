@@ -355,7 +355,7 @@ fn sniff_delimiter(text: &str) -> u8 {
         .filter(|line| !line.trim().is_empty())
         .take(200)
         .collect();
-    let field_count = |line: &str, delimiter: u8| line.bytes().filter(|&b| b == delimiter).count() + 1;
+    let field_count = |line: &str, delimiter: u8| fields_outside_quotes(line, delimiter);
     let mut best = (b',', 0usize, 0usize);
     for delimiter in DELIMITERS {
         let mut counts: std::collections::HashMap<usize, usize> = std::collections::HashMap::new();
@@ -397,6 +397,21 @@ fn sniff_delimiter(text: &str) -> u8 {
     best.0
 }
 
+/// Fields of one line split by `delimiter`, not counting a delimiter inside double quotes (a
+/// quoted cell may hold commas: the program's own `correction` texts do).
+fn fields_outside_quotes(line: &str, delimiter: u8) -> usize {
+    let mut quoted = false;
+    let mut fields = 1;
+    for byte in line.bytes() {
+        if byte == b'"' {
+            quoted = !quoted;
+        } else if byte == delimiter && !quoted {
+            fields += 1;
+        }
+    }
+    fields
+}
+
 /// The delimiters a text file may use.
 const DELIMITERS: [u8; 3] = [b'\t', b';', b','];
 
@@ -404,7 +419,7 @@ const DELIMITERS: [u8; 3] = [b'\t', b';', b','];
 /// every line that one delimiter alone splits into the table's width (the commonest number of
 /// fields under the file's delimiter) must be split by the same one.
 fn check_one_delimiter(text: &str, delimiter: u8, file: &str) -> Result<(), SheetReadError> {
-    let field_count = |line: &str, delimiter: u8| line.bytes().filter(|&b| b == delimiter).count() + 1;
+    let field_count = fields_outside_quotes;
     let mut widths: std::collections::HashMap<usize, usize> = std::collections::HashMap::new();
     for line in text.lines().filter(|line| !line.trim().is_empty()).take(200) {
         let fields = field_count(line, delimiter);
@@ -903,6 +918,28 @@ mod tests {
         assert_eq!(
             cells.row_cells(3),
             vec![Cell::Number(30.0), Cell::Number(0.15), Cell::Number(0.25)]
+        );
+    }
+
+    /// A table whose cells hold quoted text with commas and semicolons (as the program's own
+    /// `correction` column does) stays comma-delimited: the sniff used to count the quoted
+    /// separators, and every data line then split by semicolon into one same width.
+    #[test]
+    fn quoted_commas_and_semicolons_do_not_move_the_delimiter() {
+        let mut text = String::from("well,substrate [uM],rate [uM/s],correction\n");
+        for row in 0..12 {
+            text.push_str(&format!(
+                "A{},{}.5,0.01,\"blank: line; background 1e-4 from 8 wells (taken at 34.5, mid-window)\"\n",
+                row + 1,
+                row + 10
+            ));
+        }
+        let cells = grid(&text);
+        assert_eq!(cells.row_len(0), 4);
+        assert_eq!(cells.row_cells(1)[1], Cell::Number(10.5));
+        assert_eq!(
+            cells.row_cells(1)[3],
+            Cell::Text("blank: line; background 1e-4 from 8 wells (taken at 34.5, mid-window)")
         );
     }
 
