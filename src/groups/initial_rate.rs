@@ -107,11 +107,11 @@ pub fn rate_shape(
 /// Largest Newton steps before giving up on the exact correction.
 const NEWTON_STEPS: usize = 60;
 
-/// Most points at which the expected least-squares slope of a window is evaluated: windows with
-/// more reads are evaluated at this many evenly spaced points across the same span. The slope of a
-/// bent curve depends on the number of points as 1/n^2: on a window converting 45% of its
-/// substrate, 32 points in place of the window's 46 moved the corrected rate by 2e-4, so 256
-/// points in place of more move it by a few parts in 10^6 at most.
+/// Most points at which the expected least-squares slope of a window is evaluated (a ceiling on
+/// one window's work; windows with more reads are evaluated at this many evenly spaced points
+/// across the same span). Fewer points than reads are not a free saving: on a window converting
+/// 45% of its substrate, 32 points in place of its 46 reads moved the corrected rate by 2e-4, and
+/// 256 in place of 451 by 4e-5.
 const SLOPE_NODES: usize = 4096;
 
 /// The least-squares slope over `reads` evenly spaced reads in `[t1, t2]` of the product of a

@@ -136,7 +136,7 @@ impl Background {
     /// what the enzyme leaves, not on the S0 its controls (which convert almost none) were read
     /// at. The rate becomes `a + k S'` with variance `var a + 2 S' cov + S'^2 var k`. A mean of
     /// controls says nothing of how it depends on [S], and stands. Nothing changes for a
-    /// `substrate_left` that is not finite and positive.
+    /// `substrate_left` that is not finite or is negative.
     pub fn at_substrate_left(&self, substrate_left: f64) -> Background {
         match self {
             Background::Modelled {
@@ -145,7 +145,7 @@ impl Background {
                 levels,
                 with_intercept,
                 ..
-            } if substrate_left.is_finite() && substrate_left > 0.0 => {
+            } if substrate_left.is_finite() && substrate_left >= 0.0 => {
                 let [[var_slope, covariance], [_, var_intercept]] = law.covariance;
                 let variance = var_intercept
                     + 2.0 * substrate_left * covariance
@@ -498,7 +498,7 @@ mod tests {
             assert_eq!(at_s0.law_substrate(), Some(50.0));
             // Nothing moves for a substrate left that means nothing.
             assert_eq!(at_s0.at_substrate_left(f64::NAN), at_s0);
-            assert_eq!(at_s0.at_substrate_left(0.0), at_s0);
+            assert_eq!(at_s0.at_substrate_left(-1.0), at_s0);
         }
         // A mean of controls stands.
         let matched = Background::Matched {
