@@ -451,17 +451,30 @@ mod tests {
         }
     }
 
+    /// No-enzyme controls at 100, 200, 400 and 800.
+    fn four_control_levels() -> Vec<WellSetup> {
+        [100.0, 200.0, 400.0, 800.0]
+            .iter()
+            .map(|s| setup(*s, ""))
+            .collect()
+    }
+
+    /// Controls on `v_bg = 1e-3 + 1e-5 S` with a small scatter (the intercept is 100 standard
+    /// errors from 0).
+    fn controls_with_a_clear_intercept(setups: &[WellSetup]) -> Vec<Control<'_>> {
+        let wiggle = [1e-6, -1e-6, -1e-6, 1e-6];
+        setups
+            .iter()
+            .zip(wiggle)
+            .map(|(s, w)| control("H1", s, 1e-3 + 1e-5 * s.substrate.unwrap_or(0.0) + w, vec![]))
+            .collect()
+    }
+
     #[test]
     fn a_clear_intercept_is_kept() {
         // v_bg = 1e-3 + 1e-5 S with small scatter: the intercept is 100 standard errors from 0.
-        let levels = [100.0, 200.0, 400.0, 800.0];
-        let setups: Vec<WellSetup> = levels.iter().map(|s| setup(*s, "")).collect();
-        let wiggle = [1e-6, -1e-6, -1e-6, 1e-6];
-        let controls: Vec<Control> = setups
-            .iter()
-            .enumerate()
-            .map(|(i, s)| control("H1", s, 1e-3 + 1e-5 * levels[i] + wiggle[i], vec![]))
-            .collect();
+        let setups = four_control_levels();
+        let controls = controls_with_a_clear_intercept(&setups);
         match background_for(&setup(50.0, "wt"), &controls, false) {
             Background::Modelled {
                 rate, with_intercept, ..
@@ -478,14 +491,8 @@ mod tests {
     /// `s^2 (1/n + (S - mean S)^2 / Sxx)` computed the other way, from the law's covariance).
     #[test]
     fn a_law_at_the_substrate_left_is_the_law_at_that_level() {
-        let levels = [100.0, 200.0, 400.0, 800.0];
-        let setups: Vec<WellSetup> = levels.iter().map(|s| setup(*s, "")).collect();
-        let wiggle = [1e-6, -1e-6, -1e-6, 1e-6];
-        let controls: Vec<Control> = setups
-            .iter()
-            .enumerate()
-            .map(|(i, s)| control("H1", s, 1e-3 + 1e-5 * levels[i] + wiggle[i], vec![]))
-            .collect();
+        let setups = four_control_levels();
+        let controls = controls_with_a_clear_intercept(&setups);
         for keep_intercept in [false, true] {
             let at_s0 = background_for(&setup(50.0, "wt"), &controls, keep_intercept);
             let at_level = background_for(&setup(35.0, "wt"), &controls, keep_intercept);
