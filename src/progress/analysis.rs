@@ -22,8 +22,8 @@ use rayon::prelude::*;
 
 use super::choice::{compare_models, ModelTried};
 use super::global_fit::{
-    fit_group, ErrorShape, GlobalFit, GlobalFitOptions, ProgressModel, SharedSignalError, SharedSignalErrors,
-    WellCurve,
+    fit_group_from, ErrorShape, GlobalFit, GlobalFitOptions, ProgressModel, SharedSignalError,
+    SharedSignalErrors, WellCurve,
 };
 use super::trust::{
     decide_trust, RunReason, Suspicion, Trust, TrustDecision, TrustEvidence, TrustReason, WellEvidence,
@@ -252,7 +252,8 @@ fn calibration_sensitivity(
                     },
                 })
                 .collect();
-            let (new_kcat, new_km) = fit_group(&perturbed, &options)
+            // Started from the chosen fit: a 5% change moves the optimum a little way.
+            let (new_kcat, new_km) = fit_group_from(&perturbed, &options, Some(chosen))
                 .ok()
                 .as_ref()
                 .and_then(constants)?;

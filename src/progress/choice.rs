@@ -7,8 +7,8 @@
 //! when the results are rendered.
 
 use super::global_fit::{
-    extra_sum_of_squares_test, fit_group, GlobalFit, GlobalFitOptions, ProgressError, ProgressModel,
-    WellCurve,
+    extra_sum_of_squares_test, fit_group, fit_group_from, GlobalFit, GlobalFitOptions, ProgressError,
+    ProgressModel, WellCurve,
 };
 
 /// An extra term is needed only if it changes the rate by at least this fraction during the read
@@ -208,7 +208,10 @@ pub fn compare_models(
             profile_km: false,
             ..base.clone()
         };
-        tried.push((model, fit_group(curves, &options).map_err(|e| e.to_string())));
+        // The plain fit starts each extended model's plain stage: the same optimum, found again
+        // in a step or two instead of from the grid.
+        let fit = fit_group_from(curves, &options, Some(&plain));
+        tried.push((model, fit.map_err(|e| e.to_string())));
     }
     let best_aicc = tried
         .iter()
@@ -257,13 +260,14 @@ pub fn compare_models(
         .filter_map(|((model, fit), _)| fit.as_ref().ok().map(|f| (*model, f)))
         .min_by(|a, b| a.1.aicc.total_cmp(&b.1.aicc));
     let mut chosen = plain;
-    if let Some((model, _)) = needed {
+    if let Some((model, fit_without_profile)) = needed {
         let options = GlobalFitOptions {
             model,
             ..base.clone()
         };
-        // Refit with the Km profile; keep the plain fit if this unexpectedly fails.
-        if let Ok(fit) = fit_group(curves, &options) {
+        // Refit with the Km profile, from the fit without it; keep the plain fit if this
+        // unexpectedly fails.
+        if let Ok(fit) = fit_group_from(curves, &options, Some(fit_without_profile)) {
             chosen = fit;
         }
     }
