@@ -2,10 +2,13 @@
 //! `cargo run --release --example coverage_study -- [PLATES] [DESIGN,...]` (default 400 plates of
 //! each of `clean`, `realistic` and `inhibition`). Prints one table row per design, analysis,
 //! variant and parameter: plates, intervals holding the truth, bias, RMSE and mean width.
+//! With `--wells` as a third argument it prints the well-level check instead
+//! (`platekin::simulate::study::well_error_study`): per variant and level, the wells' observed
+//! relative scatter about the truth against the SD the fit gives them, and the variance ratio.
 
 use std::process::ExitCode;
 
-use platekin::simulate::study::{coverage_study, InitialRateEstimatorKey, StudyDesign};
+use platekin::simulate::study::{coverage_study, well_error_study, InitialRateEstimatorKey, StudyDesign};
 
 fn main() -> ExitCode {
     let mut args = std::env::args().skip(1);
@@ -22,6 +25,9 @@ fn main() -> ExitCode {
             _ => None,
         })
         .collect();
+    if args.next().as_deref() == Some("--wells") {
+        return print_well_levels(&designs, plates);
+    }
     let estimators = [
         InitialRateEstimatorKey::Integrated,
         InitialRateEstimatorKey::Chord,
@@ -33,12 +39,8 @@ fn main() -> ExitCode {
     println!("| --- | --- | --- | --- | ---: | ---: | ---: | ---: | ---: | ---: |");
     for design in designs {
         let start = std::time::Instant::now();
-        let rows = match coverage_study(design, plates, 1_000, &estimators) {
-            Ok(rows) => rows,
-            Err(error) => {
-                eprintln!("{}: {error}", design.name());
-                return ExitCode::from(2);
-            }
+        let Some(rows) = or_report(design, coverage_study(design, plates, 1_000, &estimators)) else {
+            return ExitCode::from(2);
         };
         for row in rows {
             println!(
@@ -62,4 +64,37 @@ fn main() -> ExitCode {
         );
     }
     ExitCode::SUCCESS
+}
+
+/// The well-level check's table, one row per design, variant and level.
+fn print_well_levels(designs: &[StudyDesign], plates: usize) -> ExitCode {
+    println!("| design | variant | [S] | [I] | wells | bias | observed SD | model SD | variance ratio |");
+    println!("| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: |");
+    for &design in designs {
+        let Some(rows) = or_report(design, well_error_study(design, plates, 1_000)) else {
+            return ExitCode::from(2);
+        };
+        for row in rows {
+            println!(
+                "| {} | {} | {} | {} | {} | {:+.2}% | {:.3}% | {:.3}% | {:.2} |",
+                row.design.name(),
+                row.variant,
+                row.substrate,
+                row.inhibitor,
+                row.wells,
+                100.0 * row.relative_bias,
+                100.0 * row.observed_relative_sd,
+                100.0 * row.model_relative_sd,
+                row.variance_ratio()
+            );
+        }
+    }
+    ExitCode::SUCCESS
+}
+
+/// A study's rows, or `None` with its error written to stderr.
+fn or_report<T>(design: StudyDesign, result: Result<T, String>) -> Option<T> {
+    result
+        .map_err(|error| eprintln!("{}: {error}", design.name()))
+        .ok()
 }

@@ -6,7 +6,7 @@
 //! seeds are fixed, so the counts are reproducible and a regression shows as a drop.
 
 use platekin::simulate::study::{
-    coverage_study, CoverageRow, InitialRateEstimatorKey, StudyAnalysis, StudyDesign,
+    coverage_study, well_error_study, CoverageRow, InitialRateEstimatorKey, StudyAnalysis, StudyDesign,
 };
 
 const PLATES: usize = 40;
@@ -155,5 +155,46 @@ fn realistic_plates_intervals_cover_the_truth() {
                 );
             }
         }
+    }
+}
+
+#[test]
+fn clean_wells_scatter_about_the_truth_as_their_standard_errors_say() {
+    // The well-level check on clean plates (simulated truth, Dopri5): at every [S] the wells'
+    // integrated initial rates scatter about the true rate at their S0 as the variance the fit
+    // gives them says. 20 plates give 60 wells a level, so an observed variance is good to about
+    // +-35% (two SDs of a 59-df variance); [0.45, 1.6] allows that and the replicates' extra
+    // variance, which is truncated at 0 and so runs a little high on plates that have none. The
+    // slope's SE from the line's residuals counted depletion's bend as noise and gave ratios of
+    // 0.16 at the slow variant's [S] near Km (DEVELOPERS.md).
+    let rows = well_error_study(StudyDesign::Clean, 20, FIRST_SEED).expect("the study runs");
+    assert_eq!(rows.len(), 16, "two variants by eight levels: {rows:?}");
+    for row in &rows {
+        eprintln!(
+            "{} S {}: wells {} bias {:+.2}% observed {:.3}% model {:.3}% ratio {:.2}",
+            row.variant,
+            row.substrate,
+            row.wells,
+            100.0 * row.relative_bias,
+            100.0 * row.observed_relative_sd,
+            100.0 * row.model_relative_sd,
+            row.variance_ratio()
+        );
+        assert_eq!(row.wells, 60);
+        assert!(
+            (0.45..=1.6).contains(&row.variance_ratio()),
+            "{} at S {}: variance ratio {:.2}",
+            row.variant,
+            row.substrate,
+            row.variance_ratio()
+        );
+        // The integrated estimator is unbiased well by well: within 3 standard errors of the mean.
+        assert!(
+            row.relative_bias.abs() < 3.0 * row.observed_relative_sd / (row.wells as f64).sqrt(),
+            "{} at S {}: bias {:+.3}%",
+            row.variant,
+            row.substrate,
+            100.0 * row.relative_bias
+        );
     }
 }

@@ -17,6 +17,14 @@
 //! * `dense`: the clean design read every 2 s for 15 min (451 reads), so that the progress-curve
 //!   fit takes 250 of each well's reads, evenly spaced
 //!   (`PROGRESS_READS_PER_WELL` in `progress::analysis`): its coverage checks the thinned fit.
+//!
+//! The well-level check ([`well_error_study`]) looks one step below the intervals: at each [S]
+//! (and [I]) level it sets the scatter of the wells' integrated initial rates about the simulated
+//! truth at the layout's S0 against the variance the fit gives them (their standard error squared
+//! plus the replicates' extra variance). A ratio of 1 is a variance model that fits; the ratio's
+//! shape over the levels says which error the model misses. The observed scatter also holds what
+//! the wells of a plate share (blank, background law), which the fit carries as shared errors,
+//! so the ratio runs above 1 where a shared error is large.
 
 use std::collections::BTreeMap;
 
@@ -26,6 +34,7 @@ use crate::config::{
     AnalysisSettings, FitSettings, InitialRateEstimator, ModelRequest, ProgressMode, ProgressSettings,
     RateModelKind,
 };
+use crate::core::cells::CellGrid;
 use crate::core::plate::row_label;
 use crate::files::sheet::read_text_cells;
 use crate::groups::ParameterReport;
@@ -297,37 +306,86 @@ fn analysis_settings(
     settings
 }
 
-fn analyse_plate(
-    design: StudyDesign,
-    seed: u64,
-    estimators: &[InitialRateEstimatorKey],
-) -> Result<PlateIntervals, String> {
-    let (spec, truths) = design_spec(design, seed);
+/// A simulated plate of `design` as the files a user would give: the export's and the layout's
+/// cells.
+fn simulated_cells(design: StudyDesign, seed: u64) -> Result<(CellGrid, CellGrid), String> {
+    let (spec, _) = design_spec(design, seed);
     let plate = simulate(&spec).map_err(|error| error.to_string())?;
     let data_csv = wide_csv(&plate, &WideCsvOptions::default());
     let layout_csv = layout_tidy_csv(&plate);
     let grid = read_text_cells(data_csv.as_bytes(), "study.csv").map_err(|e| e.to_string())?;
     let layout_grid =
         read_text_cells(layout_csv.as_bytes(), "study-layout.csv").map_err(|e| e.to_string())?;
-    let fit_settings = FitSettings {
+    Ok((grid, layout_grid))
+}
+
+/// How the study fits a design's groups.
+fn study_fit_settings(design: StudyDesign) -> FitSettings {
+    FitSettings {
         model: (design == StudyDesign::Inhibition).then_some(ModelRequest::Fixed(RateModelKind::Competitive)),
         // The reported ci95 is the covariance interval; the profile does not change it.
         profile: false,
         ..FitSettings::default()
-    };
+    }
+}
+
+/// The whole analysis of a simulated plate's cells with one estimator.
+fn analyse_simulated(
+    grid: &CellGrid,
+    layout_grid: &CellGrid,
+    design: StudyDesign,
+    estimator: InitialRateEstimator,
+    progress: ProgressMode,
+    fit_settings: &FitSettings,
+) -> Result<RunResults, String> {
+    let data = import_cells(grid, &ImportOptions::default()).map_err(|e| e.to_string())?;
+    let layout = parse_layout(layout_grid, data.plate).map_err(|e| e.to_string())?;
+    let settings = analysis_settings(design, estimator, progress);
+    analyse_inputs(data, layout, &settings, fit_settings, &mut |_, _| {}).map_err(|e| e.to_string())
+}
+
+/// One simulated plate analysed with one estimator.
+fn analyse_plate_results(
+    design: StudyDesign,
+    seed: u64,
+    estimator: InitialRateEstimator,
+    progress: ProgressMode,
+) -> Result<RunResults, String> {
+    let (grid, layout_grid) = simulated_cells(design, seed)?;
+    analyse_simulated(
+        &grid,
+        &layout_grid,
+        design,
+        estimator,
+        progress,
+        &study_fit_settings(design),
+    )
+}
+
+fn analyse_plate(
+    design: StudyDesign,
+    seed: u64,
+    estimators: &[InitialRateEstimatorKey],
+) -> Result<PlateIntervals, String> {
+    let (_, truths) = design_spec(design, seed);
+    let (grid, layout_grid) = simulated_cells(design, seed)?;
+    let fit_settings = study_fit_settings(design);
     let mut intervals = Vec::new();
     for (index, key) in estimators.iter().enumerate() {
-        let data = import_cells(&grid, &ImportOptions::default()).map_err(|e| e.to_string())?;
-        let layout = parse_layout(&layout_grid, data.plate).map_err(|e| e.to_string())?;
         // The progress-curve fit is the same whatever the estimator: run it once.
         let progress = if index == 0 && design != StudyDesign::Inhibition {
             ProgressMode::Always
         } else {
             ProgressMode::Never
         };
-        let settings = analysis_settings(design, key.estimator(), progress);
-        let results = analyse_inputs(data, layout, &settings, &fit_settings, &mut |_, _| {})
-            .map_err(|e| e.to_string())?;
+        let results = analyse_simulated(
+            &grid,
+            &layout_grid,
+            design,
+            key.estimator(),
+            progress,
+            &fit_settings,
+        )?;
         collect(
             &results,
             StudyAnalysis::InitialRate(*key),
@@ -406,6 +464,135 @@ fn true_value(truths: &[Truth], variant: &str, parameter: &str) -> Option<f64> {
         "Ki" => truth.ki,
         _ => None,
     }
+}
+
+/// One [S] (and [I]) level of the well-level check.
+#[derive(Debug, Clone, PartialEq)]
+pub struct WellLevelRow {
+    /// The design.
+    pub design: StudyDesign,
+    /// The variant.
+    pub variant: String,
+    /// [S] from the layout, uM.
+    pub substrate: f64,
+    /// [I] from the layout, uM (0 without inhibitor).
+    pub inhibitor: f64,
+    /// Wells over every plate.
+    pub wells: usize,
+    /// Mean relative error of the wells' initial rates against the truth at the layout's S0.
+    pub relative_bias: f64,
+    /// SD of the relative errors.
+    pub observed_relative_sd: f64,
+    /// Root-mean-square of the variance the fit gives the wells, `sqrt(se^2 + tau^2)`, over the
+    /// truth.
+    pub model_relative_sd: f64,
+}
+
+impl WellLevelRow {
+    /// Observed variance over the fit's: 1 where the variance model fits.
+    pub fn variance_ratio(&self) -> f64 {
+        (self.observed_relative_sd / self.model_relative_sd).powi(2)
+    }
+}
+
+/// One well of the well-level check: its level, its rate's relative error against the truth and
+/// the variance the fit gives it, over the truth squared.
+struct WellError {
+    variant: String,
+    substrate: f64,
+    inhibitor: f64,
+    relative_error: f64,
+    relative_model_variance: f64,
+}
+
+/// The true initial rate of a variant's well, uM/s, at `substrate` and `inhibitor` (competitive
+/// where the variant has a Ki, as the simulator's law).
+fn true_initial_rate(truth: &Truth, substrate: f64, inhibitor: f64) -> f64 {
+    let apparent_km = truth.km * truth.ki.map_or(1.0, |ki| 1.0 + inhibitor / ki);
+    truth.kcat * truth.enzyme_nm * 1e-3 * substrate / (apparent_km + substrate)
+}
+
+/// A level of the well-level check: variant, [S], [I].
+type LevelKey = (String, f64, f64);
+
+/// The well-level check (module docs) over `plates` plates of `design` with the `integrated`
+/// estimator: one row per variant and level, in level order.
+pub fn well_error_study(
+    design: StudyDesign,
+    plates: usize,
+    first_seed: u64,
+) -> Result<Vec<WellLevelRow>, String> {
+    let (_, truths) = design_spec(design, first_seed);
+    let outcomes: Vec<Vec<WellError>> = analyse_plates_on_threads(plates, |offset| {
+        let results = analyse_plate_results(
+            design,
+            first_seed + offset,
+            InitialRateEstimator::Integrated,
+            ProgressMode::Never,
+        )?;
+        let mut wells = Vec::new();
+        for fit in &results.fits {
+            let Some(truth) = truths.iter().find(|t| fit.group.text("variant") == Some(t.name)) else {
+                continue;
+            };
+            let extra = fit.extra_replicate_variance.map_or(0.0, |(tau2, _)| tau2);
+            for (well, rate, se) in &fit.initial_rates {
+                let Some(setup) = results.layout.wells.get(well) else {
+                    continue;
+                };
+                let substrate = setup
+                    .quantity(crate::layout::Quantity::Substrate)
+                    .unwrap_or(f64::NAN);
+                let inhibitor = setup.quantity(crate::layout::Quantity::Inhibitor).unwrap_or(0.0);
+                let truth_rate = true_initial_rate(truth, substrate, inhibitor);
+                wells.push(WellError {
+                    variant: truth.name.to_string(),
+                    substrate,
+                    inhibitor,
+                    relative_error: rate / truth_rate - 1.0,
+                    relative_model_variance: (se * se + extra) / (truth_rate * truth_rate),
+                });
+            }
+        }
+        Ok::<_, String>(wells)
+    })
+    .into_iter()
+    .collect::<Result<_, _>>()?;
+    // Wells by (variant, [S], [I]): (relative error, relative model variance) each.
+    let mut levels: Vec<(LevelKey, Vec<(f64, f64)>)> = Vec::new();
+    for well in outcomes.into_iter().flatten() {
+        let key = (well.variant, well.substrate, well.inhibitor);
+        let member = (well.relative_error, well.relative_model_variance);
+        match levels.iter_mut().find(|(k, _)| *k == key) {
+            Some((_, members)) => members.push(member),
+            None => levels.push((key, vec![member])),
+        }
+    }
+    levels.sort_by(|a, b| {
+        (a.0 .0.as_str(), a.0 .2, a.0 .1)
+            .partial_cmp(&(b.0 .0.as_str(), b.0 .2, b.0 .1))
+            .unwrap_or(std::cmp::Ordering::Equal)
+    });
+    Ok(levels
+        .into_iter()
+        .filter(|(_, members)| members.len() >= 2)
+        .map(|((variant, substrate, inhibitor), members)| {
+            let n = members.len() as f64;
+            let mean = members.iter().map(|(e, _)| e).sum::<f64>() / n;
+            let observed = (members.iter().map(|(e, _)| (e - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+            let model = (members.iter().map(|(_, v)| v).sum::<f64>() / n).sqrt();
+            WellLevelRow {
+                design,
+                variant,
+                substrate,
+                inhibitor,
+                wells: members.len(),
+                relative_bias: mean,
+                observed_relative_sd: observed,
+                model_relative_sd: model,
+            }
+        })
+        .collect())
 }
 
 /// Runs `analyse(0..plates)` on plain threads (one per core), results in plate order.
