@@ -20,7 +20,9 @@
 //! Start: each well's first reads give an initial slope v_i; over a log grid of Km from
 //! min(S0)/20 to 20 max(S0), kcat = median_i v_i (Km + S0_i) / (S0_i E0_i), and the grid point with
 //! the lowest residual sum of squares starts the fit. Extended models start from the
-//! Michaelis-Menten optimum with the extra term at 0.
+//! Michaelis-Menten optimum with the extra term at 0. A refit that follows an earlier fit (the
+//! extended models after the plain one, the profiled refit, the calibration sensitivity's
+//! perturbed inputs) starts from it instead ([`fit_group_from`]).
 //!
 //! Intervals: asymptotic `value +- t(0.975, n - p - m) se` (read-level, kept as
 //! `ci95_asymptotic`); clustered by well with `t(0.975, m - 1)` (the reported `ci95`); for Km also
@@ -819,8 +821,9 @@ pub fn fit_group_from(
         ..options.clone()
     };
     let plain = ProgressProblem::new(wells, &plain_options);
+    // A plain warm fit that failed above as the whole problem is not tried again as its stage.
     let warm_plain = warm
-        .filter(|fit| fit.model == ProgressModel::MichaelisMenten)
+        .filter(|fit| fit.model == ProgressModel::MichaelisMenten && options.model != fit.model)
         .and_then(|fit| warm_values(fit, &plain.parameter_names()))
         .and_then(|start| solve(&plain, &start, vec![0, 1], ProgressModel::MichaelisMenten.name()).ok());
     let (mut parameters, mut rss, mut iterations) = match warm_plain {

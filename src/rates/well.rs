@@ -62,7 +62,7 @@
 //! (the clean simulated design's slow variant at [S] near Km), and every interval built on it too
 //! wide (DEVELOPERS.md). The bend itself is what the `integrated` estimator corrects. Where a
 //! window is straight, `t_c^2` is about 1 and the two figures agree. Draper and Smith 1998, ch. 2
-//! (the extra sum of squares of a added term).
+//! (the extra sum of squares of an added term).
 //!
 //! # The read noise
 //! Each well's read-to-read noise is estimated from third differences of consecutive, evenly
