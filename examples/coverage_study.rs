@@ -68,15 +68,17 @@ fn main() -> ExitCode {
 
 /// The well-level check's table, one row per design, variant and level.
 fn print_well_levels(designs: &[StudyDesign], plates: usize) -> ExitCode {
-    println!("| design | variant | [S] | [I] | wells | bias | observed SD | model SD | variance ratio |");
-    println!("| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: |");
+    println!(
+        "| design | variant | [S] | [I] | wells | bias | observed SD | within-plate SD | model SD | variance ratio | within-plate ratio |"
+    );
+    println!("| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |");
     for &design in designs {
         let Some(rows) = or_report(design, well_error_study(design, plates, 1_000)) else {
             return ExitCode::from(2);
         };
         for row in rows {
             println!(
-                "| {} | {} | {} | {} | {} | {:+.2}% | {:.3}% | {:.3}% | {:.2} |",
+                "| {} | {} | {} | {} | {} | {:+.2}% | {:.3}% | {:.3}% | {:.3}% | {:.2} | {:.2} |",
                 row.design.name(),
                 row.variant,
                 row.substrate,
@@ -84,8 +86,10 @@ fn print_well_levels(designs: &[StudyDesign], plates: usize) -> ExitCode {
                 row.wells,
                 100.0 * row.relative_bias,
                 100.0 * row.observed_relative_sd,
+                100.0 * row.within_plate_relative_sd,
                 100.0 * row.model_relative_sd,
-                row.variance_ratio()
+                row.variance_ratio(),
+                row.within_plate_variance_ratio()
             );
         }
     }

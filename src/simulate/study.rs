@@ -24,7 +24,8 @@
 //! plus the replicates' extra variance). A ratio of 1 is a variance model that fits; the ratio's
 //! shape over the levels says which error the model misses. The observed scatter also holds what
 //! the wells of a plate share (blank, background law), which the fit carries as shared errors,
-//! so the ratio runs above 1 where a shared error is large.
+//! so the ratio runs above 1 where a shared error is large; the replicates' scatter about their
+//! own plate's mean at the level (the within-plate SD) leaves those out.
 
 use std::collections::BTreeMap;
 
@@ -483,6 +484,10 @@ pub struct WellLevelRow {
     pub relative_bias: f64,
     /// SD of the relative errors.
     pub observed_relative_sd: f64,
+    /// SD of the relative errors about each plate's own mean at the level (the replicates'
+    /// scatter): the wells' own errors without what a plate's wells share (blank, background law),
+    /// which is what the fit's per-well variance should match. NaN without replicates.
+    pub within_plate_relative_sd: f64,
     /// Root-mean-square of the variance the fit gives the wells, `sqrt(se^2 + tau^2)`, over the
     /// truth.
     pub model_relative_sd: f64,
@@ -492,6 +497,11 @@ impl WellLevelRow {
     /// Observed variance over the fit's: 1 where the variance model fits.
     pub fn variance_ratio(&self) -> f64 {
         (self.observed_relative_sd / self.model_relative_sd).powi(2)
+    }
+
+    /// The replicates' variance about their plate's mean over the fit's per-well variance.
+    pub fn within_plate_variance_ratio(&self) -> f64 {
+        (self.within_plate_relative_sd / self.model_relative_sd).powi(2)
     }
 }
 
@@ -514,6 +524,9 @@ fn true_initial_rate(truth: &Truth, substrate: f64, inhibitor: f64) -> f64 {
 
 /// A level of the well-level check: variant, [S], [I].
 type LevelKey = (String, f64, f64);
+
+/// A well of a level: its plate, relative error and relative model variance.
+type LevelMember = (usize, f64, f64);
 
 /// The well-level check (module docs) over `plates` plates of `design` with the `integrated`
 /// estimator: one row per variant and level, in level order.
@@ -558,14 +571,16 @@ pub fn well_error_study(
     })
     .into_iter()
     .collect::<Result<_, _>>()?;
-    // Wells by (variant, [S], [I]): (relative error, relative model variance) each.
-    let mut levels: Vec<(LevelKey, Vec<(f64, f64)>)> = Vec::new();
-    for well in outcomes.into_iter().flatten() {
-        let key = (well.variant, well.substrate, well.inhibitor);
-        let member = (well.relative_error, well.relative_model_variance);
-        match levels.iter_mut().find(|(k, _)| *k == key) {
-            Some((_, members)) => members.push(member),
-            None => levels.push((key, vec![member])),
+    // Wells by (variant, [S], [I]): (plate, relative error, relative model variance) each.
+    let mut levels: Vec<(LevelKey, Vec<LevelMember>)> = Vec::new();
+    for (plate, wells) in outcomes.into_iter().enumerate() {
+        for well in wells {
+            let key = (well.variant, well.substrate, well.inhibitor);
+            let member = (plate, well.relative_error, well.relative_model_variance);
+            match levels.iter_mut().find(|(k, _)| *k == key) {
+                Some((_, members)) => members.push(member),
+                None => levels.push((key, vec![member])),
+            }
         }
     }
     levels.sort_by(|a, b| {
@@ -578,9 +593,10 @@ pub fn well_error_study(
         .filter(|(_, members)| members.len() >= 2)
         .map(|((variant, substrate, inhibitor), members)| {
             let n = members.len() as f64;
-            let mean = members.iter().map(|(e, _)| e).sum::<f64>() / n;
-            let observed = (members.iter().map(|(e, _)| (e - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
-            let model = (members.iter().map(|(_, v)| v).sum::<f64>() / n).sqrt();
+            let mean = members.iter().map(|(_, e, _)| e).sum::<f64>() / n;
+            let observed =
+                (members.iter().map(|(_, e, _)| (e - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+            let model = (members.iter().map(|(_, _, v)| v).sum::<f64>() / n).sqrt();
             WellLevelRow {
                 design,
                 variant,
@@ -589,10 +605,30 @@ pub fn well_error_study(
                 wells: members.len(),
                 relative_bias: mean,
                 observed_relative_sd: observed,
+                within_plate_relative_sd: within_plate_sd(&members),
                 model_relative_sd: model,
             }
         })
         .collect())
+}
+
+/// The pooled SD of a level's wells about their own plate's mean (each plate's replicates), from
+/// `(plate, relative error, _)`; NaN without replicates.
+fn within_plate_sd(members: &[LevelMember]) -> f64 {
+    let mut by_plate: BTreeMap<usize, Vec<f64>> = BTreeMap::new();
+    for (plate, error, _) in members {
+        by_plate.entry(*plate).or_default().push(*error);
+    }
+    let (mut squares, mut degrees_of_freedom) = (0.0, 0usize);
+    for errors in by_plate.values().filter(|errors| errors.len() >= 2) {
+        let mean = errors.iter().sum::<f64>() / errors.len() as f64;
+        squares += errors.iter().map(|e| (e - mean).powi(2)).sum::<f64>();
+        degrees_of_freedom += errors.len() - 1;
+    }
+    if degrees_of_freedom == 0 {
+        return f64::NAN;
+    }
+    (squares / degrees_of_freedom as f64).sqrt()
 }
 
 /// Runs `analyse(0..plates)` on plain threads (one per core), results in plate order.
