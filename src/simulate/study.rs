@@ -150,6 +150,18 @@ struct Truth {
     ki: Option<f64>,
 }
 
+impl Truth {
+    /// The variant as the simulator takes it.
+    fn kinetics(&self) -> VariantKinetics {
+        VariantKinetics {
+            name: self.name.to_string(),
+            kcat_per_s: self.kcat,
+            km_um: self.km,
+            ki_um: self.ki,
+        }
+    }
+}
+
 const CLEAN_VARIANTS: [Truth; 2] = [
     Truth {
         name: "fast",
@@ -254,15 +266,7 @@ fn design_spec(design: StudyDesign, seed: u64) -> (SimulationSpec, Vec<Truth>) {
         extinction_coefficient_per_m_per_cm: EXTINCTION,
         pathlength_cm: PATHLENGTH,
         readout: super::Readout::Product,
-        variants: variants
-            .iter()
-            .map(|truth| VariantKinetics {
-                name: truth.name.to_string(),
-                kcat_per_s: truth.kcat,
-                km_um: truth.km,
-                ki_um: truth.ki,
-            })
-            .collect(),
+        variants: variants.iter().map(Truth::kinetics).collect(),
         layout,
         defects: Vec::new(),
         liquid_offset_range_au: (0.04, 0.06),
@@ -307,11 +311,9 @@ fn analysis_settings(
     settings
 }
 
-/// A simulated plate of `design` as the files a user would give: the export's and the layout's
-/// cells.
-fn simulated_cells(design: StudyDesign, seed: u64) -> Result<(CellGrid, CellGrid), String> {
-    let (spec, _) = design_spec(design, seed);
-    let plate = simulate(&spec).map_err(|error| error.to_string())?;
+/// A simulated plate as the files a user would give: the export's and the layout's cells.
+fn simulated_cells(spec: &SimulationSpec) -> Result<(CellGrid, CellGrid), String> {
+    let plate = simulate(spec).map_err(|error| error.to_string())?;
     let data_csv = wide_csv(&plate, &WideCsvOptions::default());
     let layout_csv = layout_tidy_csv(&plate);
     let grid = read_text_cells(data_csv.as_bytes(), "study.csv").map_err(|e| e.to_string())?;
@@ -352,7 +354,8 @@ fn analyse_plate_results(
     estimator: InitialRateEstimator,
     progress: ProgressMode,
 ) -> Result<RunResults, String> {
-    let (grid, layout_grid) = simulated_cells(design, seed)?;
+    let (spec, _) = design_spec(design, seed);
+    let (grid, layout_grid) = simulated_cells(&spec)?;
     analyse_simulated(
         &grid,
         &layout_grid,
@@ -368,8 +371,8 @@ fn analyse_plate(
     seed: u64,
     estimators: &[InitialRateEstimatorKey],
 ) -> Result<PlateIntervals, String> {
-    let (_, truths) = design_spec(design, seed);
-    let (grid, layout_grid) = simulated_cells(design, seed)?;
+    let (spec, truths) = design_spec(design, seed);
+    let (grid, layout_grid) = simulated_cells(&spec)?;
     let fit_settings = study_fit_settings(design);
     let mut intervals = Vec::new();
     for (index, key) in estimators.iter().enumerate() {
@@ -515,11 +518,12 @@ struct WellError {
     relative_model_variance: f64,
 }
 
-/// The true initial rate of a variant's well, uM/s, at `substrate` and `inhibitor` (competitive
-/// where the variant has a Ki, as the simulator's law).
+/// The true initial rate of a variant's well, uM/s, at the layout's `substrate` and `inhibitor`:
+/// the simulator's own law for the well (`well_kinetics`), without pipetting error or
+/// spontaneous turnover, so that what the check sees of those is error.
 fn true_initial_rate(truth: &Truth, substrate: f64, inhibitor: f64) -> f64 {
-    let apparent_km = truth.km * truth.ki.map_or(1.0, |ki| 1.0 + inhibitor / ki);
-    truth.kcat * truth.enzyme_nm * 1e-3 * substrate / (apparent_km + substrate)
+    let condition = WellCondition::sample(substrate, truth.enzyme_nm, truth.name).with_inhibitor(inhibitor);
+    super::well_kinetics(&condition, Some(&truth.kinetics()), 0.0, 0.0, 1.0).initial_rate()
 }
 
 /// A level of the well-level check: variant, [S], [I].
