@@ -177,6 +177,8 @@ fn pool_shared_errors(
                 se: well.rate_se,
                 background: well.correction.background.clone(),
                 rate_per_chord,
+                substrate_sensitivity: None,
+                law_feedback: None,
             }
         })
         .collect();
@@ -188,6 +190,7 @@ fn pool_shared_errors(
             blank: BlankUncertainty::None,
             ..corrections.clone()
         },
+        None,
     );
     // The blank's, for the wells without a background only: a background from no-enzyme controls
     // had the same blank subtracted from the controls' reads, so a blank error moves the sample and
@@ -202,7 +205,7 @@ fn pool_shared_errors(
         .filter(|(_, unserved)| **unserved)
         .map(|(point, _)| point.clone())
         .collect();
-    let blank = shared_rate_errors(&blank_points, &corrections);
+    let blank = shared_rate_errors(&blank_points, &corrections, None);
     let (blank_errors, background_errors) = (blank.covariance.len(), background.covariance.len());
     if blank_errors + background_errors == 0 {
         return (vec![Vec::new(); wells.len()], Vec::new());

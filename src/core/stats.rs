@@ -297,6 +297,103 @@ pub fn extra_replicate_variance(groups: &[Vec<(f64, f64)>]) -> Option<(f64, usiz
     ))
 }
 
+/// The variance of a replicate measurement beyond its own standard error, in two parts: a
+/// constant (additive errors the same at every level: per-well drift) and a relative error in
+/// the well's substrate (pipetting), which moves a rate by its sensitivity `g = d v / d ln S0`:
+/// `var = constant + substrate_cv_squared g^2`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ExtraVariance {
+    /// The constant part, value units squared.
+    pub constant: f64,
+    /// The squared relative error of S0 (the pipetting CV squared).
+    pub substrate_cv_squared: f64,
+    /// Degrees of freedom behind the estimate (`sum_j (n_j - 1)`).
+    pub degrees_of_freedom: usize,
+}
+
+impl ExtraVariance {
+    /// The extra variance of a measurement whose value moves by `sensitivity` per unit `ln S0`.
+    pub fn at(&self, sensitivity: f64) -> f64 {
+        self.constant + self.substrate_cv_squared * sensitivity * sensitivity
+    }
+}
+
+/// Rounds of reweighting in [`extra_variance_with_substrate_term`].
+const EXTRA_VARIANCE_ROUNDS: usize = 3;
+
+/// [`ExtraVariance`] from groups of replicates `(members (value, se), mean g^2)`, by weighted
+/// moments: each group's `d_j = (Q_j - (1 - 1/n_j) sum_i se_ij^2) / (n_j - 1)` (unbiased for the
+/// group's extra variance, as in [`extra_replicate_variance`]) is regressed on `(1, g_j^2)` with
+/// weights `(n_j - 1) / v_j^2`, `v_j` the group's total variance at the current estimate
+/// (inverse-variance weights for a sample variance), in a few rounds from equal weights. Both
+/// parts are kept non-negative: when the pair is not, the better of the two one-part fits is
+/// taken. `None` with fewer than two groups of two or more.
+///
+/// Assumptions: replicates independent, with variance `se^2 + a + b g^2` and `g` the same for a
+/// group's members. References: weighted moment estimation of variance components as in
+/// DerSimonian and Laird 1986 (Control Clin Trials 7:177) extended to a meta-regression of the
+/// variance on a covariate (common practice; from memory).
+pub fn extra_variance_with_substrate_term(groups: &[(Vec<(f64, f64)>, f64)]) -> Option<ExtraVariance> {
+    let mut rows: Vec<(f64, f64, f64, f64)> = Vec::new();
+    let mut degrees_of_freedom = 0usize;
+    for (group, g2) in groups.iter().filter(|(g, _)| g.len() >= 2) {
+        let n = group.len() as f64;
+        let centre = group.iter().map(|(value, _)| value).sum::<f64>() / n;
+        let q: f64 = group.iter().map(|(value, _)| (value - centre).powi(2)).sum();
+        let e: f64 = (1.0 - 1.0 / n) * group.iter().map(|(_, se)| se * se).sum::<f64>();
+        let mean_se2 = group.iter().map(|(_, se)| se * se).sum::<f64>() / n;
+        rows.push(((q - e) / (n - 1.0), *g2, n - 1.0, mean_se2));
+        degrees_of_freedom += group.len() - 1;
+    }
+    if rows.len() < 2
+        || rows
+            .iter()
+            .any(|(d, x, _, v)| !(d.is_finite() && x.is_finite() && v.is_finite()))
+    {
+        return None;
+    }
+    let (mut a, mut b) = (0.0, 0.0);
+    for _ in 0..EXTRA_VARIANCE_ROUNDS {
+        let weight = |x: f64, m: f64, se2: f64| {
+            let v = se2 + a + b * x;
+            m / (v * v).max(f64::MIN_POSITIVE)
+        };
+        let (mut s11, mut s12, mut s22, mut t1, mut t2) = (0.0, 0.0, 0.0, 0.0, 0.0);
+        for &(d, x, m, se2) in &rows {
+            let w = weight(x, m, se2);
+            s11 += w;
+            s12 += w * x;
+            s22 += w * x * x;
+            t1 += w * d;
+            t2 += w * x * d;
+        }
+        let constant_only = (t1 / s11).max(0.0);
+        let substrate_only = if s22 > 0.0 { (t2 / s22).max(0.0) } else { 0.0 };
+        let misfit = |a1: f64, b1: f64| {
+            rows.iter()
+                .map(|&(d, x, m, se2)| weight(x, m, se2) * (d - a1 - b1 * x).powi(2))
+                .sum::<f64>()
+        };
+        let determinant = s11 * s22 - s12 * s12;
+        let both = (determinant > 1e-12 * s11 * s22).then(|| {
+            (
+                (s22 * t1 - s12 * t2) / determinant,
+                (s11 * t2 - s12 * t1) / determinant,
+            )
+        });
+        (a, b) = match both {
+            Some((a, b)) if a >= 0.0 && b >= 0.0 => (a, b),
+            _ if misfit(constant_only, 0.0) <= misfit(0.0, substrate_only) => (constant_only, 0.0),
+            _ => (0.0, substrate_only),
+        };
+    }
+    (a.is_finite() && b.is_finite()).then_some(ExtraVariance {
+        constant: a,
+        substrate_cv_squared: b,
+        degrees_of_freedom,
+    })
+}
+
 /// `count` indices evenly spaced over `0..len`: the first and the last among them, increasing and
 /// distinct; every index when `count >= len`, and the first `count` when `count < 2`. Index `i` is
 /// `round(i (len - 1) / (count - 1))`, so steps differ by at most one.
@@ -354,6 +451,56 @@ mod tests {
         let (tau2, df) = extra_replicate_variance(&groups).unwrap();
         assert_eq!(df, 8000);
         assert!((tau2 / 0.25 - 1.0).abs() < 0.06, "{tau2}");
+    }
+
+    #[test]
+    fn extra_variance_with_a_substrate_term_recovers_both_parts_and_falls_back_to_one() {
+        use rand::SeedableRng;
+        use rand_distr::{Distribution, Normal};
+        let mut generator = rand_chacha::ChaCha8Rng::seed_from_u64(17);
+        let standard = Normal::new(0.0, 1.0).unwrap();
+        // Eight levels whose sensitivities g run from 1 to 0.05 (as d v / d ln S0 does from low
+        // [S] to the top), triplicates with se 0.01: extra variance a + b g^2.
+        let sensitivities = [1.0, 0.9, 0.7, 0.5, 0.3, 0.15, 0.08, 0.05];
+        let mut simulate = |a: f64, b: f64, plates: usize| -> Vec<(Vec<(f64, f64)>, f64)> {
+            (0..plates)
+                .flat_map(|_| sensitivities.to_vec())
+                .map(|g: f64| {
+                    let sd = (1e-4 + a + b * g * g).sqrt();
+                    let members = (0..3)
+                        .map(|_| (sd * standard.sample(&mut generator), 0.01))
+                        .collect();
+                    (members, g * g)
+                })
+                .collect()
+        };
+        // Both parts (a = 4e-4, b = 9e-4: a 3% CV on S0): 500 plates' worth recovers each within a
+        // few percent.
+        let both = extra_variance_with_substrate_term(&simulate(4e-4, 9e-4, 500)).unwrap();
+        assert_eq!(both.degrees_of_freedom, 500 * 8 * 2);
+        assert!((both.constant / 4e-4 - 1.0).abs() < 0.1, "{both:?}");
+        assert!((both.substrate_cv_squared / 9e-4 - 1.0).abs() < 0.1, "{both:?}");
+        assert_relative_eq!(both.at(0.5), both.constant + 0.25 * both.substrate_cv_squared);
+        // Pipetting alone: the constant is (close to) nothing and b is recovered.
+        let pipetting = extra_variance_with_substrate_term(&simulate(0.0, 9e-4, 500)).unwrap();
+        assert!(pipetting.constant < 2e-5, "{pipetting:?}");
+        assert!(
+            (pipetting.substrate_cv_squared / 9e-4 - 1.0).abs() < 0.1,
+            "{pipetting:?}"
+        );
+        // A constant alone: b is (close to) nothing.
+        let constant = extra_variance_with_substrate_term(&simulate(4e-4, 0.0, 500)).unwrap();
+        assert!((constant.constant / 4e-4 - 1.0).abs() < 0.1, "{constant:?}");
+        assert!(constant.substrate_cv_squared < 4e-5, "{constant:?}");
+        // Neither part is ever negative; one group is not enough.
+        for _ in 0..50 {
+            let noisy = extra_variance_with_substrate_term(&simulate(0.0, 0.0, 1)).unwrap();
+            assert!(
+                noisy.constant >= 0.0 && noisy.substrate_cv_squared >= 0.0,
+                "{noisy:?}"
+            );
+        }
+        assert!(extra_variance_with_substrate_term(&[(vec![(1.0, 0.1), (1.2, 0.1)], 1.0)]).is_none());
     }
 
     #[test]

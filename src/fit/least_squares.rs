@@ -337,16 +337,25 @@ impl LeastSquaresFit {
         Ok(self)
     }
 
-    /// Adds the covariance that errors shared by many observations contribute to the estimates'
-    /// (their standard errors and correlations follow), and keeps it apart in `shared_covariance`.
-    pub fn add_shared_covariance(&mut self, shared: DMatrix<f64>) {
+    /// Maps the covariance (and its shared part) through a linear change of the estimates' error,
+    /// `C -> T C T'` (see [`crate::fit::models::RateFeedback`]); standard errors and correlations
+    /// follow. Left as it is when `T` does not fit the covariance.
+    pub fn transform_covariance(&mut self, transform: &DMatrix<f64>) {
         let Some(covariance) = self.covariance.as_mut() else {
             return;
         };
-        if shared.shape() != covariance.shape() || !all_finite_matrix(&shared) {
+        if transform.shape() != covariance.shape() || !all_finite_matrix(transform) {
             return;
         }
-        *covariance += &shared;
+        *covariance = transform * &*covariance * transform.transpose();
+        if let Some(shared) = self.shared_covariance.as_mut() {
+            *shared = transform * &*shared * transform.transpose();
+        }
+        let covariance = covariance.clone();
+        self.set_standard_errors_from(&covariance);
+    }
+
+    fn set_standard_errors_from(&mut self, covariance: &DMatrix<f64>) {
         let standard_errors: Vec<f64> = (0..covariance.nrows())
             .map(|i| covariance[(i, i)].max(0.0).sqrt())
             .collect();
@@ -363,6 +372,20 @@ impl LeastSquaresFit {
             },
         ));
         self.standard_errors = Some(standard_errors);
+    }
+
+    /// Adds the covariance that errors shared by many observations contribute to the estimates'
+    /// (their standard errors and correlations follow), and keeps it apart in `shared_covariance`.
+    pub fn add_shared_covariance(&mut self, shared: DMatrix<f64>) {
+        let Some(covariance) = self.covariance.as_mut() else {
+            return;
+        };
+        if shared.shape() != covariance.shape() || !all_finite_matrix(&shared) {
+            return;
+        }
+        *covariance += &shared;
+        let covariance = covariance.clone();
+        self.set_standard_errors_from(&covariance);
         self.shared_covariance = Some(shared);
     }
 

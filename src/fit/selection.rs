@@ -463,14 +463,20 @@ pub fn analyse_rates(
     let mut fit = robust.fit;
     // Corrections subtracted from many rates at once (a blank, a background) move them together:
     // their uncertainty joins the fit's.
-    let shared = super::models::RateModel {
+    let model = super::models::RateModel {
         kind: fit.kind,
         data,
         extra_weights: robust.robust_weights.as_deref(),
-    }
-    .shared_covariance(&fit.fit.parameters);
+    };
+    let shared = model.shared_covariance(&fit.fit.parameters);
     if let Some(shared) = shared {
         fit.fit.add_shared_covariance(shared);
+    }
+    // Rates corrected by this same law move with it: the estimates' error is fed back
+    // ([`super::models::RateFeedback`]).
+    let feedback = model.feedback_transform(&fit.fit.parameters);
+    if let Some(transform) = feedback {
+        fit.fit.transform_covariance(&transform);
     }
     if !fit.converged() {
         warnings.push(format!(

@@ -8,6 +8,24 @@
 //! Every number of a group's report comes from one fit: a plain Michaelis-Menten group is fitted
 //! once by the general rate-law fit, and its Michaelis-Menten description (design warnings, Vmax/Km
 //! by the reparametrised Jacobian, linearised diagnostics) is made from that same fit.
+//!
+//! # A plate's rates as the fit weighs them (`rate-se`)
+//! * Each rate's variance is its own standard error squared plus what its replicates scatter
+//!   beyond it ([`replicate_extra_variance`]). Under the integrated estimator that extra variance
+//!   is `a + CV^2 g^2`: `a` a constant (per-well drift), `CV` a relative error of the well's S0
+//!   (pipetting) and `g = d rate / d ln S0` from the group's law at the layout's S0, which takes in
+//!   the correction's amplification at low [S] and the spontaneous turnover pipetted with the
+//!   substrate ([`initial_rate::rate_per_log_substrate`]). Taken from the law, not the well's own
+//!   rate, so a weight does not follow its own observation.
+//! * Errors the rates share (the blank, each background) are loadings on shared errors
+//!   ([`shared_rate_errors`]); a matched control is a well too, so its background carries the
+//!   same extra variance as a sample's.
+//! * Rates corrected by the group's own law move with it: the law's covariance is fed back
+//!   through `M = J'W (J - H)` ([`crate::fit::models::RateFeedback`]), `H` the rates' derivatives in
+//!   the law's parameters ([`law_feedback`]).
+//!
+//! The simulation study behind these choices (coverage of kcat, Km, kcat/Km and Ki over 1000
+//! plates a design, and the per-level check) is in DEVELOPERS.md.
 
 pub mod calibration;
 pub mod initial_rate;
@@ -18,7 +36,9 @@ use std::collections::BTreeMap;
 
 use crate::config::{FitSettings, InitialRateEstimator, ModelRequest, RateModelKind, RobustLoss, Weighting};
 use crate::core::plate::WellId;
-use crate::core::stats::{extra_replicate_variance, summary, t_quantile_975};
+use crate::core::stats::{
+    extra_replicate_variance, extra_variance_with_substrate_term, summary, t_quantile_975, ExtraVariance,
+};
 use crate::core::units::{ConcentrationUnit, MassConcentrationUnit};
 use crate::fit::inference::{ConstantEstimate, Dimension, ProfileInterval};
 use crate::fit::models::RateData;
@@ -33,7 +53,7 @@ use crate::layout::Layout;
 use crate::rates::background::{Background, BackgroundLaw};
 use crate::rates::{Flag, PlateAnalysis, WellResult};
 use crate::signal::BlankUncertainty;
-use initial_rate::{corrected_initial_rate, rate_shape, WindowChord};
+use initial_rate::{corrected_initial_rate, rate_per_log_substrate, rate_shape, WindowChord};
 
 /// One value of a group's key: a factor's text or a concentration.
 #[derive(Debug, Clone, PartialEq)]
@@ -213,8 +233,13 @@ pub struct GroupFit {
     /// The reported rate law as fitted (its parametrisation), for predictions.
     pub law: Option<FittedLaw>,
     /// With `rate-se` weighting: the variance between replicates beyond their standard errors
-    /// (rate units squared) and its degrees of freedom, added to every point's.
-    pub extra_replicate_variance: Option<(f64, usize)>,
+    /// (rate units squared: a constant and, under the integrated estimator, a relative error of
+    /// S0) and its degrees of freedom, added to every point's.
+    pub extra_variance: Option<ExtraVariance>,
+    /// Each plate point's extra variance as its weight took it (rate units squared).
+    pub extra_variance_by_well: Vec<(WellId, f64)>,
+    /// The fitted wells' `d rate / d ln S0` as their weights took it (the integrated estimator's).
+    pub substrate_sensitivities: Vec<(WellId, f64)>,
 }
 
 /// A fitted rate law in its own parametrisation (inverse constants as `1/K`), for predictions.
@@ -226,6 +251,19 @@ pub struct FittedLaw {
     pub parameters: Vec<f64>,
     /// The enzyme concentration in the inhibitor's unit (Morrison), 0 when unknown.
     pub enzyme: f64,
+}
+
+impl FittedLaw {
+    /// The law's shape at a point's S0 and [I], as the depletion correction needs it.
+    fn shape_at(&self, point: &FitPoint) -> initial_rate::RateShape {
+        rate_shape(
+            self.kind,
+            &self.parameters,
+            point.substrate,
+            point.inhibitor,
+            self.enzyme,
+        )
+    }
 }
 
 /// Rounds of correction and refit before the integrated estimator gives up converging.
@@ -383,6 +421,13 @@ pub struct FitPoint {
     /// How the rate moves with its window's slope (1 for the slope itself; the integrated
     /// estimator's derivative for a corrected rate).
     pub rate_per_chord: f64,
+    /// How the rate moves with the well's true S0, `d rate / d ln S0` at the layout's S0, from the
+    /// group's fitted law (the integrated estimator sets it; see [`initial_rate`]); the shape of
+    /// the pipetting part of the rate's extra variance.
+    pub substrate_sensitivity: Option<f64>,
+    /// For a rate corrected by the group's own law: that law and the rate's derivative in each of
+    /// its parameters (see [`crate::fit::models::RateFeedback`]).
+    pub law_feedback: Option<(RateModelKind, Vec<f64>)>,
 }
 
 /// What a plate's points share: the blank subtracted from every read and the conversion to
@@ -421,7 +466,11 @@ impl PlateCorrections {
 /// [`crate::fit::models::SharedRateErrors`]): the blank's (a rate is minus the blank's slope over
 /// its window, converted) and each background model's (a rate is minus its background). Points
 /// without a window (rate tables) share none.
-pub fn shared_rate_errors(points: &[FitPoint], corrections: &PlateCorrections) -> SharedRateErrors {
+pub fn shared_rate_errors(
+    points: &[FitPoint],
+    corrections: &PlateCorrections,
+    control_extra_variance: Option<&crate::core::stats::ExtraVariance>,
+) -> SharedRateErrors {
     let n = points.len();
     let mut columns: Vec<Vec<f64>> = Vec::new();
     let mut blocks: Vec<Vec<Vec<f64>>> = Vec::new();
@@ -549,7 +598,23 @@ pub fn shared_rate_errors(points: &[FitPoint], corrections: &PlateCorrections) -
                 })
                 .collect(),
         );
-        blocks.push(vec![vec![se * se]]);
+        // The controls are wells too: their drift and the substrate pipetted into their turnover
+        // scatter them beyond their slopes' standard errors, and every sample they serve shares it.
+        let controls = points
+            .iter()
+            .find_map(|p| match &p.background {
+                Some(Background::Matched {
+                    rate: r,
+                    se: s,
+                    controls,
+                }) if (*r, *s) == (rate, se) => Some(*controls),
+                _ => None,
+            })
+            .unwrap_or(1)
+            .max(1);
+        // A control's turnover moves with its own S0 as the samples' does (taken proportional to S).
+        let extra = control_extra_variance.map_or(0.0, |model| model.at(rate.max(0.0)) / controls as f64);
+        blocks.push(vec![vec![se * se + extra]]);
     }
     let size: usize = blocks.iter().map(Vec::len).sum();
     let mut covariance = vec![vec![0.0; size]; size];
@@ -632,6 +697,8 @@ fn fit_one_group(
             se: well.rate_se,
             background: well.correction.background.clone(),
             rate_per_chord: 1.0,
+            substrate_sensitivity: None,
+            law_feedback: None,
         };
         let reason = left_out_reason(well);
         if let (Some(_), Some(substrate), Some(rate)) = (&reason, well.setup.substrate, well.rate_value) {
@@ -750,7 +817,9 @@ fn empty_report(
         estimator: InitialRateEstimator::Chord,
         initial_rates: Vec::new(),
         law: None,
-        extra_replicate_variance: None,
+        extra_variance: None,
+        extra_variance_by_well: Vec::new(),
+        substrate_sensitivities: Vec::new(),
     }
 }
 
@@ -761,14 +830,64 @@ fn corrected_rates(points: &[FitPoint], law: &FittedLaw) -> Vec<Option<(f64, f64
         .iter()
         .map(|point| {
             let window = point.window.as_ref()?;
-            let shape = rate_shape(
+            let shape = law.shape_at(point);
+            corrected_initial_rate(window, point.substrate, shape)
+        })
+        .collect()
+}
+
+/// Relative step in a law's parameter for [`law_feedback`]'s central differences.
+const LAW_PARAMETER_STEP: f64 = 1e-5;
+
+/// Each point's corrected rate's derivative in each of `law`'s parameters (central differences of
+/// [`corrected_rates`]); zero for a point the law does not correct.
+fn law_feedback(points: &[FitPoint], law: &FittedLaw) -> Vec<Vec<f64>> {
+    let mut rows = vec![vec![0.0; law.parameters.len()]; points.len()];
+    for parameter in 0..law.parameters.len() {
+        let value = law.parameters[parameter];
+        let step = LAW_PARAMETER_STEP * value.abs().max(f64::MIN_POSITIVE);
+        let moved = |by: f64| {
+            let mut moved = law.clone();
+            moved.parameters[parameter] = value + by;
+            corrected_rates(points, &moved)
+        };
+        let (up, down) = (moved(step), moved(-step));
+        for (row, (high, low)) in rows.iter_mut().zip(up.iter().zip(&down)) {
+            if let (Some((high, _)), Some((low, _))) = (high, low) {
+                let derivative = (high - low) / (2.0 * step);
+                if derivative.is_finite() {
+                    row[parameter] = derivative;
+                }
+            }
+        }
+    }
+    rows
+}
+
+/// Each point's `d rate / d ln S0` from `law` at the layout's S0 ([`rate_per_log_substrate`]), the
+/// background's first-order part counted as turnover pipetted with the substrate: a matched
+/// control's rate (no-enzyme turnover taken as proportional to S), a background law's `k S0`.
+fn substrate_sensitivities(points: &[FitPoint], law: &FittedLaw) -> Vec<Option<f64>> {
+    let mut gradient = vec![0.0; law.parameters.len()];
+    points
+        .iter()
+        .map(|point| {
+            let window = point.window.as_ref()?;
+            let shape = law.shape_at(point);
+            let law_rate = crate::fit::models::predict_rate(
                 law.kind,
                 &law.parameters,
                 point.substrate,
                 point.inhibitor,
                 law.enzyme,
+                &mut gradient,
             );
-            corrected_initial_rate(window, point.substrate, shape)
+            let turnover = match &point.background {
+                Some(Background::Matched { rate, .. }) => rate.max(0.0),
+                Some(Background::Modelled { law, .. }) => (law.slope * point.substrate).max(0.0),
+                _ => 0.0,
+            };
+            rate_per_log_substrate(window, point.substrate, shape, law_rate, turnover)
         })
         .collect()
 }
@@ -795,9 +914,13 @@ fn correct_for_depletion(
     for _ in 0..CORRECTION_ROUNDS {
         let Some(fitted) = law.as_ref() else { break };
         let corrected = corrected_rates(points, fitted);
+        let sensitivities = substrate_sensitivities(points, fitted);
         let mut next = points.to_vec();
         let mut largest_change = 0.0f64;
-        for ((point, original), new) in next.iter_mut().zip(points).zip(&corrected) {
+        for (((point, original), new), sensitivity) in
+            next.iter_mut().zip(points).zip(&corrected).zip(&sensitivities)
+        {
+            point.substrate_sensitivity = *sensitivity;
             if let Some((rate, se)) = new {
                 any_corrected = true;
                 point.rate = *rate;
@@ -837,6 +960,11 @@ fn correct_for_depletion(
         report.estimator = InitialRateEstimator::Chord;
         return;
     }
+    if let Some(fitted) = law.as_ref() {
+        for (point, row) in current_points.iter_mut().zip(law_feedback(points, fitted)) {
+            point.law_feedback = Some((fitted.kind, row));
+        }
+    }
     let left_out = report.wells_left_out.clone();
     let mut final_report = fit_points(
         report.group.clone(),
@@ -855,6 +983,10 @@ fn correct_for_depletion(
         .chain(final_report.warnings.iter().cloned())
         .collect();
     final_report.estimator = InitialRateEstimator::Integrated;
+    final_report.substrate_sensitivities = current_points
+        .iter()
+        .filter_map(|point| Some((point.well?, point.substrate_sensitivity?)))
+        .collect();
     let mut initial_rates: Vec<(WellId, f64, f64)> = Vec::new();
     if let Some(fitted) = final_report.law.clone() {
         for (point, rate) in points.iter().zip(corrected_rates(points, &fitted)) {
@@ -878,23 +1010,68 @@ fn correct_for_depletion(
 /// Pure-error degrees of freedom below which the replicates' extra variance is not estimated.
 const MIN_REPLICATE_DEGREES_OF_FREEDOM: usize = 3;
 
-/// The variance between replicate points (same [S] and [I]) beyond their standard errors
-/// ([`crate::core::stats::extra_replicate_variance`]), with its degrees of freedom; `None` with
-/// fewer than [`MIN_REPLICATE_DEGREES_OF_FREEDOM`].
-fn replicate_extra_variance(points: &[FitPoint], ses: &[f64]) -> Option<(f64, usize)> {
+/// The variance between replicate points (same [S] and [I]) beyond their standard errors, with
+/// its degrees of freedom; `None` with fewer than [`MIN_REPLICATE_DEGREES_OF_FREEDOM`]. Where
+/// every point carries its `d rate / d ln S0` (the integrated estimator), a constant part and a
+/// relative error of S0 ([`extra_variance_with_substrate_term`]): pipetting moves a rate most at
+/// [S] near Km and little at the ends, which one constant spreads evenly over the levels (mid-[S]
+/// points, which carry Km, then weigh too much and the top ones, which carry kcat, too little);
+/// else the constant alone ([`extra_replicate_variance`]).
+fn replicate_extra_variance(points: &[FitPoint], ses: &[f64]) -> Option<ExtraVariance> {
+    let sensitivities: Option<Vec<f64>> = points.iter().map(|p| p.substrate_sensitivity).collect();
+    // Levels in order of first appearance: members (rate, se) and the sum of their g^2.
     let mut levels: Vec<(f64, f64)> = Vec::new();
-    let mut groups: Vec<Vec<(f64, f64)>> = Vec::new();
-    for (point, se) in points.iter().zip(ses) {
+    let mut groups: Vec<(Vec<(f64, f64)>, f64)> = Vec::new();
+    for (index, (point, se)) in points.iter().zip(ses).enumerate() {
         let level = (point.substrate, point.inhibitor);
+        let g2 = sensitivities.as_ref().map_or(0.0, |g| g[index] * g[index]);
         match levels.iter().position(|known| *known == level) {
-            Some(index) => groups[index].push((point.rate, *se)),
+            Some(at) => {
+                groups[at].0.push((point.rate, *se));
+                groups[at].1 += g2;
+            }
             None => {
                 levels.push(level);
-                groups.push(vec![(point.rate, *se)]);
+                groups.push((vec![(point.rate, *se)], g2));
             }
         }
     }
-    extra_replicate_variance(&groups).filter(|(_, df)| *df >= MIN_REPLICATE_DEGREES_OF_FREEDOM)
+    let model = if sensitivities.is_some() {
+        let mean_g2: Vec<(Vec<(f64, f64)>, f64)> = groups
+            .into_iter()
+            .map(|(members, g2)| {
+                let mean = g2 / members.len() as f64;
+                (members, mean)
+            })
+            .collect();
+        extra_variance_with_substrate_term(&mean_g2)
+    } else {
+        let members: Vec<Vec<(f64, f64)>> = groups.into_iter().map(|(members, _)| members).collect();
+        extra_replicate_variance(&members).map(|(tau2, degrees_of_freedom)| ExtraVariance {
+            constant: tau2,
+            substrate_cv_squared: 0.0,
+            degrees_of_freedom,
+        })
+    };
+    model.filter(|model| model.degrees_of_freedom >= MIN_REPLICATE_DEGREES_OF_FREEDOM)
+}
+
+/// The points' [`RateFeedback`] when every one carries a derivative for the same law.
+fn rate_feedback(points: &[FitPoint]) -> Option<crate::fit::models::RateFeedback> {
+    let kind = points.first()?.law_feedback.as_ref()?.0;
+    let per_parameter: Option<Vec<Vec<f64>>> = points
+        .iter()
+        .map(|p| {
+            p.law_feedback
+                .as_ref()
+                .filter(|(k, _)| *k == kind)
+                .map(|(_, row)| row.clone())
+        })
+        .collect();
+    Some(crate::fit::models::RateFeedback {
+        kind,
+        per_parameter: per_parameter?,
+    })
 }
 
 /// Fits one group's points and builds its report (shared by runs and `platekin fit`).
@@ -923,9 +1100,26 @@ pub fn fit_points(
         let ses: Option<Vec<f64>> = points.iter().map(|p| p.se).collect();
         // Wells scatter beyond their own standard errors (pipetting, per-well drift): the extra
         // component, from the replicates, joins every point's variance.
-        report.extra_replicate_variance = ses.as_ref().and_then(|ses| replicate_extra_variance(points, ses));
-        let extra = report.extra_replicate_variance.map_or(0.0, |(tau2, _)| tau2);
-        ses.map(|ses| ses.iter().map(|se| (se * se + extra).sqrt()).collect())
+        report.extra_variance = ses.as_ref().and_then(|ses| replicate_extra_variance(points, ses));
+        let extras: Vec<f64> = points
+            .iter()
+            .map(|p| {
+                report
+                    .extra_variance
+                    .map_or(0.0, |model| model.at(p.substrate_sensitivity.unwrap_or(0.0)))
+            })
+            .collect();
+        report.extra_variance_by_well = points
+            .iter()
+            .zip(&extras)
+            .filter_map(|(p, extra)| p.well.map(|well| (well, *extra)))
+            .collect();
+        ses.map(|ses| {
+            ses.iter()
+                .zip(&extras)
+                .map(|(se, extra)| (se * se + extra).sqrt())
+                .collect()
+        })
     } else {
         points.iter().map(|p| p.sd).collect()
     };
@@ -975,8 +1169,9 @@ pub fn fit_points(
     ) {
         Ok(mut data) => {
             if let Some(corrections) = corrections {
-                data.shared = shared_rate_errors(points, corrections);
+                data.shared = shared_rate_errors(points, corrections, report.extra_variance.as_ref());
             }
+            data.feedback = rate_feedback(points);
             data
         }
         Err(error) => {
@@ -1292,6 +1487,8 @@ mod tests {
             se: Some(1e-5),
             background,
             rate_per_chord: 1.0,
+            substrate_sensitivity: None,
+            law_feedback: None,
         }
     }
 
@@ -1337,7 +1534,7 @@ mod tests {
             point(40.0, Some(law(true))),
             point(80.0, Some(matched)),
         ];
-        let shared = shared_rate_errors(&points, &corrections);
+        let shared = shared_rate_errors(&points, &corrections, None);
         // Column 0 is the blank's constant (no slope), column 1 its slope.
         let slope_loadings: Vec<f64> = shared.loadings.iter().map(|row| row[1]).collect();
         let whole = -1.0 / 600.0;

@@ -4,7 +4,9 @@
 //!
 //! Columns are recognised by their name before any bracketed unit, case-insensitively:
 //! `substrate`, `rate` (or a run's `rate_mean`), optional `inhibitor`, `enzyme`, `sd` (or
-//! `rate_sd`; for a run's condition means `rate_sem`, the spread of a mean), `role` (only `sample` rows are fitted), `used` (a run's `false` rows are left out).
+//! `rate_sd`; for a run's condition means `rate_sem`, the spread of a mean), `substrate_sensitivity`
+//! (a run's `d rate / d ln S0`, which shapes the pipetting part of `rate-se` weights), `role` (only
+//! `sample` rows are fitted), `used` (a run's `false` rows are left out).
 //! Every other text column is a factor that splits groups; a run's bookkeeping columns (`well`,
 //! `rate_se`, `flags`, ...) are not factors. Units in brackets are optional: unitless data is fitted
 //! and reported unitless; a unit that is not a concentration where one is needed is an error.
@@ -119,6 +121,8 @@ struct Columns {
     enzyme: Option<usize>,
     sd: Option<usize>,
     se: Option<usize>,
+    /// A run's `d rate / d ln S0` (the pipetting part of its weights).
+    substrate_sensitivity: Option<usize>,
     role: Option<usize>,
     used: Option<usize>,
     factors: Vec<(usize, String)>,
@@ -258,6 +262,7 @@ pub fn read_rate_table(
             find(&["sd", "rate_sd"])
         },
         se: find(&["rate_se", "se"]),
+        substrate_sensitivity: find(&["substrate_sensitivity"]),
         role: find(&["role"]),
         used: find(&["used"]),
         factors: Vec::new(),
@@ -269,6 +274,7 @@ pub fn read_rate_table(
         columns.enzyme,
         columns.sd,
         columns.se,
+        columns.substrate_sensitivity,
         // Never a factor, even when the mean's standard error is the weight.
         find(&["rate_sd", "sd"]),
     ]
@@ -346,6 +352,10 @@ pub fn read_rate_table(
             Some(column) => number(&grid, row, column, &headers[column])?,
             None => None,
         };
+        let sensitivity_value = match columns.substrate_sensitivity {
+            Some(column) => number(&grid, row, column, &headers[column])?,
+            None => None,
+        };
         let used = columns
             .used
             .is_none_or(|column| !grid.cell(row, column).as_text().eq_ignore_ascii_case("false"));
@@ -377,6 +387,8 @@ pub fn read_rate_table(
                     se: se_value,
                     background: None,
                     rate_per_chord: 1.0,
+                    substrate_sensitivity: sensitivity_value,
+                    law_feedback: None,
                 });
             }
             (false, ..) => group.left_out.push(LeftOut {

@@ -58,7 +58,7 @@ pub const KNOWN_CONCENTRATION_UNITS: &str = "M, mM, uM (or \u{b5}M), nM, pM";
 /// Column names the outputs (`wells.csv`, `conditions.csv`) or `platekin fit` give a meaning,
 /// compared without their unit and case: a factor named so is written as `factor:NAME`, so that
 /// `platekin fit` never takes it for the rate or a bookkeeping column.
-pub const RESERVED_COLUMN_NAMES: [&str; 27] = [
+pub const RESERVED_COLUMN_NAMES: [&str; 28] = [
     "well",
     "role",
     "substrate",
@@ -72,6 +72,7 @@ pub const RESERVED_COLUMN_NAMES: [&str; 27] = [
     "sd",
     "se",
     "window_slope",
+    "substrate_sensitivity",
     "background",
     "intercept",
     "r2",

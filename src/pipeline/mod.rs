@@ -178,6 +178,11 @@ pub fn analyse_inputs(
         })
         .collect();
     analysis.apply_initial_rates(&corrected);
+    let sensitivities: std::collections::BTreeMap<WellId, f64> = fits
+        .iter()
+        .flat_map(|fit| fit.substrate_sensitivities.iter().copied())
+        .collect();
+    analysis.apply_substrate_sensitivities(&sensitivities);
     let conditions = condition_table(&analysis, &layout)?;
     let (mut progress_curves, screen) = if screening {
         let screen = analyse_screen(

@@ -50,6 +50,10 @@ pub struct WellResult {
     pub rate_value: Option<f64>,
     /// Its standard error.
     pub rate_se: Option<f64>,
+    /// How far the rate moves per relative error in the well's S0, `d rate / d ln S0`, from the
+    /// group's fitted law (the integrated estimator's; `None` otherwise): the shape of the
+    /// pipetting part of the rate's weight.
+    pub substrate_sensitivity: Option<f64>,
     /// The no-enzyme background subtracted, if any.
     pub background: Option<f64>,
     /// Which corrections the well got.
@@ -127,6 +131,16 @@ impl PlateAnalysis {
             if let Some(&(rate, se)) = rates.get(&well.well) {
                 well.rate_value = Some(rate);
                 well.rate_se = Some(se);
+            }
+        }
+    }
+
+    /// Records the wells' `d rate / d ln S0` from the group fits (see
+    /// [`WellResult::substrate_sensitivity`]).
+    pub fn apply_substrate_sensitivities(&mut self, sensitivities: &BTreeMap<WellId, f64>) {
+        for well in &mut self.wells {
+            if let Some(&sensitivity) = sensitivities.get(&well.well) {
+                well.substrate_sensitivity = Some(sensitivity);
             }
         }
     }
@@ -291,6 +305,7 @@ pub fn analyse_plate(data: &KineticData, layout: &Layout, settings: &AnalysisSet
             window_slope_se: chord.map(|(_, se)| se),
             rate_value: initial.map(|(value, _)| value),
             rate_se: initial.map(|(_, se)| se),
+            substrate_sensitivity: None,
             background: bg_rate,
             correction: Correction {
                 blank_wells,

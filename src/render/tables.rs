@@ -136,6 +136,10 @@ pub fn wells_table(
             rate_column(|w| w.window_slope),
         ),
         Column::new(
+            format!("substrate_sensitivity [{unit}]").into(),
+            rate_column(|w| w.substrate_sensitivity),
+        ),
+        Column::new(
             format!("background [{unit}]").into(),
             rate_column(|w| w.background),
         ),

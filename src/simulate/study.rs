@@ -552,7 +552,6 @@ pub fn well_error_study(
             let Some(truth) = truths.iter().find(|t| fit.group.text("variant") == Some(t.name)) else {
                 continue;
             };
-            let extra = fit.extra_replicate_variance.map_or(0.0, |(tau2, _)| tau2);
             for (well, rate, se) in &fit.initial_rates {
                 let Some(setup) = results.layout.wells.get(well) else {
                     continue;
@@ -562,6 +561,12 @@ pub fn well_error_study(
                     .unwrap_or(f64::NAN);
                 let inhibitor = setup.quantity(crate::layout::Quantity::Inhibitor).unwrap_or(0.0);
                 let truth_rate = true_initial_rate(truth, substrate, inhibitor);
+                // The variance the well's weight took beyond its SE.
+                let extra = fit
+                    .extra_variance_by_well
+                    .iter()
+                    .find(|(fitted, _)| fitted == well)
+                    .map_or(0.0, |(_, extra)| *extra);
                 wells.push(WellError {
                     variant: truth.name.to_string(),
                     substrate,
