@@ -23,7 +23,10 @@
 //! * Laws with no S dependence in the data (Morrison, IC50 at one [S]) keep the chord.
 //!
 //! The standard error is the chord's times `dv0/dchord` (the correction is a smooth one-to-one map;
-//! the uncertainty of the rate law's constants enters to second order only). The group's fit is
+//! the uncertainty of the rate law's constants enters through the fit's feedback, see
+//! [`crate::fit::models::RateFeedback`]). In the group fits `dv0/dchord` is taken where the law
+//! puts the well ([`rate_per_chord_at_law`]), so that a weight does not follow the well's own
+//! noise; the same holds for the rate's sensitivity to its S0 ([`rate_per_log_substrate`]). The group's fit is
 //! iterated with the corrected rates until they change by less than one part in 10^7.
 //!
 //! References: Schnell and Mendoza 1997, J Theor Biol 187:207 (the closed form); the chord's bias
@@ -185,6 +188,33 @@ pub fn corrected_initial_rate(chord: &WindowChord, s0: f64, shape: RateShape) ->
             Some((v0, chord.se / root))
         }
     }
+}
+
+/// How the initial rate moves with the window's chord, `dv0/dchord`, where the group's law puts
+/// the well (`law_rate`, its rate at the layout's S0 and the well's [I]) rather than at the well's
+/// own chord. A rate's standard error is its chord's times this: taken at the well's own chord,
+/// a well whose noise raised its chord would get a larger correction slope and so a larger SE and
+/// a smaller weight, and the weighted fit would lean low at low [S] (Km high). `None` where the
+/// law gives no correction.
+pub fn rate_per_chord_at_law(chord: &WindowChord, s0: f64, shape: RateShape, law_rate: f64) -> Option<f64> {
+    let (t1, t2) = (chord.start_s.max(0.0), chord.end_s);
+    if !(s0 > 0.0 && t2 > t1 && law_rate > 0.0 && law_rate.is_finite()) {
+        return None;
+    }
+    let per_chord = match shape {
+        RateShape::Unknown => return None,
+        RateShape::MichaelisMenten { k_app } => {
+            let to_v0 = (k_app + s0) / s0;
+            let (_, derivative) = chord_and_derivative(s0, k_app, law_rate * to_v0, t1, t2, chord.reads);
+            1.0 / (derivative * to_v0)
+        }
+        RateShape::Local { log_slope } => {
+            let a = 0.5 * log_slope * (t1 + t2);
+            let law_chord = law_rate * (1.0 - a * law_rate);
+            1.0 / (1.0 - 4.0 * a * law_chord).max(f64::MIN_POSITIVE).sqrt()
+        }
+    };
+    (per_chord.is_finite() && per_chord > 0.0).then_some(per_chord)
 }
 
 /// Relative step in S0 for [`rate_per_log_substrate`]'s central difference.
@@ -361,6 +391,40 @@ mod tests {
                 assert!((0.99..1.05).contains(&added), "turnover share {added}");
             }
         }
+    }
+
+    /// The correction's slope taken at the law's chord equals the well's own where the well sits
+    /// on the law, and does not follow a well whose noise moved its chord.
+    #[test]
+    fn the_rate_per_chord_is_taken_where_the_law_puts_the_well() {
+        let (s0, km, vmax) = (8.0, 80.0, 0.06);
+        let shape = RateShape::MichaelisMenten { k_app: km };
+        let law_rate = vmax * s0 / (km + s0);
+        let (t1, t2, reads) = (30.0, 930.0, 46);
+        let (law_chord, _) = chord_and_derivative(s0, km, vmax, t1, t2, reads);
+        let window = |slope: f64| WindowChord {
+            slope,
+            se: 1e-5,
+            start_s: t1,
+            end_s: t2,
+            reads,
+        };
+        let at_law = rate_per_chord_at_law(&window(law_chord), s0, shape, law_rate).unwrap();
+        let (v0, own_se) = corrected_initial_rate(&window(law_chord), s0, shape).unwrap();
+        assert!((v0 / law_rate - 1.0).abs() < 1e-9, "{v0} vs {law_rate}");
+        assert!(
+            (at_law * 1e-5 / own_se - 1.0).abs() < 1e-9,
+            "{at_law} vs {}",
+            own_se / 1e-5
+        );
+        // A chord 10% high: the well's own correction slope is steeper (its SE larger), the law's
+        // is the same.
+        let (_, high_se) = corrected_initial_rate(&window(1.1 * law_chord), s0, shape).unwrap();
+        assert!(high_se > 1.01 * own_se, "{high_se} vs {own_se}");
+        assert_eq!(
+            rate_per_chord_at_law(&window(1.1 * law_chord), s0, shape, law_rate),
+            Some(at_law)
+        );
     }
 
     /// A window converting about 30% of a low S0 (the most the integrated estimator's windows

@@ -53,7 +53,9 @@ use crate::layout::Layout;
 use crate::rates::background::{Background, BackgroundLaw};
 use crate::rates::{Flag, PlateAnalysis, WellResult};
 use crate::signal::BlankUncertainty;
-use initial_rate::{corrected_initial_rate, rate_per_log_substrate, rate_shape, WindowChord};
+use initial_rate::{
+    corrected_initial_rate, rate_per_chord_at_law, rate_per_log_substrate, rate_shape, WindowChord,
+};
 
 /// One value of a group's key: a factor's text or a concentration.
 #[derive(Debug, Clone, PartialEq)]
@@ -262,6 +264,18 @@ impl FittedLaw {
             point.substrate,
             point.inhibitor,
             self.enzyme,
+        )
+    }
+
+    /// The law's rate at a point's S0 and [I] (`gradient` is scratch space).
+    fn rate_at(&self, point: &FitPoint, gradient: &mut [f64]) -> f64 {
+        crate::fit::models::predict_rate(
+            self.kind,
+            &self.parameters,
+            point.substrate,
+            point.inhibitor,
+            self.enzyme,
+            gradient,
         )
     }
 }
@@ -826,12 +840,17 @@ fn empty_report(
 /// Each point's initial rate corrected by `law` from its window (module docs of
 /// [`initial_rate`]); `None` where it cannot be.
 fn corrected_rates(points: &[FitPoint], law: &FittedLaw) -> Vec<Option<(f64, f64)>> {
+    let mut gradient = vec![0.0; law.parameters.len()];
     points
         .iter()
         .map(|point| {
             let window = point.window.as_ref()?;
             let shape = law.shape_at(point);
-            corrected_initial_rate(window, point.substrate, shape)
+            let (rate, own_se) = corrected_initial_rate(window, point.substrate, shape)?;
+            let law_rate = law.rate_at(point, &mut gradient);
+            let se = rate_per_chord_at_law(window, point.substrate, shape, law_rate)
+                .map_or(own_se, |per_chord| window.se * per_chord);
+            Some((rate, se))
         })
         .collect()
 }
@@ -874,14 +893,7 @@ fn substrate_sensitivities(points: &[FitPoint], law: &FittedLaw) -> Vec<Option<f
         .map(|point| {
             let window = point.window.as_ref()?;
             let shape = law.shape_at(point);
-            let law_rate = crate::fit::models::predict_rate(
-                law.kind,
-                &law.parameters,
-                point.substrate,
-                point.inhibitor,
-                law.enzyme,
-                &mut gradient,
-            );
+            let law_rate = law.rate_at(point, &mut gradient);
             let turnover = match &point.background {
                 Some(Background::Matched { rate, .. }) => rate.max(0.0),
                 Some(Background::Modelled { law, .. }) => (law.slope * point.substrate).max(0.0),
