@@ -233,10 +233,11 @@ const SUBSTRATE_STEP: f64 = 1e-4;
 /// * the spontaneous turnover pipetted with the substrate, `turnover_per_log_substrate` (the
 ///   background's first-order part, `k S0`), subtracted at the layout's S0.
 ///
-/// For laws of Michaelis-Menten form the first two come from the exact chord of
-/// [`chord_and_derivative`] at `S0 (1 +- h)`, corrected at S0 by [`corrected_initial_rate`]
-/// (central difference, `h` = [`SUBSTRATE_STEP`]); for other laws from `S dv/dS` and the turnover,
-/// taken through `dv0/dchord`. `None` for laws with no S dependence or a window that cannot be
+/// For laws of Michaelis-Menten form the chord's own move comes from the exact chord of
+/// [`chord_and_derivative`] at `S0 (1 +- h)` with the law's V (central difference, `h` =
+/// [`SUBSTRATE_STEP`]), taken with the turnover through the correction's `dv0/dchord` at the law's
+/// chord ([`rate_per_chord_at_law`]); for other laws `S dv/dS` and the turnover go through the
+/// second-order expansion's `dv0/dchord`. `None` for laws with no S dependence or a window that cannot be
 /// corrected.
 pub fn rate_per_log_substrate(
     chord: &WindowChord,
@@ -252,18 +253,17 @@ pub fn rate_per_log_substrate(
     match shape {
         RateShape::Unknown => None,
         RateShape::MichaelisMenten { k_app } => {
+            // d v0 / d ln S0_true = (d v0 / d chord at the law's chord) x (d chord / d ln S0_true
+            // at the law's V, plus the turnover): the chain rule through the correction, which
+            // takes the layout's S0.
             let vmax = law_rate * (k_app + s0) / s0;
-            let corrected_at = |relative: f64| {
-                let (law_chord, _) =
-                    chord_and_derivative(s0 * (1.0 + relative), k_app, vmax, t1, t2, chord.reads);
-                let moved = WindowChord {
-                    slope: law_chord + turnover_per_log_substrate * relative,
-                    ..*chord
-                };
-                corrected_initial_rate(&moved, s0, shape).map(|(v0, _)| v0)
+            let law_chord_at = |relative: f64| {
+                chord_and_derivative(s0 * (1.0 + relative), k_app, vmax, t1, t2, chord.reads).0
             };
-            let (up, down) = (corrected_at(SUBSTRATE_STEP)?, corrected_at(-SUBSTRATE_STEP)?);
-            let sensitivity = (up - down) / (2.0 * SUBSTRATE_STEP);
+            let chord_per_log_substrate =
+                (law_chord_at(SUBSTRATE_STEP) - law_chord_at(-SUBSTRATE_STEP)) / (2.0 * SUBSTRATE_STEP);
+            let per_chord = rate_per_chord_at_law(chord, s0, shape, law_rate)?;
+            let sensitivity = per_chord * (chord_per_log_substrate + turnover_per_log_substrate);
             sensitivity.is_finite().then_some(sensitivity)
         }
         RateShape::Local { log_slope } => {
