@@ -482,7 +482,9 @@ pub enum Weighting {
     Relative,
     /// `1 / sd^2` from each point's replicate standard deviation.
     ReplicateSd,
-    /// `1 / se^2` from each point's own standard error (a well's rate from its window fit).
+    /// `1 / (se^2 + extra)` from each point's own standard error (a well's rate from its window
+    /// fit) and the replicates' extra variance (a constant and, under the integrated estimator, a
+    /// substrate-pipetting part; see `groups::replicate_extra_variance`).
     RateSe,
 }
 

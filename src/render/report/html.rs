@@ -1054,10 +1054,20 @@ fn fitting_method_text(results: &RunResults) -> String {
         "No rate law was fitted.".to_string()
     } else {
         format!(
-            "{} by nonlinear least squares (Levenberg-Marquardt) on the replicate wells, weighting {}; initial rates by the {} estimator; standard errors from the Jacobian with the blank's and background's shared errors; linearisations shown as diagnostics only.",
+            "{} by nonlinear least squares (Levenberg-Marquardt) on the replicate wells, weighting {}{}; initial rates by the {} estimator; standard errors from the Jacobian with the blank's and background's shared errors{}; linearisations shown as diagnostics only.",
             equations.join("; "),
             weightings.join(", "),
-            estimators.join(", ")
+            if weightings.contains(&"rate-se") {
+                " (each well's standard error plus the replicates' extra variance: a constant, and under the integrated estimator a substrate-pipetting part that follows d rate / d ln S0 of the fitted law)"
+            } else {
+                ""
+            },
+            estimators.join(", "),
+            if estimators.contains(&"integrated") {
+                ", and for rates corrected by the fitted law itself, that law's feedback on its own constants"
+            } else {
+                ""
+            }
         )
     };
     let progress_laws: Vec<&str> = results
