@@ -238,8 +238,6 @@ pub struct GroupFit {
     /// (rate units squared: a constant and, under the integrated estimator, a relative error of
     /// S0) and its degrees of freedom, added to every point's.
     pub extra_variance: Option<ExtraVariance>,
-    /// Each plate point's extra variance as its weight took it (rate units squared).
-    pub extra_variance_by_well: Vec<(WellId, f64)>,
     /// The fitted wells' `d rate / d ln S0` as their weights took it (the integrated estimator's).
     pub substrate_sensitivities: Vec<(WellId, f64)>,
 }
@@ -277,6 +275,17 @@ impl FittedLaw {
             self.enzyme,
             gradient,
         )
+    }
+
+    /// A windowed point's window, the law's shape there and its rate there; `None` without a
+    /// window.
+    fn at_window<'point>(
+        &self,
+        point: &'point FitPoint,
+        gradient: &mut [f64],
+    ) -> Option<(&'point WindowChord, initial_rate::RateShape, f64)> {
+        let window = point.window.as_ref()?;
+        Some((window, self.shape_at(point), self.rate_at(point, gradient)))
     }
 }
 
@@ -568,12 +577,15 @@ pub fn shared_rate_errors(
     }
     // Background models: a rate moves by minus its background's error.
     let mut laws: Vec<BackgroundLaw> = Vec::new();
-    let mut matched: Vec<(f64, f64)> = Vec::new();
+    // Matched backgrounds: (rate, se, controls averaged).
+    let mut matched: Vec<(f64, f64, usize)> = Vec::new();
     for point in points {
         match &point.background {
             Some(Background::Modelled { law, .. }) if !laws.contains(law) => laws.push(*law),
-            Some(Background::Matched { rate, se, .. }) if !matched.contains(&(*rate, *se)) => {
-                matched.push((*rate, *se))
+            Some(Background::Matched { rate, se, controls })
+                if !matched.iter().any(|(r, s, _)| (*r, *s) == (*rate, *se)) =>
+            {
+                matched.push((*rate, *se, *controls))
             }
             _ => {}
         }
@@ -600,7 +612,7 @@ pub fn shared_rate_errors(
         );
         blocks.push(law.covariance.iter().map(|row| row.to_vec()).collect());
     }
-    for (rate, se) in matched {
+    for (rate, se, controls) in matched {
         columns.push(
             points
                 .iter()
@@ -614,20 +626,9 @@ pub fn shared_rate_errors(
         );
         // The controls are wells too: their drift and the substrate pipetted into their turnover
         // scatter them beyond their slopes' standard errors, and every sample they serve shares it.
-        let controls = points
-            .iter()
-            .find_map(|p| match &p.background {
-                Some(Background::Matched {
-                    rate: r,
-                    se: s,
-                    controls,
-                }) if (*r, *s) == (rate, se) => Some(*controls),
-                _ => None,
-            })
-            .unwrap_or(1)
-            .max(1);
         // A control's turnover moves with its own S0 as the samples' does (taken proportional to S).
-        let extra = control_extra_variance.map_or(0.0, |model| model.at(rate.max(0.0)) / controls as f64);
+        let extra =
+            control_extra_variance.map_or(0.0, |model| model.at(rate.max(0.0)) / controls.max(1) as f64);
         blocks.push(vec![vec![se * se + extra]]);
     }
     let size: usize = blocks.iter().map(Vec::len).sum();
@@ -832,7 +833,6 @@ fn empty_report(
         initial_rates: Vec::new(),
         law: None,
         extra_variance: None,
-        extra_variance_by_well: Vec::new(),
         substrate_sensitivities: Vec::new(),
     }
 }
@@ -844,10 +844,8 @@ fn corrected_rates(points: &[FitPoint], law: &FittedLaw) -> Vec<Option<(f64, f64
     points
         .iter()
         .map(|point| {
-            let window = point.window.as_ref()?;
-            let shape = law.shape_at(point);
+            let (window, shape, law_rate) = law.at_window(point, &mut gradient)?;
             let (rate, own_se) = corrected_initial_rate(window, point.substrate, shape)?;
-            let law_rate = law.rate_at(point, &mut gradient);
             let se = rate_per_chord_at_law(window, point.substrate, shape, law_rate)
                 .map_or(own_se, |per_chord| window.se * per_chord);
             Some((rate, se))
@@ -891,9 +889,7 @@ fn substrate_sensitivities(points: &[FitPoint], law: &FittedLaw) -> Vec<Option<f
     points
         .iter()
         .map(|point| {
-            let window = point.window.as_ref()?;
-            let shape = law.shape_at(point);
-            let law_rate = law.rate_at(point, &mut gradient);
+            let (window, shape, law_rate) = law.at_window(point, &mut gradient)?;
             let turnover = match &point.background {
                 Some(Background::Matched { rate, .. }) => rate.max(0.0),
                 Some(Background::Modelled { law, .. }) => (law.slope * point.substrate).max(0.0),
@@ -1120,11 +1116,6 @@ pub fn fit_points(
                     .extra_variance
                     .map_or(0.0, |model| model.at(p.substrate_sensitivity.unwrap_or(0.0)))
             })
-            .collect();
-        report.extra_variance_by_well = points
-            .iter()
-            .zip(&extras)
-            .filter_map(|(p, extra)| p.well.map(|well| (well, *extra)))
             .collect();
         ses.map(|ses| {
             ses.iter()

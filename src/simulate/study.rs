@@ -561,12 +561,14 @@ pub fn well_error_study(
                     .unwrap_or(f64::NAN);
                 let inhibitor = setup.quantity(crate::layout::Quantity::Inhibitor).unwrap_or(0.0);
                 let truth_rate = true_initial_rate(truth, substrate, inhibitor);
-                // The variance the well's weight took beyond its SE.
-                let extra = fit
-                    .extra_variance_by_well
+                // The variance the well's weight took beyond its SE: the group's extra variance at
+                // the well's d rate / d ln S0 (0 where the fit had none).
+                let sensitivity = fit
+                    .substrate_sensitivities
                     .iter()
                     .find(|(fitted, _)| fitted == well)
-                    .map_or(0.0, |(_, extra)| *extra);
+                    .map_or(0.0, |(_, sensitivity)| *sensitivity);
+                let extra = fit.extra_variance.map_or(0.0, |model| model.at(sensitivity));
                 wells.push(WellError {
                     variant: truth.name.to_string(),
                     substrate,
