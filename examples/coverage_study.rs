@@ -5,6 +5,7 @@
 //! With `--wells` as a third argument it prints the well-level check instead
 //! (`platekin::simulate::study::well_error_study`): per variant and level, the wells' observed
 //! relative scatter about the truth against the SD the fit gives them, and the variance ratio.
+//! `PLATEKIN_FIRST_SEED=N` starts the plates' seeds at N instead of 1000 (another draw of plates).
 
 use std::process::ExitCode;
 
@@ -28,6 +29,10 @@ fn main() -> ExitCode {
     if args.next().as_deref() == Some("--wells") {
         return print_well_levels(&designs, plates);
     }
+    let first_seed: u64 = std::env::var("PLATEKIN_FIRST_SEED")
+        .ok()
+        .and_then(|seed| seed.parse().ok())
+        .unwrap_or(1_000);
     let estimators = [
         InitialRateEstimatorKey::Integrated,
         InitialRateEstimatorKey::Chord,
@@ -39,7 +44,7 @@ fn main() -> ExitCode {
     println!("| --- | --- | --- | --- | ---: | ---: | ---: | ---: | ---: | ---: |");
     for design in designs {
         let start = std::time::Instant::now();
-        let Some(rows) = or_report(design, coverage_study(design, plates, 1_000, &estimators)) else {
+        let Some(rows) = or_report(design, coverage_study(design, plates, first_seed, &estimators)) else {
             return ExitCode::from(2);
         };
         for row in rows {

@@ -316,6 +316,13 @@ impl ExtraVariance {
     pub fn at(&self, sensitivity: f64) -> f64 {
         self.constant + self.substrate_cv_squared * sensitivity * sensitivity
     }
+
+    /// Whether both parts agree with `other`'s within `relative` of the larger (parts that are
+    /// both 0 agree).
+    pub fn agrees_with(&self, other: &ExtraVariance, relative: f64) -> bool {
+        let close = |a: f64, b: f64| (a - b).abs() <= relative * a.abs().max(b.abs());
+        close(self.constant, other.constant) && close(self.substrate_cv_squared, other.substrate_cv_squared)
+    }
 }
 
 /// Rounds of reweighting in [`extra_variance_with_substrate_term`].

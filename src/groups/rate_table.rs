@@ -15,8 +15,8 @@ use std::collections::BTreeSet;
 use std::str::FromStr;
 
 use super::{
-    fit_points, replicate_sds, request_uses_inhibitor, FitPoint, GroupFit, GroupKey, GroupUnits, GroupValue,
-    LeftOut, LeftOutPlace, LeftOutReason,
+    fit_points, pooled_extra_variance, replicate_sds, request_uses_inhibitor, FitPoint, GroupFit, GroupKey,
+    GroupUnits, GroupValue, LeftOut, LeftOutPlace, LeftOutReason,
 };
 use crate::config::FitSettings;
 use crate::core::cells::{Cell, CellGrid, Position};
@@ -458,10 +458,24 @@ pub fn fit_table(
     settings: &FitSettings,
     progress: &mut dyn FnMut(usize, usize),
 ) -> Vec<GroupFit> {
-    table
+    // The table's groups share the pooled extra variance as a run's plate does, so that a run's
+    // wells.csv refits as the run fitted it.
+    let points: Vec<Vec<FitPoint>> = table
         .groups
         .iter()
         .map(|group| {
+            let mut points = group.points.clone();
+            replicate_sds(&mut points);
+            points
+        })
+        .collect();
+    let slices: Vec<&[FitPoint]> = points.iter().map(Vec::as_slice).collect();
+    let pooled = pooled_extra_variance(&slices);
+    table
+        .groups
+        .iter()
+        .zip(&points)
+        .map(|(group, points)| {
             let units = GroupUnits {
                 enzyme: match (group.enzyme, table.enzyme_unit) {
                     (Some(value), Some(unit)) => Some((value, unit)),
@@ -469,16 +483,14 @@ pub fn fit_table(
                 },
                 ..table.units.clone()
             };
-            // Replicate SDs from repeated rows where the table gives none.
-            let mut points = group.points.clone();
-            replicate_sds(&mut points);
             let mut fit = fit_points(
                 group.group.clone(),
-                &points,
+                points,
                 group.left_out.clone(),
                 &units,
                 settings,
                 None,
+                pooled.as_ref(),
                 progress,
             );
             // kcat = Vmax/[E] is per the rate's time; per second, as a run reports it.

@@ -106,6 +106,14 @@ pub fn group_fit_json(fit: &GroupFit) -> Result<Value, RenderError> {
         "model_choice": fit.model_choice,
         "initial_rate_estimator": fit.estimator.word(),
         "weighting": fit.weighting.name(),
+        // The replicates' scatter beyond their own standard errors, as rate-se weights took it:
+        // SDs in rate units (as residual_sd) and the relative error of S0 they imply.
+        "extra_variance": fit.extra_variance.map(|extra| json!({
+            "constant_sd": extra.constant.sqrt(),
+            "substrate_cv": extra.substrate_cv_squared.sqrt(),
+            "degrees_of_freedom": extra.degrees_of_freedom,
+            "groups_pooled": fit.extra_variance_groups,
+        })),
         "robust_loss": fit.robust_loss.name(),
         "bootstrap": fit.bootstrap.map(|b| json!({
             "replicates": b.replicates,

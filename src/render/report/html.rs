@@ -1048,6 +1048,12 @@ fn fitting_method_text(results: &RunResults) -> String {
         push(&mut weightings, fit.weighting.name());
         push(&mut estimators, fit.estimator.word());
     }
+    let pooled_groups = results
+        .fits
+        .iter()
+        .map(|fit| fit.extra_variance_groups)
+        .max()
+        .unwrap_or(0);
     let mut text = if results.screen.is_some() && equations.is_empty() {
         "Per compound, the four-parameter logistic of % activity on log10 dose by unweighted least squares (Levenberg-Marquardt), top and bottom by the plateau rule stated in Screen, IC50 intervals by profile likelihood; initial rates from straight-line windows.".to_string()
     } else if equations.is_empty() {
@@ -1057,10 +1063,12 @@ fn fitting_method_text(results: &RunResults) -> String {
             "{} by nonlinear least squares (Levenberg-Marquardt) on the replicate wells, weighting {}{}; initial rates by the {} estimator; standard errors from the Jacobian with the blank's and background's shared errors{}; linearisations shown as diagnostics only.",
             equations.join("; "),
             weightings.join(", "),
-            if weightings.contains(&"rate-se") {
-                " (each well's standard error plus the replicates' extra variance: a constant, and under the integrated estimator a substrate-pipetting part that follows d rate / d ln S0 of the fitted law)"
-            } else {
+            if !weightings.contains(&"rate-se") {
                 ""
+            } else if pooled_groups > 1 {
+                " (each well's standard error plus the replicates' extra variance: a constant, and under the integrated estimator a substrate-pipetting part that follows d rate / d ln S0 of the fitted law, both estimated once from the replicates of every group on the plate)"
+            } else {
+                " (each well's standard error plus the replicates' extra variance: a constant, and under the integrated estimator a substrate-pipetting part that follows d rate / d ln S0 of the fitted law)"
             },
             estimators.join(", "),
             if estimators.contains(&"integrated") {
