@@ -413,7 +413,7 @@ fn fit_reads_a_rate_table_per_minute() {
                 b[name]["value"].as_f64().unwrap(),
             );
             // The same points through the CSV's printed digits, and the same extra variance
-            // pooled over both groups (the run settles its pool on the rates it writes; 1e-9
+            // pooled over both groups (the run settles its pool on the rates it writes; 3e-9
             // measured, 3e-6 when it did not).
             assert!((y / x - 1.0).abs() < 1e-7, "{name}: {y} vs {x}");
         }
