@@ -428,18 +428,7 @@ pub fn fit_groups_with(
     // Each group's first fit, to the windows' own rates.
     let firsts: Vec<GroupFit> = prepared
         .iter()
-        .map(|group| {
-            fit_points(
-                group.key.clone(),
-                &group.points,
-                group.left_out.clone(),
-                &group.units,
-                settings,
-                Some(&group.corrections),
-                None,
-                progress,
-            )
-        })
+        .map(|group| group.fit(&group.points, settings, true, None, progress))
         .collect();
     if initial.estimator != InitialRateEstimator::Integrated {
         return prepared
@@ -787,6 +776,30 @@ struct PreparedGroup {
     n_wells: usize,
 }
 
+impl PreparedGroup {
+    /// The group's fit to `points` (its own, or corrected), with the plate's shared errors where
+    /// `with_shared_errors` (the reported fits; the settling refits need point estimates only).
+    fn fit(
+        &self,
+        points: &[FitPoint],
+        settings: &FitSettings,
+        with_shared_errors: bool,
+        pooled: Option<&PooledExtraVariance>,
+        progress: &mut dyn FnMut(usize, usize),
+    ) -> GroupFit {
+        fit_points(
+            self.key.clone(),
+            points,
+            self.left_out.clone(),
+            &self.units,
+            settings,
+            with_shared_errors.then_some(&self.corrections),
+            pooled,
+            progress,
+        )
+    }
+}
+
 fn prepare_group(
     key: GroupKey,
     wells: &[&WellResult],
@@ -1020,19 +1033,7 @@ fn settle_corrected_points(
         bootstrap: None,
         ..settings.clone()
     };
-    let refit_law = |points: &[FitPoint]| {
-        fit_points(
-            group.key.clone(),
-            points,
-            group.left_out.clone(),
-            &group.units,
-            &quick,
-            None,
-            pooled,
-            &mut |_, _| {},
-        )
-        .law
-    };
+    let refit_law = |points: &[FitPoint]| group.fit(points, &quick, false, pooled, &mut |_, _| {}).law;
     let points = &group.points;
     // Settled points with new weights: refitted first, then corrected from where they were.
     let (mut current_points, mut law) = match start {
@@ -1115,16 +1116,7 @@ fn finish_integrated(
         return first;
     }
     let current_points = settled.points;
-    let mut final_report = fit_points(
-        group.key.clone(),
-        &current_points,
-        first.wells_left_out.clone(),
-        &group.units,
-        settings,
-        Some(&group.corrections),
-        pooled,
-        progress,
-    );
+    let mut final_report = group.fit(&current_points, settings, true, pooled, progress);
     final_report.warnings = first
         .warnings
         .iter()
@@ -1169,25 +1161,30 @@ const MIN_REPLICATE_DEGREES_OF_FREEDOM: usize = 3;
 /// points, which carry Km, then weigh too much and the top ones, which carry kcat, too little);
 /// else the constant alone ([`extra_replicate_variance`]).
 fn replicate_extra_variance(points: &[FitPoint], ses: &[f64]) -> Option<ExtraVariance> {
-    let model = match replicate_levels(points, ses) {
-        ReplicateLevels::WithSensitivity(levels) => extra_variance_with_substrate_term(&levels),
-        ReplicateLevels::Plain(levels) => {
-            let members: Vec<Vec<(f64, f64)>> = levels.into_iter().map(|(members, _)| members).collect();
-            extra_replicate_variance(&members).map(|(tau2, degrees_of_freedom)| ExtraVariance {
-                constant: tau2,
-                substrate_cv_squared: 0.0,
-                degrees_of_freedom,
-            })
-        }
+    let replicates = replicate_levels(points, ses);
+    let model = if replicates.with_sensitivity {
+        extra_variance_with_substrate_term(&replicates.levels)
+    } else {
+        let members: Vec<Vec<(f64, f64)>> = replicates
+            .levels
+            .into_iter()
+            .map(|(members, _)| members)
+            .collect();
+        extra_replicate_variance(&members).map(|(tau2, degrees_of_freedom)| ExtraVariance {
+            constant: tau2,
+            substrate_cv_squared: 0.0,
+            degrees_of_freedom,
+        })
     };
     model.filter(|model| model.degrees_of_freedom >= MIN_REPLICATE_DEGREES_OF_FREEDOM)
 }
 
 /// A group's replicate levels (same [S] and [I]): each level's members `(rate, se)` and their
-/// mean `g^2` (`d rate / d ln S0` squared) when every point carries `g`.
-enum ReplicateLevels {
-    WithSensitivity(Vec<(Vec<(f64, f64)>, f64)>),
-    Plain(Vec<(Vec<(f64, f64)>, f64)>),
+/// mean `g^2` (`d rate / d ln S0` squared; 0 unless every point carries `g`).
+struct ReplicateLevels {
+    levels: Vec<(Vec<(f64, f64)>, f64)>,
+    /// Whether every point carries `g`.
+    with_sensitivity: bool,
 }
 
 fn replicate_levels(points: &[FitPoint], ses: &[f64]) -> ReplicateLevels {
@@ -1216,10 +1213,9 @@ fn replicate_levels(points: &[FitPoint], ses: &[f64]) -> ReplicateLevels {
             (members, mean)
         })
         .collect();
-    if sensitivities.is_some() {
-        ReplicateLevels::WithSensitivity(mean_g2)
-    } else {
-        ReplicateLevels::Plain(mean_g2)
+    ReplicateLevels {
+        levels: mean_g2,
+        with_sensitivity: sensitivities.is_some(),
     }
 }
 
@@ -1261,11 +1257,10 @@ pub fn pooled_extra_variance(groups: &[&[FitPoint]]) -> Option<PooledExtraVarian
         if points.is_empty() {
             continue;
         }
-        if let ReplicateLevels::WithSensitivity(group_levels) = replicate_levels(points, &ses) {
-            if group_levels.iter().any(|(members, _)| members.len() >= 2) {
-                contributing += 1;
-                levels.extend(group_levels);
-            }
+        let replicates = replicate_levels(points, &ses);
+        if replicates.with_sensitivity && replicates.levels.iter().any(|(members, _)| members.len() >= 2) {
+            contributing += 1;
+            levels.extend(replicates.levels);
         }
     }
     if contributing < 2 {
