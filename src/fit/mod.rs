@@ -13,11 +13,13 @@ pub mod models;
 pub mod selection;
 
 pub use least_squares::{
-    asymptotic_covariance, check_jacobian, check_jacobian_scaled, cluster_jackknife_covariance,
-    cluster_robust_covariance, confidence_interval_95, f_quantile, finite_difference_jacobian,
-    finite_difference_jacobian_scaled, fit_least_squares, t_quantile, t_quantile_975, ConvergenceTest,
+    asymptotic_covariance, check_jacobian, check_jacobian_scaled, cluster_bias_reduced_covariance,
+    cluster_jackknife_covariance, cluster_leverage_adjusted_covariance, cluster_robust_covariance,
+    confidence_interval_95, f_quantile, finite_difference_jacobian, finite_difference_jacobian_scaled,
+    fit_least_squares, t_quantile, t_quantile_975, ClusterEffects, ClusterLeverage, ConvergenceTest,
     CovarianceSummary, FitError, JacobianDiscrepancy, LeastSquaresFit, LeastSquaresOptions,
-    LevenbergMarquardt, LevenbergMarquardtState, ResidualModel, ResidualProblem, StopReason,
+    LevenbergMarquardt, LevenbergMarquardtState, LeverageAdjustedCovariance, LeverageAdjustment,
+    ResidualModel, ResidualProblem, StopReason,
 };
 pub use michaelis_menten::{
     describe_michaelis_menten, fit_michaelis_menten, linearised_estimates, michaelis_menten_rate,

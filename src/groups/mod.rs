@@ -584,7 +584,9 @@ pub fn shared_rate_errors(
     };
     match &corrections.blank {
         BlankUncertainty::None => {}
-        BlankUncertainty::Smooth { t_scale, covariance } => {
+        BlankUncertainty::Smooth {
+            t_scale, covariance, ..
+        } => {
             for power in 0..covariance.len() {
                 columns.push(
                     points
@@ -1811,6 +1813,7 @@ mod tests {
                 slope: 2e-6,
                 intercept: if with_intercept { 1e-5 } else { 0.0 },
                 covariance: [[1e-14, 0.0], [0.0, if with_intercept { 1e-12 } else { 0.0 }]],
+                degrees_of_freedom: if with_intercept { 6.0 } else { 7.0 },
             },
             rate: 2e-4,
             se: 1e-6,
@@ -1830,6 +1833,7 @@ mod tests {
             blank: BlankUncertainty::Smooth {
                 t_scale: 600.0,
                 covariance: vec![vec![1e-8, 0.0], vec![0.0, 1e-8]],
+                degrees_of_freedom: 29.0,
             },
             read_times_s: (0..31).map(|i| 20.0 * f64::from(i)).collect(),
             sign: 1.0,

@@ -22,8 +22,8 @@ use rayon::prelude::*;
 
 use super::choice::{compare_models, ModelTried};
 use super::global_fit::{
-    fit_group_from, ErrorShape, GlobalFit, GlobalFitOptions, ProgressModel, SharedSignalError,
-    SharedSignalErrors, WellCurve,
+    fit_group_from, ErrorShape, GlobalFit, GlobalFitOptions, ProgressModel, SharedErrorBlock,
+    SharedSignalError, SharedSignalErrors, WellCurve,
 };
 use super::trust::{
     decide_trust, RunReason, Suspicion, Trust, TrustDecision, TrustEvidence, TrustReason, WellEvidence,
@@ -428,11 +428,15 @@ struct SubstrateStart {
 fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSignalErrors {
     let n = starts.len();
     let mut errors = Vec::new();
-    let mut blocks: Vec<Vec<Vec<f64>>> = Vec::new();
+    let mut blocks: Vec<(Vec<Vec<f64>>, f64)> = Vec::new();
     // The blank is subtracted from every well alike: the signal moves by minus its error.
     match &signal.blank_uncertainty {
         BlankUncertainty::None => {}
-        BlankUncertainty::Smooth { t_scale, covariance } => {
+        BlankUncertainty::Smooth {
+            t_scale,
+            covariance,
+            degrees_of_freedom,
+        } => {
             for power in 0..covariance.len() {
                 // The blank's constant slope (power 1) is in the controls' rates too: a background
                 // that takes it up whole (`Background::cancels_blank_slope`) takes it out of the
@@ -459,15 +463,17 @@ fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSigna
                     },
                 });
             }
-            blocks.push(covariance.clone());
+            blocks.push((covariance.clone(), *degrees_of_freedom));
         }
         BlankUncertainty::PerRead { variances } => {
+            // Each read's variance comes from the blank wells' pooled scatter over every read:
+            // many degrees of freedom, counted as known.
             for (time, variance) in signal.read_times_s.iter().zip(variances) {
                 errors.push(SharedSignalError {
                     well_weights: vec![-1.0; n],
                     shape: ErrorShape::AtTime(*time),
                 });
-                blocks.push(vec![vec![*variance]]);
+                blocks.push((vec![vec![*variance]], f64::INFINITY));
             }
         }
     }
@@ -481,12 +487,14 @@ fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSigna
         t_scale: 1.0,
     };
     let mut laws: Vec<BackgroundLaw> = Vec::new();
-    let mut matched: Vec<(f64, f64)> = Vec::new();
+    let mut matched: Vec<(f64, f64, usize)> = Vec::new();
     for start in starts {
         match &start.background {
             Some(Background::Modelled { law, .. }) if !laws.contains(law) => laws.push(*law),
-            Some(Background::Matched { rate, se, .. }) if !matched.contains(&(*rate, *se)) => {
-                matched.push((*rate, *se));
+            Some(Background::Matched { rate, se, controls })
+                if !matched.iter().any(|m| (m.0, m.1) == (*rate, *se)) =>
+            {
+                matched.push((*rate, *se, *controls));
             }
             _ => {}
         }
@@ -519,9 +527,12 @@ fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSigna
                 .collect(),
             shape: linear,
         });
-        blocks.push(law.covariance.iter().map(|row| row.to_vec()).collect());
+        blocks.push((
+            law.covariance.iter().map(|row| row.to_vec()).collect(),
+            law.degrees_of_freedom,
+        ));
     }
-    for (rate, se) in matched {
+    for (rate, se, controls) in matched {
         errors.push(SharedSignalError {
             well_weights: starts
                 .iter()
@@ -534,17 +545,25 @@ fn shared_errors(signal: &PlateSignal, starts: &[SubstrateStart]) -> SharedSigna
                 .collect(),
             shape: linear,
         });
-        blocks.push(vec![vec![se * se]]);
+        // Several controls: their mean's SE from their scatter; one: its own slope's SE from its
+        // many reads, counted as known.
+        let degrees_of_freedom = if controls >= 2 {
+            (controls - 1) as f64
+        } else {
+            f64::INFINITY
+        };
+        blocks.push((vec![vec![se * se]], degrees_of_freedom));
     }
     assemble(errors, &blocks)
 }
 
-/// The errors with their block-diagonal covariance.
-fn assemble(errors: Vec<SharedSignalError>, blocks: &[Vec<Vec<f64>>]) -> SharedSignalErrors {
-    let size: usize = blocks.iter().map(Vec::len).sum();
+/// The errors with their block-diagonal covariance; each block comes with the degrees of freedom
+/// of its estimate.
+fn assemble(errors: Vec<SharedSignalError>, blocks: &[(Vec<Vec<f64>>, f64)]) -> SharedSignalErrors {
+    let size: usize = blocks.iter().map(|(block, _)| block.len()).sum();
     let mut covariance = vec![vec![0.0; size]; size];
     let mut at = 0;
-    for block in blocks {
+    for (block, _) in blocks {
         for (i, row) in block.iter().enumerate() {
             for (j, value) in row.iter().enumerate() {
                 covariance[at + i][at + j] = *value;
@@ -552,7 +571,18 @@ fn assemble(errors: Vec<SharedSignalError>, blocks: &[Vec<Vec<f64>>]) -> SharedS
         }
         at += block.len();
     }
-    SharedSignalErrors { errors, covariance }
+    let blocks = blocks
+        .iter()
+        .map(|(block, degrees_of_freedom)| SharedErrorBlock {
+            errors: block.len(),
+            degrees_of_freedom: *degrees_of_freedom,
+        })
+        .collect();
+    SharedSignalErrors {
+        errors,
+        covariance,
+        blocks,
+    }
 }
 
 /// The wells' curves, or why none can be built for the group.
@@ -872,7 +902,7 @@ fn fill_from_fit(
         let well_quantile = fit
             .well_leverage
             .as_ref()
-            .and_then(|leverage| leverage.quantile(&gradient))
+            .and_then(|leverage| leverage.quantile_975(&gradient))
             .or_else(|| t_quantile_975(fit.n_wells.saturating_sub(1).max(1)).ok());
         let se = se_by_well.or(se_asymptotic);
         report.parameters.insert(

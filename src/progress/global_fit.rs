@@ -25,10 +25,13 @@
 //! perturbed inputs) starts from it instead ([`fit_group_from`]).
 //!
 //! Intervals: asymptotic `value +- t(0.975, n - p - m) se` (read-level, kept as
-//! `ci95_asymptotic`); clustered by well with `t(0.975, m - 1)` (the reported `ci95`); for Km also
+//! `ci95_asymptotic`); clustered by well (CR3, each well's leverage undone, plus the shared
+//! errors of the blank and background) with t at its effective degrees of freedom
+//! ([`WellLeverage`]; `t(0.975, m - 1)` when they cannot be had), the reported `ci95`; for Km also
 //! the profile-likelihood interval, re-optimising the other shared parameters at each Km (Bates and
 //! Watts 1988), calibrated by the well-clustered variance so that it means what the reported
-//! interval means: `{Km : RSS_Km <= RSS_min (1 + c t(0.975, m - 1)^2 / (n - p - m))}` with
+//! interval means: `{Km : RSS_Km <= RSS_min (1 + c t^2 / (n - p - m))}` (t as the clustered
+//! interval's) with
 //! `c = var_clustered(Km) / var_read-level(Km)` (the profile keeps its shape, the clustered
 //! variance sets its scale; Royall and Tsou 2003, J R Stat Soc B 65:391, from memory). Without a
 //! clustered variance the read-level `F(0.95; 1, n - p - m)` stands in for `c t^2`, as before. Model choice: AICc with
@@ -54,8 +57,8 @@ use crate::core::stats::{
 };
 use crate::fit::integrated::michaelis_menten_point;
 use crate::fit::{
-    asymptotic_covariance, cluster_jackknife_covariance, cluster_robust_covariance, fit_least_squares,
-    LeastSquaresOptions, ResidualModel,
+    asymptotic_covariance, cluster_leverage_adjusted_covariance, cluster_robust_covariance,
+    fit_least_squares, ClusterEffects, LeastSquaresOptions, LeverageAdjustment, ResidualModel,
 };
 
 /// One well's curve, ready to fit.
@@ -155,6 +158,20 @@ pub struct SharedSignalErrors {
     pub errors: Vec<SharedSignalError>,
     /// Their covariance, one row and column per error.
     pub covariance: Vec<Vec<f64>>,
+    /// The independent blocks of that covariance in order (errors estimated together: the blank's
+    /// polynomial, one background law), each with how many errors it holds and the degrees of
+    /// freedom its variances were estimated with (infinite when known), for the effective
+    /// degrees of freedom of intervals that include them.
+    pub blocks: Vec<SharedErrorBlock>,
+}
+
+/// One independent block of [`SharedSignalErrors`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct SharedErrorBlock {
+    /// Errors in the block (consecutive in `errors`).
+    pub errors: usize,
+    /// Degrees of freedom of the block's variance estimate.
+    pub degrees_of_freedom: f64,
 }
 
 /// How to fit.
@@ -321,53 +338,52 @@ impl GlobalFit {
     }
 }
 
-/// How much each well weighs in a clustered variance, for the effective degrees of freedom of
-/// its intervals.
+/// The effective degrees of freedom of a progress fit's well-level intervals.
 ///
-/// A clustered variance is a sum over wells of squared scores, `sum_g (c' B s_g)^2`; when a few
-/// wells carry most of a constant's information (the lowest [S] for Km), that sum has far fewer
-/// than `wells - 1` degrees of freedom, and `t(wells - 1)` makes the interval too short (the clean
-/// design's slow-variant Km covered 91.8% with CR3 and t(23)). Under working independence each
-/// well's term has expectation proportional to `v_g = c' B J_g' J_g B c` (`B = (J'J)^-1`), so
-/// Satterthwaite's approximation gives `dof = (sum v_g)^2 / sum v_g^2`, at most `wells - 1`.
+/// The variance of a contrast `c' theta` is the clustered variance (CR3) plus what each block of
+/// shared errors (the blank, a background law, a matched control) adds, `v = v_wells + sum_k v_k`.
+/// Each part is an estimate with its own degrees of freedom: the wells' from Satterthwaite's
+/// approximation under a working model of independent reads plus each well's S0 error
+/// ([`crate::fit::ClusterLeverage`]: each well's leverage included, and a constant that few wells
+/// carry gets few), a shared block's from how it was estimated. Satterthwaite's rule for a sum of
+/// independent variance estimates gives `dof = v^2 / (v_wells^2 / dof_wells + sum_k v_k^2 / dof_k)`.
 ///
-/// Assumptions: equal read noise across wells for the weights (they only set the dof).
+/// Why: `t(wells - 1)` made the interval too short when a few wells carry a constant (the clean
+/// design's slow-variant Km covered 91.8% with CR3 and t(23)); giving a well-estimated blank the
+/// wells' few degrees of freedom made it too long (the clean design's slow kcat, much of whose
+/// variance is the blank's, covered 97.4% over 1000 plates); and independent reads alone gave the
+/// wells' part more degrees of freedom than their S0 errors leave it (realistic fast Km 92.8%).
+///
 /// References: Satterthwaite 1946, Biometrics Bulletin 2:110; Bell and McCaffrey 2002, Survey
-/// Methodology 28:169 (the same idea for cluster-robust variances, with the leverage terms this
-/// approximation leaves out); volumes and pages from memory.
+/// Methodology 28:169; volumes and pages from memory.
 #[derive(Debug, Clone, PartialEq)]
 pub struct WellLeverage {
-    bread: DMatrix<f64>,
-    informations: Vec<DMatrix<f64>>,
+    wells: crate::fit::ClusterLeverage,
+    clustered: DMatrix<f64>,
+    shared: Vec<(DMatrix<f64>, f64)>,
 }
 
 impl WellLeverage {
-    fn new(jacobian: &DMatrix<f64>, clusters: &[std::ops::Range<usize>]) -> Option<WellLeverage> {
-        let bread = (jacobian.transpose() * jacobian).try_inverse()?;
-        let informations = clusters
-            .iter()
-            .map(|cluster| {
-                let rows = jacobian.rows(cluster.start, cluster.len());
-                rows.transpose() * rows
-            })
-            .collect();
-        Some(WellLeverage { bread, informations })
-    }
-
-    /// Satterthwaite's effective degrees of freedom of the clustered variance of `contrast' theta`:
-    /// `(sum v_g)^2 / sum v_g^2`, `v_g = c' B J_g' J_g B c`, at most `wells - 1`.
+    /// The effective degrees of freedom of the variance of `contrast' theta` (see the type).
     pub fn effective_dof(&self, contrast: &[f64]) -> Option<f64> {
+        let wells_dof = self.wells.effective_degrees_of_freedom(contrast)?;
         let c = nalgebra::DVector::from_column_slice(contrast);
-        let bc = &self.bread * c;
-        let parts: Vec<f64> = self.informations.iter().map(|g| bc.dot(&(g * &bc))).collect();
-        let sum: f64 = parts.iter().sum();
-        let squares: f64 = parts.iter().map(|v| v * v).sum();
-        let most = self.informations.len().checked_sub(1)? as f64;
-        (squares > 0.0 && sum.is_finite()).then(|| (sum * sum / squares).min(most))
+        let variance_of = |covariance: &DMatrix<f64>| c.dot(&(covariance * &c)).max(0.0);
+        let wells_variance = variance_of(&self.clustered);
+        let mut total = wells_variance;
+        let mut spread = wells_variance * wells_variance / wells_dof;
+        for (covariance, dof) in &self.shared {
+            let v = variance_of(covariance);
+            total += v;
+            if dof.is_finite() {
+                spread += v * v / dof;
+            }
+        }
+        (spread > 0.0 && total.is_finite()).then(|| total * total / spread)
     }
 
-    /// The 97.5% t quantile at the effective degrees of freedom.
-    pub fn quantile(&self, contrast: &[f64]) -> Option<f64> {
+    /// The 97.5% t quantile at [`Self::effective_dof`] (at least 1).
+    pub fn quantile_975(&self, contrast: &[f64]) -> Option<f64> {
         let dof = self.effective_dof(contrast)?;
         crate::core::stats::t_quantile(0.975, dof.max(1.0)).ok()
     }
@@ -873,18 +889,40 @@ fn summarise(
     let mut residuals = vec![0.0; n];
     problem.residuals(&parameters, &mut residuals);
     let clusters: Vec<std::ops::Range<usize>> = problem.offsets.windows(2).map(|w| w[0]..w[1]).collect();
-    // Each well's leverage undone (CR3; CR1 ran small with a few tens of wells), CR1 where leaving a
-    // well out leaves a parameter undetermined.
-    let by_well = cluster_jackknife_covariance(&jacobian, &residuals, &clusters)
-        .or_else(|| cluster_robust_covariance(&jacobian, &residuals, &clusters))
-        .map(
-            |clustered| match shared_error_covariance(&jacobian, problem, wells, &options.shared_errors) {
-                Some(shared) => clustered + shared,
-                None => clustered,
-            },
-        );
+    // Each well's leverage undone (CR3: a well's S0 error moves its curve along the directions
+    // the fit uses, so the fit takes up a share mu of it, not the mu / 2 that CR2 undoes: CR2's
+    // realistic fast Km covered 92.1%; CR1 ran small with a few tens of wells), CR1 where leaving
+    // a well out leaves a parameter undetermined. The wells' S0 errors also enter the working
+    // model of the degrees of freedom (`WellLeverage`).
+    let effects = substrate_effect_directions(wells, options, &parameters, &residuals)
+        .map(|directions| ClusterEffects { directions });
+    let adjusted = cluster_leverage_adjusted_covariance(
+        &jacobian,
+        &residuals,
+        &clusters,
+        LeverageAdjustment::Jackknife,
+        effects.as_ref(),
+    );
+    let shared = shared_error_covariance(&jacobian, problem, wells, &options.shared_errors);
+    let shared_total = shared
+        .iter()
+        .map(|(covariance, _)| covariance)
+        .cloned()
+        .reduce(|a, b| a + b);
+    let clustered = adjusted
+        .as_ref()
+        .map(|reduced| reduced.covariance.clone())
+        .or_else(|| cluster_robust_covariance(&jacobian, &residuals, &clusters));
+    let by_well = clustered.map(|clustered| match &shared_total {
+        Some(shared) => clustered + shared,
+        None => clustered,
+    });
+    let leverage = adjusted.map(|adjusted| WellLeverage {
+        wells: adjusted.leverage,
+        clustered: adjusted.covariance,
+        shared,
+    });
     let well_quantile = (m >= 2).then(|| t_quantile_975(m - 1).ok()).flatten();
-    let leverage = WellLeverage::new(&jacobian, &clusters);
     let names = problem.parameter_names();
     let fitted: Vec<FittedParameter> = names
         .iter()
@@ -909,7 +947,7 @@ fn summarise(
                             .and_then(|l| {
                                 let mut contrast = vec![0.0; p];
                                 contrast[index] = 1.0;
-                                l.quantile(&contrast)
+                                l.quantile_975(&contrast)
                             })
                             .or(well_quantile),
                     )
@@ -936,7 +974,7 @@ fn summarise(
         contrast[1] = 1.0;
         let quantile = leverage
             .as_ref()
-            .and_then(|l| l.quantile(&contrast))
+            .and_then(|l| l.quantile_975(&contrast))
             .or(well_quantile)?;
         Some((well_se / model_se).powi(2) * quantile * quantile)
     });
@@ -973,20 +1011,51 @@ fn summarise(
     }
 }
 
-/// What the shared errors do to the estimates: `A C A^T`, `A = (J^T J)^-1 J^T L` (module docs of
-/// [`SharedSignalErrors`]); `None` without errors or when `J^T J` is singular.
+/// Each read's loading on its well's relative error in S0 (pipetting scales the whole curve):
+/// `d(projected residual) / d ln S0`, by a forward difference of 1e-6; `None` when the curves
+/// cannot be evaluated.
+fn substrate_effect_directions(
+    wells: &[WellCurve],
+    options: &GlobalFitOptions,
+    parameters: &[f64],
+    residuals: &[f64],
+) -> Option<Vec<f64>> {
+    const STEP: f64 = 1e-6;
+    let shifted: Vec<WellCurve> = wells
+        .iter()
+        .map(|well| WellCurve {
+            s0: well.s0 * (1.0 + STEP),
+            ..well.clone()
+        })
+        .collect();
+    let problem = ProgressProblem::new(&shifted, options);
+    let mut moved = vec![0.0; residuals.len()];
+    problem.residuals(parameters, &mut moved);
+    let directions: Vec<f64> = moved
+        .iter()
+        .zip(residuals)
+        .map(|(after, before)| (after - before) / STEP)
+        .collect();
+    directions.iter().all(|d| d.is_finite()).then_some(directions)
+}
+
+/// What the shared errors do to the estimates, block by block: `A_k C_k A_k^T`,
+/// `A_k = (J^T J)^-1 J^T L_k` (module docs of [`SharedSignalErrors`]), each with its block's degrees
+/// of freedom; empty without errors or when `J^T J` is singular.
 fn shared_error_covariance(
     jacobian: &DMatrix<f64>,
     problem: &ProgressProblem,
     wells: &[WellCurve],
     shared: &SharedSignalErrors,
-) -> Option<DMatrix<f64>> {
+) -> Vec<(DMatrix<f64>, f64)> {
     let k = shared.errors.len();
     if k == 0 {
-        return None;
+        return Vec::new();
     }
     let (n, p) = jacobian.shape();
-    let bread = asymptotic_covariance(jacobian, n.saturating_sub(p) as f64).covariance?;
+    let Some(bread) = asymptotic_covariance(jacobian, n.saturating_sub(p) as f64).covariance else {
+        return Vec::new();
+    };
     // J^T L, without forming L (n x k): each error touches the reads of the wells it weighs.
     let mut jt_l = DMatrix::<f64>::zeros(p, k);
     for (column, error) in shared.errors.iter().enumerate() {
@@ -1015,8 +1084,32 @@ fn shared_error_covariance(
             .unwrap_or(0.0)
     });
     let a = bread * jt_l;
-    let result = &a * covariance * a.transpose();
-    result.iter().all(|v| v.is_finite()).then_some(result)
+    // Errors outside any declared block count as one block of known variance.
+    let mut blocks = shared.blocks.clone();
+    let declared: usize = blocks.iter().map(|block| block.errors).sum();
+    if declared < k {
+        blocks.push(SharedErrorBlock {
+            errors: k - declared,
+            degrees_of_freedom: f64::INFINITY,
+        });
+    }
+    let mut at = 0;
+    let mut parts = Vec::with_capacity(blocks.len());
+    for block in blocks {
+        let size = block.errors.min(k - at);
+        if size == 0 {
+            continue;
+        }
+        let a_k = a.columns(at, size);
+        let c_k = covariance.view((at, at), (size, size));
+        let part = a_k * c_k * a_k.transpose();
+        if !part.iter().all(|v| v.is_finite()) {
+            return Vec::new();
+        }
+        parts.push((part, block.degrees_of_freedom));
+        at += size;
+    }
+    parts
 }
 
 fn well_diagnostics(
@@ -1365,30 +1458,32 @@ mod tests {
 
     #[test]
     fn effective_degrees_of_freedom_fall_when_few_wells_carry_a_constant() {
-        // A line through 6 wells of 3 reads: the intercept's information is spread evenly, so
-        // the dof reach the cap wells - 1 = 5; a slope fixed mostly by the two end wells gets
-        // fewer (Satterthwaite's (sum v)^2 / sum v^2, worked here from the closed form).
+        // A line through 6 wells of 3 reads: the mean of equal wells has exactly wells - 1 = 5
+        // degrees of freedom (the Bell-McCaffrey value for equal clusters: the clustered variance
+        // is then the ordinary variance of the wells' means); a slope fixed mostly by the two end
+        // wells gets fewer, and the t quantile follows.
         let x = [
             0.0, 0.0, 0.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 10.0, 10.0, 10.0,
         ];
         let jacobian = DMatrix::from_fn(18, 2, |row, column| if column == 0 { 1.0 } else { x[row] });
         let clusters: Vec<std::ops::Range<usize>> = (0..6).map(|g| 3 * g..3 * g + 3).collect();
-        let leverage = WellLeverage::new(&jacobian, &clusters).unwrap();
-        let slope = leverage.effective_dof(&[0.0, 1.0]).unwrap();
-        // By hand: B c for c = (0, 1) is (-xbar, 1) / Sxx; v_g = 3 (x_g - xbar)^2 / Sxx^2 with
-        // xbar = 42 / 18 = 7/3 and cluster x of 0, 1, 1, 1, 1, 10: v proportional to (x_g - 7/3)^2.
-        let parts: Vec<f64> = [0.0, 1.0, 1.0, 1.0, 1.0, 10.0]
-            .iter()
-            .map(|x: &f64| (x - 7.0 / 3.0).powi(2))
-            .collect();
-        let want = parts.iter().sum::<f64>().powi(2) / parts.iter().map(|v| v * v).sum::<f64>();
-        approx::assert_relative_eq!(slope, want, max_relative = 1e-10);
+        let residuals = [0.0; 18];
+        let leverage: crate::fit::ClusterLeverage =
+            crate::fit::cluster_bias_reduced_covariance(&jacobian, &residuals, &clusters, None)
+                .unwrap()
+                .leverage;
+        let slope = leverage.effective_degrees_of_freedom(&[0.0, 1.0]).unwrap();
         assert!(slope < 2.0, "{slope}");
         let even = DMatrix::from_element(18, 1, 1.0);
-        let mean = WellLeverage::new(&even, &clusters).unwrap();
-        assert_eq!(mean.effective_dof(&[1.0]), Some(5.0));
-        // The quantile follows: t(0.975) at fewer dof is wider.
-        assert!(leverage.quantile(&[0.0, 1.0]).unwrap() > mean.quantile(&[1.0]).unwrap());
+        let mean = crate::fit::cluster_bias_reduced_covariance(&even, &residuals, &clusters, None)
+            .unwrap()
+            .leverage;
+        approx::assert_relative_eq!(
+            mean.effective_degrees_of_freedom(&[1.0]).unwrap(),
+            5.0,
+            max_relative = 1e-12
+        );
+        assert!(leverage.quantile_975(&[0.0, 1.0]).unwrap() > mean.quantile_975(&[1.0]).unwrap());
     }
 
     #[test]
@@ -1458,7 +1553,7 @@ mod tests {
         let quantile = fit
             .well_leverage
             .as_ref()
-            .and_then(|l| l.quantile(&contrast))
+            .and_then(|l| l.quantile_975(&contrast))
             .unwrap();
         let scale = (km.se_by_well.unwrap() / km.se.unwrap()).powi(2) * quantile * quantile;
         let dof = fit.degrees_of_freedom as f64;

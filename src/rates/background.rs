@@ -99,6 +99,8 @@ pub struct BackgroundLaw {
     pub intercept: f64,
     /// Covariance `[[var slope, cov], [cov, var intercept]]`.
     pub covariance: [[f64; 2]; 2],
+    /// Degrees of freedom of the residual variance that scales it (controls - parameters).
+    pub degrees_of_freedom: f64,
 }
 
 /// Why a sample has no background.
@@ -342,6 +344,7 @@ fn first_order_model(
                         [var_slope, -mean_s * var_slope],
                         [-mean_s * var_slope, var_intercept],
                     ],
+                    degrees_of_freedom: (n - 2) as f64,
                 };
                 return Some(Background::Modelled {
                     law,
@@ -364,6 +367,7 @@ fn first_order_model(
             slope: k,
             intercept: 0.0,
             covariance: [[var_k, 0.0], [0.0, 0.0]],
+            degrees_of_freedom: (n - 1) as f64,
         },
         rate: k * substrate,
         se: substrate * (origin_variance / sum_ss).sqrt(),

@@ -54,6 +54,8 @@ pub enum BlankUncertainty {
         t_scale: f64,
         /// Covariance of the coefficients, AU^2.
         covariance: Vec<Vec<f64>>,
+        /// Degrees of freedom of the residual variance that scales it (reads - coefficients).
+        degrees_of_freedom: f64,
     },
     /// The blank wells' mean at each read, each with this variance (independent between reads).
     PerRead {
@@ -187,7 +189,11 @@ fn smooth_blank(times: &[f64], measured: &[Option<f64>], traces: &[&Readings]) -
     Some(SmoothBlank {
         degree,
         curve,
-        uncertainty: BlankUncertainty::Smooth { t_scale, covariance },
+        uncertainty: BlankUncertainty::Smooth {
+            t_scale,
+            covariance,
+            degrees_of_freedom: (n - degree - 1) as f64,
+        },
     })
 }
 
