@@ -1487,6 +1487,57 @@ mod tests {
     }
 
     #[test]
+    fn shared_errors_bring_their_own_degrees_of_freedom() {
+        // Satterthwaite's rule over the parts: a shared block as large as the wells' part and
+        // known exactly gives (2v)^2 / (v^2 / d) = 4 d; with d_k degrees of freedom of its own,
+        // 4 / (1 / d + 1 / d_k); a block that does not touch the contrast changes nothing.
+        let x = [
+            0.0, 0.0, 0.0, 1.0, 1.0, 1.0, 2.0, 2.0, 2.0, 3.0, 3.0, 3.0, 5.0, 5.0, 5.0, 8.0, 8.0, 8.0,
+        ];
+        let jacobian = DMatrix::from_fn(18, 2, |row, column| if column == 0 { 1.0 } else { x[row] });
+        let clusters: Vec<std::ops::Range<usize>> = (0..6).map(|g| 3 * g..3 * g + 3).collect();
+        let residuals: Vec<f64> = (0..18).map(|i| ((i * 7 % 5) as f64 - 2.0) * 0.01).collect();
+        let adjusted = cluster_leverage_adjusted_covariance(
+            &jacobian,
+            &residuals,
+            &clusters,
+            LeverageAdjustment::Jackknife,
+            None,
+        )
+        .unwrap();
+        let contrast = [0.0, 1.0];
+        let wells_dof = adjusted.leverage.effective_degrees_of_freedom(&contrast).unwrap();
+        let wells_variance = adjusted.covariance[(1, 1)];
+        let block = |variance: f64, other: f64| DMatrix::from_row_slice(2, 2, &[other, 0.0, 0.0, variance]);
+        let with = |shared: Vec<(DMatrix<f64>, f64)>| WellLeverage {
+            wells: adjusted.leverage.clone(),
+            clustered: adjusted.covariance.clone(),
+            shared,
+        };
+        let alone = with(Vec::new()).effective_dof(&contrast).unwrap();
+        approx::assert_relative_eq!(alone, wells_dof, max_relative = 1e-12);
+        let known = with(vec![(block(wells_variance, 0.0), f64::INFINITY)])
+            .effective_dof(&contrast)
+            .unwrap();
+        approx::assert_relative_eq!(known, 4.0 * wells_dof, max_relative = 1e-12);
+        let estimated = with(vec![(block(wells_variance, 0.0), 10.0)])
+            .effective_dof(&contrast)
+            .unwrap();
+        approx::assert_relative_eq!(estimated, 4.0 / (1.0 / wells_dof + 0.1), max_relative = 1e-12);
+        let elsewhere = with(vec![(block(0.0, 1.0), 2.0)])
+            .effective_dof(&contrast)
+            .unwrap();
+        approx::assert_relative_eq!(elsewhere, wells_dof, max_relative = 1e-12);
+        // More degrees of freedom, a shorter t.
+        assert!(
+            with(vec![(block(wells_variance, 0.0), f64::INFINITY)])
+                .quantile_975(&contrast)
+                .unwrap()
+                < with(Vec::new()).quantile_975(&contrast).unwrap()
+        );
+    }
+
+    #[test]
     fn projected_jacobian_matches_finite_differences() {
         // Analytic (implicit-differentiation / sensitivity) Jacobians of the projected residuals
         // against central differences (common practice).

@@ -445,11 +445,14 @@ mod tests {
                 rate,
                 levels,
                 with_intercept,
+                law,
                 ..
             } => {
                 assert!((rate - 1e-3).abs() < 1e-12, "{rate}");
                 assert_eq!(levels, 3);
                 assert!(!with_intercept);
+                // Through the origin: one parameter from three controls.
+                assert_eq!(law.degrees_of_freedom, 2.0);
             }
             other => panic!("{other:?}"),
         }
