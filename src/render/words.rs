@@ -156,7 +156,7 @@ pub fn verdict_words(tried: &ModelTried) -> String {
         ModelVerdict::Failed(message) => format!("failed: {message}"),
         ModelVerdict::NoFTest => "not needed: no F test possible".to_string(),
         ModelVerdict::Needed { name, p, aicc_drop } => format!(
-            "needed: {name} > 0 (95% interval excludes 0), F test p = {p:.2e}, AICc lower by {aicc_drop:.1}"
+            "needed: {name} > 0 (its 95% interval, clustered by well where it can be, excludes 0), F test p = {p:.2e}, AICc lower by {aicc_drop:.1}"
         ),
         ModelVerdict::Immaterial { name, value, p, effect } => format!(
             "not needed: {name} = {value:.3e} is detectable (F test p = {p:.1e}) but changes the rate by only {:.1}% over the read",
