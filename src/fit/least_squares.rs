@@ -1269,10 +1269,12 @@ pub fn cluster_jackknife_covariance(
 /// Why: a cluster's residuals are shrunk by its own pull on the fit; CR1 leaves that in (too
 /// small with a few tens of clusters of unequal leverage), and `(I - H_gg)^-1/2` undoes it exactly
 /// when the errors are independent with equal variance: then `E V = sigma^2 B` (CR3,
-/// `(I - H_gg)^-1`, overcorrects such errors; see [`LeverageAdjustment`] for when it does not). Everything is done in `p x p`: with `B = L L^T` (Cholesky)
-/// and `L^T J_g^T J_g L = U diag(mu) U^T`, `J_g^T f(H_gg) r_g = J_g^T r_g +
-/// L^-T U diag(f(mu) - 1) U^T L^T J_g^T r_g` for `f(mu) = (1 - mu)^-1/2` (a function of
-/// `Z Z^T`, `Z = J_g L`, acts as `f(0)` outside the span of `Z`).
+/// `(I - H_gg)^-1`, overcorrects such errors; see [`LeverageAdjustment`] for when it does not).
+/// Everything is done in `p x p`: with `B = L L^T` (Cholesky) and
+/// `L^T J_g^T J_g L = U diag(mu) U^T`,
+/// `J_g^T f(H_gg) r_g = J_g^T r_g + L^-T U diag(f(mu) - 1) U^T L^T J_g^T r_g` for
+/// `f(mu) = (1 - mu)^-1/2` (a function of `Z Z^T`, `Z = J_g L`, acts as `f(0)` outside the span
+/// of `Z`).
 ///
 /// A problem whose per-cluster offsets were projected out (centred within each cluster, as the
 /// progress fit's are) gives the same result: its Jacobian and residuals are orthogonal to each
@@ -1306,9 +1308,9 @@ pub fn cluster_bias_reduced_covariance(
 ///
 /// CR2 is exact when the errors within a cluster are independent with equal variance. When they
 /// lie along the directions the fit itself uses (a well's pipetting error in S0 moves its curve
-/// much as kcat and Km do), the fit takes up a share `mu` of them, not `mu / 2`, and CR3 undoes
-/// that where CR2 does not (on the realistic coverage design the progress Km's CR2 variance
-/// averaged 0.92 of the estimate's mean squared error, CR3's 0.98).
+/// much as kcat and Km do), the fit takes up a share `mu` of them, which CR3's `(1 - mu)^-1`
+/// undoes and CR2's `(1 - mu)^-1/2` only half undoes (on the realistic coverage design the
+/// progress Km's CR2 variance averaged 0.92 of the estimate's mean squared error, CR3's 0.98).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum LeverageAdjustment {
     /// CR2.
@@ -1480,7 +1482,8 @@ pub struct ClusterEffects {
 ///   every h, so `E sum_g |P_g r_g|^2 = sigma^2 sum_g (n_g - k_g)` whatever tau is;
 /// - tau^2 from `q_g = d_g^T r_g`: `E sum_g q_g^2 = sigma^2 sum_g c_g + tau^2 sum_g s_g` with
 ///   `c_g = d_g^T (I - H_gg) d_g = |d_g|^2 - y_g^T B y_g` (`y_g = J_g^T d_g`) and
-///   `s_g = sum_h (d_g^T (I - H)_{gh} d_h)^2 = c_g^2 - (y_g^T B y_g)^2 + y_g^T B (sum_h y_h y_h^T) B y_g`.
+///   `s_g = sum_h (d_g^T (I - H)_{gh} d_h)^2
+///   = c_g^2 - (y_g^T B y_g)^2 + y_g^T B (sum_h y_h y_h^T) B y_g`.
 ///
 /// 0 when the effects' estimate is not positive or sigma^2 cannot be had.
 ///

@@ -890,7 +890,7 @@ fn summarise(
     problem.residuals(&parameters, &mut residuals);
     let clusters: Vec<std::ops::Range<usize>> = problem.offsets.windows(2).map(|w| w[0]..w[1]).collect();
     // Each well's leverage undone (CR3: a well's S0 error moves its curve along the directions
-    // the fit uses, so the fit takes up a share mu of it, not the mu / 2 that CR2 undoes: CR2's
+    // the fit uses, so the fit takes up a share mu of it, which CR2 only half undoes: CR2's
     // realistic fast Km covered 92.1%; CR1 ran small with a few tens of wells), CR1 where leaving
     // a well out leaves a parameter undetermined. The wells' S0 errors also enter the working
     // model of the degrees of freedom (`WellLeverage`).
@@ -911,7 +911,7 @@ fn summarise(
         .reduce(|a, b| a + b);
     let clustered = adjusted
         .as_ref()
-        .map(|reduced| reduced.covariance.clone())
+        .map(|adjusted| adjusted.covariance.clone())
         .or_else(|| cluster_robust_covariance(&jacobian, &residuals, &clusters));
     let by_well = clustered.map(|clustered| match &shared_total {
         Some(shared) => clustered + shared,
