@@ -111,8 +111,8 @@ pub enum NoBackground {
     NoControls,
     /// Controls serve it, but every one is flagged.
     ControlsFlagged(Vec<(WellId, Vec<Flag>)>),
-    /// No first-order model can be made (controls at one other [S] only, or rates that do not follow
-    /// the law) and no control stands at the sample's [S].
+    /// No first-order model can be made (controls at one other [S] only, or rates that bend with
+    /// [S], rule 3) and no control stands at the sample's [S].
     NoControlAtLevel,
 }
 
