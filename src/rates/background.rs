@@ -278,7 +278,8 @@ fn bends_with_substrate(controls: &[(f64, f64, f64)], with_intercept: bool) -> b
 /// residuals), well errors alone rejected a straight law on a third of the coverage study's
 /// realistic plates, whose samples then took one control's slope with a standard error blind to
 /// them (DEVELOPERS.md). `None` without a residual degree of freedom; a t of 0 when the quadratic
-/// term moves no rate by more than 1e-9 of the largest (an exact line's rounding).
+/// term moves no rate by more than 1e-9 of the largest (an exact line's rounding); an infinite t
+/// for rates exactly on a bent curve.
 fn curvature_t(controls: &[(f64, f64, f64)], with_intercept: bool) -> Option<(f64, usize)> {
     let n = controls.len();
     let columns = if with_intercept { 3 } else { 2 };
@@ -302,8 +303,9 @@ fn curvature_t(controls: &[(f64, f64, f64)], with_intercept: bool) -> Option<(f6
         return Some((0.0, dof));
     }
     let standard_error = (variance * inverse[(columns - 1, columns - 1)]).sqrt();
+    // Controls exactly on a bent curve (no scatter at all) bend beyond any doubt: t is infinite.
     let t = curvature / standard_error;
-    t.is_finite().then_some((t, dof))
+    (!t.is_nan()).then_some((t, dof))
 }
 
 /// The first-order background model at `substrate` (module docs, rule 2); `None` with fewer than
@@ -640,6 +642,11 @@ mod tests {
             .collect();
         assert_eq!(curvature_t(&line, false).map(|(t, _)| t), Some(0.0));
         assert_eq!(curvature_t(&controls[..3], true), None);
+        // Exactly on a parabola, no scatter: it bends beyond doubt.
+        let parabola: Vec<(f64, f64, f64)> = (1..=5)
+            .map(|i| (f64::from(i), 1e-3 * f64::from(i * i), 1e-6))
+            .collect();
+        assert!(bends_with_substrate(&parabola, false));
     }
 
     /// Eight controls on a straight law through the origin, each off it by its own well error

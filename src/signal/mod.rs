@@ -9,10 +9,11 @@
 //! itself: the mean's own read-to-read noise would otherwise be subtracted from every well at once,
 //! an error all wells share that no fit could average away. The curve's uncertainty comes from the
 //! blank wells' own curves (their scatter between wells), which holds each well's own slow drift
-//! as well as its read noise; the reads' scatter about the curve holds only the noise. Only when the blank wells move
-//! together from read to read (a lamp flicker or a plate-wide shift: the variance of their mean
-//! around the smooth curve exceeds what their independent scatter allows, F test at the 1% level)
-//! is the mean at each read subtracted instead, since then it removes what every well shares.
+//! as well as its read noise; the reads' scatter about the curve holds only the noise. Only when
+//! the blank wells move together from read to read (a lamp flicker or a plate-wide shift: the
+//! variance of their mean around the smooth curve exceeds what their independent scatter allows,
+//! F test at the 1% level) is the mean at each read subtracted instead, since then it removes what
+//! every well shares.
 //! With one blank well the test cannot be made and the mean at each read is used (common
 //! practice).
 //!
@@ -980,8 +981,8 @@ mod tests {
     /// model): 4000 plates of six blank wells read every 20 s for 10 min, each well
     /// `0.05 + d_w t + e`, drift `d_w ~ N(0, (2e-6 AU/s)^2)`, read noise SD 0.002 AU. The mean
     /// slope's true variance is `(sigma^2 / Sxx + tau^2) / W`. The wells' own curves give it on
-    /// average (the read-level estimate gives half of it: sigma^2 / Sxx = tau^2 here), and the t interval on
-    /// `W - 1` degrees of freedom holds the true slope (0) about 95% of the time.
+    /// average (the read-level estimate gives half of it: sigma^2 / Sxx = tau^2 here), and the t
+    /// interval on `W - 1` degrees of freedom holds the true slope (0) about 95% of the time.
     #[test]
     fn the_blank_curves_uncertainty_holds_each_wells_own_drift() {
         use rand::SeedableRng;
