@@ -2139,6 +2139,14 @@ mod tests {
         }
     }
 
+    /// `(J^T J)^-1` and the residual maker `I - J (J^T J)^-1 J^T` of a test problem.
+    fn bread_and_annihilator(jacobian: &DMatrix<f64>) -> (DMatrix<f64>, DMatrix<f64>) {
+        let n = jacobian.nrows();
+        let bread = (jacobian.transpose() * jacobian).try_inverse().unwrap();
+        let annihilator = DMatrix::<f64>::identity(n, n) - jacobian * &bread * jacobian.transpose();
+        (bread, annihilator)
+    }
+
     /// Each cluster's effect direction on the unequal-leverage line (invented: rising within
     /// the cluster, as a pipetting error's share of a progress curve rises with time).
     fn effect_directions(clusters: &[std::ops::Range<usize>]) -> Vec<f64> {
@@ -2161,8 +2169,7 @@ mod tests {
         let n = jacobian.nrows();
         let directions = effect_directions(&clusters);
         // Residuals with a visible effect, so that the moment estimate of rho is positive.
-        let bread = (jacobian.transpose() * &jacobian).try_inverse().unwrap();
-        let annihilator = DMatrix::<f64>::identity(n, n) - &jacobian * &bread * jacobian.transpose();
+        let (bread, annihilator) = bread_and_annihilator(&jacobian);
         let raw = DVector::from_iterator(
             n,
             (0..n).map(|i| {
@@ -2235,8 +2242,7 @@ mod tests {
         let (jacobian, clusters) = unequal_leverage_line();
         let n = jacobian.nrows();
         let directions = effect_directions(&clusters);
-        let bread = (jacobian.transpose() * &jacobian).try_inverse().unwrap();
-        let annihilator = DMatrix::<f64>::identity(n, n) - &jacobian * &bread * jacobian.transpose();
+        let (_, annihilator) = bread_and_annihilator(&jacobian);
         let mut generator = rand_chacha::ChaCha8Rng::seed_from_u64(4122026);
         let normal = Normal::new(0.0, 1.0).unwrap();
         let (sigma, tau) = (0.1, 0.5);
@@ -2308,8 +2314,7 @@ mod tests {
         use rand_distr::{Distribution, Normal};
         let (jacobian, clusters) = unequal_leverage_line();
         let n = jacobian.nrows();
-        let bread = (jacobian.transpose() * &jacobian).try_inverse().unwrap();
-        let annihilator = DMatrix::<f64>::identity(n, n) - &jacobian * &bread * jacobian.transpose();
+        let (bread, annihilator) = bread_and_annihilator(&jacobian);
         let mut generator = rand_chacha::ChaCha8Rng::seed_from_u64(20261204);
         let normal = Normal::new(0.0, 1.0).unwrap();
         let draws = 4000;

@@ -1456,6 +1456,12 @@ mod tests {
         }
     }
 
+    /// A straight line `a + b x` over 18 reads in six wells of three: its Jacobian and wells.
+    fn line_over_six_wells(x: &[f64; 18]) -> (DMatrix<f64>, Vec<std::ops::Range<usize>>) {
+        let jacobian = DMatrix::from_fn(18, 2, |row, column| if column == 0 { 1.0 } else { x[row] });
+        (jacobian, (0..6).map(|g| 3 * g..3 * g + 3).collect())
+    }
+
     #[test]
     fn effective_degrees_of_freedom_fall_when_few_wells_carry_a_constant() {
         // A line through 6 wells of 3 reads: the mean of equal wells has exactly wells - 1 = 5
@@ -1465,8 +1471,7 @@ mod tests {
         let x = [
             0.0, 0.0, 0.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 10.0, 10.0, 10.0,
         ];
-        let jacobian = DMatrix::from_fn(18, 2, |row, column| if column == 0 { 1.0 } else { x[row] });
-        let clusters: Vec<std::ops::Range<usize>> = (0..6).map(|g| 3 * g..3 * g + 3).collect();
+        let (jacobian, clusters) = line_over_six_wells(&x);
         let residuals = [0.0; 18];
         let leverage: crate::fit::ClusterLeverage =
             crate::fit::cluster_bias_reduced_covariance(&jacobian, &residuals, &clusters, None)
@@ -1494,8 +1499,7 @@ mod tests {
         let x = [
             0.0, 0.0, 0.0, 1.0, 1.0, 1.0, 2.0, 2.0, 2.0, 3.0, 3.0, 3.0, 5.0, 5.0, 5.0, 8.0, 8.0, 8.0,
         ];
-        let jacobian = DMatrix::from_fn(18, 2, |row, column| if column == 0 { 1.0 } else { x[row] });
-        let clusters: Vec<std::ops::Range<usize>> = (0..6).map(|g| 3 * g..3 * g + 3).collect();
+        let (jacobian, clusters) = line_over_six_wells(&x);
         let residuals: Vec<f64> = (0..18).map(|i| ((i * 7 % 5) as f64 - 2.0) * 0.01).collect();
         let adjusted = cluster_leverage_adjusted_covariance(
             &jacobian,
